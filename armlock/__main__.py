@@ -1,0 +1,5 @@
+"""`python -m armlock` runs the CLI."""
+
+from .cli import main
+
+main()

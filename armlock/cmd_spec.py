@@ -1,0 +1,89 @@
+"""Commands about the spec itself: `armlock init` writes one, `armlock check` validates it."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import typer
+
+from assign import SpecError, check_lock, load_spec
+from assign.init import parse_arms, render_spec_toml
+from assign.spec import EXPERIMENT_PATTERN
+
+from .common import SPEC_HELP, warn_box
+
+
+def init(
+    name: str = typer.Argument(..., help="Experiment name: letters, digits, '.', '_' or '-'."),
+    holdout_share: float = typer.Option(0.5, "--holdout-share", help="Share of visitors held out from the vendor, e.g. 0.1 for 10%."),
+    arms: str = typer.Option(None, "--arms", help="All arms as NAME=SHARE,... (shares, N%% or Nbp), overriding --holdout-share; e.g. holdout=0.1,exposed_a=0.45,exposed_b=0.45."),
+    out: Path = typer.Option(None, "--out", "-o", help="Where to write the spec (default NAME.toml here)."),
+    force: bool = typer.Option(False, "--force", help="Overwrite an existing file."),
+) -> None:
+    """Write a new experiment spec with a fresh random salt.
+
+    The file is commented so it can be edited by hand before the test starts.
+
+    Example: armlock init spring-retargeting --holdout-share 0.1
+    """
+    import re
+
+    if not re.match(EXPERIMENT_PATTERN, name):
+        raise SpecError(f"experiment name {name!r}: use letters, digits, '.', '_' or '-' (at most 100), starting with a letter or digit")
+    try:
+        if arms:
+            arm_list = parse_arms(arms)
+        else:
+            if not 0 < holdout_share < 1:
+                raise ValueError(f"--holdout-share must be between 0 and 1, got {holdout_share}")
+            from assign.spec import share_to_basis_points
+
+            h = share_to_basis_points(holdout_share)
+            arm_list = [("holdout", h), ("exposed", 10_000 - h)]
+    except ValueError as exc:
+        raise SpecError(str(exc)) from None
+    target = out or Path(f"{name}.toml")
+    if target.exists() and not force:
+        raise SpecError(f"{target}: already exists; choose another --out or pass --force")
+    text = render_spec_toml(name, arm_list)
+    try:
+        target.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise SpecError(f"{target}: cannot write: {exc.strerror}") from None
+    spec = load_spec(target)
+    split = ", ".join(f"{a.name} {a.weight / 100:g}%" for a in spec.arms)
+    typer.echo(f"Wrote {target}  (arms: {split}; fingerprint {spec.fingerprint})")
+    typer.echo("Edit it now if needed; once the test starts, never change salt or weights.")
+
+
+def check(
+    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON."),
+) -> None:
+    """Validate a spec and print its fingerprint and lock status (does not record the lock).
+
+    Example: armlock check --spec spring-retargeting.toml
+    """
+    spec = load_spec(spec_path)
+    lock = check_lock(spec, spec_path, write=False)
+    info = {
+        "spec": str(spec_path), "valid": True, "experiment": spec.name, "fingerprint": spec.fingerprint,
+        "arms": [{"name": a.name, "weight": a.weight, "role": a.role} for a in spec.arms],
+        "start": spec.start.isoformat().replace("+00:00", "Z"),
+        "lock": {"path": str(lock.path), "status": "not yet recorded" if lock.recorded is None and lock.status == "recorded" else lock.status},
+    }
+    if as_json:
+        typer.echo(json.dumps(info, indent=2, ensure_ascii=False))
+    else:
+        typer.echo(f"{spec_path}: valid spec for experiment {spec.name!r}, fingerprint {spec.fingerprint}")
+        for a in spec.arms:
+            typer.echo(f"  {a.name:<20} {a.weight:>5} bp  {a.weight / 100:>6g}%  {a.role}")
+        typer.echo(f"  lock {lock.path.name}: {info['lock']['status']}")
+    if lock.warning:
+        warn_box(lock.warning)
+
+
+def register(app: typer.Typer) -> None:
+    app.command("init")(init)
+    app.command("check")(check)

@@ -1,0 +1,93 @@
+"""Arms for one id or for millions: the contract applied with no per-row overhead beyond the hash."""
+
+from __future__ import annotations
+
+from bisect import bisect_right
+from collections.abc import Iterable, Sequence
+from itertools import repeat
+
+import xxhash
+
+from .contract import SEED, SEPARATOR, bucket, bucket_of_hash, hash_thresholds, key_bytes
+from .spec import Spec
+
+_hash = xxhash.xxh64_intdigest
+_encode = str.encode
+
+
+def arm_for(spec: Spec, unit_id: str) -> str | None:
+    """The arm of one unit, or None for an empty id.
+
+    >>> from assign.spec import Spec
+    >>> s = Spec(name="t", salt="s1", start="2026-01-01T00:00:00Z",
+    ...          arms=[{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}])
+    >>> arm_for(s, "visitor-1") in ("holdout", "exposed")
+    True
+    """
+    if not isinstance(unit_id, str):
+        raise TypeError(
+            f"arm_for() takes a str unit id, got {type(unit_id).__name__}: {unit_id!r}; "
+            "ids are hashed byte-exact, so convert them to text the way your site stores them"
+        )
+    if unit_id == "":
+        return None
+    b = bucket(spec.salt, unit_id)
+    return spec.arm_names[bisect_right(spec.cumulative, b)]
+
+
+def _keys(salt: str, ids: Sequence[str]) -> list[bytes]:
+    prefix = salt + SEPARATOR
+    try:
+        return list(map(_encode, map(prefix.__add__, ids)))
+    except (TypeError, UnicodeEncodeError):
+        return [key_bytes(salt, u) if isinstance(u, str) else b"" for u in ids]
+
+
+def _missing_positions(ids: Sequence[object]) -> list[int]:
+    """Positions of ids that get no arm: None, '' and float NaN; anything else non-str is an error."""
+    out = []
+    for i, u in enumerate(ids):
+        if u.__class__ is str:
+            if u == "":
+                out.append(i)
+        elif u is None or (isinstance(u, float) and u != u):
+            out.append(i)
+        else:
+            raise TypeError(f"id at position {i} is {type(u).__name__} {u!r}, not str")
+    return out
+
+
+def hashes_many(salt: str, ids: Sequence[str]) -> list[int]:
+    """XXH64 (seed 42) of every salted key; meaningless for missing ids (see assign_many)."""
+    return list(map(_hash, _keys(salt, ids), repeat(SEED)))
+
+
+def assign_many(spec: Spec, ids: Iterable[str | None]) -> list[str | None]:
+    """Arms for many ids, in order; None, '' (and NaN) get None. Raises TypeError on other types."""
+    seq = ids if isinstance(ids, (list, tuple)) else list(ids)
+    thresholds = hash_thresholds(spec.cumulative)
+    if len(spec.arms) == 2:
+        t, a0, a1 = thresholds[0], spec.arm_names[0], spec.arm_names[1]
+        out: list[str | None] = [
+            a0 if h < t else a1 for h in map(_hash, _keys(spec.salt, seq), repeat(SEED))  # type: ignore[arg-type]
+        ]
+    else:
+        names = spec.arm_names
+        out = [names[bisect_right(thresholds, h)] for h in map(_hash, _keys(spec.salt, seq), repeat(SEED))]  # type: ignore[arg-type]
+    if not all(u.__class__ is str for u in seq) or "" in seq:
+        for i in _missing_positions(seq):
+            out[i] = None
+    return out
+
+
+def buckets_and_arms(spec: Spec, ids: Sequence[str | None]) -> tuple[list[int | None], list[str | None]]:
+    """Bucket and arm of every id (None for missing ids), for the `assign` command's output."""
+    hs = list(map(_hash, _keys(spec.salt, ids), repeat(SEED)))  # type: ignore[arg-type]
+    buckets: list[int | None] = [bucket_of_hash(h) for h in hs]
+    cum, names = spec.cumulative, spec.arm_names
+    arms: list[str | None] = [names[bisect_right(cum, b)] for b in buckets]  # type: ignore[arg-type]
+    if not all(u.__class__ is str for u in ids) or "" in ids:
+        for i in _missing_positions(ids):
+            buckets[i] = None
+            arms[i] = None
+    return buckets, arms

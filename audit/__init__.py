@@ -1,0 +1,1 @@
+"""armlock audit: logs -> sufficient statistics (engine) -> statistics -> verdicts -> reports."""

@@ -1,0 +1,103 @@
+"""The audit's result: checks with status, figures, tables and chart series; the JSON schema's source.
+
+This is the seam between the checks (which fill it) and the reports and history (which only read
+it). JSON output is `AuditReport.model_dump(mode="json")`, schema id `SCHEMA`; a change that
+removes or renames a field bumps the schema number.
+
+Chart series the HTML report draws (`Check.series[name]` is a list of row dicts):
+
+- check "srm",       series "daily":   {"date": "YYYY-MM-DD", "counts": {arm: cumulative units},
+                                        "p_fixed": float, "p_anytime": float}
+- check "leakage",   series "weekly":  {"week": "YYYY-MM-DD" (Monday), "holdout_units": int,
+                                        "holdout_share": float, "impressions": int, "clicks": int}
+- check "balance",   series "smd":     {"covariate": str, "level": str | None, "smd": float}
+- check "churn",     series "by_browser": {"browser": str, "customers": int, "multi_arm": int,
+                                        "share": float, "expected_share": float}
+- check "srm_segments", series "worst": {"segment": str, "value": str, "p": float, "p_holm": float}
+
+Figures (`Check.figures`) are the headline numbers kept in the history; each has a label and a
+unit, so "what changed since last run" can be said for any figure without knowing the check.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+SCHEMA = "armlock.audit/1"
+Status = Literal["pass", "warn", "fail", "skipped"]
+SEVERITY: dict[str, int] = {"skipped": 0, "pass": 0, "warn": 1, "fail": 2}
+Unit = Literal["count", "share", "p", "ratio", "number", "date", "text"]
+
+
+class Figure(BaseModel):
+    """One headline number: `label` reads in a sentence ("holdout leakage"), `unit` formats it."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    label: str
+    value: float | int | str | None
+    unit: Unit = "number"
+
+
+class Table(BaseModel):
+    """A small table for the terminal, markdown and HTML reports."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    title: str
+    columns: list[str]
+    rows: list[list[Any]]
+
+
+class Check(BaseModel):
+    """One check's outcome. `summary` is one plain sentence: what it means and what to do."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    id: str
+    title: str
+    status: Status
+    summary: str
+    reason: str | None = None  # why it was skipped
+    figures: dict[str, Figure] = Field(default_factory=dict)
+    tables: list[Table] = Field(default_factory=list)
+    series: dict[str, list[dict[str, Any]]] = Field(default_factory=dict)
+
+
+class ArmInfo(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    name: str
+    weight: int
+    role: str
+
+
+class AuditReport(BaseModel):
+    """The whole audit: verdict = the worst check's status (skipped counts as pass)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    schema_: str = Field(SCHEMA, alias="schema")
+    experiment: str
+    fingerprint: str
+    as_of: str  # YYYY-MM-DD
+    generated_at: str  # ISO 8601 UTC
+    armlock_version: str
+    arms: list[ArmInfo]
+    verdict: Status
+    verdict_text: str
+    input_notes: list[str] = Field(default_factory=list)  # e.g. "timestamps had no zone; read as UTC"
+    checks: list[Check]
+
+    model_config = ConfigDict(extra="forbid", populate_by_name=True)
+
+    def to_json_dict(self) -> dict[str, Any]:
+        return self.model_dump(mode="json", by_alias=True)
+
+
+def worst(statuses: list[str]) -> Status:
+    """The overall verdict: fail beats warn beats pass; skipped counts as pass."""
+    level = max((SEVERITY[s] for s in statuses), default=0)
+    return ("pass", "warn", "fail")[level]  # type: ignore[return-value]

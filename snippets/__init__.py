@@ -1,0 +1,1 @@
+"""Browser-side templates the snippet is rendered from (shipped inside the package)."""
