@@ -20,14 +20,25 @@ SEPARATOR = ":"
 _SPAN = 1 << 32
 
 
-def _lone_surrogate_to_fffd(err: UnicodeError) -> tuple[str, int]:
-    # A lone UTF-16 surrogate encodes as U+FFFD, as the browser's TextEncoder does.
+def _surrogates_as_javascript(err: UnicodeError) -> tuple[bytes, int]:
+    """Encode surrogates as a JavaScript string would: a high+low pair as its astral code point,
+    a lone surrogate as U+FFFD (what the browser's TextEncoder does)."""
     if not isinstance(err, UnicodeEncodeError):
         raise err
-    return "\ufffd" * (err.end - err.start), err.end
+    text, i, out = err.object, err.start, bytearray()
+    while i < err.end:
+        c = ord(text[i])
+        nxt = ord(text[i + 1]) if i + 1 < len(text) else 0
+        if 0xD800 <= c <= 0xDBFF and 0xDC00 <= nxt <= 0xDFFF:
+            out += chr(0x10000 + ((c - 0xD800) << 10) + (nxt - 0xDC00)).encode("utf-8")
+            i += 2
+        else:
+            out += b"\xef\xbf\xbd"
+            i += 1
+    return bytes(out), i
 
 
-codecs.register_error("armlock-fffd", _lone_surrogate_to_fffd)
+codecs.register_error("armlock-fffd", _surrogates_as_javascript)
 
 
 def key_bytes(salt: str, unit_id: str) -> bytes:
