@@ -110,24 +110,29 @@ class Spec(BaseModel):
             )
         return v.astimezone(timezone.utc) if v is not None else None
 
-    @model_validator(mode="after")
-    def _arms_ok(self) -> Spec:
-        names = [a.name for a in self.arms]
+    @field_validator("arms")
+    @classmethod
+    def _arms_ok(cls, arms: tuple[Arm, ...]) -> tuple[Arm, ...]:
+        names = [a.name for a in arms]
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
             raise ValueError(f"arm names must be unique; repeated: {', '.join(dup)}")
-        total = sum(a.weight for a in self.arms)
+        total = sum(a.weight for a in arms)
         if total != BUCKETS:
-            shown = " + ".join(str(a.weight) for a in self.arms)
+            shown = " + ".join(str(a.weight) for a in arms)
             raise ValueError(
                 f"arm weights must sum to {BUCKETS} basis points (100%); got {shown} = {total}"
             )
-        roles = {a.role for a in self.arms}
+        roles = {a.role for a in arms}
         if roles != {"holdout", "exposed"}:
             raise ValueError(
                 "a holdout test needs at least one arm with role = \"holdout\" and one with "
                 f"role = \"exposed\"; got roles {sorted(roles)}"
             )
+        return arms
+
+    @model_validator(mode="after")
+    def _dates_ok(self) -> Spec:
         if self.end is not None and self.end <= self.start:
             raise ValueError("end must be after start")
         return self
@@ -223,7 +228,13 @@ def _describe(err: dict[str, Any]) -> str:
             msg = "the experiment name is letters, digits, '.', '_' or '-' (at most 100)"
     if kind == "literal_error" and loc and loc[-1] == "role":
         msg = 'role must be "holdout" (the vendor may not reach it) or "exposed"'
+    if kind == "string_too_short" and loc == ("salt",):
+        msg = "the salt must not be empty (armlock init writes a random one)"
+    if kind == "too_short" and loc == ("arms",):
+        msg = "a test needs at least two arms (a holdout and an exposed arm)"
     given = err.get("input")
+    if isinstance(given, datetime):
+        given = given.isoformat()
     if kind not in ("missing",) and not isinstance(given, (dict, list, tuple)) and given is not None:
         msg += f" (got {given!r})"
     return msg
@@ -234,7 +245,14 @@ def spec_from_dict(data: dict[str, Any], source: str = "<spec>") -> Spec:
     try:
         return Spec.model_validate(data)
     except ValidationError as exc:
-        lines = [f"{source}: {_loc_path(tuple(e['loc']))}: {_describe(dict(e))}" for e in exc.errors()]
+        errors = exc.errors()
+        item_failed = any(len(e["loc"]) > 1 and e["loc"][0] == "arms" for e in errors)
+        lines = [
+            f"{source}: {_loc_path(tuple(e['loc']))}: {_describe(dict(e))}"
+            for e in errors
+            # a failed arm also makes the tuple "too short": say only the real problem
+            if not (item_failed and e["type"] == "too_short" and tuple(e["loc"]) == ("arms",))
+        ]
         raise SpecError("invalid experiment spec\n  " + "\n  ".join(lines)) from None
 
 
