@@ -1,0 +1,252 @@
+"""Week-by-week history of audit runs in one SQLite file, and what changed between two runs.
+
+One row per (spec fingerprint, as-of date): a rerun for the same date replaces its row. The file
+is never deleted or recreated once it exists; a corrupt, locked or newer-schema file is refused
+with a message naming it, so earlier rows are never lost.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import sqlite3
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from assign.errors import InputError
+
+from .model import AuditReport
+
+SCHEMA_VERSION = 1
+SUFFIX = ".history.sqlite"
+BUSY_TIMEOUT_S = 15.0
+_SQLITE_MAGIC = b"SQLite format 3\x00"
+
+_DDL = (
+    "CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL)",
+    "CREATE TABLE IF NOT EXISTS runs ("
+    " fingerprint TEXT NOT NULL, as_of TEXT NOT NULL, experiment TEXT NOT NULL,"
+    " verdict TEXT NOT NULL, recorded_at TEXT NOT NULL, checks TEXT NOT NULL,"
+    " figures TEXT NOT NULL, PRIMARY KEY (fingerprint, as_of))",
+)
+_UPSERT = (
+    "INSERT INTO runs (fingerprint, as_of, experiment, verdict, recorded_at, checks, figures)"
+    " VALUES (?, ?, ?, ?, ?, ?, ?)"
+    " ON CONFLICT (fingerprint, as_of) DO UPDATE SET experiment = excluded.experiment,"
+    " verdict = excluded.verdict, recorded_at = excluded.recorded_at,"
+    " checks = excluded.checks, figures = excluded.figures"
+)
+
+
+def default_history_path(spec_path: str | Path) -> Path:
+    """The history file beside the spec: `trial.toml` -> `trial.toml.history.sqlite`."""
+    p = Path(spec_path)
+    return p.with_name(p.name + SUFFIX)
+
+
+def row_from_report(report: AuditReport) -> dict[str, Any]:
+    """The history row of one report (the shape `load` returns, without `recorded_at`)."""
+    figures = {
+        f"{c.id}.{key}": {"label": f.label, "value": f.value, "unit": f.unit}
+        for c in report.checks
+        for key, f in c.figures.items()
+    }
+    checks = {c.id: {"title": c.title, "status": c.status} for c in report.checks}
+    return {"as_of": report.as_of, "experiment": report.experiment, "verdict": report.verdict,
+            "checks": checks, "figures": figures}
+
+
+def _locked(path: Path) -> InputError:
+    return InputError(f"history file {path} is locked by another armlock run; retry in a moment")
+
+
+def _corrupt(path: Path, detail: str) -> InputError:
+    return InputError(
+        f"history file {path} is not a readable armlock history ({detail}); it was left untouched. "
+        "Move it aside or pass another --history PATH")
+
+
+def _check_header(path: Path) -> None:
+    """Refuse a file that is not SQLite before sqlite3 can write anything into it."""
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(len(_SQLITE_MAGIC))
+    except OSError as exc:
+        raise InputError(f"history file {path}: cannot read: {exc.strerror}") from None
+    if head and head != _SQLITE_MAGIC:
+        raise _corrupt(path, "not an SQLite database")
+
+
+def _check_version(conn: sqlite3.Connection, path: Path) -> None:
+    row = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
+    if row is None:
+        raise _corrupt(path, "no schema version in its meta table")
+    try:
+        version = int(row[0])
+    except ValueError:
+        raise _corrupt(path, f"schema version {row[0]!r} is not a number") from None
+    if version > SCHEMA_VERSION:
+        raise InputError(
+            f"history file {path} has schema version {version}, newer than this armlock reads "
+            f"({SCHEMA_VERSION}); upgrade armlock, or pass another --history PATH")
+
+
+def _connect(path: Path, *, read_only: bool) -> sqlite3.Connection:
+    if read_only:
+        uri = path.resolve().as_uri() + "?mode=ro"
+        conn = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT_S, isolation_level=None)
+    else:
+        conn = sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)
+    conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+    return conn
+
+
+def _db_error(exc: sqlite3.Error, path: Path) -> InputError:
+    text = str(exc).lower()
+    if "locked" in text or "busy" in text:
+        return _locked(path)
+    if "not a database" in text or "malformed" in text or "no such table" in text:
+        return _corrupt(path, str(exc))
+    return InputError(f"history file {path}: {exc}")
+
+
+def record(path: str | Path, report: AuditReport) -> None:
+    """Keep one run's verdict, check statuses and figures; replaces the row of the same as-of date."""
+    path = Path(path)
+    if path.exists():
+        _check_header(path)
+    elif not path.parent.is_dir():
+        raise InputError(f"history file {path}: folder {path.parent} does not exist")
+    row = row_from_report(report)
+    now = datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    try:
+        conn = _connect(path, read_only=False)
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    try:
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+            if tables and "meta" not in tables:
+                raise _corrupt(path, "an SQLite database of something else: it has no meta table")
+            for ddl in _DDL:
+                conn.execute(ddl)
+            conn.execute("INSERT OR IGNORE INTO meta (key, value) VALUES ('schema_version', ?)",
+                         (str(SCHEMA_VERSION),))
+            _check_version(conn, path)
+            conn.execute(_UPSERT, (report.fingerprint, row["as_of"], row["experiment"],
+                                   row["verdict"], now, json.dumps(row["checks"]),
+                                   json.dumps(row["figures"])))
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        conn.execute("COMMIT")
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    finally:
+        conn.close()
+
+
+def load(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
+    """Every recorded run of one spec, oldest as-of first; `[]` when the file does not exist."""
+    path = Path(path)
+    if not path.exists():
+        return []
+    _check_header(path)
+    if path.stat().st_size == 0:
+        return []
+    try:
+        conn = _connect(path, read_only=True)
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    try:
+        _check_version(conn, path)
+        rows = conn.execute(
+            "SELECT as_of, experiment, verdict, recorded_at, checks, figures FROM runs"
+            " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,)).fetchall()
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    finally:
+        conn.close()
+    out = []
+    for as_of, experiment, verdict, recorded_at, checks, figures in rows:
+        try:
+            out.append({"as_of": as_of, "experiment": experiment, "verdict": verdict,
+                        "recorded_at": recorded_at, "checks": json.loads(checks),
+                        "figures": json.loads(figures)})
+        except json.JSONDecodeError as exc:
+            raise _corrupt(path, f"row for as-of {as_of} is not valid JSON: {exc.msg}") from None
+    return out
+
+
+# --- what changed --------------------------------------------------------------------------------
+
+def format_value(value: Any, unit: str) -> str:
+    """A figure's value as a person reads it: shares in %, counts with separators, p in 2 digits."""
+    if value is None:
+        return "n/a"
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return str(value)
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    if unit == "share":
+        pct = value * 100
+        return f"{pct:.2g}%" if 0 < abs(pct) < 1 else f"{pct:.1f}%"
+    if unit == "count":
+        return f"{value:,.0f}"
+    if unit == "p":
+        return f"{value:.2g}" if value >= 0.001 else f"{value:.1e}"
+    if unit == "ratio":
+        return f"{value:.3f}"
+    return f"{value:.3g}" if isinstance(value, float) else f"{value:,}"
+
+
+def _meaningful(old: Any, new: Any, unit: str) -> bool:
+    """Whether a move from `old` to `new` deserves a sentence (thresholds: common practice)."""
+    if old is None or new is None or unit in ("date", "text"):
+        return old != new
+    if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (old, new)):
+        return old != new
+    if unit == "p":  # p-values: an order of magnitude, or crossing into/out of tiny values
+        lo, hi = max(min(old, new), 1e-300), max(old, new, 1e-300)
+        return math.log10(hi) - math.log10(lo) >= 1
+    if unit == "share":  # at least 0.1 percentage point and a fifth of the old value
+        return abs(new - old) >= 0.001 and abs(new - old) >= 0.2 * abs(old)
+    if old == 0 or new == 0:
+        return old != new
+    return abs(new - old) >= 0.2 * abs(old)  # counts, ratios, numbers: a fifth or more
+
+
+def _as_row(run: AuditReport | dict[str, Any]) -> dict[str, Any]:
+    return row_from_report(run) if isinstance(run, AuditReport) else run
+
+
+def changes(previous: dict[str, Any], current: AuditReport | dict[str, Any]) -> list[str]:
+    """Plain sentences for what changed between two runs: verdict, check statuses, then figures."""
+    prev, cur = _as_row(previous), _as_row(current)
+    out: list[str] = []
+    if prev.get("verdict") != cur.get("verdict"):
+        out.append(f"the verdict went from {prev.get('verdict')} to {cur.get('verdict')}")
+    pchecks, cchecks = prev.get("checks", {}), cur.get("checks", {})
+    for cid, info in cchecks.items():
+        old = pchecks.get(cid)
+        if old is not None and old.get("status") != info.get("status"):
+            out.append(f"check “{info.get('title', cid)}” went from {old.get('status')} "
+                       f"to {info.get('status')}")
+    pfig = prev.get("figures", {})
+    for key, fig in cur.get("figures", {}).items():
+        old = pfig.get(key)
+        if old is None:
+            continue
+        unit = fig.get("unit", "number")
+        a, b = old.get("value"), fig.get("value")
+        if not _meaningful(a, b, unit):
+            continue
+        label = fig.get("label", key)
+        if isinstance(a, (int, float)) and isinstance(b, (int, float)) and unit not in ("date", "text"):
+            verb = "rose" if b > a else "fell"
+        else:
+            verb = "changed"
+        out.append(f"{label} {verb} from {format_value(a, unit)} to {format_value(b, unit)}")
+    return out

@@ -1,0 +1,437 @@
+"""The audit as one self-contained HTML page: verdict, a section per check, inline SVG charts.
+
+No network: styles are inline and charts are matplotlib SVG written into the page. Every value
+that comes from the data goes through `html.escape` (ids may contain markup); text inside the
+charts is escaped by matplotlib's SVG writer, and mathtext parsing is off so `$` is literal.
+"""
+
+from __future__ import annotations
+
+import html
+import io
+import math
+import re
+from datetime import date
+from typing import Any
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+from matplotlib.figure import Figure as MplFigure  # noqa: E402
+
+from assign.spec_audit import AuditThresholds  # noqa: E402
+
+from .history import changes, format_value, row_from_report  # noqa: E402
+from .model import AuditReport, Check  # noqa: E402
+
+# Our palette. Text colours reach WCAG AA (>= 4.5:1) on their backgrounds.
+INK, PAPER, CARD, RULE, MUTED = "#1d2528", "#f6f3ee", "#ffffff", "#d8d2c8", "#4f5a5e"
+ACCENT = "#0c5c66"
+ARM_COLOURS = ["#b4471f", "#1f5f8b", "#5b7a1a", "#7a3e86", "#8a6d00", "#2f6f5e"]
+BAND = "#e6dccd"
+STATUS_STYLE: dict[str, tuple[str, str, str]] = {  # word, text colour, background
+    "pass": ("Healthy", "#17603a", "#e3f2e8"),
+    "warn": ("Needs a look", "#7a4d00", "#fdf0d5"),
+    "fail": ("Broken", "#9e1f24", "#fbe4e3"),
+    "skipped": ("Not checked", "#4a4a4a", "#ececec"),
+}
+_ICON = {  # shape differs by status too, never colour alone
+    "pass": '<circle cx="8" cy="8" r="7"/><path d="M4.5 8.3l2.3 2.3 4.7-5" fill="none" stroke="#fff" stroke-width="2"/>',
+    "warn": '<path d="M8 1l7.5 13.5h-15z"/><path d="M8 5.5v4.5M8 11.6v1.4" stroke="#fff" stroke-width="1.8"/>',
+    "fail": '<path d="M5 1h6l4 4v6l-4 4h-6l-4-4v-6z"/><path d="M5.3 5.3l5.4 5.4M10.7 5.3l-5.4 5.4" stroke="#fff" stroke-width="1.9"/>',
+    "skipped": '<rect x="1" y="1" width="14" height="14" rx="3"/><path d="M4.5 8h7" stroke="#fff" stroke-width="2"/>',
+}
+_VERDICT_WORDS = {
+    "pass": "The split looks healthy.",
+    "warn": "The split needs a look: at least one check warns.",
+    "fail": "The split is broken: at least one check fails. Fix it before reading any results.",
+}
+CHART_CHECKS = {"srm", "leakage", "balance", "churn"}
+
+_RC = {
+    "svg.fonttype": "none",  # text stays text: small, selectable, escaped by the writer
+    "text.parse_math": False,  # a `$` in an id is shown, never parsed
+    "font.family": "sans-serif",
+    "font.size": 10,
+    "axes.edgecolor": MUTED,
+    "axes.labelcolor": INK,
+    "axes.titlesize": 11,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "xtick.color": MUTED,
+    "ytick.color": MUTED,
+    "text.color": INK,
+    "axes.grid": True,
+    "grid.color": "#e9e4dc",
+    "grid.linewidth": 0.8,
+    "legend.frameon": False,
+    "figure.facecolor": "none",
+    "axes.facecolor": "none",
+}
+
+
+def esc(value: Any) -> str:
+    """Any value as HTML text (quotes included, so it is safe in attributes too)."""
+    return html.escape(str(value), quote=True)
+
+
+# --- charts --------------------------------------------------------------------------------------
+
+def _svg(fig: MplFigure, chart_id: str, caption: str) -> str:
+    """The figure as inline SVG: no prolog, scalable, ids unique to this chart, deterministic."""
+    buf = io.StringIO()
+    with matplotlib.rc_context({"svg.hashsalt": f"armlock-{chart_id}", "svg.id": f"chart-{chart_id}"}):
+        fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None}, bbox_inches="tight")
+    plt.close(fig)
+    text = buf.getvalue()
+    text = text[text.index("<svg"):]
+    text = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
+                  rf'<svg\1 role="img" aria-label="{esc(caption)}" data-chart="{esc(chart_id)}" class="chart"',
+                  text, count=1)
+    return text
+
+
+def _dates(values: list[str]) -> list[date]:
+    return [date.fromisoformat(str(v)[:10]) for v in values]
+
+
+def _log_axis(ax: Any) -> None:
+    """Log scale with plain tick labels (mathtext is off, so the default labels would show raw TeX)."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    ax.set_yscale("log")
+    ax.yaxis.set_major_locator(LogLocator(base=10, numticks=8))
+    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+    ax.yaxis.set_minor_formatter(NullFormatter())
+
+
+def _date_axis(ax: Any) -> None:
+    import matplotlib.dates as mdates
+
+    loc = mdates.AutoDateLocator(minticks=3, maxticks=7)
+    ax.xaxis.set_major_locator(loc)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(loc))
+
+
+def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], chart_id: str) -> str:
+    """Cumulative share of each arm by day against its expected share, with a ±3 SE band."""
+    days = _dates([r["date"] for r in rows])
+    totals = [max(sum(r["counts"].values()), 1) for r in rows]
+    fig, axes = plt.subplots(len(arms), 1, figsize=(7.2, 1.9 * len(arms) + 0.4), sharex=True, squeeze=False)
+    for i, ((name, theta), ax) in enumerate(zip(arms, axes[:, 0])):
+        colour = ARM_COLOURS[i % len(ARM_COLOURS)]
+        share = [r["counts"].get(name, 0) / n * 100 for r, n in zip(rows, totals)]
+        se = [3 * math.sqrt(theta * (1 - theta) / n) * 100 for n in totals]
+        ax.fill_between(days, [theta * 100 - s for s in se], [theta * 100 + s for s in se],
+                        color=BAND, lw=0, label="expected ±3 SE", step=None)
+        ax.axhline(theta * 100, color=INK, lw=1, ls=(0, (4, 3)), label=f"expected {theta * 100:g}%")
+        ax.plot(days, share, color=colour, lw=2, marker="o", ms=2.5, label=f"observed: {name}")
+        lo = min(min(share), theta * 100 - se[-1] * 4)
+        hi = max(max(share), theta * 100 + se[-1] * 4)
+        ax.set_ylim(lo - 0.05 * (hi - lo), hi + 0.05 * (hi - lo))
+        ax.set_ylabel("share %")
+        ax.set_title(f"arm {name}", loc="left")
+        ax.legend(loc="upper right", fontsize=8, ncol=3)
+    _date_axis(axes[-1, 0])
+    fig.tight_layout()
+    return _svg(fig, chart_id, "Cumulative arm share by day against the expected share")
+
+
+def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, chart_id: str) -> str:
+    """The fixed-horizon and anytime-valid SRM p-value paths on a log scale with their thresholds."""
+    days = _dates([r["date"] for r in rows])
+    floor = 1e-300
+    fig, ax = plt.subplots(figsize=(7.2, 3.0))
+    fixed = [max(float(r["p_fixed"]), floor) for r in rows]
+    anytime = [max(float(r["p_anytime"]), floor) for r in rows]
+    ax.plot(days, fixed, color=ARM_COLOURS[1], lw=2, marker="s", ms=2.5, label="fixed-horizon p (chi-square)")
+    ax.plot(days, anytime, color=ARM_COLOURS[0], lw=2, ls=(0, (6, 2)), marker="^", ms=3,
+            label="anytime-valid p (sequential)")
+    ax.axhline(p_fixed, color=ARM_COLOURS[1], lw=1, ls=":", label=f"fixed threshold {p_fixed:g}")
+    ax.axhline(p_anytime, color=ARM_COLOURS[0], lw=1, ls="-.", label=f"anytime threshold {p_anytime:g}")
+    _log_axis(ax)
+    low = min(min(fixed), min(anytime), p_fixed) / 10
+    ax.set_ylim(max(low, floor), 1.5)
+    ax.set_ylabel("p-value (log scale)")
+    ax.legend(loc="lower left", fontsize=8, ncol=2)
+    _date_axis(ax)
+    fig.tight_layout()
+    return _svg(fig, chart_id, "SRM p-value paths, fixed-horizon and anytime-valid, on a log scale")
+
+
+def chart_leakage(rows: list[dict[str, Any]], chart_id: str) -> str:
+    """Share of holdout units reached by the vendor, week by week."""
+    weeks = [str(r["week"])[:10] for r in rows]
+    share = [float(r.get("holdout_share") or 0) * 100 for r in rows]
+    fig, ax = plt.subplots(figsize=(7.2, 2.8))
+    bars = ax.bar(range(len(weeks)), share, color=ARM_COLOURS[0], width=0.7, label="holdout units reached")
+    for b, r in zip(bars, rows):
+        if r.get("holdout_units"):
+            ax.annotate(f"{int(r['holdout_units']):,}", (b.get_x() + b.get_width() / 2, b.get_height()),
+                        ha="center", va="bottom", fontsize=7, color=MUTED, xytext=(0, 2),
+                        textcoords="offset points")
+    ax.set_xticks(range(len(weeks)), [w[5:] for w in weeks], rotation=0, fontsize=8)
+    ax.set_xlabel("week starting (month-day)")
+    ax.set_ylabel("% of holdout reached")
+    ax.set_ylim(0, max(max(share, default=0) * 1.25, 0.5))
+    ax.grid(axis="x", visible=False)
+    fig.tight_layout()
+    return _svg(fig, chart_id, "Holdout leakage by week: share of holdout units the vendor reached")
+
+
+def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str) -> str:
+    """Love plot: each covariate's standardized mean difference, with the ±line limits."""
+    labels = [f"{r['covariate']}" + (f" = {r['level']}" if r.get("level") not in (None, "") else "") for r in rows]
+    smd = [float(r["smd"]) for r in rows]
+    fig, ax = plt.subplots(figsize=(7.2, 0.8 + 0.32 * max(len(rows), 2)))
+    y = list(range(len(rows)))[::-1]
+    ok = [(yy, s) for yy, s in zip(y, smd) if abs(s) <= line]
+    bad = [(yy, s) for yy, s in zip(y, smd) if abs(s) > line]
+    ax.axvspan(-line, line, color=BAND, lw=0)
+    for v in (-line, line):
+        ax.axvline(v, color=INK, lw=1, ls=(0, (4, 3)))
+    ax.axvline(0, color=MUTED, lw=0.8)
+    if ok:
+        ax.scatter([s for _, s in ok], [yy for yy, _ in ok], marker="o", s=30, color=ARM_COLOURS[1],
+                   label=f"|SMD| ≤ {line:g}", zorder=3)
+    if bad:
+        ax.scatter([s for _, s in bad], [yy for yy, _ in bad], marker="D", s=36, color=ARM_COLOURS[0],
+                   label=f"|SMD| > {line:g}", zorder=3)
+    ax.set_yticks(y, labels, fontsize=8)
+    reach = max([abs(s) for s in smd] + [line * 1.6])
+    ax.set_xlim(-reach * 1.1, reach * 1.1)
+    ax.set_xlabel("standardized mean difference (exposed − holdout)")
+    ax.grid(axis="y", visible=False)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
+    fig.tight_layout()
+    return _svg(fig, chart_id, "Love plot of standardized mean differences with the ±0.1 lines")
+
+
+def chart_churn(rows: list[dict[str, Any]], chart_id: str) -> str:
+    """Share of customers seen in more than one arm, by browser family, observed against expected."""
+    names = [str(r["browser"]) for r in rows]
+    obs = [float(r.get("share") or 0) * 100 for r in rows]
+    exp = [float(r.get("expected_share") or 0) * 100 for r in rows]
+    fig, ax = plt.subplots(figsize=(7.2, 0.9 + 0.45 * max(len(rows), 2)))
+    y = list(range(len(rows)))[::-1]
+    h = 0.38
+    ax.barh([v + h / 2 for v in y], obs, height=h, color=ARM_COLOURS[0], label="observed")
+    ax.barh([v - h / 2 for v in y], exp, height=h, color=BAND, edgecolor=MUTED, hatch="///", lw=0.6,
+            label="expected")
+    ax.set_yticks(y, names, fontsize=8)
+    ax.set_xlabel("% of logged-in customers seen in more than one arm")
+    ax.grid(axis="y", visible=False)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
+    fig.tight_layout()
+    return _svg(fig, chart_id, "Identity churn by browser family, observed against expected")
+
+
+_STATUS_MARK = {"pass": ("o", "#17603a"), "warn": ("^", "#9a6200"), "fail": ("X", "#9e1f24"), "skipped": ("s", "#777")}
+
+
+def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
+    """The verdict of each run as shaped marks, and the headline figures that moved, over time."""
+    days = _dates([r["as_of"] for r in runs])
+    keys = []
+    for key, fig0 in runs[-1]["figures"].items():
+        vals = [r["figures"].get(key, {}).get("value") for r in runs]
+        nums = [v for v in vals if isinstance(v, (int, float)) and not isinstance(v, bool)]
+        if fig0.get("unit") in ("share", "p", "ratio") and len(set(nums)) > 1:
+            keys.append(key)
+    keys = keys[:4]
+    fig, axes = plt.subplots(1 + len(keys), 1, figsize=(7.2, 1.2 + 1.6 * len(keys)), sharex=True,
+                             squeeze=False, gridspec_kw={"height_ratios": [0.6] + [1] * len(keys)})
+    ax = axes[0, 0]
+    for status, (marker, colour) in _STATUS_MARK.items():
+        pts = [d for d, r in zip(days, runs) if r["verdict"] == status]
+        if pts:
+            ax.scatter(pts, [0] * len(pts), marker=marker, s=70, color=colour,
+                       label=STATUS_STYLE[status][0], zorder=3)
+    ax.set_yticks([])
+    ax.set_title("verdict of each run", loc="left")
+    ax.legend(loc="center left", bbox_to_anchor=(1.0, 0.5), fontsize=8)
+    for (key, ax) in zip(keys, axes[1:, 0]):
+        unit = runs[-1]["figures"][key].get("unit")
+        pts = [(d, r["figures"].get(key, {}).get("value")) for d, r in zip(days, runs)]
+        pts = [(d, float(v)) for d, v in pts if isinstance(v, (int, float)) and not isinstance(v, bool)]
+        scale = 100 if unit == "share" else 1
+        ax.plot([d for d, _ in pts], [max(v * scale, 1e-300) if unit == "p" else v * scale for _, v in pts],
+                color=ACCENT, lw=2, marker="o", ms=3)
+        if unit == "p":
+            _log_axis(ax)
+        ax.set_title(runs[-1]["figures"][key].get("label", key) + (" (%)" if unit == "share" else ""),
+                     loc="left", fontsize=9)
+    if len(days) <= 13:
+        axes[-1, 0].set_xticks(days, [d.strftime("%m-%d") for d in days], fontsize=8)
+    else:
+        _date_axis(axes[-1, 0])
+    fig.tight_layout()
+    return _svg(fig, chart_id, "History: verdict and headline figures of each recorded run")
+
+
+# --- page ----------------------------------------------------------------------------------------
+
+def badge(status: str) -> str:
+    word, fg, bg = STATUS_STYLE.get(status, STATUS_STYLE["skipped"])
+    return (f'<span class="badge" data-status="{esc(status)}" style="color:{fg};background:{bg}">'
+            f'<svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{_ICON.get(status, _ICON["skipped"])}</svg>'
+            f'{esc(word)}</span>')
+
+
+def _cell(v: Any) -> str:
+    if isinstance(v, float):
+        if not math.isfinite(v):
+            return esc(v)
+        return esc(f"{v:.4g}" if abs(v) >= 1e-3 or v == 0 else f"{v:.2e}")
+    if isinstance(v, int) and not isinstance(v, bool):
+        return esc(f"{v:,}")
+    return esc("" if v is None else v)
+
+
+def _table(t: Any) -> str:
+    head = "".join(f"<th scope=\"col\">{esc(c)}</th>" for c in t.columns)
+    body = "".join("<tr>" + "".join(f"<td>{_cell(v)}</td>" for v in row) + "</tr>" for row in t.rows)
+    return (f'<div class="tablewrap"><table><caption>{esc(t.title)}</caption>'
+            f"<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>")
+
+
+def _figures(check: Check) -> str:
+    if not check.figures:
+        return ""
+    items = "".join(f"<div><dt>{esc(f.label)}</dt><dd>{esc(format_value(f.value, f.unit))}</dd></div>"
+                    for f in check.figures.values())
+    return f'<dl class="figures">{items}</dl>'
+
+
+def _charts_for(check: Check, report: AuditReport, th: AuditThresholds) -> list[str]:
+    s, cid = check.series, check.id
+    out = []
+    total_w = sum(a.weight for a in report.arms) or 1
+    if cid == "srm" and s.get("daily"):
+        arms = [(a.name, a.weight / total_w) for a in report.arms]
+        out.append(chart_arm_share(s["daily"], arms, "arm-share"))
+        if all("p_fixed" in r and "p_anytime" in r for r in s["daily"]):
+            out.append(chart_srm_p(s["daily"], th.srm_p, th.srm_anytime_p, "srm-p"))
+    elif cid == "leakage" and s.get("weekly"):
+        out.append(chart_leakage(s["weekly"], "leakage"))
+    elif cid == "balance" and s.get("smd"):
+        out.append(chart_love(s["smd"], th.smd_warn, "love"))
+    elif cid == "churn" and s.get("by_browser"):
+        out.append(chart_churn(s["by_browser"], "churn"))
+    return out
+
+
+def _section(check: Check, report: AuditReport, th: AuditThresholds) -> str:
+    charts = "".join(f"<figure>{svg}</figure>" for svg in _charts_for(check, report, th))
+    reason = f'<p class="reason">Skipped: {esc(check.reason)}</p>' if check.reason else ""
+    tables = "".join(_table(t) for t in check.tables)
+    return (f'<section class="check s-{esc(check.status)}" id="check-{esc(check.id)}" data-check="{esc(check.id)}">'
+            f'<header><h2>{esc(check.title)}</h2>{badge(check.status)}</header>'
+            f'<p class="summary">{esc(check.summary)}</p>{reason}{_figures(check)}{charts}{tables}</section>')
+
+
+def _history_section(report: AuditReport, history: list[dict[str, Any]] | None) -> str:
+    runs = [r for r in (history or []) if r.get("as_of") != report.as_of]
+    runs = sorted(runs + [row_from_report(report)], key=lambda r: r["as_of"])
+    earlier = [r for r in runs if r["as_of"] < report.as_of]
+    if not earlier:
+        body = '<p class="summary">No earlier run is recorded for this spec yet. Record runs with ' \
+               '<code>armlock audit --record</code> to see the week-by-week trend here.</p>'
+        return f'<section class="check" id="history" data-check="history"><header><h2>Change since the last run</h2></header>{body}</section>'
+    prev = earlier[-1]
+    said = changes(prev, report)
+    items = "".join(f"<li>{esc(s[0].upper() + s[1:])}.</li>" for s in said) or "<li>Nothing meaningful changed.</li>"
+    chart = f"<figure>{chart_history(runs, 'history')}</figure>" if len(runs) >= 2 else ""
+    rows = "".join(f"<tr><td>{esc(r['as_of'])}</td><td>{badge(r['verdict'])}</td></tr>" for r in runs[::-1][:12])
+    table = (f'<div class="tablewrap"><table><caption>Recorded runs (newest first)</caption>'
+             f"<thead><tr><th scope=\"col\">as of</th><th scope=\"col\">verdict</th></tr></thead><tbody>{rows}</tbody></table></div>")
+    return (f'<section class="check" id="history" data-check="history"><header><h2>Change since the last run</h2></header>'
+            f'<p class="summary">Compared with the run as of {esc(prev["as_of"])} ({len(runs)} runs recorded):</p>'
+            f"<ul class=\"changes\">{items}</ul>{chart}{table}</section>")
+
+
+CSS = f"""
+:root {{ color-scheme: light; }}
+* {{ box-sizing: border-box; }}
+body {{ margin: 0; background: {PAPER}; color: {INK}; font: 16px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif; }}
+main {{ max-width: 56rem; margin: 0 auto; padding: 1rem; }}
+.top {{ border-left: 6px solid {ACCENT}; padding: .25rem 0 .25rem 1rem; margin: .5rem 0 1rem; }}
+.top h1 {{ font-size: 1.5rem; margin: 0; overflow-wrap: anywhere; }}
+.top p {{ margin: .2rem 0; color: {MUTED}; overflow-wrap: anywhere; }}
+.verdict {{ display: flex; gap: .8rem; align-items: flex-start; padding: 1rem; border-radius: 10px; margin-bottom: 1rem; border: 2px solid currentColor; }}
+.verdict .icon {{ width: 2.2rem; height: 2.2rem; flex: none; }}
+.verdict .word {{ font-size: 1.25rem; font-weight: 700; display: block; }}
+.verdict ul {{ margin: .4rem 0 0; padding-left: 1.2rem; color: {INK}; }}
+.verdict p {{ margin: .2rem 0 0; color: {INK}; }}
+nav ol {{ list-style: none; padding: 0; margin: 0 0 1rem; display: grid; grid-template-columns: repeat(auto-fill, minmax(15rem, 1fr)); gap: .4rem; }}
+nav a {{ display: flex; justify-content: space-between; gap: .5rem; align-items: center; background: {CARD}; border: 1px solid {RULE}; border-radius: 8px; padding: .45rem .6rem; color: {INK}; text-decoration: none; }}
+nav a:hover, nav a:focus {{ border-color: {ACCENT}; outline: 2px solid {ACCENT}; outline-offset: 1px; }}
+.check {{ background: {CARD}; border: 1px solid {RULE}; border-radius: 10px; padding: 1rem; margin: 0 0 1rem; border-top: 5px solid {RULE}; }}
+.check.s-pass {{ border-top-color: #2f8a55; }} .check.s-warn {{ border-top-color: #c98a12; }}
+.check.s-fail {{ border-top-color: #c0373c; }} .check.s-skipped {{ border-top-color: #9a9a9a; }}
+.check header {{ display: flex; flex-wrap: wrap; gap: .5rem; justify-content: space-between; align-items: center; }}
+.check h2 {{ font-size: 1.15rem; margin: 0; overflow-wrap: anywhere; }}
+.badge {{ display: inline-flex; align-items: center; gap: .3rem; font-weight: 600; font-size: .85rem; padding: .1rem .55rem .1rem .35rem; border-radius: 999px; white-space: nowrap; }}
+.badge .icon {{ width: 1rem; height: 1rem; }}
+.summary {{ margin: .6rem 0; }}
+.reason {{ color: {MUTED}; }}
+.figures {{ display: grid; grid-template-columns: repeat(auto-fill, minmax(10rem, 1fr)); gap: .5rem; margin: .6rem 0; }}
+.figures div {{ background: {PAPER}; border-radius: 6px; padding: .4rem .6rem; }}
+.figures dt {{ font-size: .8rem; color: {MUTED}; overflow-wrap: anywhere; }}
+.figures dd {{ margin: 0; font-size: 1.1rem; font-weight: 600; font-variant-numeric: tabular-nums; overflow-wrap: anywhere; }}
+figure {{ margin: .8rem 0; }}
+svg.chart {{ width: 100%; height: auto; display: block; }}
+.tablewrap {{ overflow-x: auto; margin: .6rem 0; }}
+table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
+caption {{ text-align: left; font-weight: 600; padding: .2rem 0; }}
+th, td {{ border-bottom: 1px solid {RULE}; padding: .3rem .6rem .3rem 0; text-align: left; vertical-align: top; overflow-wrap: anywhere; }}
+th {{ color: {MUTED}; font-weight: 600; }}
+.changes li {{ margin: .15rem 0; }}
+.notes {{ color: {MUTED}; font-size: .9rem; }}
+footer {{ color: {MUTED}; font-size: .85rem; border-top: 1px solid {RULE}; padding-top: .6rem; margin-top: 1.5rem; }}
+code {{ background: #ebe6de; padding: 0 .25rem; border-radius: 4px; }}
+@media (max-width: 34rem) {{ main {{ padding: .5rem; }} .check {{ padding: .7rem; }} body {{ font-size: 15px; }} }}
+@media print {{
+  body {{ background: #fff; font-size: 11pt; }} main {{ max-width: none; padding: 0; }}
+  nav {{ display: none; }} .check {{ break-inside: avoid; border: 1px solid #999; border-top-width: 4px; }}
+  figure {{ break-inside: avoid; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
+}}
+"""
+
+
+def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None) -> str:
+    """The whole report page as a string; `history` is `audit.history.load(...)`'s rows, if any."""
+    th = AuditThresholds()
+    word, fg, bg = STATUS_STYLE[report.verdict]
+    bad = [c for c in report.checks if c.status in ("fail", "warn")]
+    lead = _VERDICT_WORDS[report.verdict]
+    with matplotlib.rc_context(_RC):
+        sections = "".join(_section(c, report, th) for c in report.checks)
+        hist = _history_section(report, history)
+    nav = "".join(f'<li><a href="#check-{esc(c.id)}"><span>{esc(c.title)}</span>{badge(c.status)}</a></li>'
+                  for c in report.checks)
+    worst_list = "".join(f"<li><strong>{esc(c.title)}</strong>: {esc(c.summary)}</li>" for c in bad)
+    notes = "".join(f"<li>{esc(n)}</li>" for n in report.input_notes)
+    arms = ", ".join(f"{esc(a.name)} {a.weight / 100:g}% ({esc(a.role)})" for a in report.arms)
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<meta http-equiv="Content-Security-Policy" content="default-src 'none'; style-src 'unsafe-inline'; img-src data:">
+<title>Split health: {esc(report.experiment)} as of {esc(report.as_of)}</title>
+<style>{CSS}</style></head>
+<body><main>
+<div class="top"><h1>Split health of {esc(report.experiment)}</h1>
+<p>Data as of {esc(report.as_of)} · arms: {arms} · spec fingerprint <code>{esc(report.fingerprint)}</code></p></div>
+<div class="verdict" data-verdict="{esc(report.verdict)}" style="color:{fg};background:{bg}" role="status">
+<svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{_ICON[report.verdict]}</svg>
+<div><span class="word">{esc(word)}</span><p>{esc(lead)}</p><p>{esc(report.verdict_text)}</p>
+{f'<ul>{worst_list}</ul>' if worst_list else ''}</div></div>
+{f'<div class="notes"><strong>About the input:</strong><ul>{notes}</ul></div>' if notes else ''}
+<nav aria-label="Checks"><ol>{nav}<li><a href="#history"><span>Change since the last run</span></a></li></ol></nav>
+{sections}{hist}
+<footer>Written by armlock {esc(report.armlock_version)} at {esc(report.generated_at)} · schema {esc(report.schema_)}.
+Visitor ids and cookies can be personal data: share this report only as your consent records and local privacy law
+allow, and ask the site's own counsel when unsure.</footer>
+</main></body></html>
+"""
