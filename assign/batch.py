@@ -35,12 +35,15 @@ def arm_for(spec: Spec, unit_id: str) -> str | None:
     return spec.arm_names[bisect_right(spec.cumulative, b)]
 
 
-def _keys(salt: str, ids: Sequence[str]) -> list[bytes]:
-    prefix = salt + SEPARATOR
-    try:
-        return list(map(_encode, map(prefix.__add__, ids)))
-    except (TypeError, UnicodeEncodeError):
-        return [key_bytes(salt, u) if isinstance(u, str) else b"" for u in ids]
+def _keys(salt: str, ids: Sequence[str]) -> Iterable[bytes]:
+    """Lazily the salted UTF-8 keys; raises TypeError/UnicodeEncodeError on the first odd id."""
+    return map(_encode, map((salt + SEPARATOR).__add__, ids))
+
+
+def _keys_careful(salt: str, ids: Sequence[object]) -> list[bytes]:
+    """The slow path: lone surrogates as U+FFFD; missing ids get a placeholder key."""
+    _missing_positions(ids)  # raises TypeError for ids that are neither str nor missing
+    return [key_bytes(salt, u) if u.__class__ is str else b"" for u in ids]  # type: ignore[arg-type]
 
 
 def _missing_positions(ids: Sequence[object]) -> list[int]:
@@ -57,37 +60,58 @@ def _missing_positions(ids: Sequence[object]) -> list[int]:
     return out
 
 
+def _hashes(salt: str, ids: Sequence[object]) -> list[int]:
+    try:
+        return list(map(_hash, _keys(salt, ids), repeat(SEED)))  # type: ignore[arg-type]
+    except (TypeError, UnicodeEncodeError):
+        return list(map(_hash, _keys_careful(salt, ids), repeat(SEED)))
+
+
 def hashes_many(salt: str, ids: Sequence[str]) -> list[int]:
     """XXH64 (seed 42) of every salted key; meaningless for missing ids (see assign_many)."""
-    return list(map(_hash, _keys(salt, ids), repeat(SEED)))
+    return _hashes(salt, ids)
+
+
+def _blank_missing(ids: Sequence[object], *columns: list) -> None:
+    if "" in ids or not all(u.__class__ is str for u in ids):
+        for i in _missing_positions(ids):
+            for col in columns:
+                col[i] = None
 
 
 def assign_many(spec: Spec, ids: Iterable[str | None]) -> list[str | None]:
-    """Arms for many ids, in order; None, '' (and NaN) get None. Raises TypeError on other types."""
+    """Arms for many ids, in order; None, '' (and NaN) get None. Raises TypeError on other types.
+
+    The fast path streams key -> hash -> arm with C-level maps and compares the raw hash with
+    precomputed thresholds (no bucket arithmetic per row); any id that is not a plain str sends
+    the batch down the careful path, which gives the same answers.
+    """
     seq = ids if isinstance(ids, (list, tuple)) else list(ids)
     thresholds = hash_thresholds(spec.cumulative)
-    if len(spec.arms) == 2:
-        t, a0, a1 = thresholds[0], spec.arm_names[0], spec.arm_names[1]
-        out: list[str | None] = [
-            a0 if h < t else a1 for h in map(_hash, _keys(spec.salt, seq), repeat(SEED))  # type: ignore[arg-type]
-        ]
-    else:
-        names = spec.arm_names
-        out = [names[bisect_right(thresholds, h)] for h in map(_hash, _keys(spec.salt, seq), repeat(SEED))]  # type: ignore[arg-type]
-    if not all(u.__class__ is str for u in seq) or "" in seq:
-        for i in _missing_positions(seq):
-            out[i] = None
+    names = spec.arm_names
+    out: list[str | None]
+    try:
+        hashes = map(_hash, _keys(spec.salt, seq), repeat(SEED))  # type: ignore[arg-type]
+        if len(names) == 2:
+            t, a0, a1 = thresholds[0], names[0], names[1]
+            out = [a0 if h < t else a1 for h in hashes]
+        elif len(names) == 3:
+            t0, t1, (a0, a1, a2) = thresholds[0], thresholds[1], names
+            out = [a0 if h < t0 else a1 if h < t1 else a2 for h in hashes]
+        else:
+            out = [names[bisect_right(thresholds, h)] for h in hashes]
+        if "" in seq:
+            _blank_missing(seq, out)
+    except (TypeError, UnicodeEncodeError):
+        out = [names[bisect_right(thresholds, h)] for h in map(_hash, _keys_careful(spec.salt, seq), repeat(SEED))]
+        _blank_missing(seq, out)
     return out
 
 
 def buckets_and_arms(spec: Spec, ids: Sequence[str | None]) -> tuple[list[int | None], list[str | None]]:
     """Bucket and arm of every id (None for missing ids), for the `assign` command's output."""
-    hs = list(map(_hash, _keys(spec.salt, ids), repeat(SEED)))  # type: ignore[arg-type]
-    buckets: list[int | None] = [bucket_of_hash(h) for h in hs]
+    buckets: list[int | None] = [bucket_of_hash(h) for h in _hashes(spec.salt, ids)]
     cum, names = spec.cumulative, spec.arm_names
     arms: list[str | None] = [names[bisect_right(cum, b)] for b in buckets]  # type: ignore[arg-type]
-    if not all(u.__class__ is str for u in ids) or "" in ids:
-        for i in _missing_positions(ids):
-            buckets[i] = None
-            arms[i] = None
+    _blank_missing(ids, buckets, arms)
     return buckets, arms
