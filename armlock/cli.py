@@ -11,7 +11,7 @@ import typer
 from assign import ArmlockError, __version__
 from assign.errors import EXIT_INTERNAL
 
-from . import cmd_assign, cmd_spec
+from . import cmd_assign, cmd_snippet, cmd_spec
 
 app = typer.Typer(
     name="armlock",
@@ -45,6 +45,7 @@ def _root(
 
 cmd_spec.register(app)
 cmd_assign.register(app)
+cmd_snippet.register(app)
 
 
 def main() -> None:

@@ -1,0 +1,48 @@
+"""The `armlock snippet` command: render the browser snippet for a spec to stdout or a file."""
+
+from __future__ import annotations
+
+from enum import Enum
+from pathlib import Path
+
+import typer
+
+from assign import SpecError
+from assign.snippet import render_snippet
+
+from .common import SPEC_HELP, err, open_spec
+
+
+class Form(str, Enum):
+    html = "html"
+    js = "js"
+
+
+def snippet(
+    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    form: Form = typer.Option(Form.html, "--form", "-f", help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host."),
+    out: Path = typer.Option(None, "--out", "-o", help="Write the snippet to this file instead of stdout."),
+) -> None:
+    """Render the tag-manager snippet that enforces the split in the browser.
+
+    The snippet hashes each visitor exactly as `armlock assign` does, pushes the arm into the
+    data layer and offers window.<global_name>.gate(callback) so the vendor's tag runs only for
+    the exposed arm(s). Settings come from the spec's [snippet] table.
+
+    Example: armlock snippet --spec spring-retargeting.toml --form html --out armlock-tag.html
+    """
+    spec = open_spec(spec_path)
+    text = render_snippet(spec, form.value)
+    if out is None:
+        typer.echo(text, nl=False)
+        return
+    try:
+        out.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise SpecError(f"{out}: cannot write the snippet: {exc.strerror}") from None
+    err(f"Wrote {out} ({form.value}, {len(text.encode('utf-8'))} bytes) for experiment "
+        f"{spec.name!r}, fingerprint {spec.fingerprint}")
+
+
+def register(app: typer.Typer) -> None:
+    app.command("snippet")(snippet)

@@ -1,0 +1,274 @@
+/* armlock snippet: do not edit, render again */
+(function (w, d) {
+  // Every value from the spec arrives in this one JSON literal (escaped by assign/snippet.py).
+  var C = /*@CONFIG@*/null;
+  // Role of each key of C: n experiment, f fingerprint, s salt, a arm names in order,
+  // b their cumulative weights (basis points), x exposed arm names, k own cookie name, m Max-Age (s), o cookie domain, l data-layer name,
+  // e event name, r error event name, g global object name, i id sources [[kind, name, pattern]],
+  // c consent [key, value] or [function path] or null, q QA override parameter ("" = off).
+  var dl, G, queue = [], waiting = 1;
+  // ---- unsigned 64-bit arithmetic on four 16-bit limbs, least significant first ----------
+  // (every intermediate stays below 2^53, so plain doubles compute it exactly)
+  function add(a, b) {
+    for (var r = [], c = 0, i = 0; i < 4; i++) {
+      c += a[i] + b[i];
+      r[i] = c & 65535;
+      c >>>= 16;
+    }
+    return r;
+  }
+  // product mod 2^64, schoolbook on limbs
+  function mul(a, b) {
+    for (var r = [0, 0, 0, 0], i = 0, j, c; i < 4; i++) {
+      for (c = 0, j = 0; i + j < 4; j++) {
+        c += r[i + j] + a[i] * b[j];
+        r[i + j] = c & 65535;
+        c = Math.floor(c / 65536);
+      }
+    }
+    return r;
+  }
+  function xor(a, b) {
+    for (var r = [], i = 0; i < 4; i++) r[i] = a[i] ^ b[i];
+    return r;
+  }
+  // rotate left by n bits (n not a multiple of 16)
+  function rotl(a, n) {
+    for (var r = [], q = n >> 4, m = n & 15, i = 0; i < 4; i++) {
+      r[i] = (a[i - q + 4 & 3] << m | a[i - q + 3 & 3] >>> 16 - m) & 65535;
+    }
+    return r;
+  }
+  // x ^ (x >> n); limbs past the top read as 0
+  function xsr(a, n) {
+    for (var r = [], q = n >> 4, m = n & 15, i = 0; i < 4; i++) {
+      r[i] = a[i] ^ (a[i + q] | a[i + q + 1] << 16) >>> m & 65535;
+    }
+    return r;
+  }
+  // a 64-bit constant from its 16 hex digits
+  function hex(h) {
+    for (var r = [], i = 0; i < 4; i++) r[i] = parseInt(h.substr(12 - 4 * i, 4), 16);
+    return r;
+  }
+  // the n (4 or 8) little-endian bytes at b[i] as a 64-bit value
+  function lane(b, i, n) {
+    for (var r = [0, 0, 0, 0], j = 0; j < n; j += 2) r[j / 2] = b[i + j] | b[i + j + 1] << 8;
+    return r;
+  }
+  // XXH64 primes (Collet, xxHash specification, "XXH64 Algorithm Description")
+  var P1 = hex('9E3779B185EBCA87'), P2 = hex('C2B2AE3D27D4EB4F'), P3 = hex('165667B19E3779F9'),
+    P4 = hex('85EBCA77C2B2AE63'), P5 = hex('27D4EB2F165667C5'), SEED = [42, 0, 0, 0], ZERO = [0, 0, 0, 0];
+  function round(acc, v) {
+    return mul(rotl(add(acc, mul(v, P2)), 31), P1);
+  }
+  function merge(acc, v) {
+    return add(mul(xor(acc, round(ZERO, v)), P1), P4);
+  }
+  // UTF-8 bytes of a JS string: a lone surrogate first becomes U+FFFD, as TextEncoder does
+  // (WHATWG Encoding Standard), then encodeURIComponent + unescape (ECMA-262 5.1, 15.1.3.4 and
+  // B.2.2) turn each UTF-8 byte into one character
+  function utf8(s) {
+    var t = unescape(encodeURIComponent(s.replace(/[\ud800-\udbff][\udc00-\udfff]|[\ud800-\udfff]/g, function (p) {
+      return p.length > 1 ? p : '\ufffd';
+    }))), out = [], i;
+    for (i = 0; i < t.length; i++) out.push(t.charCodeAt(i));
+    return out;
+  }
+  function xxh64(b) {
+    var len = b.length, i = 0, acc, v1, v2, v3, v4;
+    if (len >= 32) {
+      // the four lanes start at seed + P1 + P2, seed + P2, seed, seed - P1 (mod 2^64)
+      v1 = add(add(SEED, P1), P2);
+      v2 = add(SEED, P2);
+      v3 = SEED;
+      v4 = add(SEED, add(xor(P1, hex('FFFFFFFFFFFFFFFF')), [1, 0, 0, 0]));
+      for (; i + 32 <= len; i += 32) {
+        v1 = round(v1, lane(b, i, 8));
+        v2 = round(v2, lane(b, i + 8, 8));
+        v3 = round(v3, lane(b, i + 16, 8));
+        v4 = round(v4, lane(b, i + 24, 8));
+      }
+      acc = add(add(rotl(v1, 1), rotl(v2, 7)), add(rotl(v3, 12), rotl(v4, 18)));
+      acc = merge(merge(merge(merge(acc, v1), v2), v3), v4);
+    } else {
+      acc = add(SEED, P5);
+    }
+    acc = add(acc, [len & 65535, len >>> 16, 0, 0]);
+    for (; i + 8 <= len; i += 8) {
+      acc = add(mul(rotl(xor(acc, round(ZERO, lane(b, i, 8))), 27), P1), P4);
+    }
+    if (i + 4 <= len) {
+      acc = add(mul(rotl(xor(acc, mul(lane(b, i, 4), P1)), 23), P2), P3);
+      i += 4;
+    }
+    for (; i < len; i++) {
+      acc = mul(rotl(xor(acc, mul([b[i], 0, 0, 0], P5)), 11), P1);
+    }
+    return xsr(mul(xsr(mul(xsr(acc, 33), P2), 29), P3), 32);
+  }
+  // bucket = ((h >> 32) * 10000) >> 32 on the top 32 bits; the product is exact in a double
+  function bucketOf(id) {
+    if (typeof id != 'string' || id === '') return null;
+    var h = xxh64(utf8(C.s + ':' + id));
+    return Math.floor((h[3] * 65536 + h[2]) * 10000 / 4294967296);
+  }
+  // the first arm whose cumulative weight exceeds the bucket
+  function armOf(id) {
+    var b = bucketOf(id), i;
+    for (i = 0; b !== null && i < C.b.length; i++) if (b < C.b[i]) return C.a[i];
+    return null;
+  }
+  // ---- page integration ---------------------------------------------------------------------
+  // a dotted path such as "site.customer.key" read from an object, without eval
+  function path(o, p) {
+    var parts = p.split('.'), i;
+    for (i = 0; o != null && i < parts.length; i++) o = o[parts[i]];
+    return o;
+  }
+  // a cookie's value ('' when absent); document.cookie joins pairs with "; " (RFC 6265, 5.4)
+  function getCookie(name) {
+    var parts = ('; ' + d.cookie).split('; ' + name + '=');
+    return parts.length > 1 ? parts[1].split(';')[0] : '';
+  }
+  // the latest value pushed into the data layer at a key path
+  function fromLayer(p) {
+    var v, i, e;
+    for (i = 0; i < dl.length; i++) {
+      e = dl[i];
+      if (e && typeof e == 'object') {
+        if (path(e, p) !== undefined) v = path(e, p);
+      }
+    }
+    return v;
+  }
+  // RFC 9562 version-4 UUID from the browser's cryptographic random source (no fallback)
+  function mint() {
+    var b = new Uint8Array(16), s = '', i;
+    w.crypto.getRandomValues(b);
+    b[6] = b[6] & 15 | 64;
+    b[8] = b[8] & 63 | 128;
+    for (i = 0; i < 16; i++) s += (i == 4 || i == 6 || i == 8 || i == 10 ? '-' : '') + (b[i] + 256).toString(16).slice(1);
+    return s;
+  }
+  function store(name, v) {
+    try {
+      return v === undefined ? w.localStorage.getItem(name) : w.localStorage.setItem(name, v);
+    } catch (e) {
+      return null;
+    }
+  }
+  // the visitor id: configured sources in order, then armlock's own cookie, its localStorage
+  // mirror, and finally a freshly minted id
+  function visitorId() {
+    var i, s, v, m, kept, own;
+    for (i = 0; i < C.i.length; i++) {
+      s = C.i[i];
+      v = s[0] == 'cookie' ? getCookie(s[1]) : s[0] == 'global' ? path(w, s[1]) : fromLayer(s[1]);
+      if (typeof v == 'number' && isFinite(v)) v = String(v);
+      if (typeof v == 'string' && s[2]) {
+        m = new RegExp(s[2]).exec(v);
+        v = m && m[1] || '';
+      }
+      if (typeof v == 'string' && v !== '') return v;
+    }
+    own = getCookie(C.k);
+    kept = store(C.k);
+    if (!/^[\w.\-]{1,128}$/.test(kept || '')) kept = '';
+    v = own || kept || mint();
+    if (own !== v) {
+      d.cookie = C.k + '=' + v + '; Path=/; Max-Age=' + Math.min(C.m, 34560000) +
+        (C.o ? '; Domain=' + C.o : '') + '; SameSite=Lax' + (w.location.protocol == 'https:' ? '; Secure' : '');
+      if (getCookie(C.k) !== v) throw 'cookie not stored';
+    }
+    if (kept !== v) store(C.k, v);
+    return v;
+  }
+  // QA override: ?<param>=<arm> forces that arm for this page view only; unknown arm = error
+  function forcedArm() {
+    var parts = C.q ? w.location.search.replace(/^\?/, '').split('&') : [], i, kv, v;
+    for (i = 0; i < parts.length; i++) {
+      kv = parts[i].split('=');
+      if (decodeURIComponent(kv[0]) === C.q) {
+        v = decodeURIComponent((kv[1] || '').replace(/\+/g, ' '));
+        if (C.a.indexOf(v) >= 0) return v;
+        throw 'QA parameter: no such arm';
+      }
+    }
+    return null;
+  }
+  function consented() {
+    var f;
+    if (!C.c) return 1;
+    if (C.c.length == 1) {
+      f = path(w, C.c[0]);
+      return typeof f == 'function' && f() === true;
+    }
+    f = fromLayer(C.c[0]);
+    return f != null && String(f) === C.c[1];
+  }
+  function send(o) {
+    try {
+      dl.push(o);
+    } catch (e) {}
+  }
+  function run(job) {
+    try {
+      if (job[1].indexOf(G.arm) >= 0) job[0](G.arm);
+    } catch (e) {
+      send({event: C.r, armlock_experiment: C.n, armlock_error: 'callback: ' + e});
+    }
+  }
+  function fail(e) {
+    waiting = 0;
+    queue = [];
+    if (G) {
+      G.arm = null;
+      G.state = 'failed';
+    }
+    send({event: C.r, armlock_experiment: C.n, armlock_error: String(e && e.message || e)});
+  }
+  function decide() {
+    var f = forcedArm(), arm = f || armOf(visitorId());
+    if (!arm) throw 'no arm';
+    waiting = 0;
+    G.arm = arm;
+    G.forced = !!f;
+    G.state = 'ready';
+    send({event: C.e, armlock_experiment: C.n, armlock_arm: arm, armlock_fingerprint: C.f, armlock_forced: G.forced});
+    while (queue.length) run(queue.shift());
+  }
+  function check() {
+    try {
+      if (waiting && consented()) decide();
+    } catch (e) {
+      fail(e);
+    }
+  }
+  try {
+    G = w[C.g] = {
+      experiment: C.n, fingerprint: C.f, arm: null, forced: false, state: 'waiting',
+      bucketOf: bucketOf, armOf: armOf, recheck: check,
+      // gate(callback[, arms]): run callback(arm) only for these arms (default: the exposed ones)
+      gate: function (cb, arms) {
+        var job = [cb, arms == null ? C.x : typeof arms == 'string' ? [arms] : arms];
+        if (G.state == 'ready') run(job);
+        else if (waiting) queue.push(job);
+      }
+    };
+    dl = w[C.l] = w[C.l] || [];
+    if (C.c) {
+      var push = dl.push;
+      dl.push = function () {
+        var out = push.apply(dl, arguments);
+        check();
+        return out;
+      };
+    }
+    check();
+  } catch (e) {
+    try {
+      fail(e);
+    } catch (e2) {}
+  }
+})(window, document);
