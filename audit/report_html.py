@@ -86,6 +86,11 @@ def _svg(fig: MplFigure, chart_id: str, caption: str) -> str:
     plt.close(fig)
     text = buf.getvalue()
     text = text[text.index("<svg"):]
+    text = re.sub(r"\s*<metadata>[\s\S]*?</metadata>", "", text, count=1)
+    # matplotlib numbers its ids per figure (figure_1, patch_1...): make them unique in the page
+    ids = set(re.findall(r'\sid="([^"]+)"', text))
+    text = re.sub(r'(\sid="|#)([^")\s]+)(?=[")])',
+                  lambda m: f"{m.group(1)}{chart_id}-{m.group(2)}" if m.group(2) in ids else m.group(0), text)
     text = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
                   rf'<svg\1 role="img" aria-label="{esc(caption)}" data-chart="{esc(chart_id)}" class="chart"',
                   text, count=1)
@@ -114,6 +119,12 @@ def _date_axis(ax: Any) -> None:
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(loc))
 
 
+def share_band(theta: float, n: int, k: float = 3.0) -> tuple[float, float]:
+    """Expected share ± k binomial standard errors at n units: theta ± k·sqrt(theta(1-theta)/n)."""
+    half = k * math.sqrt(theta * (1 - theta) / max(n, 1))
+    return theta - half, theta + half
+
+
 def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], chart_id: str) -> str:
     """Cumulative share of each arm by day against its expected share, with a ±3 SE band."""
     days = _dates([r["date"] for r in rows])
@@ -122,9 +133,10 @@ def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], c
     for i, ((name, theta), ax) in enumerate(zip(arms, axes[:, 0])):
         colour = ARM_COLOURS[i % len(ARM_COLOURS)]
         share = [r["counts"].get(name, 0) / n * 100 for r, n in zip(rows, totals)]
-        se = [3 * math.sqrt(theta * (1 - theta) / n) * 100 for n in totals]
-        ax.fill_between(days, [theta * 100 - s for s in se], [theta * 100 + s for s in se],
-                        color=BAND, lw=0, label="expected ±3 SE", step=None)
+        band = [share_band(theta, n) for n in totals]
+        se = [(hi - theta) * 100 for _, hi in band]
+        ax.fill_between(days, [lo * 100 for lo, _ in band], [hi * 100 for _, hi in band],
+                        color=BAND, lw=0, label="expected ±3 SE")
         ax.axhline(theta * 100, color=INK, lw=1, ls=(0, (4, 3)), label=f"expected {theta * 100:g}%")
         ax.plot(days, share, color=colour, lw=2, marker="o", ms=2.5, label=f"observed: {name}")
         lo = min(min(share), theta * 100 - se[-1] * 4)
@@ -169,7 +181,7 @@ def chart_leakage(rows: list[dict[str, Any]], chart_id: str) -> str:
     for b, r in zip(bars, rows):
         if r.get("holdout_units"):
             ax.annotate(f"{int(r['holdout_units']):,}", (b.get_x() + b.get_width() / 2, b.get_height()),
-                        ha="center", va="bottom", fontsize=7, color=MUTED, xytext=(0, 2),
+                        ha="center", va="bottom", fontsize=8, color=MUTED, xytext=(0, 2),
                         textcoords="offset points")
     ax.set_xticks(range(len(weeks)), [w[5:] for w in weeks], rotation=0, fontsize=8)
     ax.set_xlabel("week starting (month-day)")
@@ -283,6 +295,8 @@ def _cell(v: Any) -> str:
     if isinstance(v, float):
         if not math.isfinite(v):
             return esc(v)
+        if abs(v) >= 1000:
+            return esc(f"{v:,.0f}" if v == int(v) else f"{v:,.1f}")
         return esc(f"{v:.4g}" if abs(v) >= 1e-3 or v == 0 else f"{v:.2e}")
     if isinstance(v, int) and not isinstance(v, bool):
         return esc(f"{v:,}")
@@ -380,8 +394,8 @@ nav a:hover, nav a:focus {{ border-color: {ACCENT}; outline: 2px solid {ACCENT};
 .figures div {{ background: {PAPER}; border-radius: 6px; padding: .4rem .6rem; }}
 .figures dt {{ font-size: .8rem; color: {MUTED}; overflow-wrap: anywhere; }}
 .figures dd {{ margin: 0; font-size: 1.1rem; font-weight: 600; font-variant-numeric: tabular-nums; overflow-wrap: anywhere; }}
-figure {{ margin: .8rem 0; }}
-svg.chart {{ width: 100%; height: auto; display: block; }}
+figure {{ margin: .8rem 0; overflow-x: auto; }}
+svg.chart {{ width: 100%; min-width: 28rem; height: auto; display: block; }}
 .tablewrap {{ overflow-x: auto; margin: .6rem 0; }}
 table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
 caption {{ text-align: left; font-weight: 600; padding: .2rem 0; }}
@@ -395,7 +409,7 @@ code {{ background: #ebe6de; padding: 0 .25rem; border-radius: 4px; }}
 @media print {{
   body {{ background: #fff; font-size: 11pt; }} main {{ max-width: none; padding: 0; }}
   nav {{ display: none; }} .check {{ break-inside: avoid; border: 1px solid #999; border-top-width: 4px; }}
-  figure {{ break-inside: avoid; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
+  figure {{ break-inside: avoid; overflow: visible; }} svg.chart {{ min-width: 0; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
 }}
 """
 

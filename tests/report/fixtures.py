@@ -27,11 +27,11 @@ def build_report(*, as_of: str = "2026-03-23", leak_share: float = 0.002, srm_p:
     browsers = ["Aurora", "Kestrel", "Tallow", "Other"]
     covs = [("device", "mobile"), ("device", "desktop"), ("country", "NL"), ("pre_visits", None)]
     if hostile:
-        browsers = HOSTILE[:4]
+        browsers = HOSTILE[:4] + [HOSTILE[5]]
         covs = [("channel", HOSTILE[0]), (HOSTILE[1], None), ("segment", HOSTILE[2]), ("x", HOSTILE[3])]
     smd = [{"covariate": c, "level": lv, "smd": s} for (c, lv), s in zip(covs, [0.02, -0.03, 0.14, -0.05])]
     churn = [{"browser": b, "customers": 500, "multi_arm": m, "share": m / 500, "expected_share": 0.01}
-             for b, m in zip(browsers, [4, 60, 6, 5])]
+             for b, m in zip(browsers, [4, 60, 6, 5, 3])]
     srm_status = "fail" if srm_p < 0.0005 else "pass"
     leak_status = "fail" if leak_share > 0.01 else "pass"
     name = HOSTILE[0] if hostile else "homeware-retargeting"

@@ -1,0 +1,137 @@
+"""The HTML report as text: self-contained, escaped, deterministic, one section and chart per check."""
+
+from __future__ import annotations
+
+import re
+from html.parser import HTMLParser
+from xml.etree import ElementTree
+
+import pytest
+from scipy import stats
+
+from audit.history import row_from_report
+from audit.report_html import render_html, share_band
+
+from .fixtures import HOSTILE, build_report, weekly
+
+CHARTS = {"srm": ["arm-share", "srm-p"], "leakage": ["leakage"], "balance": ["love"],
+          "churn": ["churn"], "srm_segments": [], "history": ["history"]}
+
+
+class Walk(HTMLParser):
+    """Collects tags, the chart ids per section, and the visible text."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict[str, str | None]]] = []
+        self.section: str | None = None
+        self.charts: dict[str, list[str]] = {}
+        self.text: list[str] = []
+        self.depth = {"svg": 0}
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        a = dict(attrs)
+        self.tags.append((tag, a))
+        if tag == "section":
+            self.section = a.get("data-check")
+            self.charts.setdefault(self.section or "", [])
+        if tag == "svg":
+            self.depth["svg"] += 1
+            if a.get("data-chart"):
+                self.charts.setdefault(self.section or "", []).append(a["data-chart"] or "")
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag == "svg":
+            self.depth["svg"] -= 1
+
+    def handle_data(self, data: str) -> None:
+        self.text.append(data)
+
+
+def walk(page: str) -> Walk:
+    w = Walk()
+    w.feed(page)
+    w.close()
+    return w
+
+
+def history_rows(n: int = 4) -> list[dict]:
+    return [dict(row_from_report(r), recorded_at="2026-03-30T06:00:00Z") for r in weekly(n)]
+
+
+def test_band_is_three_binomial_standard_errors() -> None:
+    # Reference: the binomial standard deviation sqrt(n p (1-p)) from scipy.stats.binom (general
+    # purpose library); the share's SE is that over n.
+    for theta, n in [(0.1, 1_000), (0.5, 12_345), (0.9, 77)]:
+        lo, hi = share_band(theta, n)
+        se = stats.binom.std(n, theta) / n
+        assert hi - theta == pytest.approx(3 * se, rel=1e-12)
+        assert theta - lo == pytest.approx(3 * se, rel=1e-12)
+
+
+def test_every_check_has_its_section_and_charts() -> None:
+    rep = weekly()[-1]
+    w = walk(render_html(rep, history_rows(3)))
+    assert w.charts == CHARTS
+    assert w.depth["svg"] == 0
+
+
+def test_history_chart_needs_an_earlier_run() -> None:
+    page = render_html(build_report())
+    w = walk(page)
+    assert w.charts["history"] == []
+    assert "No earlier run is recorded" in page
+
+
+def test_self_contained_no_script_no_external_reference() -> None:
+    page = render_html(weekly()[-1], history_rows(3))
+    w = walk(page)
+    names = {t for t, _ in w.tags}
+    assert not names & {"script", "link", "iframe", "img", "object", "embed"}
+    for tag, attrs in w.tags:
+        for k, v in attrs.items():
+            if k.startswith("xmlns"):
+                continue  # XML namespace names are identifiers, never fetched
+            assert not re.search(r"(https?:|//)", v or ""), (tag, k, v)
+    assert 'name="viewport"' in page and "@media print" in page
+
+
+def test_hostile_ids_are_shown_literally_and_break_nothing() -> None:
+    page = render_html(build_report(hostile=True), [dict(row_from_report(build_report(as_of="2026-03-16")),
+                                                           recorded_at="x")])
+    w = walk(page)
+    assert not any(t in ("script", "img") for t, _ in w.tags)
+    assert w.depth["svg"] == 0  # a literal "</svg>" in the data did not close a chart early
+    text = "".join(w.text)
+    for bad in HOSTILE:
+        assert bad in text, bad
+    assert w.charts == CHARTS
+    # every chart is well-formed XML: its data text was escaped by the SVG writer
+    for svg in re.findall(r"<svg [^>]*data-chart[\s\S]*?</svg>\s*</figure>", page):
+        ElementTree.fromstring(svg.rsplit("</figure>", 1)[0])
+
+
+def test_output_is_deterministic_and_ids_unique() -> None:
+    rep, hist = weekly()[-1], history_rows(3)
+    a, b = render_html(rep, hist), render_html(rep, hist)
+    assert a == b
+    ids = re.findall(r'\sid="([^"]+)"', a)
+    assert len(ids) == len(set(ids))
+
+
+def test_verdict_is_in_words_colour_and_shape() -> None:
+    page = render_html(weekly()[-1])
+    assert 'data-verdict="fail"' in page and "Broken" in page
+    w = walk(page)
+    badges = [a.get("data-status") for t, a in w.tags if t == "span" and "badge" in (a.get("class") or "")]
+    assert {"fail", "warn", "skipped"} <= set(badges)
+    assert "Needs a look" in page and "Not checked" in page
+
+
+def test_missing_series_gives_section_without_chart() -> None:
+    rep = build_report()
+    for c in rep.checks:
+        c.series = {}
+    w = walk(render_html(rep))
+    assert all(v == [] for v in w.charts.values())
+    assert set(w.charts) == set(CHARTS)
