@@ -12,6 +12,7 @@ from assign import ArmlockError, __version__
 from assign.errors import EXIT_INTERNAL
 
 from . import cmd_assign, cmd_snippet, cmd_spec
+from . import cmd_history
 
 app = typer.Typer(
     name="armlock",
@@ -46,6 +47,7 @@ def _root(
 cmd_spec.register(app)
 cmd_assign.register(app)
 cmd_snippet.register(app)
+cmd_history.register(app)
 
 
 def main() -> None:

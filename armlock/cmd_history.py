@@ -1,0 +1,87 @@
+"""`armlock history`: the week-by-week trend of recorded audits and what changed since the last run."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import typer
+
+from assign import load_spec
+from audit.history import changes, default_history_path, format_value, load
+
+from .common import SPEC_HELP, err
+
+FORMATS = ("text", "json")
+_UNIT_ORDER = {"share": 0, "p": 1, "ratio": 2, "number": 3, "count": 4}
+_MARK = {"pass": "ok  ", "warn": "WARN", "fail": "FAIL", "skipped": "skip"}
+MAX_COLUMNS = 5
+
+
+def trend_columns(runs: list[dict[str, Any]], limit: int = MAX_COLUMNS) -> list[str]:
+    """The figure keys worth a column: numeric, in the newest run, shares and p-values first."""
+    latest = runs[-1]["figures"]
+    keys = [k for k, f in latest.items() if f.get("unit") in _UNIT_ORDER]
+    keys.sort(key=lambda k: (_UNIT_ORDER[latest[k]["unit"]], list(latest).index(k)))
+    return keys[:limit]
+
+
+def trend_table(runs: list[dict[str, Any]]) -> str:
+    """A plain terminal table: one row per as-of date, the verdict and the headline figures."""
+    keys = trend_columns(runs)
+    latest = runs[-1]["figures"]
+    head = ["as of", "verdict"] + [latest[k]["label"] for k in keys]
+    rows = [[r["as_of"], _MARK.get(r["verdict"], r["verdict"])]
+            + [format_value(r["figures"].get(k, {}).get("value"), latest[k]["unit"])
+               if k in r["figures"] else "-" for k in keys] for r in runs]
+    width = [max(len(str(c)) for c in col) for col in zip(head, *rows)]
+    line = lambda cells: "  ".join(  # noqa: E731
+        str(c).ljust(w) if i < 2 else str(c).rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
+    return "\n".join([line(head), line(["-" * w for w in width])] + [line(r) for r in rows])
+
+
+def history_cmd(
+    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    history_path: Path = typer.Option(None, "--history", help="The history file (default: beside the spec, SPEC.history.sqlite)."),
+    fmt: str = typer.Option("text", "--format", "-f", help="text (a table and sentences) or json."),
+) -> None:
+    """Show the recorded audits of a spec week by week, and what changed since the previous run.
+
+    Runs are recorded by `armlock audit --record`; one row per as-of date.
+
+    Example: armlock history --spec spring-retargeting.toml
+    """
+    if fmt not in FORMATS:
+        raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
+                                 param_hint="--format")
+    spec = load_spec(spec_path)
+    path = history_path or default_history_path(spec_path)
+    runs = load(path, spec.fingerprint)
+    said = changes(runs[-2], runs[-1]) if len(runs) >= 2 else []
+    if fmt == "json":
+        typer.echo(json.dumps({"history": str(path), "experiment": spec.name,
+                               "fingerprint": spec.fingerprint, "runs": runs,
+                               "changes_since_previous": said}, indent=2, ensure_ascii=False))
+        return
+    if not runs:
+        where = "does not exist yet" if not path.exists() else f"has no run of fingerprint {spec.fingerprint}"
+        err(f"No audit runs recorded for {spec.name!r}: {path} {where}. "
+            "Record one with `armlock audit --spec ... --record`.")
+        return
+    typer.echo(f"Audit history of {spec.name!r} (fingerprint {spec.fingerprint}), {len(runs)} run(s), from {path}")
+    typer.echo("")
+    typer.echo(trend_table(runs))
+    typer.echo("")
+    if len(runs) < 2:
+        typer.echo("Only one run is recorded; the next recorded run will say what changed.")
+    elif said:
+        typer.echo(f"Since {runs[-2]['as_of']} (as of {runs[-1]['as_of']}):")
+        for s in said:
+            typer.echo(f"  - {s}")
+    else:
+        typer.echo(f"Nothing meaningful changed since {runs[-2]['as_of']}.")
+
+
+def register(app: typer.Typer) -> None:
+    app.command("history")(history_cmd)
