@@ -1,0 +1,90 @@
+"""CLI tests for `armlock history`: the trend table, changes since the previous run, bad files."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from assign import load_spec
+from audit.history import record
+from tests.report.fixtures import weekly
+
+
+def run(cwd: Path, *args: str) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "armlock", *args], cwd=cwd, capture_output=True,
+                          text=True, timeout=120)
+
+
+@pytest.fixture
+def spec(tmp_path: Path) -> Path:
+    r = run(tmp_path, "init", "homeware-test", "--holdout-share", "0.1")
+    assert r.returncode == 0, r.stderr
+    return tmp_path / "homeware-test.toml"
+
+
+def _record_weeks(spec: Path, path: Path, n: int = 4) -> None:
+    fp = load_spec(spec).fingerprint
+    for rep in weekly(n):
+        rep.fingerprint = fp
+        record(path, rep)
+
+
+def test_history_help_has_an_example(tmp_path: Path) -> None:
+    r = run(tmp_path, "history", "--help")
+    assert r.returncode == 0 and "Example" in r.stdout and "--history" in r.stdout
+
+
+def test_history_without_runs_says_how_to_record(spec: Path, tmp_path: Path) -> None:
+    r = run(tmp_path, "history", "--spec", spec.name)
+    assert r.returncode == 0
+    assert r.stderr == ("No audit runs recorded for 'homeware-test': homeware-test.toml.history.sqlite "
+                        "does not exist yet. Record one with `armlock audit --spec ... --record`.\n")
+    assert not (tmp_path / "homeware-test.toml.history.sqlite").exists()
+
+
+def test_history_table_and_changes(spec: Path, tmp_path: Path) -> None:
+    _record_weeks(spec, tmp_path / "homeware-test.toml.history.sqlite")
+    r = run(tmp_path, "history", "--spec", spec.name)
+    assert r.returncode == 0, r.stderr
+    lines = r.stdout.splitlines()
+    assert lines[0].startswith("Audit history of 'homeware-test'") and "4 run(s)" in lines[0]
+    table = [ln for ln in lines if ln[:4] == "2026"]
+    assert [ln.split()[:2] for ln in table] == [["2026-03-02", "WARN"], ["2026-03-09", "WARN"],
+                                                ["2026-03-16", "WARN"], ["2026-03-23", "FAIL"]]
+    assert "holdout leakage" in lines[2]
+    assert table[-1].split()[2] == "1.4%"
+    assert "Since 2026-03-16 (as of 2026-03-23):" in lines
+    assert "  - holdout leakage rose from 0.6% to 1.4%" in lines
+    assert "  - the verdict went from warn to fail" in lines
+
+
+def test_history_json_and_custom_path(spec: Path, tmp_path: Path) -> None:
+    path = tmp_path / "elsewhere.sqlite"
+    _record_weeks(spec, path, 2)
+    r = run(tmp_path, "history", "--spec", spec.name, "--history", path.name, "--format", "json")
+    assert r.returncode == 0, r.stderr
+    doc = json.loads(r.stdout)
+    assert [x["as_of"] for x in doc["runs"]] == ["2026-03-02", "2026-03-09"]
+    assert doc["fingerprint"] == load_spec(spec).fingerprint
+    # leakage 0.2% -> 0.2% and SRM p 0.6 -> 0.5 are not worth a sentence; units doubling is
+    assert doc["changes_since_previous"] == ["units rose from 14,000 to 28,000"]
+
+
+def test_history_corrupt_file_is_a_clear_error(spec: Path, tmp_path: Path) -> None:
+    path = tmp_path / "homeware-test.toml.history.sqlite"
+    path.write_bytes(b"not sqlite at all")
+    r = run(tmp_path, "history", "--spec", spec.name)
+    assert r.returncode == 4
+    assert r.stderr.startswith("Error: history file homeware-test.toml.history.sqlite is not a readable "
+                               "armlock history (not an SQLite database); it was left untouched.")
+    assert "Traceback" not in r.stderr
+    assert path.read_bytes() == b"not sqlite at all"
+
+
+def test_history_unknown_format_is_usage_error(spec: Path, tmp_path: Path) -> None:
+    r = run(tmp_path, "history", "--spec", spec.name, "--format", "xml")
+    assert r.returncode == 2 and "unknown format 'xml'" in r.stderr
