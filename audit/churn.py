@@ -1,0 +1,88 @@
+"""Identity churn: customers whose unit ids fall in several arms, against the re-randomization expectation."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from assign import Spec
+
+from .model import Check, Figure, Table, worst
+from .tables import ChurnTables
+
+COOKIE_NOTE = ("Common practice: one major browser engine caps cookies written by script at 7 days "
+               "(WebKit's tracking prevention), so long tests lose returning visitors' ids there; a "
+               "server-set first-party cookie or a logged-in key keeps them.")
+
+
+def expected_multi_arm(ids_per_customer: Sequence[int], theta: Sequence[float]) -> float:
+    """Expected number of customers in more than one arm if each of their ids were hashed afresh.
+
+    A customer with k ids stays in one arm with probability sum_i theta_i^k.
+    """
+    k = np.asarray(ids_per_customer, dtype=np.float64)
+    th = np.asarray(theta, dtype=np.float64)
+    return float((1.0 - (th[None, :] ** k[:, None]).sum(axis=1)).sum())
+
+
+def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
+    """Customers in several arms, overall and per browser family."""
+    title = "Identity churn (customers in several arms)"
+    if ct is None:
+        return Check(id="churn", title=title, status="skipped",
+                     summary="No identity-link table was given (--identities), so identity churn was not measured. "
+                             + COOKIE_NOTE,
+                     reason="no identity-link table given")
+    if ct.customers == 0:
+        return Check(id="churn", title=title, status="skipped", summary="The identity-link table names no customers.",
+                     reason="no customers in the identity links")
+    th = spec.audit.thresholds
+    share = ct.multi_arm / ct.customers
+    exp_share = ct.expected_multi / ct.customers
+    bb = ct.by_browser.copy()
+    bb["share"] = bb["multi_arm"] / bb["customers"]
+    bb["expected_share"] = bb["expected_multi"] / bb["customers"]
+    levels: list[tuple[str, str]] = []
+    if share > th.churn_fail:
+        levels.append(("fail", f"{share:.1%} of customers are in more than one arm"))
+    elif share > th.churn_warn:
+        levels.append(("warn", f"{share:.1%} of customers are in more than one arm"))
+    big = bb[bb["customers"] >= th.min_customers].sort_values("share", ascending=False)
+    for name, r in zip(big.index, big.itertuples()):
+        if r.share > th.churn_fail:
+            levels.append(("fail", f"{name}: {r.share:.1%} of its customers are in several arms"))
+        elif r.share > th.churn_warn:
+            levels.append(("warn", f"{name}: {r.share:.1%} of its customers are in several arms"))
+    status = worst([s for s, _ in levels])
+    multi_ids = sum(v for k, v in ct.ids_per_customer.items() if k != "1")
+    if levels:
+        summary = ("; ".join(t for _, t in levels) + f" (re-randomization of their extra ids would give "
+                   f"{exp_share:.1%}): those people saw both sides of the split, which dilutes the contrast; "
+                   "keep the id stable (a server-set first-party cookie, or key on the logged-in customer). "
+                   + COOKIE_NOTE)
+    else:
+        summary = (f"{share:.2%} of customers are in more than one arm ({exp_share:.2%} expected from their extra ids); "
+                   "within limits. " + COOKIE_NOTE)
+    figs = {
+        "customers": Figure(label="customers with identity links", value=ct.customers, unit="count"),
+        "multi_arm_customers": Figure(label="customers in several arms", value=ct.multi_arm, unit="count"),
+        "multi_arm_share": Figure(label="customers in several arms", value=share, unit="share"),
+        "expected_share": Figure(label="expected if extra ids were re-randomized", value=exp_share, unit="share"),
+        "multi_id_customers": Figure(label="customers with several ids", value=multi_ids, unit="count"),
+    }
+    if len(big) and levels:
+        figs["worst_browser"] = Figure(label="browser with the most churn", value=str(big.index[0]), unit="text")
+    tables = [
+        Table(title="Customers in several arms by browser family",
+              columns=["browser", "customers", "in several arms", "share", "expected share"],
+              rows=[[n, int(r.customers), int(r.multi_arm), round(float(r.share), 6), round(float(r.expected_share), 6)]
+                    for n, r in zip(bb.index, bb.itertuples())]),
+        Table(title="Ids per customer", columns=["ids", "customers"],
+              rows=[[k, v] for k, v in ct.ids_per_customer.items()]),
+    ]
+    series = [{"browser": str(n), "customers": int(r.customers), "multi_arm": int(r.multi_arm),
+               "share": float(r.share), "expected_share": float(r.expected_share)}
+              for n, r in zip(bb.index, bb.itertuples())]
+    return Check(id="churn", title=title, status=status, summary=summary, figures=figs, tables=tables,
+                 series={"by_browser": series})

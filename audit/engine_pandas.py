@@ -1,0 +1,283 @@
+"""The pandas engine: tidy frames -> the small tables of `audit.tables` (counts, sums, sums of squares)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from assign import Spec, assign_many
+
+from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
+from .tables import (
+    AuditTables, BalanceTables, ChurnTables, IntegrityTables, LeakageTables, SplitTables,
+)
+
+NS_DAY = 86_400 * 10**9
+
+
+def _arrow_ids(s: pd.Series) -> pa.ChunkedArray:
+    arr = pa.chunked_array([pa.array(s.array)]) if not hasattr(s.array, "__arrow_array__") else pa.chunked_array(s.array.__arrow_array__())
+    return arr
+
+
+def hash_arms(spec: Spec, ids: pd.Series) -> np.ndarray:
+    """Arm index (spec order) of every id, from the contract; each id hashed once (ids are unique here)."""
+    names = assign_many(spec, ids.tolist())
+    return pd.Categorical(names, categories=list(spec.arm_names)).codes.astype(np.int16)
+
+
+def _recorded_codes(spec: Spec, rec: pd.Series) -> tuple[np.ndarray, dict[str, int], int]:
+    """Recorded arm -> spec index; -1 for an unknown name, -2 for empty."""
+    cats = [str(c) for c in rec.cat.categories]
+    names = list(spec.arm_names)
+    lut = np.array([names.index(c) if c in names else (-2 if c == "(missing)" else -1) for c in cats] or [0],
+                   dtype=np.int16)
+    codes = rec.cat.codes.to_numpy()
+    out = lut[codes] if len(cats) else np.zeros(len(codes), np.int16)
+    per_level = np.bincount(codes, minlength=len(cats))
+    unknown = {c: int(n) for c, n, v in zip(cats, per_level, lut) if v == -1 and n > 0}
+    missing = int(sum(n for n, v in zip(per_level, lut) if v == -2))
+    return out, unknown, missing
+
+
+def _crosstab(codes: np.ndarray, levels: list[str], arm: np.ndarray, k: int, arms: list[str]) -> pd.DataFrame:
+    """Level x arm counts (arm >= 0 only)."""
+    ok = arm >= 0
+    flat = np.bincount(codes[ok].astype(np.int64) * k + arm[ok], minlength=len(levels) * k)
+    return pd.DataFrame(flat.reshape(len(levels), k), index=pd.Index(levels, name="level"), columns=arms)
+
+
+def _days(ts: pd.Series) -> tuple[np.ndarray, list[str], np.ndarray]:
+    """Day code per row, the day labels and the day numbers since the epoch."""
+    ns = ts.to_numpy(dtype="datetime64[ns]").view(np.int64)
+    dnum = ns // NS_DAY
+    uniq, codes = np.unique(dnum, return_inverse=True)
+    labels = [str(np.datetime64(int(d), "D")) for d in uniq]
+    return codes.astype(np.int64), labels, uniq
+
+
+def split_and_integrity(spec: Spec, fr: Frames, eff: np.ndarray, rec: np.ndarray, hashed: np.ndarray,
+                        unknown: dict[str, int], missing: int) -> tuple[SplitTables, IntegrityTables]:
+    v = fr.visits
+    arms, k = list(spec.arm_names), len(spec.arms)
+    units = np.bincount(rec[rec >= 0], minlength=k)
+    dcode, dlabels, _ = _days(v[TIME])
+    daily = _crosstab(dcode, dlabels, rec, k, arms)
+    daily.index.name = "date"
+    segs = {}
+    mis = (rec >= 0) & (rec != hashed)
+    by_seg = {}
+    for col in spec.audit.segments:
+        cat = v[col]
+        codes = cat.cat.codes.to_numpy()
+        levels = [str(c) for c in cat.cat.categories]
+        segs[col] = _crosstab(codes, levels, rec, k, arms)
+        by_seg[col] = pd.DataFrame({"units": np.bincount(codes, minlength=len(levels)),
+                                    "mismatches": np.bincount(codes[mis], minlength=len(levels))},
+                                   index=pd.Index(levels, name="level"))
+    by_day = pd.DataFrame({"units": np.bincount(dcode, minlength=len(dlabels)),
+                           "mismatches": np.bincount(dcode[mis], minlength=len(dlabels))},
+                          index=pd.Index(dlabels, name="date"))
+    pair_codes = rec[mis].astype(np.int64) * k + hashed[mis]
+    pc_ = np.bincount(pair_codes, minlength=k * k)
+    pairs = pd.DataFrame([{"recorded": arms[i // k], "recomputed": arms[i % k], "units": int(n)}
+                          for i, n in enumerate(pc_) if n > 0], columns=["recorded", "recomputed", "units"])
+    start = pd.Timestamp(spec.start)
+    fps = None
+    if FP in v:
+        vc = v[FP].value_counts()
+        fps = {str(a): int(n) for a, n in vc.items() if n > 0}
+    integ = IntegrityTables(
+        units=len(v), recorded_unknown=unknown, recorded_missing=missing, mismatches=int(mis.sum()),
+        pairs=pairs, by_day=by_day, by_segment=by_seg, pre_start=int((v[TIME] < start).sum()),
+        first_seen_min=v[TIME].iloc[0].isoformat(), first_seen_max=v[TIME].iloc[-1].isoformat(),
+        fingerprints=fps,
+    )
+    split = SplitTables(arms=arms, units={a: int(n) for a, n in zip(arms, units)}, daily=daily, segments=segs)
+    return split, integ
+
+
+def balance_tables(spec: Spec, fr: Frames, rec: np.ndarray) -> BalanceTables:
+    v = fr.visits
+    arms, k = list(spec.arm_names), len(spec.arms)
+    ok = rec >= 0
+    rows = []
+    for col in spec.audit.covariates:
+        x = v[col].to_numpy(dtype=np.float64)
+        fin = ~np.isnan(x)
+        vals = x[fin & ok]
+        binary = bool(np.isin(vals, (0.0, 1.0)).all()) if len(vals) else False
+        for i, a in enumerate(arms):
+            m = ok & (rec == i)
+            xi = x[m & fin]
+            rows.append({"covariate": col, "arm": a, "n": int(len(xi)), "missing": int((m & ~fin).sum()),
+                         "sum": float(xi.sum()), "sumsq": float(np.dot(xi, xi)), "binary": binary})
+    numeric = pd.DataFrame(rows, columns=["covariate", "arm", "n", "missing", "sum", "sumsq", "binary"])
+    cats = {}
+    for col in spec.audit.categorical_covariates:
+        cat = v[col]
+        cats[col] = _crosstab(cat.cat.codes.to_numpy(), [str(c) for c in cat.cat.categories], rec, k, arms)
+    return BalanceTables(numeric=numeric, categorical=cats)
+
+
+def _positions(ids: pd.Series, value_set: pa.ChunkedArray) -> np.ndarray:
+    """Row of each id in the visits (by unit id), -1 when the id is not there."""
+    idx = pc.index_in(_arrow_ids(ids), value_set=value_set)
+    return pc.fill_null(idx, -1).to_numpy().astype(np.int64)
+
+
+def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.ChunkedArray) -> LeakageTables:
+    e, v = fr.exposures, fr.visits
+    assert e is not None
+    arms, k = list(spec.arm_names), len(spec.arms)
+    hold = np.isin(np.arange(k), [arms.index(a) for a in spec.holdout_arms])
+    pos = _positions(e[UNIT], vset)
+    seen = pos >= 0
+    t = e[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
+    start = pd.Timestamp(spec.start).value
+    fs = v[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
+    kind = e[KIND].cat.codes.to_numpy()  # 0 impression, 1 click, 2 other
+    sp, st, sk = pos[seen], t[seen], kind[seen]
+    fs_row = fs[sp]
+    before_start = st < start
+    before_assign = (st < fs_row) & ~before_start
+    pre = before_start | before_assign
+    during = ~pre
+    arm_row = eff[sp]
+    nv = len(v)
+
+    def mark(mask: np.ndarray) -> np.ndarray:
+        out = np.zeros(nv, dtype=bool)
+        out[sp[mask]] = True
+        return out
+
+    exposed_u = mark(during)
+    pre_u = mark(pre)
+    ok = eff >= 0
+    units = np.bincount(eff[ok], minlength=k)
+    by_arm = pd.DataFrame({
+        "units": units,
+        "exposed_units": np.bincount(eff[ok & exposed_u], minlength=k),
+        "pre_exposed_units": np.bincount(eff[ok & pre_u], minlength=k),
+        "impressions": np.bincount(arm_row[during & (sk == 0) & (arm_row >= 0)], minlength=k),
+        "clicks": np.bincount(arm_row[during & (sk == 1) & (arm_row >= 0)], minlength=k),
+    }, index=pd.Index(arms, name="arm"))
+    leak = during & (arm_row >= 0) & hold[np.maximum(arm_row, 0)]
+    camp_all = e[CAMPAIGN]
+    cnames = [str(c) for c in camp_all.cat.categories]
+    lc = camp_all.cat.codes.to_numpy()[seen][leak].astype(np.int64)
+    lp, lt, lk = sp[leak], st[leak], sk[leak]
+    nc = max(len(cnames), 1)
+    ucamp = np.unique(lp * nc + lc) % nc if len(lp) else np.zeros(0, np.int64)
+    by_campaign = pd.DataFrame({
+        "units": np.bincount(ucamp, minlength=len(cnames)),
+        "impressions": np.bincount(lc[lk == 0], minlength=len(cnames)),
+        "clicks": np.bincount(lc[lk == 1], minlength=len(cnames)),
+    }, index=pd.Index(cnames, name="campaign"))
+    by_campaign = by_campaign[(by_campaign.sum(axis=1) > 0)]
+    day = lt // NS_DAY
+    week = (day + 3) // 7  # 1970-01-01 was a Thursday: Monday-based week number
+    weeks, wcode = np.unique(week, return_inverse=True)
+    wk_units = np.zeros(len(weeks), np.int64)
+    if len(lp):
+        upair = np.unique(lp * len(weeks) + wcode)
+        wk_units = np.bincount(upair % len(weeks), minlength=len(weeks))
+    by_week = pd.DataFrame({
+        "units": wk_units,
+        "impressions": np.bincount(wcode[lk == 0], minlength=len(weeks)),
+        "clicks": np.bincount(wcode[lk == 1], minlength=len(weeks)),
+    }, index=pd.Index([str(np.datetime64(int(w) * 7 - 3, "D")) for w in weeks], name="week"))
+    first = str(np.datetime64(int(lt.min()) // NS_DAY, "D")) if len(lt) else None
+    # exposed ids the visits never saw: the arm the spec would give them, each hashed once
+    unseen = e.loc[~seen, UNIT]
+    uniq = pd.Series(pd.unique(unseen), dtype="str") if len(unseen) else pd.Series([], dtype="str")
+    ua = hash_arms(spec, uniq) if len(uniq) else np.zeros(0, np.int16)
+    n_seen_ids = int(np.count_nonzero(exposed_u | pre_u))
+    return LeakageTables(
+        rows=len(e), by_arm=by_arm, holdout_by_campaign=by_campaign, holdout_by_week=by_week,
+        holdout_first=first,
+        pre_before_start=int(np.count_nonzero(mark(before_start))),
+        pre_before_assignment=int(np.count_nonzero(mark(before_assign) & ~mark(before_start))),
+        pre_rows=int(pre.sum()), unseen_ids=len(uniq), unseen_rows=int((~seen).sum()),
+        unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
+        exposed_ids=n_seen_ids + len(uniq),
+    )
+
+
+def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.ChunkedArray) -> ChurnTables:
+    ident, v = fr.identities, fr.visits
+    assert ident is not None
+    k = len(spec.arms)
+    theta = np.array(spec.weights, dtype=np.float64) / 10_000
+    pos = _positions(ident[UNIT], vset)
+    arm = np.where(pos >= 0, eff[np.maximum(pos, 0)], -1).astype(np.int64)
+    missing = pos < 0
+    if missing.any():  # ids linked to a customer but not in the visits: the spec's arm, hashed once
+        ids = ident.loc[missing, UNIT]
+        uniq, inv = np.unique(ids.to_numpy(dtype=object), return_inverse=True)
+        arm[missing] = hash_arms(spec, pd.Series(uniq, dtype="str"))[inv]
+    if BROWSER in v:
+        bcat = v[BROWSER]
+        blevels = [str(c) for c in bcat.cat.categories] + ["(not in visits)"]
+        bcode = np.where(pos >= 0, bcat.cat.codes.to_numpy()[np.maximum(pos, 0)], len(blevels) - 1)
+    else:
+        blevels = ["(no browser column)"]
+        bcode = np.zeros(len(pos), np.int64)
+    ccodes, _ = pd.factorize(ident[CUSTOMER])
+    ok = arm >= 0
+    c, a, b = ccodes[ok].astype(np.int64), arm[ok], bcode[ok].astype(np.int64)
+    nids, narms = _ids_and_arms(c, a, k)
+    p_multi = 1.0 - (theta[None, :] ** nids[:, None]).sum(axis=1)
+    dist = {str(i): int((nids == i).sum()) for i in range(1, 5)}
+    dist["5+"] = int((nids >= 5).sum())
+    ncust = int(c.max()) + 1 if len(c) else 1
+    groups, inv = np.unique(b * ncust + c, return_inverse=True)
+    g_n, g_arms = _ids_and_arms(inv.astype(np.int64), a, k)
+    g_b = groups // ncust
+    g_exp = 1.0 - (theta[None, :] ** g_n[:, None]).sum(axis=1)
+    nb = len(blevels)
+    g = pd.DataFrame({
+        "customers": np.bincount(g_b, minlength=nb),
+        "multi_arm": np.bincount(g_b[g_arms > 1], minlength=nb),
+        "expected_multi": np.bincount(g_b, weights=g_exp, minlength=nb),
+    }, index=pd.Index(blevels, name="browser"))
+    g = g[g["customers"] > 0]
+    per_len = len(nids)
+    return ChurnTables(
+        links=len(ident), customers=per_len, multi_arm=int((narms > 1).sum()),
+        expected_multi=float(p_multi.sum()), ids_per_customer=dist,
+        by_browser=g,
+        ids_not_in_visits=int(len(np.unique(ident.loc[missing, UNIT].to_numpy(dtype=object)))) if missing.any() else 0,
+    )
+
+
+def _ids_and_arms(group: np.ndarray, arm: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per group (0..G-1, only groups present): number of rows and of distinct arms."""
+    if not len(group):
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    present, dense = np.unique(group, return_inverse=True)
+    n = np.bincount(dense)
+    pairs = np.unique(dense.astype(np.int64) * k + arm)
+    distinct = np.bincount(pairs // k, minlength=len(present))
+    return n, distinct
+
+
+def compute(spec: Spec, fr: Frames) -> AuditTables:
+    """All sufficient statistics of one audit."""
+    v = fr.visits
+    hashed = hash_arms(spec, v[UNIT])
+    rec, unknown, missing = _recorded_codes(spec, v[ARM])
+    eff = np.where(rec >= 0, rec, hashed).astype(np.int64)
+    rec = rec.astype(np.int64)
+    hashed = hashed.astype(np.int64)
+    split, integ = split_and_integrity(spec, fr, eff, rec, hashed, unknown, missing)
+    tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, rec))
+    if fr.exposures is not None or fr.identities is not None:
+        vset = _arrow_ids(v[UNIT])
+        if fr.exposures is not None:
+            tables.leakage = leakage_tables(spec, fr, eff, vset)
+        if fr.identities is not None:
+            tables.churn = churn_tables(spec, fr, eff, vset)
+    return tables

@@ -1,0 +1,169 @@
+"""Load the three logs by the spec's column map: set aside empty ids, keep each unit's earliest row, cut at as-of."""
+
+from __future__ import annotations
+
+from datetime import date, datetime, time, timedelta, timezone
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from assign import InputError, Spec
+
+from .read import (
+    ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames, Source, _header, _need,
+    _read_table, read_ids, read_labels, read_numbers, read_times,
+)
+
+PathLike = str | Path
+
+
+def cutoff_of(as_of: date) -> pd.Timestamp:
+    """The end of the as-of day (UTC): data at or after this instant is ignored."""
+    return pd.Timestamp(datetime.combine(as_of + timedelta(days=1), time(0), tzinfo=timezone.utc))
+
+
+def _note_empty(src: Source, col: str, empty: np.ndarray, what: str, notes: list[str]) -> int:
+    n = int(empty.sum())
+    if n:
+        notes.append(f"{src.path.name}: {n:,} row(s) with an empty or null '{col}' ({src.rows(np.flatnonzero(empty), n)}) "
+                     f"were set aside: {what}")
+    return n
+
+
+def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> date:
+    """Fill `fr.visits` (one row per unit, earliest first-seen kept); returns the as-of date used."""
+    cfg = spec.audit
+    src = Source(Path(path), "visits")
+    present = _header(src)
+    cv = cfg.visits
+    _need(src, present, {"unit_id": cv.unit_id, "first_seen": cv.first_seen, "arm": cv.arm}, "[audit.visits]")
+    for key in ("segments", "covariates", "categorical_covariates"):
+        _need(src, present, {f"{key}[{i}]": c for i, c in enumerate(getattr(cfg, key))}, "[audit]")
+    optional: dict[str, str] = {}
+    for key, col in (("fingerprint", cv.fingerprint), ("browser", cv.browser)):
+        if col and col in present:
+            optional[key] = col
+        elif col:
+            fr.notes.append(f"{src.path.name}: no '{col}' column ([audit.visits] {key}); "
+                            + ("the spec fingerprint in the data is not checked" if key == "fingerprint"
+                               else "identity churn is not split by browser"))
+    extra = list(dict.fromkeys([*cfg.segments, *cfg.categorical_covariates, *cfg.covariates]))
+    cols = list(dict.fromkeys([cv.unit_id, cv.first_seen, cv.arm, *optional.values(), *extra]))
+    table = _read_table(src, cols)
+    ids, empty = read_ids(src, table, cv.unit_id, fr.notes)
+    frame = pd.DataFrame({UNIT: ids, TIME: read_times(src, table, cv.first_seen, fr.notes),
+                          ARM: read_labels(table, cv.arm)})
+    if "fingerprint" in optional:
+        frame[FP] = read_labels(table, optional["fingerprint"])
+    if "browser" in optional:
+        frame[BROWSER] = read_labels(table, optional["browser"])
+    for col in dict.fromkeys([*cfg.segments, *cfg.categorical_covariates]):
+        frame[col] = read_labels(table, col)
+    for col in cfg.covariates:
+        frame[col] = read_numbers(src, table, col)
+    del table
+    fr.counts["visit_rows"] = len(frame)
+    fr.counts["empty_ids"] = _note_empty(src, cv.unit_id, empty, "they have no arm", fr.notes)
+    no_time = frame[TIME].isna().to_numpy() & ~empty
+    fr.counts["missing_first_seen"] = _note_empty(src, cv.first_seen, no_time,
+                                                  "a unit needs a first-seen time", fr.notes)
+    keep = ~(empty | no_time)
+    if not keep.all():
+        frame = frame[keep]
+    frame = frame.sort_values(TIME, kind="stable")
+    dup = frame[UNIT].duplicated(keep="first").to_numpy()
+    n_dup = int(dup.sum())
+    fr.counts["duplicate_rows"] = n_dup
+    if n_dup:
+        units = frame.loc[dup, UNIT].nunique()
+        fr.notes.append(f"{src.path.name}: {units:,} unit id(s) had several first-seen rows "
+                        f"({n_dup:,} extra row(s)); the earliest row of each was kept")
+        frame = frame[~dup]
+    if frame.empty:
+        raise InputError(f"{src.path}: no usable rows in the visits file (every row lacked an id or a time)")
+    last = frame[TIME].iloc[-1].date()
+    if as_of is None:
+        as_of = last
+        fr.notes.append(f"as-of date not given: using the last first-seen date in the visits, {as_of}")
+    cut = cutoff_of(as_of)
+    late = (frame[TIME] >= cut).to_numpy()
+    fr.counts["visits_after_as_of"] = int(late.sum())
+    if late.any():
+        fr.notes.append(f"{src.path.name}: {int(late.sum()):,} unit(s) first seen after the as-of date "
+                        f"{as_of} are ignored")
+        frame = frame[~late]
+    if frame.empty:
+        raise InputError(f"{src.path}: no units first seen on or before the as-of date {as_of}")
+    known = set(spec.arm_names)
+    counts = frame[ARM].value_counts()
+    seen = [str(a) for a, c in counts.items() if c > 0]
+    if not known & set(seen):
+        raise InputError(
+            f"{src.path}: none of the arms recorded in column '{cv.arm}' is an arm of the spec "
+            f"(found: {', '.join(seen[:10])}; the spec's arms: {', '.join(spec.arm_names)}); "
+            "map the right column in [audit.visits] arm, or check that this is the right test"
+        )
+    fr.visits = frame.reset_index(drop=True)
+    return as_of
+
+
+def load_exposures(spec: Spec, path: PathLike, as_of: date, fr: Frames) -> None:
+    """Fill `fr.exposures`: unit, time, campaign and kind ("impression" | "click" | "other")."""
+    ce = spec.audit.exposures
+    src = Source(Path(path), "exposures")
+    present = _header(src)
+    _need(src, present, {"unit_id": ce.unit_id, "time": ce.time, "campaign": ce.campaign,
+                         "kind": ce.kind}, "[audit.exposures]")
+    table = _read_table(src, list(dict.fromkeys([ce.unit_id, ce.time, ce.campaign, ce.kind])))
+    ids, empty = read_ids(src, table, ce.unit_id, fr.notes)
+    times = read_times(src, table, ce.time, fr.notes)
+    campaign = read_labels(table, ce.campaign)
+    raw_kind = read_labels(table, ce.kind)
+    del table
+    levels = [str(c) for c in raw_kind.cat.categories]
+    mapped = ["impression" if v in ce.impression_values else "click" if v in ce.click_values
+              else "other" for v in levels]
+    others = [v for v, m in zip(levels, mapped) if m == "other"]
+    kind = pd.Categorical.from_codes(
+        np.array([("impression", "click", "other").index(m) for m in mapped], dtype=np.int8)[raw_kind.cat.codes.to_numpy()]
+        if len(levels) else np.zeros(0, np.int8),
+        categories=["impression", "click", "other"])
+    frame = pd.DataFrame({UNIT: ids, TIME: times, CAMPAIGN: campaign, KIND: kind})
+    fr.counts["exposure_rows"] = len(frame)
+    n_other = int((frame[KIND] == "other").sum())
+    if n_other:
+        fr.notes.append(f"{src.path.name}: {n_other:,} row(s) have a '{ce.kind}' that is neither an "
+                        f"impression nor a click ({', '.join(others[:5])}); counted as exposures of "
+                        "kind 'other' (map them in [audit.exposures] impression_values / click_values)")
+    fr.counts["exposure_empty_ids"] = _note_empty(src, ce.unit_id, empty, "they name no unit", fr.notes)
+    no_time = frame[TIME].isna().to_numpy() & ~empty
+    fr.counts["exposure_missing_time"] = _note_empty(src, ce.time, no_time, "an exposure needs a time", fr.notes)
+    late = (frame[TIME] >= cutoff_of(as_of)).to_numpy()
+    fr.counts["exposures_after_as_of"] = int(late.sum())
+    if late.any():
+        fr.notes.append(f"{src.path.name}: {int(late.sum()):,} exposure row(s) after the as-of date {as_of} are ignored")
+    keep = ~(empty | no_time | late)
+    fr.exposures = frame[keep].reset_index(drop=True) if not keep.all() else frame
+
+
+def load_identities(spec: Spec, path: PathLike, fr: Frames) -> None:
+    """Fill `fr.identities`: distinct (unit, customer) links."""
+    ci = spec.audit.identities
+    src = Source(Path(path), "identities")
+    present = _header(src)
+    _need(src, present, {"unit_id": ci.unit_id, "customer": ci.customer}, "[audit.identities]")
+    table = _read_table(src, list(dict.fromkeys([ci.unit_id, ci.customer])))
+    ids, empty = read_ids(src, table, ci.unit_id, fr.notes)
+    cust, no_cust = read_ids(src, table, ci.customer, [])
+    del table
+    fr.counts["identity_rows"] = len(ids)
+    fr.counts["identity_empty_ids"] = _note_empty(src, ci.unit_id, empty, "they name no unit", fr.notes)
+    fr.counts["identity_empty_customers"] = _note_empty(src, ci.customer, no_cust & ~empty,
+                                                        "they name no customer", fr.notes)
+    frame = pd.DataFrame({UNIT: ids, CUSTOMER: cust})[~(empty | no_cust)]
+    before = len(frame)
+    frame = frame.drop_duplicates()
+    if len(frame) < before:
+        fr.notes.append(f"{src.path.name}: {before - len(frame):,} repeated (unit, customer) row(s) counted once")
+    fr.identities = frame.reset_index(drop=True)

@@ -1,0 +1,83 @@
+"""The library entry point: `run_audit(spec, visits=..., exposures=..., identities=...)` -> AuditReport."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from datetime import date, datetime, timezone
+from pathlib import Path
+
+from assign import Spec, __version__
+
+from . import engine_pandas
+from .balance import check_balance
+from .churn import check_churn
+from .integrity import check_integrity
+from .leakage import check_leakage
+from .load import load_exposures, load_identities, load_visits
+from .model import ArmInfo, AuditReport, Check, worst
+from .read import Frames
+from .srm import check_srm, check_srm_segments
+
+PathLike = str | Path
+STEPS = 5  # progress steps: visits, exposures, identities, engine, checks
+
+VERDICT_TEXT = {
+    "pass": "The split looks healthy: no check found a problem.",
+    "warn": "The split needs a look: at least one check warns (see below); results may still be usable.",
+    "fail": "The split is broken: at least one check fails; do not read results until it is fixed.",
+}
+
+
+def checks_from_tables(spec: Spec, tables: engine_pandas.AuditTables, counts: dict[str, int]) -> list[Check]:
+    """The statistics and verdicts, from sufficient statistics only (engine-independent)."""
+    return [
+        check_srm(spec, tables.split),
+        check_srm_segments(spec, tables.split),
+        check_integrity(spec, tables.integrity, counts),
+        check_leakage(spec, tables.leakage),
+        check_churn(spec, tables.churn),
+        check_balance(spec, tables.balance),
+    ]
+
+
+def run_audit(
+    spec: Spec,
+    *,
+    visits: PathLike,
+    exposures: PathLike | None = None,
+    identities: PathLike | None = None,
+    as_of: date | None = None,
+    advance: Callable[[int], None] | None = None,
+) -> AuditReport:
+    """Audit a test's logs as of the end of `as_of` (UTC; default: the last first-seen day).
+
+    Raises `assign.InputError` for unusable files (message names file, column and rows).
+    `advance(1)` is called after each of `STEPS` steps (for a progress bar).
+    """
+    step = advance or (lambda n: None)
+    fr = Frames(visits=None)  # type: ignore[arg-type]
+    used = load_visits(spec, visits, as_of, fr)
+    step(1)
+    if exposures is not None:
+        load_exposures(spec, exposures, used, fr)
+    step(1)
+    if identities is not None:
+        load_identities(spec, identities, fr)
+    step(1)
+    tables = engine_pandas.compute(spec, fr)
+    step(1)
+    checks = checks_from_tables(spec, tables, fr.counts)
+    step(1)
+    verdict = worst([c.status for c in checks])
+    return AuditReport(
+        experiment=spec.name,
+        fingerprint=spec.fingerprint,
+        as_of=used.isoformat(),
+        generated_at=datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
+        armlock_version=__version__,
+        arms=[ArmInfo(name=a.name, weight=a.weight, role=a.role) for a in spec.arms],
+        verdict=verdict,
+        verdict_text=VERDICT_TEXT[verdict],
+        input_notes=fr.notes,
+        checks=checks,
+    )

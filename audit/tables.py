@@ -1,0 +1,90 @@
+"""The engine-neutral sufficient statistics: small tables any engine (pandas now, Spark later) must fill.
+
+Every table is counts or sums keyed by arm / day / segment / campaign / week; the statistics
+modules read only these, never the raw logs. Arms are always in spec order; "days" are UTC
+calendar days of first-seen; "weeks" start on Monday (ISO 8601).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+
+@dataclass
+class SplitTables:
+    """Units per arm by recorded arm, overall, per first-seen day and per segment value."""
+
+    arms: list[str]
+    units: dict[str, int]  # recorded arm (known arms only) -> units
+    daily: pd.DataFrame  # index: date (YYYY-MM-DD str), columns: arms; NEW units that day
+    segments: dict[str, pd.DataFrame]  # segment column -> index: level, columns: arms
+
+
+@dataclass
+class IntegrityTables:
+    """Recorded arm vs the arm the spec gives, and other signs the split was not applied as specified."""
+
+    units: int  # units with an id and a first-seen time (after de-duplication and as-of)
+    recorded_unknown: dict[str, int]  # recorded arm names the spec does not know -> units
+    recorded_missing: int  # units with an empty recorded arm
+    mismatches: int  # units whose (known) recorded arm differs from the recomputed arm
+    pairs: pd.DataFrame  # columns: recorded, recomputed, units (mismatching pairs only)
+    by_day: pd.DataFrame  # index: date, columns: units, mismatches
+    by_segment: dict[str, pd.DataFrame]  # segment -> index: level, columns: units, mismatches
+    pre_start: int  # units first seen before the spec's start
+    first_seen_min: str  # ISO time of the earliest first-seen
+    first_seen_max: str
+    fingerprints: dict[str, int] | None  # fingerprint stamped in the data -> units (None: no column)
+
+
+@dataclass
+class BalanceTables:
+    """Per-arm sums for numeric covariates and per-level counts for categorical ones."""
+
+    numeric: pd.DataFrame  # columns: covariate, arm, n, missing, sum, sumsq, binary (bool per covariate)
+    categorical: dict[str, pd.DataFrame]  # covariate -> index: level, columns: arms
+
+
+@dataclass
+class LeakageTables:
+    """The vendor's exposure log against the split."""
+
+    rows: int  # exposure rows read (after as-of)
+    by_arm: pd.DataFrame  # index: arm; columns: units, exposed_units, pre_exposed_units, impressions, clicks
+    holdout_by_campaign: pd.DataFrame  # index: campaign; columns: units, impressions, clicks (during the test)
+    holdout_by_week: pd.DataFrame  # index: Monday date; columns: units, impressions, clicks
+    holdout_first: str | None  # date of the first holdout exposure during the test
+    pre_before_start: int  # units exposed before the test start (exposure time < start)
+    pre_before_assignment: int  # units exposed after the start but before their first-seen time
+    pre_rows: int  # exposure rows before the unit's first assignment or the start
+    unseen_ids: int  # distinct exposed ids never seen in the visits
+    unseen_rows: int
+    unseen_by_arm: dict[str, int]  # the arm the spec gives those ids
+    exposed_ids: int  # distinct ids in the exposure log
+
+
+@dataclass
+class ChurnTables:
+    """Customers (identity links) and the arms their unit ids fall in."""
+
+    links: int
+    customers: int
+    multi_arm: int  # customers whose ids fall in more than one arm
+    expected_multi: float  # expected count if every extra id were re-randomized
+    ids_per_customer: dict[str, int]  # "1", "2", "3", "4", "5+" -> customers
+    by_browser: pd.DataFrame  # index: browser; columns: customers, multi_arm, expected_multi
+    ids_not_in_visits: int
+
+
+@dataclass
+class AuditTables:
+    """Everything the statistics need."""
+
+    split: SplitTables
+    integrity: IntegrityTables
+    balance: BalanceTables
+    leakage: LeakageTables | None = None
+    churn: ChurnTables | None = None
+    extra: dict[str, object] = field(default_factory=dict)
