@@ -7,6 +7,7 @@
   // e event name, r error event name, g global object name, i id sources [[kind, name, pattern]],
   // c consent [key, value] or [function path] or null, q QA override parameter ("" = off).
   var dl, G, queue = [], waiting = 1;
+  // @hash-begin (tests run the code between these markers on the xxHash reference vectors)
   // ---- unsigned 64-bit arithmetic on four 16-bit limbs, least significant first ----------
   // (every intermediate stays below 2^53, so plain doubles compute it exactly)
   function add(a, b) {
@@ -107,6 +108,7 @@
     }
     return xsr(mul(xsr(mul(xsr(acc, 33), P2), 29), P3), 32);
   }
+  // @hash-end
   // bucket = ((h >> 32) * 10000) >> 32 on the top 32 bits; the product is exact in a double
   function bucketOf(id) {
     if (typeof id != 'string' || id === '') return null;
