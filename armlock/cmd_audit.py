@@ -1,0 +1,84 @@
+"""`armlock audit`: the weekly split-health audit of a running test; the verdict becomes the exit code."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from datetime import date
+from pathlib import Path
+
+import typer
+
+from assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
+from audit.model import AuditReport
+from audit.render import RENDERERS
+from audit.run import STEPS, run_audit
+
+from .common import SPEC_HELP, err, open_spec, progress
+
+# The report formats: one renderer per name (add a format with one line here).
+FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
+
+
+def exit_code(verdict: str, strict: bool) -> int:
+    """0 pass (and warn without --strict), 1 warn with --strict, 3 fail."""
+    if verdict == "fail":
+        return EXIT_FAIL
+    if verdict == "warn" and strict:
+        return EXIT_WARN
+    return EXIT_OK
+
+
+def _as_of(text: str | None) -> date | None:
+    if text is None:
+        return None
+    try:
+        return date.fromisoformat(text)
+    except ValueError:
+        raise typer.BadParameter(f"{text!r} is not a date; write YYYY-MM-DD, e.g. 2026-12-07",
+                                 param_hint="--as-of") from None
+
+
+def audit_cmd(
+    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    visits: Path = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet)."),
+    exposures: Path = typer.Option(None, "--exposures", help="The ad vendor's exposure log (impressions, clicks); enables the leakage check."),
+    identities: Path = typer.Option(None, "--identities", help="Identity links: unit id -> logged-in customer key; enables the churn check."),
+    as_of: str = typer.Option(None, "--as-of", help="Audit as of the end of this UTC day (YYYY-MM-DD); later rows are ignored. Default: the last first-seen day."),
+    fmt: str = typer.Option("text", "--format", "-f", help=f"Report format: {', '.join(FORMATS)}."),
+    out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
+    strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is warn (default: 0)."),
+) -> None:
+    """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
+    identity churn and covariate balance. Column names come from the spec's [audit] tables.
+
+    Exit codes: 0 pass (or warn without --strict), 1 warn with --strict, 3 fail, 4 bad input
+    (a file, column or row is wrong: nothing was judged).
+
+    Example:
+      armlock audit --spec spring.toml --visits visits.parquet --exposures exposures.csv.gz \\
+          --identities identities.csv --as-of 2026-12-07 --format markdown --out audit.md
+    """
+    if fmt not in FORMATS:
+        raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
+                                 param_hint="--format")
+    day = _as_of(as_of)
+    spec = open_spec(spec_path, record=False)
+    with progress(STEPS, "auditing") as advance:
+        report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
+                           as_of=day, advance=advance)
+    text = FORMATS[fmt](report)
+    if out is not None:
+        try:
+            out.write_text(text, encoding="utf-8")
+        except OSError as exc:
+            raise InputError(f"{out}: cannot write the report: {exc.strerror}") from None
+        err(f"Wrote the {fmt} report to {out}: verdict {report.verdict} ({report.verdict_text})")
+    else:
+        typer.echo(text, nl=False)
+    code = exit_code(report.verdict, strict)
+    if code:
+        raise typer.Exit(code)
+
+
+def register(app: typer.Typer) -> None:
+    app.command("audit")(audit_cmd)

@@ -1,0 +1,162 @@
+"""Reports of an AuditReport: terminal text, markdown for a ticket, and the versioned JSON."""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Callable
+from typing import Any
+
+from .model import AuditReport, Check, Figure, Table
+
+MARK = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIP"}
+MAX_ROWS = 15  # rows of a table shown in text and markdown (the JSON has them all)
+
+
+def fmt_value(v: Any, unit: str = "number") -> str:
+    """A figure or cell as text: counts with separators, shares as %, p-values in 2 significant digits."""
+    if v is None:
+        return "-"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, int):
+        return f"{v:,}"
+    if isinstance(v, float):
+        if math.isnan(v):
+            return "-"
+        if math.isinf(v):
+            return "inf"
+        if unit == "share":
+            return f"{v:.2%}" if abs(v) >= 0.001 or v == 0 else f"{v:.4%}"
+        if unit == "p":
+            return f"{v:.2g}" if v < 0.001 else f"{v:.4f}"
+        if unit == "count":
+            return f"{v:,.0f}"
+        if v != 0 and (abs(v) < 0.001 or abs(v) >= 1e6):
+            return f"{v:.3g}"
+        return f"{v:.4f}".rstrip("0").rstrip(".") or "0"
+    return str(v)
+
+
+def _fig(f: Figure) -> str:
+    return fmt_value(f.value, f.unit)
+
+
+def _cells(t: Table) -> tuple[list[str], list[list[str]], int]:
+    rows = [[fmt_value(c, "p" if "p" in t.columns[i].split() or t.columns[i] in ("p", "p (Holm)") else "number")
+             for i, c in enumerate(r)] for r in t.rows[:MAX_ROWS]]
+    return [str(c) for c in t.columns], rows, max(len(t.rows) - MAX_ROWS, 0)
+
+
+def text_table(t: Table, indent: str = "    ") -> str:
+    head, rows, more = _cells(t)
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(head)]
+    num = [all(_numeric(r[i]) for r in rows) and bool(rows) for i in range(len(head))]
+
+    def line(cells: list[str]) -> str:
+        return indent + "  ".join(c.rjust(w) if n else c.ljust(w) for c, w, n in zip(cells, widths, num)).rstrip()
+
+    out = [indent + t.title, line(head), indent + "  ".join("-" * w for w in widths)]
+    out += [line(r) for r in rows]
+    if more:
+        out.append(f"{indent}... {more:,} more row(s) in the JSON report")
+    return "\n".join(out)
+
+
+def _numeric(s: str) -> bool:
+    return s == "-" or s.replace(",", "").replace(".", "").replace("%", "").replace("-", "").replace("e", "").replace("+", "").isdigit()
+
+
+def render_text(r: AuditReport) -> str:
+    arms = ", ".join(f"{a.name} {a.weight / 100:g}% ({a.role})" for a in r.arms)
+    out = [f"armlock audit: {r.experiment}   as of {r.as_of}   spec {r.fingerprint}",
+           f"arms: {arms}",
+           f"verdict: {MARK[r.verdict]}  {r.verdict_text}", ""]
+    if r.input_notes:
+        out.append("Input notes:")
+        out += [f"  - {n}" for n in r.input_notes]
+        out.append("")
+    for c in r.checks:
+        out.append(f"[{MARK[c.status]}] {c.title}")
+        out.append(f"  {c.summary}")
+        if c.status == "skipped":
+            out.append("")
+            continue
+        if c.figures:
+            w = max(len(f.label) for f in c.figures.values())
+            out += [f"    {f.label.ljust(w)}  {_fig(f)}" for f in c.figures.values()]
+        for t in c.tables:
+            out.append("")
+            out.append(text_table(t))
+        out.append("")
+    return "\n".join(out).rstrip() + "\n"
+
+
+def _md_escape(s: str) -> str:
+    return s.replace("|", "\\|").replace("\n", " ")
+
+
+def md_table(t: Table) -> str:
+    head, rows, more = _cells(t)
+    out = [f"**{_md_escape(t.title)}**", "", "| " + " | ".join(_md_escape(h) for h in head) + " |",
+           "|" + "|".join("---" for _ in head) + "|"]
+    out += ["| " + " | ".join(_md_escape(c) for c in r) + " |" for r in rows]
+    if more:
+        out.append(f"\n_{more:,} more row(s) in the JSON report._")
+    return "\n".join(out)
+
+
+def render_markdown(r: AuditReport) -> str:
+    out = [f"## armlock audit: {r.experiment} — **{MARK[r.verdict]}**", "",
+           f"As of **{r.as_of}** (UTC), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
+           f"> {r.verdict_text}", "",
+           "| check | status | what it means |", "|---|---|---|"]
+    out += [f"| {_md_escape(c.title)} | **{MARK[c.status]}** | {_md_escape(c.summary)} |" for c in r.checks]
+    if r.input_notes:
+        out += ["", "**Input notes**", ""] + [f"- {_md_escape(n)}" for n in r.input_notes]
+    for c in r.checks:
+        if c.status == "skipped":
+            continue
+        out += ["", f"### {c.title} — {MARK[c.status]}", ""]
+        if c.figures:
+            out += ["| figure | value |", "|---|---|"]
+            out += [f"| {_md_escape(f.label)} | {_md_escape(_fig(f))} |" for f in c.figures.values()]
+        for t in c.tables:
+            out += ["", md_table(t)]
+    return "\n".join(out) + "\n"
+
+
+def render_json(r: AuditReport) -> str:
+    def clean(o: Any) -> Any:
+        if isinstance(o, float) and not math.isfinite(o):
+            return None
+        if isinstance(o, dict):
+            return {k: clean(v) for k, v in o.items()}
+        if isinstance(o, list):
+            return [clean(v) for v in o]
+        return o
+
+    return json.dumps(clean(r.to_json_dict()), indent=2, ensure_ascii=False) + "\n"
+
+
+RENDERERS: dict[str, Callable[[AuditReport], str]] = {
+    "text": render_text,
+    "markdown": render_markdown,
+    "json": render_json,
+}
+
+
+def render(report: AuditReport, fmt: str) -> str:
+    """The report as `fmt`: one of RENDERERS (text | markdown | json)."""
+    try:
+        return RENDERERS[fmt](report)
+    except KeyError:
+        raise ValueError(f"unknown report format {fmt!r}; choose one of {', '.join(RENDERERS)}") from None
+
+
+def check_by_id(report: AuditReport, check_id: str) -> Check:
+    """The check with this id (for tests and callers)."""
+    for c in report.checks:
+        if c.id == check_id:
+            return c
+    raise KeyError(check_id)
