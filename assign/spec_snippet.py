@@ -112,7 +112,7 @@ def _global_name(v: str, what: str) -> str:
     if not re.match(rf"^{JS_IDENT}$", v) or len(v) > 64:
         raise ValueError(f"{what} is a JavaScript identifier: a letter, _ or $, then letters, digits, _ or $")
     if v in RESERVED_GLOBALS:
-        raise ValueError(f"{what} {v!r} is a built-in property of the page's window; choose another name")
+        raise ValueError(f"{what} names a built-in property of the page's window; choose another name")
     return v
 
 
@@ -122,15 +122,45 @@ class SnippetSettings(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     id_sources: tuple[IdSource, ...] = Field((), max_length=8)
-    cookie_name: str = Field("armlock_uid", pattern=r"^[A-Za-z0-9_\-]{1,64}$")
-    cookie_days: int = Field(395, ge=1, le=MAX_COOKIE_DAYS, strict=True)
-    cookie_domain: str = Field("", max_length=253, pattern=COOKIE_DOMAIN)
+    cookie_name: str = "armlock_uid"
+    cookie_days: int = Field(395, strict=True)
+    cookie_domain: str = Field("", max_length=253)
     data_layer: str = "dataLayer"
     event_name: str = Field("armlock_arm", min_length=1, max_length=100)
     error_event_name: str = Field("armlock_error", min_length=1, max_length=100)
     global_name: str = "armlock"
     consent: ConsentRule = ConsentRule()
-    qa_param: str = Field("", pattern=r"^([A-Za-z0-9_\-.]{1,64})?$")
+    qa_param: str = ""
+
+    @field_validator("cookie_name")
+    @classmethod
+    def _cookie_name_ok(cls, v: str) -> str:
+        if not re.match(r"^[A-Za-z0-9_\-]{1,64}$", v):
+            raise ValueError("cookie_name is 1-64 letters, digits, _ or - (it is also the localStorage key)")
+        return v
+
+    @field_validator("cookie_days")
+    @classmethod
+    def _days_ok(cls, v: int) -> int:
+        if not 1 <= v <= MAX_COOKIE_DAYS:
+            raise ValueError(
+                f"cookie_days is 1..{MAX_COOKIE_DAYS}: RFC 6265bis caps a cookie's lifetime at 400 days"
+            )
+        return v
+
+    @field_validator("cookie_domain")
+    @classmethod
+    def _domain_ok(cls, v: str) -> str:
+        if not re.match(COOKIE_DOMAIN, v):
+            raise ValueError('cookie_domain is a host name such as ".shop.example", or "" for this host only')
+        return v
+
+    @field_validator("qa_param")
+    @classmethod
+    def _qa_ok(cls, v: str) -> str:
+        if not re.match(r"^([A-Za-z0-9_\-.]{1,64})?$", v):
+            raise ValueError('qa_param is a URL parameter name of letters, digits, _, - or . (or "" for off)')
+        return v
 
     @field_validator("data_layer")
     @classmethod
