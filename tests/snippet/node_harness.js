@@ -2,6 +2,7 @@
 // Reads one JSON request on stdin, prints one JSON answer on stdout. Request keys:
 //   snippet: the snippet source (js form); ids: ids to compute bucketOf/armOf for;
 //   cookie: initial document.cookie; cookieThrows: document.cookie throws on access;
+//   cookieIgnored: cookie writes are silently dropped (cookies disabled); noCrypto: no window.crypto;
 //   search: location.search; protocol: location.protocol; storage: initial localStorage;
 //   globals: extra properties of window (JSON values); before: data-layer entries pushed first;
 //   after: data-layer entries pushed after the snippet ran; gate: [[arms or null], ...] calls
@@ -26,6 +27,7 @@ function main(req) {
     set: function (v) {
       if (req.cookieThrows) throw new Error('cookies are blocked');
       writes.push(v);
+      if (req.cookieIgnored) return;
       var first = v.split(';')[0];
       jar[first.split('=')[0]] = first.slice(first.indexOf('=') + 1);
     }
@@ -37,7 +39,7 @@ function main(req) {
     getItem: function (k) { return Object.prototype.hasOwnProperty.call(store, k) ? store[k] : null; },
     setItem: function (k, v) { store[k] = String(v); }
   };
-  window.crypto = {getRandomValues: function (b) {
+  if (!req.noCrypto) window.crypto = {getRandomValues: function (b) {
     var r = nodeCrypto.randomBytes(b.length);
     for (var i = 0; i < b.length; i++) b[i] = r[i];
     return b;
