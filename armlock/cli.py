@@ -12,7 +12,7 @@ from assign import ArmlockError, __version__
 from assign.errors import EXIT_INTERNAL
 
 from . import cmd_assign, cmd_snippet, cmd_spec
-from . import cmd_history
+from . import cmd_demo, cmd_history
 from . import cmd_audit
 
 app = typer.Typer(
@@ -49,6 +49,7 @@ cmd_spec.register(app)
 cmd_assign.register(app)
 cmd_snippet.register(app)
 cmd_history.register(app)
+cmd_demo.register(app)
 cmd_audit.register(app)
 
 

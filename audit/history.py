@@ -186,6 +186,8 @@ def format_value(value: Any, unit: str) -> str:
     """A figure's value as a person reads it: shares in %, counts with separators, p in 2 digits."""
     if value is None:
         return "n/a"
+    if unit == "date" and isinstance(value, str) and len(value) > 10 and value[10] == "T":
+        return value[:16].replace("T", " ") + (" UTC" if value.endswith(("Z", "+00:00")) else "")
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         return str(value)
     if isinstance(value, float) and not math.isfinite(value):

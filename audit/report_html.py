@@ -242,16 +242,27 @@ def chart_churn(rows: list[dict[str, Any]], chart_id: str) -> str:
 _STATUS_MARK = {"pass": ("o", "#17603a"), "warn": ("^", "#9a6200"), "fail": ("X", "#9e1f24"), "skipped": ("s", "#777")}
 
 
+def history_keys(runs: list[dict[str, Any]], limit: int = 4) -> list[str]:
+    """The headline figures worth a trend line: shares first, then p-values, then ratios; only
+    those that moved across the runs, by how much they moved."""
+    order = {"share": 0, "p": 1, "ratio": 2}
+    scored = []
+    for key, fig0 in runs[-1]["figures"].items():
+        if fig0.get("unit") not in order:
+            continue
+        vals = [r["figures"].get(key, {}).get("value") for r in runs]
+        nums = [float(v) for v in vals if isinstance(v, (int, float)) and not isinstance(v, bool)]
+        if len(set(nums)) < 2:
+            continue
+        spread = (max(nums) - min(nums)) / (max(abs(x) for x in nums) or 1)
+        scored.append((order[fig0["unit"]], -spread, key))
+    return [k for _, _, k in sorted(scored)[:limit]]
+
+
 def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
     """The verdict of each run as shaped marks, and the headline figures that moved, over time."""
     days = _dates([r["as_of"] for r in runs])
-    keys = []
-    for key, fig0 in runs[-1]["figures"].items():
-        vals = [r["figures"].get(key, {}).get("value") for r in runs]
-        nums = [v for v in vals if isinstance(v, (int, float)) and not isinstance(v, bool)]
-        if fig0.get("unit") in ("share", "p", "ratio") and len(set(nums)) > 1:
-            keys.append(key)
-    keys = keys[:4]
+    keys = history_keys(runs)
     fig, axes = plt.subplots(1 + len(keys), 1, figsize=(7.2, 1.2 + 1.6 * len(keys)), sharex=True,
                              squeeze=False, gridspec_kw={"height_ratios": [0.6] + [1] * len(keys)})
     ax = axes[0, 0]
@@ -270,7 +281,8 @@ def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
         scale = 100 if unit == "share" else 1
         ax.plot([d for d, _ in pts], [max(v * scale, 1e-300) if unit == "p" else v * scale for _, v in pts],
                 color=ACCENT, lw=2, marker="o", ms=3)
-        if unit == "p":
+        vals = [v for _, v in pts if v > 0]
+        if unit == "p" and vals and max(vals) / min(vals) >= 10:
             _log_axis(ax)
         ax.set_title(runs[-1]["figures"][key].get("label", key) + (" (%)" if unit == "share" else ""),
                      loc="left", fontsize=9)
@@ -283,6 +295,17 @@ def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
 
 
 # --- page ----------------------------------------------------------------------------------------
+
+def sentence(text: str) -> str:
+    """Text with its first letter capitalised (summaries may start with a lowercase figure)."""
+    return text[:1].upper() + text[1:]
+
+
+def first_clause(text: str) -> str:
+    """The first clause of a summary (up to its first '; ' or '. '), as a sentence."""
+    cut = min([i for i in (text.find("; "), text.find(". ")) if i >= 0], default=len(text))
+    return sentence(text[:cut].rstrip(" .;")) + "."
+
 
 def badge(status: str) -> str:
     word, fg, bg = STATUS_STYLE.get(status, STATUS_STYLE["skipped"])
@@ -297,7 +320,7 @@ def _cell(v: Any) -> str:
             return esc(v)
         if abs(v) >= 1000:
             return esc(f"{v:,.0f}" if v == int(v) else f"{v:,.1f}")
-        return esc(f"{v:.4g}" if abs(v) >= 1e-3 or v == 0 else f"{v:.2e}")
+        return esc(f"{v:.4g}" if abs(v) >= 1e-4 or v == 0 else f"{v:.2e}")
     if isinstance(v, int) and not isinstance(v, bool):
         return esc(f"{v:,}")
     return esc("" if v is None else v)
@@ -342,7 +365,7 @@ def _section(check: Check, report: AuditReport, th: AuditThresholds) -> str:
     tables = "".join(_table(t) for t in check.tables)
     return (f'<section class="check s-{esc(check.status)}" id="check-{esc(check.id)}" data-check="{esc(check.id)}">'
             f'<header><h2>{esc(check.title)}</h2>{badge(check.status)}</header>'
-            f'<p class="summary">{esc(check.summary)}</p>{reason}{_figures(check)}{charts}{tables}</section>')
+            f'<p class="summary">{esc(sentence(check.summary))}</p>{reason}{_figures(check)}{charts}{tables}</section>')
 
 
 def _history_section(report: AuditReport, history: list[dict[str, Any]] | None) -> str:
@@ -399,7 +422,8 @@ svg.chart {{ width: 100%; min-width: 28rem; height: auto; display: block; }}
 .tablewrap {{ overflow-x: auto; margin: .6rem 0; }}
 table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
 caption {{ text-align: left; font-weight: 600; padding: .2rem 0; }}
-th, td {{ border-bottom: 1px solid {RULE}; padding: .3rem .6rem .3rem 0; text-align: left; vertical-align: top; overflow-wrap: anywhere; }}
+th, td {{ border-bottom: 1px solid {RULE}; padding: .3rem .7rem .3rem 0; text-align: left; vertical-align: top; overflow-wrap: break-word; }}
+td {{ white-space: nowrap; }} td:first-child {{ white-space: normal; }}
 th {{ color: {MUTED}; font-weight: 600; }}
 .changes li {{ margin: .15rem 0; }}
 .notes {{ color: {MUTED}; font-size: .9rem; }}
@@ -425,7 +449,8 @@ def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None
         hist = _history_section(report, history)
     nav = "".join(f'<li><a href="#check-{esc(c.id)}"><span>{esc(c.title)}</span>{badge(c.status)}</a></li>'
                   for c in report.checks)
-    worst_list = "".join(f"<li><strong>{esc(c.title)}</strong>: {esc(c.summary)}</li>" for c in bad)
+    worst_list = "".join(f'<li><a href="#check-{esc(c.id)}"><strong>{esc(c.title)}</strong></a>: '
+                         f"{esc(first_clause(c.summary))}</li>" for c in bad)
     notes = "".join(f"<li>{esc(n)}</li>" for n in report.input_notes)
     arms = ", ".join(f"{esc(a.name)} {a.weight / 100:g}% ({esc(a.role)})" for a in report.arms)
     return f"""<!DOCTYPE html>
@@ -439,7 +464,7 @@ def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None
 <p>Data as of {esc(report.as_of)} · arms: {arms} · spec fingerprint <code>{esc(report.fingerprint)}</code></p></div>
 <div class="verdict" data-verdict="{esc(report.verdict)}" style="color:{fg};background:{bg}" role="status">
 <svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{_ICON[report.verdict]}</svg>
-<div><span class="word">{esc(word)}</span><p>{esc(lead)}</p><p>{esc(report.verdict_text)}</p>
+<div><span class="word">{esc(word)}</span><p>{esc(report.verdict_text or lead)}</p>
 {f'<ul>{worst_list}</ul>' if worst_list else ''}</div></div>
 {f'<div class="notes"><strong>About the input:</strong><ul>{notes}</ul></div>' if notes else ''}
 <nav aria-label="Checks"><ol>{nav}<li><a href="#history"><span>Change since the last run</span></a></li></ol></nav>

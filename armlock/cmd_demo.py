@@ -1,0 +1,184 @@
+"""`armlock demo`: an invented shop's twelve-week holdout test, audited week by week, in one folder."""
+
+from __future__ import annotations
+
+import json
+import time
+from dataclasses import dataclass, field
+from datetime import date, datetime, timedelta, timezone
+from pathlib import Path
+
+import typer
+
+from assign import InputError, check_lock, load_spec
+from assign.init import render_spec_toml
+from assign.snippet import render_snippet
+
+from .common import err, progress
+
+SHOP = "Larkspur & Vine (invented)"
+SITE = "shop.example"
+NAME = "larkspur-retargeting"
+SALT = "larkspur-vine-demo-salt-0001"  # fixed so the demo is the same on every machine; never reuse
+START = datetime(2026, 1, 5, tzinfo=timezone.utc)  # a Monday
+WEEKS = 12
+UNITS = 60_000
+SEED = 20260105
+FAULTS = ("pre_exposure", "cookie_churn", "leakage")
+MARKER = "armlock demo folder: an INVENTED scenario"
+SPEC_FILE = f"{NAME}.toml"
+
+README = f"""{MARKER}.
+
+{SHOP} at https://{SITE}/ is a homeware shop made up for this demo. No real company,
+site, person, customer or ad vendor is modelled: every visitor, campaign and order here is
+random numbers from armlock's synthetic-log generator (audit/synth.py).
+
+The story: the shop holds out 10% of its visitors from a display retargeting vendor for twelve
+weeks, to measure what the ads really add. {{story}}
+
+Files
+  {SPEC_FILE}                  the experiment spec (salt + arms), as `armlock init` writes it
+  {SPEC_FILE}.lock             the fingerprint recorded at first use
+  {SPEC_FILE}.history.sqlite   one audit per week (armlock audit --record), read by `armlock history`
+  logs/visits.csv              one row per visitor: first seen, recorded arm, browser, device...
+  logs/exposures.csv           the vendor's impressions and clicks
+  logs/identities.csv          visitor id -> logged-in customer key
+  snippet/armlock-tag.html     the browser snippet as a <script> block for a tag manager
+  snippet/armlock.js           the same snippet as a file to self-host
+  report.html                  the split-health report of the last week (open it in a browser)
+  report.json                  the same audit as JSON
+
+Try next
+  armlock history --spec {SPEC_FILE}
+  armlock audit --spec {SPEC_FILE} --visits logs/visits.csv --exposures logs/exposures.csv \\
+      --identities logs/identities.csv --format text
+
+Visitor ids and cookies are personal data in many places. With real traffic, wait for consent
+where the law asks for it (the snippet can), and follow local privacy law and the site's own
+counsel.
+"""
+
+STORY_FAULTS = ("Things went wrong, as they do: an audience was built and exposed before the test "
+                "started, the vendor reached part of the holdout in one campaign, and one browser "
+                "family resets cookies about weekly, so logged-in customers come back in new arms.")
+STORY_CLEAN = "This run is the clean version (--clean): no fault was injected."
+
+
+@dataclass
+class DemoResult:
+    """What the demo wrote and found."""
+
+    folder: Path
+    files: dict[str, Path] = field(default_factory=dict)
+    verdict: str = ""
+    verdict_text: str = ""
+    findings: list[str] = field(default_factory=list)
+    weeks: int = 0
+    seconds: float = 0.0
+
+
+def weekly_as_of(weeks: int = WEEKS) -> list[date]:
+    """The as-of dates of the weekly audits: the Sunday that ends each test week."""
+    first = START.date()
+    return [first + timedelta(days=7 * w - 1) for w in range(1, weeks + 1)]
+
+
+def _prepare(folder: Path) -> None:
+    if folder.exists() and not folder.is_dir():
+        raise InputError(f"{folder}: exists and is not a folder; choose another DIR")
+    if folder.is_dir() and any(folder.iterdir()):
+        readme = folder / "README.txt"
+        head = readme.read_text(encoding="utf-8", errors="replace")[:200] if readme.is_file() else ""
+        if MARKER not in head:
+            raise InputError(f"{folder}: exists and is not an armlock demo folder (no README.txt of a "
+                             "demo); choose an empty or new DIR so nothing of yours is overwritten")
+    try:
+        (folder / "logs").mkdir(parents=True, exist_ok=True)
+        (folder / "snippet").mkdir(exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"{folder}: cannot create the demo folder: {exc.strerror}") from None
+
+
+def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> DemoResult:
+    """Write the scenario into `folder`, audit it once per week with history, write the report."""
+    from audit import synth
+    from audit.history import default_history_path, load, record
+    from audit.report_html import first_clause, render_html
+    from audit.run import run_audit
+
+    t0 = time.perf_counter()
+    _prepare(folder)
+    res = DemoResult(folder=folder)
+    spec_path = folder / SPEC_FILE
+    text = render_spec_toml(NAME, [("holdout", 1000), ("exposed", 9000)], salt=SALT, start=START,
+                            description=f"INVENTED demo: {SHOP}, {SITE}; not a real shop")
+    spec_path.write_text(f"# INVENTED demo scenario: {SHOP} at {SITE} is made up (armlock demo).\n"
+                         + text, encoding="utf-8")
+    spec = load_spec(spec_path)
+    check_lock(spec, spec_path, write=True)
+    (folder / "README.txt").write_text(README.replace("{story}", STORY_CLEAN if clean else STORY_FAULTS),
+                                       encoding="utf-8")
+    logs = synth.generate(spec, units=units, days=7 * WEEKS, seed=SEED, faults=() if clean else FAULTS)
+    paths = synth.write_logs(logs, folder / "logs", fmt="csv")
+    (folder / "snippet" / "armlock-tag.html").write_text(render_snippet(spec, "html"), encoding="utf-8")
+    (folder / "snippet" / "armlock.js").write_text(render_snippet(spec, "js"), encoding="utf-8")
+    history = default_history_path(spec_path)
+    dates = weekly_as_of()
+    report = None
+    with progress(len(dates), "weekly audits") as advance:
+        for as_of in dates:
+            report = run_audit(spec, visits=paths["visits"], exposures=paths["exposures"],
+                               identities=paths["identities"], as_of=as_of)
+            record(history, report)
+            advance(1)
+    assert report is not None
+    (folder / "report.json").write_text(json.dumps(report.to_json_dict(), indent=2, ensure_ascii=False),
+                                        encoding="utf-8")
+    (folder / "report.html").write_text(render_html(report, load(history, spec.fingerprint)),
+                                        encoding="utf-8")
+    res.files = {"README": folder / "README.txt", "spec": spec_path, "history": history,
+                 "visits": paths["visits"], "exposures": paths["exposures"],
+                 "identities": paths["identities"], "snippet (html)": folder / "snippet" / "armlock-tag.html",
+                 "snippet (js)": folder / "snippet" / "armlock.js", "report (html)": folder / "report.html",
+                 "report (json)": folder / "report.json"}
+    res.verdict, res.verdict_text, res.weeks = report.verdict, report.verdict_text, len(dates)
+    res.findings = [f"{c.status.upper()} {c.title}: {first_clause(c.summary)}" for c in report.checks
+                    if c.status in ("fail", "warn")]
+    res.seconds = time.perf_counter() - t0
+    return res
+
+
+def demo(
+    folder: Path = typer.Argument(Path("armlock-demo"), metavar="[DIR]", help="Folder to write the demo into (default ./armlock-demo)."),
+    clean: bool = typer.Option(False, "--clean", help="Inject no fault: the healthy version of the same test."),
+) -> None:
+    """Build an invented shop's twelve-week holdout test and audit it week by week.
+
+    Writes a spec, twelve weeks of synthetic visits, exposures and identity links (with realistic
+    faults unless --clean), the browser snippet, a weekly audit history, and the HTML and JSON
+    report of the last week. Everything in it is invented.
+
+    Example: armlock demo my-first-demo
+    """
+    err(f"Building the invented demo shop {SHOP} in {folder} ...")
+    res = build_demo(folder, clean=clean)
+    typer.echo(f"armlock demo: {SHOP}, a made-up shop at {SITE}, 10% held out from a retargeting vendor.")
+    typer.echo(f"Audited {res.weeks} weeks ({'no faults injected' if clean else 'faults injected'}); "
+               f"last week's verdict: {res.verdict.upper()}. {res.verdict_text}")
+    for line in res.findings:
+        typer.echo(f"  - {line}")
+    typer.echo("")
+    typer.echo("Files:")
+    width = max(len(k) for k in res.files)
+    for label, path in res.files.items():
+        typer.echo(f"  {label.ljust(width)}  {path}")
+    typer.echo("")
+    report = res.files["report (html)"]
+    typer.echo(f"Open the report in a browser: xdg-open {report}  (macOS: open {report})")
+    typer.echo(f"Week-by-week trend:           armlock history --spec {res.files['spec']}")
+    typer.echo(f"Done in {res.seconds:.1f} s. The demo's findings are expected: exit code 0.")
+
+
+def register(app: typer.Typer) -> None:
+    app.command("demo")(demo)
