@@ -1,0 +1,207 @@
+"""The snippet in real headless Chromium on a page served from 127.0.0.1."""
+
+from __future__ import annotations
+
+import json
+import time
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from assign.batch import arm_for
+from assign.contract import bucket
+from assign.snippet import render_snippet
+from assign.spec import Spec
+
+from .helpers import make_spec, need, random_ids, serve
+
+FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+         "--disable-component-update", "--disable-sync", "--no-first-run"]
+VENDOR = "<script>armlock.gate(function (arm) { window.vendorFired = (window.vendorFired || 0) + 1; });</script>"
+DAY = 86_400
+
+
+@pytest.fixture(scope="module")
+def browser() -> Iterator[Any]:
+    sync_api = pytest.importorskip("playwright.sync_api")
+    path = need("chromium")
+    with sync_api.sync_playwright() as pw:
+        b = pw.chromium.launch(executable_path=path, args=FLAGS)
+        try:
+            yield b
+        finally:
+            b.close()
+
+
+@pytest.fixture
+def site(tmp_path: Path) -> Iterator[tuple[Path, str]]:
+    with serve(tmp_path) as base:
+        yield tmp_path, base
+
+
+class Page:
+    """One fresh browser context (no cookies, no storage) with page errors collected."""
+
+    def __init__(self, browser: Any, base: str) -> None:
+        self.ctx = browser.new_context()
+        self.page = self.ctx.new_page()
+        self.base = base
+        self.errors: list[str] = []
+        self.page.on("pageerror", lambda e: self.errors.append(str(e)))
+
+    def open(self, name: str) -> Page:
+        self.page.goto(f"{self.base}/{name}", wait_until="load")
+        return self
+
+    def js(self, expr: str, arg: Any = None) -> Any:
+        return self.page.evaluate(expr, arg)
+
+    def events(self, name: str = "armlock_arm") -> list[dict[str, Any]]:
+        return self.js("n => (window.dataLayer || []).filter(e => e && e.event === n)", name)
+
+    def cookie(self, name: str = "armlock_uid") -> dict[str, Any] | None:
+        found = [c for c in self.ctx.cookies() if c["name"] == name]
+        return found[0] if found else None
+
+
+def write_page(root: Path, name: str, spec: Spec, before: str = "", after: str = VENDOR) -> str:
+    html = ("<!doctype html><html><head><meta charset='utf-8'><title>invented shop</title>"
+            f"{before}{render_snippet(spec, 'html')}{after}</head><body>shop.example page</body></html>")
+    (root / name).write_text(html, encoding="utf-8")
+    return name
+
+
+@pytest.fixture
+def opened(browser: Any, site: tuple[Path, str]) -> Iterator[Any]:
+    pages: list[Page] = []
+
+    def make() -> Page:
+        pages.append(Page(browser, site[1]))
+        return pages[-1]
+
+    yield make
+    for p in pages:
+        p.ctx.close()
+
+
+def test_cookie_attributes_event_and_persistence_across_reloads(site: tuple[Path, str], opened: Any) -> None:
+    spec = make_spec()
+    name = write_page(site[0], "p.html", spec)
+    p = opened()
+    t0 = time.time()
+    p.open(name)
+    c = p.cookie()
+    assert c is not None
+    uid = c["value"]
+    # RFC 6265bis: Path=/, SameSite=Lax, lifetime at most 400 days; Secure only on https
+    assert c["path"] == "/" and c["sameSite"] == "Lax" and c["secure"] is False
+    assert c["httpOnly"] is False and c["domain"] == "127.0.0.1"
+    lifetime = c["expires"] - t0
+    assert 395 * DAY - 120 <= lifetime <= 395 * DAY + 120 and lifetime <= 400 * DAY
+    arm = arm_for(spec, uid)
+    assert p.js("armlock.arm") == arm
+    assert p.events() == [{"event": "armlock_arm", "armlock_experiment": spec.name, "armlock_arm": arm,
+                           "armlock_fingerprint": spec.fingerprint, "armlock_forced": False}]
+    assert p.js("localStorage.getItem('armlock_uid')") == uid
+    for _ in range(2):
+        p.page.reload(wait_until="load")
+        assert p.cookie()["value"] == uid and p.js("armlock.arm") == arm
+        assert len(p.events()) == 1
+    assert p.errors == []
+
+
+def test_cleared_cookie_is_restored_from_local_storage(site: tuple[Path, str], opened: Any) -> None:
+    spec = make_spec()
+    name = write_page(site[0], "p.html", spec)
+    p = opened().open(name)
+    uid = p.cookie()["value"]
+    p.ctx.clear_cookies()
+    assert p.cookie() is None
+    p.page.reload(wait_until="load")
+    assert p.cookie()["value"] == uid and p.js("armlock.arm") == arm_for(spec, uid)
+    # both gone: a new visitor with a new id
+    p.ctx.clear_cookies()
+    p.js("localStorage.clear()")
+    p.page.reload(wait_until="load")
+    assert p.cookie()["value"] != uid
+    assert p.errors == []
+
+
+def test_gated_vendor_tag_runs_only_for_the_exposed_arm(site: tuple[Path, str], opened: Any) -> None:
+    spec = make_spec(arms=[("holdout", 5000, "holdout"), ("exposed", 5000, "exposed")])
+    name = write_page(site[0], "p.html", spec)
+    by_arm = {arm_for(spec, f"visitor-{i}"): f"visitor-{i}" for i in range(30)}
+    assert set(by_arm) == {"holdout", "exposed"}
+    for arm, uid in by_arm.items():
+        p = opened()
+        p.ctx.add_cookies([{"name": "armlock_uid", "value": uid, "url": p.base}])
+        p.open(name)
+        assert p.js("armlock.arm") == arm
+        assert p.js("window.vendorFired || 0") == (1 if arm == "exposed" else 0)
+        assert p.errors == []
+
+
+def test_consent_gating_in_the_page(site: tuple[Path, str], opened: Any) -> None:
+    spec = make_spec(consent={"mode": "data_layer", "key": "consent.ads", "value": "granted"})
+    name = write_page(site[0], "p.html", spec)
+    p = opened().open(name)
+    assert p.cookie() is None and p.js("localStorage.length") == 0
+    assert p.js("armlock.state") == "waiting" and p.js("armlock.arm") is None
+    assert p.events() == [] and p.js("window.vendorFired || 0") == 0
+    p.js("dataLayer.push({consent: {ads: 'denied'}})")
+    assert p.cookie() is None and p.events() == []
+    p.js("dataLayer.push({consent: {ads: 'granted'}})")
+    uid = p.cookie()["value"]
+    arm = arm_for(spec, uid)
+    assert p.js("armlock.arm") == arm and len(p.events()) == 1
+    assert p.js("window.vendorFired || 0") == (1 if arm == "exposed" else 0)
+    p.js("dataLayer.push({consent: {ads: 'granted'}})")
+    assert len(p.events()) == 1  # decided once per page view
+    assert p.errors == []
+
+
+def test_qa_override_forces_this_view_only(site: tuple[Path, str], opened: Any) -> None:
+    spec = make_spec(qa_param="armlock_qa")
+    name = write_page(site[0], "p.html", spec)
+    p = opened().open(f"{name}?armlock_qa=exposed")
+    assert p.js("armlock.arm") == "exposed" and p.js("armlock.forced") is True
+    assert p.events()[0]["armlock_forced"] is True and p.js("window.vendorFired || 0") == 1
+    assert p.cookie() is None and p.js("localStorage.length") == 0
+    p.open(f"{name}?armlock_qa=holdout")
+    assert p.js("armlock.arm") == "holdout" and p.js("window.vendorFired || 0") == 0
+    assert p.cookie() is None
+    p.open(name)
+    uid = p.cookie()["value"]
+    assert p.js("armlock.forced") is False and p.js("armlock.arm") == arm_for(spec, uid)
+    assert p.errors == []
+
+
+def test_fail_closed_when_cookies_throw(site: tuple[Path, str], opened: Any) -> None:
+    spec = make_spec()
+    block = ("<script>Object.defineProperty(Document.prototype, 'cookie', {configurable: true,"
+             " get: function () { throw new Error('blocked by the test'); },"
+             " set: function () { throw new Error('blocked by the test'); }});</script>")
+    name = write_page(site[0], "p.html", spec, before=block)
+    p = opened().open(name)
+    assert p.errors == []
+    assert p.js("armlock.arm") is None and p.js("armlock.state") == "failed"
+    assert p.js("window.vendorFired || 0") == 0 and p.events() == []
+    (err,) = p.events("armlock_error")
+    assert err["armlock_experiment"] == spec.name and "blocked by the test" in err["armlock_error"]
+
+
+def test_5000_ids_hashed_in_the_page_equal_python(site: tuple[Path, str], opened: Any) -> None:
+    # Reference: python-xxhash via assign.contract.bucket and assign.batch.arm_for.
+    spec = make_spec(salt="page-salt-\u00e9",
+                     arms=[("holdout", 1500, "holdout"), ("exposed", 8500, "exposed")])
+    name = write_page(site[0], "p.html", spec, after="")
+    ids = random_ids(5000, seed=5000)
+    p = opened().open(name)
+    # ASCII-only JSON text, parsed in the page, so lone surrogates arrive intact
+    got = p.js("s => { const ids = JSON.parse(s); return [ids.map(armlock.bucketOf), ids.map(armlock.armOf)]; }",
+               json.dumps(ids, ensure_ascii=True))
+    assert got[0] == [bucket(spec.salt, i) if i else None for i in ids]
+    assert got[1] == [arm_for(spec, i) for i in ids]
+    assert p.errors == []
