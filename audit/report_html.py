@@ -400,6 +400,7 @@ main {{ max-width: 56rem; margin: 0 auto; padding: 1rem; }}
 .verdict .icon {{ width: 2.2rem; height: 2.2rem; flex: none; }}
 .verdict .word {{ font-size: 1.25rem; font-weight: 700; display: block; }}
 .verdict ul {{ margin: .4rem 0 0; padding-left: 1.2rem; color: {INK}; }}
+.verdict a {{ color: inherit; }}
 .verdict p {{ margin: .2rem 0 0; color: {INK}; }}
 nav ol {{ list-style: none; padding: 0; margin: 0 0 1rem; display: grid; grid-template-columns: repeat(auto-fill, minmax(15rem, 1fr)); gap: .4rem; }}
 nav a {{ display: flex; justify-content: space-between; gap: .5rem; align-items: center; background: {CARD}; border: 1px solid {RULE}; border-radius: 8px; padding: .45rem .6rem; color: {INK}; text-decoration: none; }}

@@ -1,0 +1,102 @@
+"""`armlock demo` as a new user runs it: one command, a folder of invented files, a report that opens clean."""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from assign import load_spec
+from audit.model import AuditReport
+from tests.report.browser import open_page
+
+CHARTS = {"srm": 2, "srm_segments": 0, "integrity": 0, "leakage": 1, "churn": 1, "balance": 1, "history": 1}
+COUNT_CHARTS = """() => Object.fromEntries([...document.querySelectorAll('section[data-check]')]
+    .map(s => [s.dataset.check, s.querySelectorAll('svg[data-chart]').length]))"""
+
+
+def run(cwd: Path, *args: str) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "armlock", *args], cwd=cwd, capture_output=True,
+                          text=True, timeout=300)
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, subprocess.CompletedProcess[str]]:
+    cwd = tmp_path_factory.mktemp("newuser")
+    return cwd, run(cwd, "demo")
+
+
+def test_demo_runs_in_a_fresh_folder_and_says_what_it_found(demo: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
+    cwd, r = demo
+    assert r.returncode == 0, r.stderr
+    out = r.stdout
+    assert "Larkspur & Vine (invented)" in out and "shop.example" in out
+    assert "last week's verdict: FAIL." in out
+    findings = [ln for ln in out.splitlines() if ln.startswith("  - ")]
+    assert [f.split(":")[0] for f in findings] == ["  - FAIL Leakage (holdout reached by the vendor)",
+                                                   "  - FAIL Identity churn (customers in several arms)"]
+    assert all(f.endswith(".") and "; " not in f for f in findings)  # one sentence each
+    assert "xdg-open armlock-demo/report.html" in out
+    assert "armlock history --spec armlock-demo/larkspur-retargeting.toml" in out
+    for line in out.split("Files:\n")[1].split("\n\n")[0].splitlines():
+        path = cwd / line.split()[-1]
+        assert path.is_file() and path.stat().st_size > 0, line
+    assert str(cwd) not in out  # relative paths only, as the user typed them
+
+
+def test_demo_files_are_marked_invented_and_consistent(demo: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
+    folder = demo[0] / "armlock-demo"
+    assert "INVENTED" in (folder / "README.txt").read_text(encoding="utf-8")
+    spec_text = (folder / "larkspur-retargeting.toml").read_text(encoding="utf-8")
+    assert spec_text.startswith("# INVENTED demo scenario")
+    spec = load_spec(folder / "larkspur-retargeting.toml")
+    assert "INVENTED" in spec.description and spec.weights == (1000, 9000)
+    rep = AuditReport.model_validate(json.loads((folder / "report.json").read_text(encoding="utf-8")))
+    assert rep.fingerprint == spec.fingerprint and rep.as_of == "2026-03-29"
+    status = {c.id: c.status for c in rep.checks}
+    assert status["leakage"] == "fail" and status["churn"] == "fail" and status["srm"] == "pass"
+    with sqlite3.connect(folder / "larkspur-retargeting.toml.history.sqlite") as conn:
+        rows = conn.execute("SELECT as_of FROM runs ORDER BY as_of").fetchall()
+    assert len(rows) == 12 and rows[0][0] == "2026-01-11" and rows[-1][0] == "2026-03-29"
+    html_tag = (folder / "snippet" / "armlock-tag.html").read_text(encoding="utf-8")
+    assert html_tag.lstrip().startswith("<script") and spec.salt in html_tag
+    head = (folder / "logs" / "visits.csv").read_text(encoding="utf-8").splitlines()[0]
+    assert "unit_id" in head and "first_seen" in head
+
+
+def test_demo_report_opens_clean_in_chromium(demo: tuple[Path, subprocess.CompletedProcess[str]], tmp_path: Path) -> None:
+    report = demo[0] / "armlock-demo" / "report.html"
+    for width in (390, 1280):
+        with open_page(report, width) as (page, seen):
+            assert page.evaluate(COUNT_CHARTS) == CHARTS
+            assert page.evaluate("() => document.documentElement.scrollWidth") <= width
+            assert "Broken" in page.inner_text(".verdict")
+            page.screenshot(path=str(tmp_path / f"demo-{width}.png"), full_page=True)
+        assert seen == {"console_errors": [], "page_errors": [], "dialogs": [], "non_file_requests": [],
+                        "failed_requests": []}
+
+
+def test_demo_rerun_replaces_history_rows_and_clean_passes(demo: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
+    cwd = demo[0]
+    r = run(cwd, "demo", "--clean")
+    assert r.returncode == 0, r.stderr
+    assert "last week's verdict: PASS." in r.stdout and "no faults injected" in r.stdout
+    with sqlite3.connect(cwd / "armlock-demo" / "larkspur-retargeting.toml.history.sqlite") as conn:
+        verdicts = [v for (v,) in conn.execute("SELECT verdict FROM runs ORDER BY as_of")]
+    assert verdicts == ["pass"] * 12  # the same 12 as-of dates, replaced, not duplicated
+    h = run(cwd, "history", "--spec", "armlock-demo/larkspur-retargeting.toml")
+    assert h.returncode == 0 and "12 run(s)" in h.stdout
+
+
+def test_demo_refuses_a_folder_that_is_not_a_demo(tmp_path: Path) -> None:
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "notes.txt").write_text("keep me", encoding="utf-8")
+    r = run(tmp_path, "demo", "mine")
+    assert r.returncode == 4
+    assert r.stderr.endswith("Error: mine: exists and is not an armlock demo folder (no README.txt of a demo); "
+                             "choose an empty or new DIR so nothing of yours is overwritten\n")
+    assert sorted(p.name for p in (tmp_path / "mine").iterdir()) == ["notes.txt"]
