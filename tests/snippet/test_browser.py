@@ -205,3 +205,23 @@ def test_5000_ids_hashed_in_the_page_equal_python(site: tuple[Path, str], opened
     assert got[0] == [bucket(spec.salt, i) if i else None for i in ids]
     assert got[1] == [arm_for(spec, i) for i in ids]
     assert p.errors == []
+
+
+def test_hostile_spec_in_the_real_html_parser(site: tuple[Path, str], opened: Any) -> None:
+    from .test_hostile import HOSTILE, hostile_spec
+
+    for i, h in enumerate(HOSTILE):
+        spec = hostile_spec(h)
+        name = write_page(site[0], f"h{i}.html", spec)
+        p = opened()
+        p.ctx.add_cookies([{"name": "site'$|&uid", "value": "v1.abc", "url": p.base}])
+        p.open(name)
+        assert p.errors == [] and p.js("window.pwned || 0") == 0
+        # the page holds exactly our one script element plus the vendor tag
+        assert p.js("document.scripts.length") == 2
+        assert p.js("armlock.state") == "waiting"
+        p.js("v => dataLayer.push({consent: {ads: v}})", "ok-" + h)
+        assert p.js("armlock.arm") == arm_for(spec, "abc")
+        assert p.events("evt-" + h)[0]["armlock_fingerprint"] == spec.fingerprint
+        assert p.js("window.vendorFired || 0") == (1 if p.js("armlock.arm") == "exposed" else 0)
+        assert p.errors == [] and p.js("window.pwned || 0") == 0
