@@ -19,6 +19,15 @@ from .common import SPEC_HELP, err, open_spec, progress
 FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
 
 
+def _html(report: AuditReport, history: list[dict] | None = None) -> str:
+    from audit.report_html import render_html  # matplotlib loads only when html is asked for
+
+    return render_html(report, history)
+
+
+FORMATS["html"] = _html
+
+
 def exit_code(verdict: str, strict: bool) -> int:
     """0 pass (and warn without --strict), 1 warn with --strict, 3 fail."""
     if verdict == "fail":
@@ -47,6 +56,8 @@ def audit_cmd(
     fmt: str = typer.Option("text", "--format", "-f", help=f"Report format: {', '.join(FORMATS)}."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is warn (default: 0)."),
+    record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
+    history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
 ) -> None:
     """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
     identity churn and covariate balance. Column names come from the spec's [audit] tables.
@@ -66,7 +77,12 @@ def audit_cmd(
     with progress(STEPS, "auditing") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
                            as_of=day, advance=advance)
-    text = FORMATS[fmt](report)
+    from audit import history
+
+    hist = history_path or history.default_history_path(spec_path)
+    if record:
+        history.record(hist, report)
+    text = _html(report, history.load(hist, report.fingerprint)) if fmt == "html" else FORMATS[fmt](report)
     if out is not None:
         try:
             out.write_text(text, encoding="utf-8")
