@@ -1,0 +1,109 @@
+"""Covariate balance against Austin's formulas by hand, statsmodels and scipy."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+from statsmodels.stats.meta_analysis import effectsize_smd
+from statsmodels.stats.weightstats import ttest_ind
+
+from assign import spec_from_dict
+from audit.balance import check_balance, chi2_independence_p, moments, smd_binary, smd_continuous, welch_p
+from audit.tables import BalanceTables
+
+
+def test_smd_continuous_hand_computation() -> None:
+    # Austin (2009), Statistics in Medicine 28(25), continuous covariates:
+    # d = (mean_T - mean_C) / sqrt((s_T^2 + s_C^2) / 2). Means 10.5 vs 10.0, SDs 2.2 vs 2.0:
+    # d = 0.5 / sqrt((4.84 + 4) / 2) = 0.5 / sqrt(4.42) = 0.237826, VR = 4.84 / 4 = 1.21
+    # (REFERENCES.md §4, DERIVED values).
+    assert smd_continuous(10.5, 2.2**2, 10.0, 2.0**2) == pytest.approx(0.5 / math.sqrt(4.42))
+    assert smd_continuous(10.5, 2.2**2, 10.0, 2.0**2) == pytest.approx(0.237826, abs=1e-6)
+
+
+def test_smd_binary_hand_computation_and_austin_phi_equivalence() -> None:
+    # Austin (2009), binary: d = (p_T - p_C) / sqrt((p_T(1-p_T) + p_C(1-p_C)) / 2);
+    # 0.35 vs 0.30 -> 0.05 / sqrt((0.2275 + 0.21) / 2) = 0.106904 (REFERENCES.md §4, DERIVED).
+    assert smd_binary(0.35, 0.30) == pytest.approx(0.05 / math.sqrt(0.4375 / 2))
+    assert smd_binary(0.35, 0.30) == pytest.approx(0.106904, abs=1e-6)
+    # Austin (2009), Communications in Statistics - Simulation and Computation 38(6): an SMD of
+    # 0.1 corresponds to phi = 0.05; REFERENCES.md §4 VERIFIED p_T = 0.5499 at p_C = 0.5 and
+    # p_T = 0.1320 at p_C = 0.1 for SMD 0.1.
+    assert smd_binary(0.5499, 0.5) == pytest.approx(0.1, abs=5e-4)
+    assert smd_binary(0.1320, 0.1) == pytest.approx(0.1, abs=5e-4)
+
+
+def test_smd_matches_statsmodels_effectsize_smd_without_bias_correction() -> None:
+    # statsmodels.stats.meta_analysis.effectsize_smd returns Hedges' bias-corrected SMD with the
+    # pooled SD sqrt(((n1-1)s1^2 + (n2-1)s2^2) / (n1+n2-2)) and correction 1 - 3/(4N - 9)
+    # (statsmodels source, after Borenstein 2009). With equal group sizes the pooled SD equals
+    # Austin's sqrt((s1^2 + s2^2)/2), so Austin's d = smd_bc / correction.
+    rng = np.random.default_rng(1)
+    t, c = rng.gamma(2.0, 3.0, 4000), rng.gamma(2.1, 3.0, 4000)
+    bc, _ = effectsize_smd(t.mean(), t.std(ddof=1), len(t), c.mean(), c.std(ddof=1), len(c))
+    corr = 1 - 3 / (4 * (len(t) + len(c)) - 9)
+    ours = smd_continuous(t.mean(), t.var(ddof=1), c.mean(), c.var(ddof=1))
+    assert ours == pytest.approx(bc / corr, rel=1e-10)
+
+
+def test_moments_from_sums_match_numpy() -> None:
+    x = np.random.default_rng(2).lognormal(3, 1, 10_000)
+    m, v = moments(len(x), float(x.sum()), float(x @ x))
+    assert m == pytest.approx(x.mean(), rel=1e-12)
+    assert v == pytest.approx(x.var(ddof=1), rel=1e-8)
+
+
+def test_welch_matches_statsmodels_and_scipy() -> None:
+    # References: scipy.stats.ttest_ind(equal_var=False) and statsmodels ttest_ind(usevar="unequal").
+    rng = np.random.default_rng(4)
+    a, b = rng.normal(0.0, 1.0, 500), rng.normal(0.15, 1.7, 800)
+    p = welch_p(len(a), a.mean(), a.var(ddof=1), len(b), b.mean(), b.var(ddof=1))
+    assert p == pytest.approx(stats.ttest_ind(a, b, equal_var=False).pvalue, rel=1e-10)
+    assert p == pytest.approx(ttest_ind(a, b, usevar="unequal")[1], rel=1e-10)
+
+
+def test_chi2_independence_matches_scipy_and_ignores_empty_levels() -> None:
+    table = np.array([[120, 130], [80, 60], [0, 0], [30, 45]])
+    ref = stats.chi2_contingency(table[[0, 1, 3]], correction=False).pvalue
+    assert chi2_independence_p(table) == pytest.approx(ref)
+
+
+SPEC = spec_from_dict({"name": "t", "salt": "s", "start": "2026-01-05T00:00:00Z",
+                       "arms": [{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}],
+                       "audit": {"covariates": ["x", "flag"], "categorical_covariates": ["dev"]}})
+
+
+def _tables(data: dict[str, tuple[np.ndarray, np.ndarray]], cats: dict[str, pd.DataFrame]) -> BalanceTables:
+    rows = []
+    for cov, (h, e) in data.items():
+        binary = bool(np.isin(np.concatenate([h, e]), (0, 1)).all())
+        for arm, x in (("holdout", h), ("exposed", e)):
+            rows.append({"covariate": cov, "arm": arm, "n": len(x), "missing": 0, "sum": float(x.sum()),
+                         "sumsq": float(x @ x), "binary": binary})
+    return BalanceTables(numeric=pd.DataFrame(rows), categorical=cats)
+
+
+def test_check_balance_figures_equal_direct_computation_and_flag_imbalance() -> None:
+    rng = np.random.default_rng(5)
+    h, e = rng.normal(10, 2, 5000), rng.normal(10.5, 2.2, 5000)  # SMD about 0.24 -> warn (0.1 < d <= 0.25)
+    fh, fe = (rng.random(5000) < 0.3).astype(float), (rng.random(5000) < 0.3).astype(float)
+    cats = {"dev": pd.DataFrame({"holdout": [3000, 2000], "exposed": [2990, 2010]},
+                                index=pd.Index(["mobile", "desktop"], name="level"))}
+    check = check_balance(SPEC, _tables({"x": (h, e), "flag": (fh, fe)}, cats))
+    rows = {(r[0], r[1]): r for r in check.tables[0].rows}
+    expect = (e.mean() - h.mean()) / math.sqrt((e.var(ddof=1) + h.var(ddof=1)) / 2)
+    assert rows[("x", None)][5] == pytest.approx(expect, abs=1e-6)
+    assert rows[("x", None)][6] == pytest.approx(e.var(ddof=1) / h.var(ddof=1), abs=1e-6)
+    assert rows[("flag", None)][5] == pytest.approx(smd_binary(fe.mean(), fh.mean()), abs=1e-6)
+    assert rows[("flag", None)][6] is None  # no variance ratio for a binary covariate
+    assert rows[("dev", "mobile")][5] == pytest.approx(smd_binary(2990 / 5000, 3000 / 5000), abs=1e-6)
+    assert check.status == "warn"
+    assert check.figures["worst_covariate"].value == "x"
+    big = check_balance(SPEC, _tables({"x": (h, h + 1.0), "flag": (fh, fe)}, cats))
+    assert big.status == "fail"  # |SMD| about 0.5 > 0.25
+    same = check_balance(SPEC, _tables({"x": (h, rng.permutation(h)), "flag": (fh, fh)}, cats))
+    assert same.status == "pass"
