@@ -133,7 +133,7 @@ def generate(
     # -- visitors: first-seen time (front-loaded, weekly rhythm) and attributes ----------------
     n = units
     day_w = np.exp(-np.arange(days) / 60.0) * np.where(
-        (start + pd.to_timedelta(np.arange(days), "D")).dayofweek >= 5, 1.2, 1.0)
+        (start + pd.to_timedelta(np.arange(days), "D")).day_of_week >= 5, 1.2, 1.0)
     day = rng.choice(days, size=n, p=day_w / day_w.sum())
     offset = day * 86_400.0 + rng.uniform(0, 86_400.0, size=n)
     ids = _ids(np.arange(n), "v")
