@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import os
+from concurrent.futures import ThreadPoolExecutor
+
 import numpy as np
 import pandas as pd
 import pyarrow as pa
@@ -122,13 +125,24 @@ def balance_tables(spec: Spec, fr: Frames, rec: np.ndarray) -> BalanceTables:
     return BalanceTables(numeric=numeric, categorical=cats)
 
 
-def _positions(ids: pd.Series, value_set: pa.ChunkedArray) -> np.ndarray:
-    """Row of each id in the visits (by unit id), -1 when the id is not there."""
-    idx = pc.index_in(_arrow_ids(ids), value_set=value_set)
-    return pc.fill_null(idx, -1).to_numpy().astype(np.int64)
+def _positions(ids: pd.Series, value_set: pa.Array) -> np.ndarray:
+    """Row of each id in the visits (by unit id), -1 when the id is not there (parallel over slices)."""
+    arr = _arrow_ids(ids)
+    n = len(arr)
+    parts = max(1, min(os.cpu_count() or 1, 8)) if n > 1_000_000 else 1
+    edges = np.linspace(0, n, parts + 1).astype(np.int64)
+
+    def one(i: int) -> np.ndarray:
+        piece = arr.slice(int(edges[i]), int(edges[i + 1] - edges[i]))
+        return pc.fill_null(pc.index_in(piece, value_set=value_set), -1).to_numpy().astype(np.int64)
+
+    if parts == 1:
+        return one(0)
+    with ThreadPoolExecutor(max_workers=parts) as pool:
+        return np.concatenate(list(pool.map(one, range(parts))))
 
 
-def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.ChunkedArray) -> LeakageTables:
+def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> LeakageTables:
     e, v = fr.exposures, fr.visits
     assert e is not None
     arms, k = list(spec.arm_names), len(spec.arms)
@@ -206,7 +220,7 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.ChunkedArra
     )
 
 
-def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.ChunkedArray) -> ChurnTables:
+def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> ChurnTables:
     ident, v = fr.identities, fr.visits
     assert ident is not None
     k = len(spec.arms)
@@ -275,7 +289,7 @@ def compute(spec: Spec, fr: Frames) -> AuditTables:
     split, integ = split_and_integrity(spec, fr, eff, rec, hashed, unknown, missing)
     tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, rec))
     if fr.exposures is not None or fr.identities is not None:
-        vset = _arrow_ids(v[UNIT])
+        vset = _arrow_ids(v[UNIT]).combine_chunks()
         if fr.exposures is not None:
             tables.leakage = leakage_tables(spec, fr, eff, vset)
         if fr.identities is not None:

@@ -198,14 +198,22 @@ def read_numbers(src: Source, table: pa.Table, col: str) -> pd.Series:
 
 
 def read_labels(table: pa.Table, col: str) -> pd.Series:
-    """A categorical column: text levels, empty or null counted as MISSING_LEVEL."""
-    arr = _arrow(table, col)
-    if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
-        arr = arr.cast(pa.string())
-    arr = pc.fill_null(arr, "")
-    enc = arr.dictionary_encode().combine_chunks()
-    levels = [MISSING_LEVEL if v == "" else v for v in enc.dictionary.to_pylist()]
-    codes = enc.indices.to_numpy(zero_copy_only=False).astype(np.int32)
-    if len(set(levels)) != len(levels):  # "" and a literal "(missing)" both present
-        levels = [f"{v}#{i}" if levels.count(v) > 1 else v for i, v in enumerate(levels)]
-    return pd.Series(pd.Categorical.from_codes(codes, categories=levels))
+    """A categorical column: text levels (unused ones dropped), empty or null counted as MISSING_LEVEL."""
+    arr = table.column(col)
+    if pa.types.is_dictionary(arr.type) and pa.types.is_string(arr.type.value_type):
+        enc = pa.table({"x": arr}).unify_dictionaries().column("x").combine_chunks()
+        if isinstance(enc, pa.ChunkedArray):  # no chunks at all
+            enc = pa.array([], type=arr.type)
+    else:
+        if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+            arr = arr.cast(pa.string())
+        enc = pc.fill_null(arr, "").dictionary_encode().combine_chunks()
+    raw = [MISSING_LEVEL if v is None or v == "" else str(v) for v in enc.dictionary.to_pylist()] + [MISSING_LEVEL]
+    codes = pc.fill_null(enc.indices, len(raw) - 1).to_numpy(zero_copy_only=False).astype(np.int32)
+    levels = list(dict.fromkeys(raw))
+    lut = np.array([levels.index(v) for v in raw], dtype=np.int32)
+    codes = lut[codes]
+    used = np.bincount(codes, minlength=len(levels)) > 0
+    keep = [v for v, u in zip(levels, used) if u]
+    remap = np.cumsum(used) - 1
+    return pd.Series(pd.Categorical.from_codes(remap[codes].astype(np.int32), categories=keep))
