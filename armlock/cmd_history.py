@@ -9,29 +9,35 @@ from typing import Any
 import typer
 
 from assign import load_spec
-from audit.history import changes, default_history_path, format_value, load
+from audit.history import changes, default_history_path, format_value, load, trend_keys
 
 from .common import SPEC_HELP, err
 
 FORMATS = ("text", "json")
 _UNIT_ORDER = {"share": 0, "p": 1, "ratio": 2, "number": 3, "count": 4}
 _MARK = {"pass": "ok  ", "warn": "WARN", "fail": "FAIL", "skipped": "skip"}
-MAX_COLUMNS = 5
+MAX_COLUMNS = 4
+MAX_HEADER = 26
 
 
 def trend_columns(runs: list[dict[str, Any]], limit: int = MAX_COLUMNS) -> list[str]:
-    """The figure keys worth a column: numeric, in the newest run, shares and p-values first."""
+    """The figure keys worth a column: each check's headline figure, problems first."""
+    keys = trend_keys(runs, limit)
     latest = runs[-1]["figures"]
-    keys = [k for k, f in latest.items() if f.get("unit") in _UNIT_ORDER]
-    keys.sort(key=lambda k: (_UNIT_ORDER[latest[k]["unit"]], list(latest).index(k)))
-    return keys[:limit]
+    rest = [k for k, f in latest.items() if f.get("unit") in _UNIT_ORDER and k not in keys]
+    rest.sort(key=lambda k: (_UNIT_ORDER[latest[k]["unit"]], list(latest).index(k)))
+    return (keys + rest)[:limit]
+
+
+def _short(label: str) -> str:
+    return label if len(label) <= MAX_HEADER else label[:MAX_HEADER - 1] + "…"
 
 
 def trend_table(runs: list[dict[str, Any]]) -> str:
     """A plain terminal table: one row per as-of date, the verdict and the headline figures."""
     keys = trend_columns(runs)
     latest = runs[-1]["figures"]
-    head = ["as of", "verdict"] + [latest[k]["label"] for k in keys]
+    head = ["as of", "verdict"] + [_short(latest[k]["label"]) for k in keys]
     rows = [[r["as_of"], _MARK.get(r["verdict"], r["verdict"])]
             + [format_value(r["figures"].get(k, {}).get("value"), latest[k]["unit"])
                if k in r["figures"] else "-" for k in keys] for r in runs]

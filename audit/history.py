@@ -204,6 +204,24 @@ def format_value(value: Any, unit: str) -> str:
     return f"{value:.3g}" if isinstance(value, float) else f"{value:,}"
 
 
+def trend_keys(runs: list[dict[str, Any]], limit: int = 4) -> list[str]:
+    """The figures worth following week by week: each check's headline (its first share or
+    p-value figure), failing checks first, then warning ones, then the rest in report order."""
+    if not runs:
+        return []
+    latest = runs[-1]
+    rank = {"fail": 0, "warn": 1, "pass": 2, "skipped": 3}
+    order = sorted(enumerate(latest.get("checks", {}).items()),
+                   key=lambda x: (rank.get(x[1][1].get("status", "pass"), 2), x[0]))
+    keys = []
+    for _, (cid, _info) in order:
+        head = next((k for k, f in latest["figures"].items()
+                     if k.startswith(cid + ".") and f.get("unit") in ("share", "p")), None)
+        if head:
+            keys.append(head)
+    return keys[:limit]
+
+
 def _meaningful(old: Any, new: Any, unit: str) -> bool:
     """Whether a move from `old` to `new` deserves a sentence (thresholds: common practice)."""
     if old is None or new is None or unit in ("date", "text"):

@@ -22,7 +22,7 @@ from matplotlib.figure import Figure as MplFigure  # noqa: E402
 
 from assign.spec_audit import AuditThresholds  # noqa: E402
 
-from .history import changes, format_value, row_from_report  # noqa: E402
+from .history import changes, format_value, row_from_report, trend_keys  # noqa: E402
 from .model import AuditReport, Check  # noqa: E402
 
 # Our palette. Text colours reach WCAG AA (>= 4.5:1) on their backgrounds.
@@ -242,27 +242,10 @@ def chart_churn(rows: list[dict[str, Any]], chart_id: str) -> str:
 _STATUS_MARK = {"pass": ("o", "#17603a"), "warn": ("^", "#9a6200"), "fail": ("X", "#9e1f24"), "skipped": ("s", "#777")}
 
 
-def history_keys(runs: list[dict[str, Any]], limit: int = 4) -> list[str]:
-    """The headline figures worth a trend line: shares first, then p-values, then ratios; only
-    those that moved across the runs, by how much they moved."""
-    order = {"share": 0, "p": 1, "ratio": 2}
-    scored = []
-    for key, fig0 in runs[-1]["figures"].items():
-        if fig0.get("unit") not in order:
-            continue
-        vals = [r["figures"].get(key, {}).get("value") for r in runs]
-        nums = [float(v) for v in vals if isinstance(v, (int, float)) and not isinstance(v, bool)]
-        if len(set(nums)) < 2:
-            continue
-        spread = (max(nums) - min(nums)) / (max(abs(x) for x in nums) or 1)
-        scored.append((order[fig0["unit"]], -spread, key))
-    return [k for _, _, k in sorted(scored)[:limit]]
-
-
 def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
     """The verdict of each run as shaped marks, and the headline figures that moved, over time."""
     days = _dates([r["as_of"] for r in runs])
-    keys = history_keys(runs)
+    keys = trend_keys(runs)
     fig, axes = plt.subplots(1 + len(keys), 1, figsize=(7.2, 1.2 + 1.6 * len(keys)), sharex=True,
                              squeeze=False, gridspec_kw={"height_ratios": [0.6] + [1] * len(keys)})
     ax = axes[0, 0]

@@ -56,7 +56,10 @@ def test_history_table_and_changes(spec: Path, tmp_path: Path) -> None:
     assert [ln.split()[:2] for ln in table] == [["2026-03-02", "WARN"], ["2026-03-09", "WARN"],
                                                 ["2026-03-16", "WARN"], ["2026-03-23", "FAIL"]]
     assert "holdout leakage" in lines[2]
-    assert table[-1].split()[2] == "1.4%"
+    # failing checks' headline figures come first: SRM p, then leakage (both fail in the last run)
+    header = [h.strip() for h in lines[2].split("  ") if h.strip()]
+    assert header[:4] == ["as of", "verdict", "SRM p-value", "holdout leakage"]
+    assert table[-1].split()[2:4] == ["1.0e-04", "1.4%"]
     assert "Since 2026-03-16 (as of 2026-03-23):" in lines
     assert "  - holdout leakage rose from 0.6% to 1.4%" in lines
     assert "  - the verdict went from warn to fail" in lines
