@@ -1,0 +1,82 @@
+"""Benchmark: a full audit of 2,000,000 units and ~20,000,000 exposure rows (Parquet), against bare reads.
+
+Goal (issue 4): under 60 s and under 4 GB on a 2-core machine. Both the audit and the baseline
+(a bare `pandas.read_parquet` of the same three files, every column) run in a fresh subprocess,
+so the wall time includes the same interpreter start-up and the peak resident memory is that
+process's own (`resource.getrusage(RUSAGE_SELF).ru_maxrss`, reported by the child). The figures
+are recorded in `benchmark.extra_info`; tests/benchmarks/ratios.py prints the ratio. Set
+ARMLOCK_BENCH_UNITS to run smaller (the exposure rows scale with it).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from assign import spec_from_dict
+from audit.synth import generate, write_logs
+
+pytestmark = pytest.mark.bench
+
+UNITS = int(os.environ.get("ARMLOCK_BENCH_UNITS", "2000000"))
+EVENTS_PER_UNIT = 10.0  # ~20,000,000 exposure rows at 2,000,000 units
+SPEC = {"name": "bench-audit", "salt": "bench-audit-salt", "start": "2026-01-05T00:00:00Z",
+        "arms": [{"name": "holdout", "weight": 1000}, {"name": "exposed", "weight": 9000}]}
+
+_CHILD_AUDIT = """
+import json, resource, sys
+from assign import spec_from_dict
+from audit.run import run_audit
+spec = spec_from_dict(json.loads(sys.argv[1]))
+d = sys.argv[2]
+rep = run_audit(spec, visits=d + "/visits.parquet", exposures=d + "/exposures.parquet",
+                identities=d + "/identities.parquet")
+print(json.dumps({"maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss,
+                  "verdict": rep.verdict, "units": rep.checks[0].figures["units"].value}))
+"""
+_CHILD_READ = """
+import json, resource, sys
+import pandas as pd
+d = sys.argv[2]
+rows = sum(len(pd.read_parquet(d + f"/{n}.parquet")) for n in ("visits", "exposures", "identities"))
+print(json.dumps({"maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, "rows": rows}))
+"""
+
+
+@pytest.fixture(scope="session")
+def logs_dir(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, object]]:
+    d = tmp_path_factory.mktemp("audit-bench")
+    logs = generate(spec_from_dict(SPEC), units=UNITS, seed=1, events_per_unit=EVENTS_PER_UNIT)
+    write_logs(logs, d, "parquet")
+    return d, dict(logs.truth)
+
+
+def _child(code: str, d: Path) -> dict[str, object]:
+    r = subprocess.run([sys.executable, "-c", code, json.dumps(SPEC), str(d)], capture_output=True,
+                       text=True, timeout=900)
+    assert r.returncode == 0, r.stderr
+    return json.loads(r.stdout.strip().splitlines()[-1])
+
+
+@pytest.mark.benchmark(group="audit-2M")
+def test_baseline_bare_read_parquet(benchmark, logs_dir) -> None:  # type: ignore[no-untyped-def]
+    d, truth = logs_dir
+    out = benchmark.pedantic(_child, args=(_CHILD_READ, d), rounds=1, iterations=1)
+    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
+                                 "rows": out["rows"], "exposure_rows": truth["exposure_rows"]})
+    assert out["rows"] > truth["exposure_rows"]  # type: ignore[operator]
+
+
+@pytest.mark.benchmark(group="audit-2M")
+def test_full_audit(benchmark, logs_dir) -> None:  # type: ignore[no-untyped-def]
+    d, truth = logs_dir
+    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=1, iterations=1)
+    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
+                                 "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
+    assert out["units"] == truth["units"]
+    assert out["verdict"] == "pass"  # clean generated logs
