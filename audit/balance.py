@@ -9,7 +9,7 @@ from scipy import stats
 
 from assign import Spec
 
-from .model import Check, Figure, Table
+from .model import Check, Figure, Status, Table
 from .srm import holm
 from .tables import BalanceTables
 
@@ -115,6 +115,7 @@ def check_balance(spec: Spec, bt: BalanceTables) -> Check:
     worst = max((r for r in rows if r["smd"] is not None and not math.isnan(float(r["smd"]))),  # type: ignore[arg-type]
                 key=lambda r: abs(float(r["smd"])), default=None)  # type: ignore[arg-type]
     name = (f"{worst['covariate']}" + (f"={worst['level']}" if worst and worst["level"] else "")) if worst else "-"
+    status: Status
     if max_smd > th.smd_fail:
         status = "fail"
     elif max_smd > th.smd_warn or vr_bad or p_bad:

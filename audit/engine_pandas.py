@@ -14,7 +14,12 @@ from assign import Spec, assign_many
 
 from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
 from .tables import (
-    AuditTables, BalanceTables, ChurnTables, IntegrityTables, LeakageTables, SplitTables,
+    AuditTables,
+    BalanceTables,
+    ChurnTables,
+    IntegrityTables,
+    LeakageTables,
+    SplitTables,
 )
 
 NS_DAY = 86_400 * 10**9
@@ -115,7 +120,7 @@ def balance_tables(spec: Spec, fr: Frames, rec: np.ndarray) -> BalanceTables:
         for i, a in enumerate(arms):
             m = ok & (rec == i)
             xi = x[m & fin]
-            rows.append({"covariate": col, "arm": a, "n": int(len(xi)), "missing": int((m & ~fin).sum()),
+            rows.append({"covariate": col, "arm": a, "n": len(xi), "missing": int((m & ~fin).sum()),
                          "sum": float(xi.sum()), "sumsq": float(np.dot(xi, xi)), "binary": binary})
     numeric = pd.DataFrame(rows, columns=["covariate", "arm", "n", "missing", "sum", "sumsq", "binary"])
     cats = {}
@@ -263,7 +268,7 @@ def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> Chu
         links=len(ident), customers=per_len, multi_arm=int((narms > 1).sum()),
         expected_multi=float(p_multi.sum()), ids_per_customer=dist,
         by_browser=g,
-        ids_not_in_visits=int(len(np.unique(ident.loc[missing, UNIT].to_numpy(dtype=object)))) if missing.any() else 0,
+        ids_not_in_visits=len(np.unique(ident.loc[missing, UNIT].to_numpy(dtype=object))) if missing.any() else 0,
     )
 
 

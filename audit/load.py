@@ -11,8 +11,23 @@ import pandas as pd
 from assign import InputError, Spec
 
 from .read import (
-    ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames, Source, _header, _need,
-    _read_table, read_ids, read_labels, read_numbers, read_times,
+    ARM,
+    BROWSER,
+    CAMPAIGN,
+    CUSTOMER,
+    FP,
+    KIND,
+    TIME,
+    UNIT,
+    Frames,
+    Source,
+    _header,
+    _need,
+    _read_table,
+    read_ids,
+    read_labels,
+    read_numbers,
+    read_times,
 )
 
 PathLike = str | Path

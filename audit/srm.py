@@ -11,13 +11,14 @@ from scipy.special import gammaln
 
 from assign import Spec
 
-from .model import Check, Figure, Table
+from .model import Check, Figure, Status, Table
 from .tables import SplitTables
 
+Vector = Sequence[float] | np.ndarray
 PRIOR_CONCENTRATION = 100.0  # Dirichlet prior alpha = 100 * theta0 (Lindon & Malek's reference code default)
 
 
-def chi_square(counts: Sequence[int], theta0: Sequence[float]) -> tuple[float, float]:
+def chi_square(counts: Vector, theta0: Vector) -> tuple[float, float]:
     """Pearson chi-square goodness of fit of `counts` against shares `theta0`: (statistic, p)."""
     x = np.asarray(counts, dtype=np.float64)
     th = np.asarray(theta0, dtype=np.float64)
@@ -28,7 +29,7 @@ def chi_square(counts: Sequence[int], theta0: Sequence[float]) -> tuple[float, f
     return float(res.statistic), float(res.pvalue)
 
 
-def log_bayes_factor(counts: np.ndarray, theta0: Sequence[float],
+def log_bayes_factor(counts: np.ndarray, theta0: Vector,
                      concentration: float = PRIOR_CONCENTRATION) -> np.ndarray:
     """log BF of Dirichlet-multinomial (alpha = c * theta0) over the null multinomial, per row of counts.
 
@@ -47,7 +48,7 @@ def log_bayes_factor(counts: np.ndarray, theta0: Sequence[float],
             - (x * np.log(th)).sum(axis=-1))
 
 
-def sequential_p(cumulative: np.ndarray, theta0: Sequence[float],
+def sequential_p(cumulative: np.ndarray, theta0: Vector,
                  concentration: float = PRIOR_CONCENTRATION) -> np.ndarray:
     """Anytime-valid p-value after each look: running minimum of min(1, 1/BF) over the looks.
 
@@ -59,7 +60,7 @@ def sequential_p(cumulative: np.ndarray, theta0: Sequence[float],
     return np.minimum.accumulate(p, axis=-1)
 
 
-def holm(p: Sequence[float]) -> np.ndarray:
+def holm(p: Vector) -> np.ndarray:
     """Holm (1979) step-down adjusted p-values (family-wise error control), in input order."""
     pv = np.asarray(p, dtype=np.float64)
     m = len(pv)
@@ -151,6 +152,7 @@ def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Che
     worst_rows = [{"segment": tests[i][0], "value": tests[i][1], "p": tests[i][4], "p_holm": float(adj[i])}
                   for i in order[:show]]
     named = ", ".join(f"{tests[i][0]}={tests[i][1]}" for i in fails[:5])
+    status: Status
     if fails:
         status = "fail"
         summary = (f"The split is off in {len(fails)} day(s)/segment value(s), worst {named}: look for a tag "

@@ -12,7 +12,14 @@ from statsmodels.stats.meta_analysis import effectsize_smd
 from statsmodels.stats.weightstats import ttest_ind
 
 from assign import spec_from_dict
-from audit.balance import check_balance, chi2_independence_p, moments, smd_binary, smd_continuous, welch_p
+from audit.balance import (
+    check_balance,
+    chi2_independence_p,
+    moments,
+    smd_binary,
+    smd_continuous,
+    welch_p,
+)
 from audit.tables import BalanceTables
 
 

@@ -9,7 +9,7 @@ from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
 from assign import spec_from_dict
-from audit.srm import chi_square, check_srm, holm, log_bayes_factor, sequential_p
+from audit.srm import check_srm, chi_square, holm, log_bayes_factor, sequential_p
 from audit.tables import SplitTables
 
 

@@ -36,7 +36,7 @@ HEADER = "unit_id,first_seen,arm,device,pre_orders"
 
 
 def run(cwd: Path, *args: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "armlock", "audit", *args], cwd=cwd,
+    return subprocess.run([sys.executable, "-m", "armlock", "audit", *args], check=False, cwd=cwd,
                           capture_output=True, text=True, timeout=300)
 
 
