@@ -57,7 +57,7 @@ def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
                               "visits: the vendor targets people the split never saw (an old audience, or an id mismatch)"))
     status = worst([p[0] for p in parts])
     if parts:
-        summary = ("; ".join(p for _, p in parts) + f". The ITT difference shrinks to {dil:.1%} of the per-exposed "
+        summary = ("; ".join(p for _, p in parts) + f". The ITT difference is {dil:.1%} of the per-exposed "
                    f"effect (exposure {rate_e:.1%} in the exposed arm vs {rate_h:.2%} in the holdout): have the vendor "
                    "suppress the holdout list and drop audiences built before the test.")
     else:
