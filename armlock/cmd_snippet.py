@@ -20,8 +20,15 @@ class Form(str, Enum):
 
 def snippet(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    form: Form = typer.Option(Form.html, "--form", "-f", help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host."),
-    out: Path = typer.Option(None, "--out", "-o", help="Write the snippet to this file instead of stdout."),
+    form: Form = typer.Option(
+        Form.html,
+        "--form",
+        "-f",
+        help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host.",
+    ),
+    out: Path = typer.Option(
+        None, "--out", "-o", help="Write the snippet to this file instead of stdout."
+    ),
 ) -> None:
     """Render the tag-manager snippet that enforces the split in the browser.
 
@@ -40,8 +47,10 @@ def snippet(
         out.write_text(text, encoding="utf-8")
     except OSError as exc:
         raise SpecError(f"{out}: cannot write the snippet: {exc.strerror}") from None
-    err(f"Wrote {out} ({form.value}, {len(text.encode('utf-8'))} bytes) for experiment "
-        f"{spec.name!r}, fingerprint {spec.fingerprint}")
+    err(
+        f"Wrote {out} ({form.value}, {len(text.encode('utf-8'))} bytes) for experiment "
+        f"{spec.name!r}, fingerprint {spec.fingerprint}"
+    )
 
 
 def register(app: typer.Typer) -> None:

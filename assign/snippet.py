@@ -1,4 +1,4 @@
-"""Render the browser snippet from the spec: the JS template plus one escaped JSON config literal."""
+"""Render the browser snippet from the spec: the JS template plus one escaped JSON literal."""
 
 from __future__ import annotations
 
@@ -90,17 +90,60 @@ _TOKEN = re.compile(
     |(?P<word>[A-Za-z0-9_$]+(?:\.[A-Za-z0-9_$]+)*)
     |(?P<punct>.)
     """,
-    re.S | re.X,
+    re.DOTALL | re.VERBOSE,
 )
 _REGEX_AFTER = set("(,=:[!&|?{};")
 _REGEX_BODY = re.compile(r"/(?:\\.|\[(?:\\.|[^\]\\])*\]|[^/\\\[\n])+/[gim]*")
 _WORD_CHAR = re.compile(r"[\w$]")
 _KEYWORDS = frozenset(
-    "break case catch continue debugger default delete do else finally for function if in "
-    "instanceof new return switch this throw try typeof var void while with null true false "
-    "class const enum export extends import super implements interface let package private "
-    "protected public static yield".split()
-)
+    (
+        "break",
+        "case",
+        "catch",
+        "continue",
+        "debugger",
+        "default",
+        "delete",
+        "do",
+        "else",
+        "finally",
+        "for",
+        "function",
+        "if",
+        "in",
+        "instanceof",
+        "new",
+        "return",
+        "switch",
+        "this",
+        "throw",
+        "try",
+        "typeof",
+        "var",
+        "void",
+        "while",
+        "with",
+        "null",
+        "true",
+        "false",
+        "class",
+        "const",
+        "enum",
+        "export",
+        "extends",
+        "import",
+        "super",
+        "implements",
+        "interface",
+        "let",
+        "package",
+        "private",
+        "protected",
+        "public",
+        "static",
+        "yield",
+    )
+)  # ECMA-262 5.1, 7.6.1: reserved words, never chosen as a short name
 
 
 def _tokens(src: str) -> list[tuple[str, str]]:
@@ -108,8 +151,11 @@ def _tokens(src: str) -> list[tuple[str, str]]:
     pos = 0
     last: tuple[str, str] | None = None
     while pos < len(src):
-        if src[pos] == "/" and (last is None or (last[0] == "punct" and last[1] in _REGEX_AFTER)
-                                or last == ("word", "return")):
+        if src[pos] == "/" and (
+            last is None
+            or (last[0] == "punct" and last[1] in _REGEX_AFTER)
+            or last == ("word", "return")
+        ):
             m = _REGEX_BODY.match(src, pos)
             if m and not src.startswith(("//", "/*"), pos):
                 out.append(("regex", m.group()))
@@ -192,8 +238,10 @@ def minify(src: str, keep_names: frozenset[str] = frozenset()) -> str:
             text = rename.get(head, head) + dot + rest
         if out and space:
             a, b = out[-1], text[0]
-            if (_WORD_CHAR.match(a) and _WORD_CHAR.match(b)) or (a in "+-" and b in "+-") or (
-                a == "/" and b == "/"
+            if (
+                (_WORD_CHAR.match(a) and _WORD_CHAR.match(b))
+                or (a in "+-" and b in "+-")
+                or (a == "/" and b == "/")
             ):
                 out += " "
         out += text

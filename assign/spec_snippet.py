@@ -16,17 +16,50 @@ JS_PATH = rf"^{JS_IDENT}(\.{JS_IDENT}){{0,7}}$"
 # A cookie name is an RFC 6265 section 4.1.1 token (RFC 2616 token characters).
 COOKIE_TOKEN = r"^[!#$%&'*+\-.^_`|~0-9A-Za-z]{1,128}$"
 # A cookie Domain attribute: a host name, optionally with a leading dot (RFC 6265 section 5.2.3).
-COOKIE_DOMAIN = r"^(\.?[A-Za-z0-9]([A-Za-z0-9\-]{0,61}[A-Za-z0-9])?(\.[A-Za-z0-9]([A-Za-z0-9\-]{0,61}[A-Za-z0-9])?)*)?$"
+_LABEL = r"[A-Za-z0-9]([A-Za-z0-9\-]{0,61}[A-Za-z0-9])?"
+COOKIE_DOMAIN = rf"^(\.?{_LABEL}(\.{_LABEL})*)?$"
 
 # Window properties the snippet must never overwrite with its global object or data layer:
 # assigning some of them navigates the page or breaks it (HTML Living Standard, Window interface).
-RESERVED_GLOBALS = frozenset({
-    "window", "self", "top", "parent", "frames", "opener", "document", "location", "history",
-    "navigator", "name", "status", "length", "origin", "closed", "frameElement", "localStorage",
-    "sessionStorage", "crypto", "console", "setInterval", "clearInterval", "setTimeout",
-    "Object", "Array", "String", "Math", "JSON", "RegExp", "Error", "Uint8Array", "undefined",
-    "NaN", "Infinity", "eval",
-})
+RESERVED_GLOBALS = frozenset(
+    {
+        "window",
+        "self",
+        "top",
+        "parent",
+        "frames",
+        "opener",
+        "document",
+        "location",
+        "history",
+        "navigator",
+        "name",
+        "status",
+        "length",
+        "origin",
+        "closed",
+        "frameElement",
+        "localStorage",
+        "sessionStorage",
+        "crypto",
+        "console",
+        "setInterval",
+        "clearInterval",
+        "setTimeout",
+        "Object",
+        "Array",
+        "String",
+        "Math",
+        "JSON",
+        "RegExp",
+        "Error",
+        "Uint8Array",
+        "undefined",
+        "NaN",
+        "Infinity",
+        "eval",
+    }
+)
 
 # Regular-expression syntax that Python accepts but JavaScript (ES5 RegExp) reads differently.
 _PY_ONLY_REGEX = re.compile(r"\(\?[^:=!]|\\[AZzQEGh]|\[\[:|\(\?<")
@@ -39,7 +72,7 @@ class IdSource(BaseModel):
 
     kind: Literal["cookie", "global", "data_layer"]
     name: str = Field(min_length=1, max_length=128)
-    pattern: str = Field("", max_length=200)
+    pattern: str = Field(default="", max_length=200)
 
     @model_validator(mode="after")
     def _name_fits_kind(self) -> IdSource:
@@ -64,7 +97,9 @@ class IdSource(BaseModel):
         except re.error as exc:
             raise ValueError(f"pattern is not a regular expression: {exc}") from None
         if compiled.groups < 1:
-            raise ValueError("pattern needs a capture group: its first group is the id, e.g. ^uid\\.(.+)$")
+            raise ValueError(
+                "pattern needs a capture group: its first group is the id, e.g. ^uid\\.(.+)$"
+            )
         if _PY_ONLY_REGEX.search(v) or any(ord(c) < 32 for c in v):
             raise ValueError(
                 "pattern uses syntax the browser reads differently (named groups, inline flags, "
@@ -79,9 +114,9 @@ class ConsentRule(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     mode: Literal["none", "data_layer", "function"] = "none"
-    key: str = Field("", max_length=128)
-    value: str = Field("", max_length=128)
-    function: str = Field("", max_length=128)
+    key: str = Field(default="", max_length=128)
+    value: str = Field(default="", max_length=128)
+    function: str = Field(default="", max_length=128)
 
     @model_validator(mode="after")
     def _complete(self) -> ConsentRule:
@@ -92,7 +127,9 @@ class ConsentRule(BaseModel):
                     f"(got {self.key!r})"
                 )
             if self.value == "":
-                raise ValueError('mode "data_layer" needs value, the text that means yes, e.g. "granted"')
+                raise ValueError(
+                    'mode "data_layer" needs value, the text that means yes, e.g. "granted"'
+                )
             if self.function:
                 raise ValueError('function is only used with mode "function"')
         elif self.mode == "function":
@@ -110,9 +147,13 @@ class ConsentRule(BaseModel):
 
 def _global_name(v: str, what: str) -> str:
     if not re.match(rf"^{JS_IDENT}$", v) or len(v) > 64:
-        raise ValueError(f"{what} is a JavaScript identifier: a letter, _ or $, then letters, digits, _ or $")
+        raise ValueError(
+            f"{what} is a JavaScript identifier: a letter, _ or $, then letters, digits, _ or $"
+        )
     if v in RESERVED_GLOBALS:
-        raise ValueError(f"{what} names a built-in property of the page's window; choose another name")
+        raise ValueError(
+            f"{what} names a built-in property of the page's window; choose another name"
+        )
     return v
 
 
@@ -121,13 +162,13 @@ class SnippetSettings(BaseModel):
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
-    id_sources: tuple[IdSource, ...] = Field((), max_length=8)
+    id_sources: tuple[IdSource, ...] = Field(default=(), max_length=8)
     cookie_name: str = "armlock_uid"
-    cookie_days: int = Field(395, strict=True)
-    cookie_domain: str = Field("", max_length=253)
+    cookie_days: int = Field(default=395, ge=1, le=MAX_COOKIE_DAYS, strict=True)
+    cookie_domain: str = Field(default="", max_length=253)
     data_layer: str = "dataLayer"
-    event_name: str = Field("armlock_arm", min_length=1, max_length=100)
-    error_event_name: str = Field("armlock_error", min_length=1, max_length=100)
+    event_name: str = Field(default="armlock_arm", min_length=1, max_length=100)
+    error_event_name: str = Field(default="armlock_error", min_length=1, max_length=100)
     global_name: str = "armlock"
     consent: ConsentRule = ConsentRule()
     qa_param: str = ""
@@ -136,15 +177,8 @@ class SnippetSettings(BaseModel):
     @classmethod
     def _cookie_name_ok(cls, v: str) -> str:
         if not re.match(r"^[A-Za-z0-9_\-]{1,64}$", v):
-            raise ValueError("cookie_name is 1-64 letters, digits, _ or - (it is also the localStorage key)")
-        return v
-
-    @field_validator("cookie_days")
-    @classmethod
-    def _days_ok(cls, v: int) -> int:
-        if not 1 <= v <= MAX_COOKIE_DAYS:
             raise ValueError(
-                f"cookie_days is 1..{MAX_COOKIE_DAYS}: RFC 6265bis caps a cookie's lifetime at 400 days"
+                "cookie_name is 1-64 letters, digits, _ or - (it is also the localStorage key)"
             )
         return v
 
@@ -152,14 +186,18 @@ class SnippetSettings(BaseModel):
     @classmethod
     def _domain_ok(cls, v: str) -> str:
         if not re.match(COOKIE_DOMAIN, v):
-            raise ValueError('cookie_domain is a host name such as ".shop.example", or "" for this host only')
+            raise ValueError(
+                'cookie_domain is a host name such as ".shop.example", or "" for this host only'
+            )
         return v
 
     @field_validator("qa_param")
     @classmethod
     def _qa_ok(cls, v: str) -> str:
         if not re.match(r"^([A-Za-z0-9_\-.]{1,64})?$", v):
-            raise ValueError('qa_param is a URL parameter name of letters, digits, _, - or . (or "" for off)')
+            raise ValueError(
+                'qa_param is a URL parameter name of letters, digits, _, - or . (or "" for off)'
+            )
         return v
 
     @field_validator("data_layer")
@@ -182,7 +220,9 @@ class SnippetSettings(BaseModel):
     @model_validator(mode="after")
     def _distinct(self) -> SnippetSettings:
         if self.data_layer == self.global_name:
-            raise ValueError("data_layer and global_name must differ (both are properties of window)")
+            raise ValueError(
+                "data_layer and global_name must differ (both are properties of window)"
+            )
         if self.event_name == self.error_event_name:
             raise ValueError("event_name and error_event_name must differ")
         return self
@@ -190,11 +230,11 @@ class SnippetSettings(BaseModel):
 
 def snippet_section_toml() -> str:
     """The commented `[snippet]` table written by `armlock init`."""
-    return '''
+    return """
 [snippet]
 # Settings of the tag-manager snippet (`armlock snippet`). Cosmetic: changing them never
-# moves a visitor to another arm (only an id source change can, by changing which id is hashed).
-cookie_name = "armlock_uid"  # armlock's own first-party visitor-id cookie (also its localStorage key)
+# moves a visitor to another arm (only id_sources can, by changing which id is hashed).
+cookie_name = "armlock_uid"  # armlock's own first-party id cookie (and its localStorage key)
 cookie_days = 395            # lifetime; browsers cap cookies at 400 days (RFC 6265bis)
 cookie_domain = ""           # e.g. ".shop.example" to share the id across subdomains; "" = this host
 data_layer = "dataLayer"     # the page's data-layer array (created if absent)
@@ -218,4 +258,4 @@ mode = "none"                # "none", "data_layer" (key = value pushed) or "fun
 # key = "consent.ads"        # mode "data_layer": the key path pushed into the data layer
 # value = "granted"          # mode "data_layer": the value that means yes
 # function = "site.consent.adsAllowed"  # mode "function": a global function returning true
-'''
+"""

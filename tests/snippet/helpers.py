@@ -12,7 +12,7 @@ import subprocess
 import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -34,7 +34,7 @@ def make_spec(salt: str = "c0ffee1234abcd5678ef9012",
     return spec_from_dict({
         "name": "invented-retargeting-test",
         "salt": salt,
-        "start": datetime(2026, 12, 1, tzinfo=timezone.utc),
+        "start": datetime(2026, 12, 1, tzinfo=UTC),
         "arms": [{"name": n, "weight": w, "role": r} for n, w, r in arms],
         "snippet": snippet,
     })
