@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import subprocess
+from datetime import timedelta
 import sys
 from pathlib import Path
 
@@ -91,3 +92,44 @@ def test_history_corrupt_file_is_a_clear_error(spec: Path, tmp_path: Path) -> No
 def test_history_unknown_format_is_usage_error(spec: Path, tmp_path: Path) -> None:
     r = run(tmp_path, "history", "--spec", spec.name, "--format", "xml")
     assert r.returncode == 2 and "unknown format 'xml'" in r.stderr
+
+
+def _logs(tmp_path: Path, spec: Path) -> dict[str, Path]:
+    from audit import synth
+
+    logs = synth.generate(load_spec(spec), units=4_000, days=21, seed=5, faults=("leakage",))
+    return synth.write_logs(logs, tmp_path / "logs", fmt="parquet")
+
+
+def test_audit_record_then_history_and_html(spec: Path, tmp_path: Path) -> None:
+    logs = _logs(tmp_path, spec)
+    base = ["audit", "--spec", spec.name, "--visits", str(logs["visits"].relative_to(tmp_path)),
+            "--exposures", str(logs["exposures"].relative_to(tmp_path))]
+    start = load_spec(spec).start.date()
+    days = [(start + timedelta(days=d)).isoformat() for d in (6, 13, 13, 20)]  # one date twice
+    for day in days:
+        r = run(tmp_path, *base, "--as-of", day, "--record", "--format", "json")
+        assert r.returncode in (0, 1, 3), r.stderr
+    h = run(tmp_path, "history", "--spec", spec.name, "--format", "json")
+    doc = json.loads(h.stdout)
+    assert [x["as_of"] for x in doc["runs"]] == sorted(set(days))  # the rerun replaced its row
+    r = run(tmp_path, *base, "--as-of", days[-1], "--format", "html", "--out", "report.html")
+    assert r.returncode in (0, 1, 3), r.stderr
+    page = (tmp_path / "report.html").read_text(encoding="utf-8")
+    assert page.startswith("<!DOCTYPE html>") and 'data-chart="history"' in page
+    assert f"Compared with the run as of {days[1]} (3 runs recorded)" in page
+    # an explicit --history path is used for both writing and reading
+    r = run(tmp_path, *base, "--as-of", days[0], "--record", "--history", "other.sqlite")
+    assert (tmp_path / "other.sqlite").is_file()
+    h = run(tmp_path, "history", "--spec", spec.name, "--history", "other.sqlite", "--format", "json")
+    assert [x["as_of"] for x in json.loads(h.stdout)["runs"]] == [days[0]]
+
+
+def test_audit_record_into_corrupt_history_is_refused(spec: Path, tmp_path: Path) -> None:
+    logs = _logs(tmp_path, spec)
+    bad = tmp_path / "homeware-test.toml.history.sqlite"
+    bad.write_bytes(b"garbage" * 10)
+    r = run(tmp_path, "audit", "--spec", spec.name, "--visits", str(logs["visits"]), "--record")
+    assert r.returncode == 4
+    assert "Error: history file homeware-test.toml.history.sqlite is not a readable armlock history" in r.stderr
+    assert bad.read_bytes() == b"garbage" * 10
