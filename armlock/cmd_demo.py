@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import time
 from dataclasses import dataclass, field
-from datetime import date, datetime, timedelta, timezone
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 
 import typer
@@ -20,7 +20,7 @@ SHOP = "Larkspur & Vine (invented)"
 SITE = "shop.example"
 NAME = "larkspur-retargeting"
 SALT = "larkspur-vine-demo-salt-0001"  # fixed so the demo is the same on every machine; never reuse
-START = datetime(2026, 1, 5, tzinfo=timezone.utc)  # a Monday
+START = datetime(2026, 1, 5, tzinfo=UTC)  # a Monday
 WEEKS = 12
 UNITS = 60_000
 SEED = 20260105

@@ -42,7 +42,7 @@ def trend_table(runs: list[dict[str, Any]]) -> str:
             + [format_value(r["figures"].get(k, {}).get("value"), latest[k]["unit"])
                if k in r["figures"] else "-" for k in keys] for r in runs]
     width = [max(len(str(c)) for c in col) for col in zip(head, *rows)]
-    line = lambda cells: "  ".join(  # noqa: E731
+    line = lambda cells: "  ".join(
         str(c).ljust(w) if i < 2 else str(c).rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
     return "\n".join([line(head), line(["-" * w for w in width])] + [line(r) for r in rows])
 

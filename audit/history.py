@@ -10,7 +10,7 @@ from __future__ import annotations
 import json
 import math
 import sqlite3
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -119,7 +119,7 @@ def record(path: str | Path, report: AuditReport) -> None:
     elif not path.parent.is_dir():
         raise InputError(f"history file {path}: folder {path.parent} does not exist")
     row = row_from_report(report)
-    now = datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    now = datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
     try:
         conn = _connect(path, read_only=False)
     except sqlite3.Error as exc:

@@ -17,13 +17,13 @@ from typing import Any
 import matplotlib
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-from matplotlib.figure import Figure as MplFigure  # noqa: E402
+import matplotlib.pyplot as plt
+from matplotlib.figure import Figure as MplFigure
 
-from assign.spec_audit import AuditThresholds  # noqa: E402
+from assign.spec_audit import AuditThresholds
 
-from .history import changes, format_value, row_from_report, trend_keys  # noqa: E402
-from .model import AuditReport, Check  # noqa: E402
+from .history import changes, format_value, row_from_report, trend_keys
+from .model import AuditReport, Check
 
 # Our palette. Text colours reach WCAG AA (>= 4.5:1) on their backgrounds.
 INK, PAPER, CARD, RULE, MUTED = "#1d2528", "#f6f3ee", "#ffffff", "#d8d2c8", "#4f5a5e"
@@ -49,7 +49,7 @@ _VERDICT_WORDS = {
 }
 CHART_CHECKS = {"srm", "leakage", "balance", "churn"}
 
-_RC = {
+_RC: dict[str, Any] = {
     "svg.fonttype": "none",  # text stays text: small, selectable, escaped by the writer
     "text.parse_math": False,  # a `$` in an id is shown, never parsed
     "font.family": "sans-serif",
@@ -97,7 +97,7 @@ def _svg(fig: MplFigure, chart_id: str, caption: str) -> str:
     return text
 
 
-def _dates(values: list[str]) -> list[date]:
+def _dates(values: list[str]) -> list[Any]:
     return [date.fromisoformat(str(v)[:10]) for v in values]
 
 
@@ -250,9 +250,9 @@ def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
                              squeeze=False, gridspec_kw={"height_ratios": [0.6] + [1] * len(keys)})
     ax = axes[0, 0]
     for status, (marker, colour) in _STATUS_MARK.items():
-        pts = [d for d, r in zip(days, runs) if r["verdict"] == status]
-        if pts:
-            ax.scatter(pts, [0] * len(pts), marker=marker, s=70, color=colour,
+        hits = [d for d, r in zip(days, runs) if r["verdict"] == status]
+        if hits:
+            ax.scatter(hits, [0] * len(hits), marker=marker, s=70, color=colour,
                        label=STATUS_STYLE[status][0], zorder=3)
     ax.set_yticks([])
     ax.set_title("verdict of each run", loc="left")
@@ -428,7 +428,7 @@ def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None
     word, fg, bg = STATUS_STYLE[report.verdict]
     bad = [c for c in report.checks if c.status in ("fail", "warn")]
     lead = _VERDICT_WORDS[report.verdict]
-    with matplotlib.rc_context(_RC):
+    with matplotlib.rc_context(_RC):  # type: ignore[arg-type]
         sections = "".join(_section(c, report, th) for c in report.checks)
         hist = _history_section(report, history)
     nav = "".join(f'<li><a href="#check-{esc(c.id)}"><span>{esc(c.title)}</span>{badge(c.status)}</a></li>'

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import json
 import subprocess
-from datetime import timedelta
 import sys
+from datetime import timedelta
 from pathlib import Path
 
 import pytest

@@ -14,6 +14,7 @@ import pytest
 from assign.errors import InputError
 from audit import history
 from audit.history import changes, default_history_path, load, record
+
 from .fixtures import build_report
 
 

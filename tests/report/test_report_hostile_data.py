@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from datetime import date, datetime, timezone
+from datetime import UTC, date, datetime
 from pathlib import Path
 
 import pandas as pd
@@ -29,7 +29,7 @@ def _rename(col: pd.Series, mapping: dict[str, str]) -> pd.Series:
 def test_hostile_values_in_logs_are_shown_literally(tmp_path: Path) -> None:
     spec_path = tmp_path / "hostile.toml"
     spec_path.write_text(render_spec_toml("hostile-test", [("holdout", 2000), ("exposed", 8000)], salt="hostile-salt",
-                                          start=datetime(2026, 1, 5, tzinfo=timezone.utc)), encoding="utf-8")
+                                          start=datetime(2026, 1, 5, tzinfo=UTC)), encoding="utf-8")
     spec = load_spec(spec_path)
     logs = synth.generate(spec, units=6_000, days=28, seed=3, faults=("leakage", "cookie_churn"))
     logs.visits["browser_family"] = _rename(logs.visits["browser_family"], BROWSERS)

@@ -135,3 +135,36 @@ def test_missing_series_gives_section_without_chart() -> None:
     w = walk(render_html(rep))
     assert all(v == [] for v in w.charts.values())
     assert set(w.charts) == set(CHARTS)
+
+
+def _luminance(hex_colour: str) -> float:
+    # W3C, Web Content Accessibility Guidelines (WCAG) 2.1 (2018), definition "relative luminance":
+    # sRGB channel c -> c/12.92 if c <= 0.04045 else ((c+0.055)/1.055)^2.4; L = .2126R + .7152G + .0722B
+    rgb = [int(hex_colour[i:i + 2], 16) / 255 for i in (1, 3, 5)]
+    lin = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in rgb]
+    return 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
+
+
+def contrast(a: str, b: str) -> float:
+    """WCAG 2.1 contrast ratio (L1 + 0.05) / (L2 + 0.05), lighter over darker."""
+    hi, lo = sorted((_luminance(a), _luminance(b)), reverse=True)
+    return (hi + 0.05) / (lo + 0.05)
+
+
+def test_contrast_formula_matches_wcag_extremes() -> None:
+    # WCAG 2.1: black on white is 21:1, a colour on itself 1:1
+    assert contrast("#000000", "#ffffff") == pytest.approx(21.0)
+    assert contrast("#777777", "#777777") == pytest.approx(1.0)
+    # #767676 on white is the commonly quoted lightest grey passing AA (4.5:1) (common practice)
+    assert 4.5 <= contrast("#767676", "#ffffff") < 4.6
+
+
+def test_text_colours_reach_wcag_aa() -> None:
+    # WCAG 2.1 success criterion 1.4.3 (Contrast, Minimum): at least 4.5:1 for normal text
+    from audit import report_html as r
+
+    pairs = [(r.INK, r.PAPER), (r.INK, r.CARD), (r.MUTED, r.PAPER), (r.MUTED, r.CARD), (r.ACCENT, r.CARD)]
+    pairs += [(fg, bg) for _, fg, bg in r.STATUS_STYLE.values()]  # badges and the verdict box
+    pairs += [(r.INK, bg) for _, _, bg in r.STATUS_STYLE.values()]  # verdict text on its box
+    for fg, bg in pairs:
+        assert contrast(fg, bg) >= 4.5, (fg, bg, round(contrast(fg, bg), 2))
