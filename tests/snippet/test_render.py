@@ -181,3 +181,64 @@ def test_cli_missing_spec_is_a_clear_error(tmp_path: Path) -> None:
 def test_cli_rejects_an_unknown_form(tmp_path: Path) -> None:
     res = run_cli("snippet", "--spec", "x.toml", "--form", "xml", cwd=tmp_path)
     assert res.returncode == 2 and "xml" in res.stderr
+
+
+AST_SAME = r"""
+const acorn = require(process.argv[1]); let inp = '';
+process.stdin.on('data', c => inp += c); process.stdin.on('end', () => {
+  const [a, b] = JSON.parse(inp).map(s => acorn.parse(s, {ecmaVersion: 5}));
+  const map = new Map(), back = new Map(), problems = [];
+  function walk(x, y, where, isProp) {
+    if (x === null || typeof x !== 'object') {
+      if (x !== y) problems.push(where + ': ' + x + ' != ' + y);
+      return;
+    }
+    if (Array.isArray(x) !== Array.isArray(y) || Object.keys(x).length !== Object.keys(y).length) {
+      problems.push(where + ': shape'); return;
+    }
+    if (x.type === 'Identifier' && !isProp) {
+      // a local name may be renamed, but one-to-one and consistently everywhere
+      if ((map.get(x.name) || y.name) !== y.name || (back.get(y.name) || x.name) !== x.name)
+        problems.push(where + ': ' + x.name + ' -> ' + y.name);
+      map.set(x.name, y.name); back.set(y.name, x.name); return;
+    }
+    for (const k of Object.keys(x)) {
+      if (k === 'start' || k === 'end' || k === 'raw') continue;
+      const prop = (x.type === 'MemberExpression' && k === 'property' && !x.computed) ||
+                   (x.type === 'Property' && k === 'key');
+      walk(x[k], y[k], where + '.' + k, prop);
+    }
+  }
+  walk(a, b, 'Program', false);
+  const renamed = [...map].filter(([k, v]) => k !== v).length;
+  process.stdout.write(JSON.stringify({problems: problems.slice(0, 5), renamed: renamed}));
+});
+"""
+
+
+def test_minified_template_has_the_same_syntax_tree_as_the_template() -> None:
+    # Reference: acorn's ES5 parse of the hand-written template and of the shrunk one must be the
+    # same tree: same statements, operators, literals and property names; locals renamed 1:1.
+    from .helpers import ACORN, need
+
+    if not ACORN.exists():
+        pytest.skip("acorn is not installed (run `npm ci` at the repo root)")
+    src = _template(TEMPLATE)
+    proc = subprocess.run([need("node"), "-e", AST_SAME, str(ACORN)],
+                          input=json.dumps([src, minify(src)]), capture_output=True, text=True,
+                          check=False, timeout=60)
+    assert proc.returncode == 0, proc.stderr
+    out = json.loads(proc.stdout)
+    assert out["problems"] == []
+    assert out["renamed"] > 40  # the shrinking really renamed the long local names
+
+
+def test_syntax_tree_check_catches_a_changed_property_name() -> None:
+    from .helpers import ACORN, need
+
+    if not ACORN.exists():
+        pytest.skip("acorn is not installed (run `npm ci` at the repo root)")
+    proc = subprocess.run([need("node"), "-e", AST_SAME, str(ACORN)],
+                          input=json.dumps(["var a = {arm: 1}; a.arm;", "var b = {arm: 1}; b.arn;"]),
+                          capture_output=True, text=True, check=False, timeout=60)
+    assert json.loads(proc.stdout)["problems"] == ["Program.body.1.expression.property.name: arm != arn"]
