@@ -159,8 +159,8 @@ click_values = ["click"]            # values of `kind` that mean a click
 
 [audit.identities]
 # Optional identity links: unit id -> logged-in customer key (to measure identity churn).
-unit_id = "unit_id"
-customer = "customer_key"
+unit_id = "unit_id"                 # the same visitor id as in the visits file
+customer = "customer_key"           # the logged-in customer key (pseudonymous is enough)
 
 [audit.thresholds]
 # Where the weekly audit turns a check from pass to warn/fail. Shares are fractions (0.01 = 1%).
