@@ -141,7 +141,7 @@ def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], c
         ax.plot(days, share, color=colour, lw=2, marker="o", ms=2.5, label=f"observed: {name}")
         lo = min(min(share), theta * 100 - se[-1] * 4)
         hi = max(max(share), theta * 100 + se[-1] * 4)
-        ax.set_ylim(lo - 0.05 * (hi - lo), hi + 0.05 * (hi - lo))
+        ax.set_ylim(lo - 0.05 * (hi - lo), hi + 0.3 * (hi - lo))  # headroom for the legend
         ax.set_ylabel("share %")
         ax.set_title(f"arm {name}", loc="left")
         ax.legend(loc="upper right", fontsize=8, ncol=3)
@@ -166,7 +166,7 @@ def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, ch
     low = min(min(fixed), min(anytime), p_fixed) / 10
     ax.set_ylim(max(low, floor), 1.5)
     ax.set_ylabel("p-value (log scale)")
-    ax.legend(loc="lower left", fontsize=8, ncol=2)
+    ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=2)
     _date_axis(ax)
     fig.tight_layout()
     return _svg(fig, chart_id, "SRM p-value paths, fixed-horizon and anytime-valid, on a log scale")
@@ -393,6 +393,7 @@ nav a:hover, nav a:focus {{ border-color: {ACCENT}; outline: 2px solid {ACCENT};
 .check.s-fail {{ border-top-color: #c0373c; }} .check.s-skipped {{ border-top-color: #9a9a9a; }}
 .check header {{ display: flex; flex-wrap: wrap; gap: .5rem; justify-content: space-between; align-items: center; }}
 .check h2 {{ font-size: 1.15rem; margin: 0; overflow-wrap: anywhere; }}
+.badge, .verdict {{ -webkit-print-color-adjust: exact; print-color-adjust: exact; }}
 .badge {{ display: inline-flex; align-items: center; gap: .3rem; font-weight: 600; font-size: .85rem; padding: .1rem .55rem .1rem .35rem; border-radius: 999px; white-space: nowrap; }}
 .badge .icon {{ width: 1rem; height: 1rem; }}
 .summary {{ margin: .6rem 0; }}
