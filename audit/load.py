@@ -96,7 +96,8 @@ def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> d
                         f"({n_dup:,} extra row(s)); the earliest row of each was kept")
         frame = frame[~dup]
     if frame.empty:
-        raise InputError(f"{src.path}: no usable rows in the visits file (every row lacked an id or a time)")
+        why = "it has no data rows" if not fr.counts["visit_rows"] else "every row lacked an id or a time"
+        raise InputError(f"{src.path}: no usable rows in the visits file ({why})")
     last = frame[TIME].iloc[-1].date()
     if as_of is None:
         as_of = last

@@ -239,3 +239,19 @@ def test_out_file_in_json_and_markdown(synth_dir: Path, tmp_path: Path) -> None:
     assert md.stdout.startswith("## armlock audit: cli-audit — **PASS**")
     bad = run(synth_dir, "--spec", "spec.toml", "--visits", "clean/visits.parquet", "--out", str(tmp_path / "no" / "x.txt"))
     assert bad.returncode == 4 and bad.stderr.startswith("Error: ") and "cannot write the report" in bad.stderr
+
+
+def test_ragged_and_empty_csv(tmp_path: Path, spec: Path) -> None:
+    rows = _good_rows(spec, 3)
+    rows[1] += ",extra"
+    _visits(tmp_path, rows)
+    r = run(tmp_path, "--spec", spec.name, "--visits", "visits.csv")
+    assert r.returncode == 4
+    assert r.stderr.startswith("Error: visits.csv: cannot read the visits file: CSV parse error: Expected 5 columns, got 6")
+    _visits(tmp_path, [], name="header_only.csv")
+    r = run(tmp_path, "--spec", spec.name, "--visits", "header_only.csv")
+    assert r.returncode == 4
+    assert r.stderr == "Error: header_only.csv: no usable rows in the visits file (it has no data rows)\n"
+    (tmp_path / "zero.csv").write_text("", encoding="utf-8")
+    r = run(tmp_path, "--spec", spec.name, "--visits", "zero.csv")
+    assert r.returncode == 4 and r.stderr == "Error: zero.csv: the visits file is empty (no header line)\n"
