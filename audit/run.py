@@ -19,7 +19,11 @@ from .read import Frames
 from .srm import check_srm, check_srm_segments
 
 PathLike = str | Path
-STEPS = 5  # progress steps: visits, exposures, identities, engine, checks
+
+
+def input_bytes(*paths: PathLike | None) -> int:
+    """Total size of the input files that exist (the progress bar's total)."""
+    return sum(Path(p).stat().st_size for p in paths if p is not None and Path(p).is_file())
 
 VERDICT_TEXT = {
     "pass": "The split looks healthy: no check found a problem.",
@@ -52,22 +56,21 @@ def run_audit(
     """Audit a test's logs as of the end of `as_of` (UTC; default: the last first-seen day).
 
     Raises `assign.InputError` for unusable files (message names file, column and rows).
-    `advance(1)` is called after each of `STEPS` steps (for a progress bar).
+    `advance(n)` is called with each file's size in bytes once it is read (for a progress bar
+    whose total is `input_bytes(visits, exposures, identities)`).
     """
     step = advance or (lambda n: None)
     fr = Frames(visits=None)  # type: ignore[arg-type]
     used = load_visits(spec, visits, as_of, fr)
-    step(1)
+    step(input_bytes(visits))
     if exposures is not None:
         load_exposures(spec, exposures, used, fr)
-    step(1)
+        step(input_bytes(exposures))
     if identities is not None:
         load_identities(spec, identities, fr)
-    step(1)
+        step(input_bytes(identities))
     tables = engine_pandas.compute(spec, fr)
-    step(1)
     checks = checks_from_tables(spec, tables, fr.counts)
-    step(1)
     verdict = worst([c.status for c in checks])
     return AuditReport(
         experiment=spec.name,
