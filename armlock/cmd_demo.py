@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import textwrap
 import time
 from dataclasses import dataclass, field
 from datetime import UTC, date, datetime, timedelta
@@ -30,39 +31,55 @@ SPEC_FILE = f"{NAME}.toml"
 
 README = f"""{MARKER}.
 
-{SHOP} at https://{SITE}/ is a homeware shop made up for this demo. No real company,
-site, person, customer or ad vendor is modelled: every visitor, campaign and order here is
-random numbers from armlock's synthetic-log generator (audit/synth.py).
+{SHOP} at https://{SITE}/ is a homeware shop made up for this demo.
+No real company, site, person, customer or ad vendor is modelled: every visitor, campaign and
+order here is random numbers from armlock's synthetic-log generator (audit/synth.py).
 
-The story: the shop holds out 10% of its visitors from a display retargeting vendor for twelve
-weeks, to measure what the ads really add. {{story}}
+{{story}}
 
 Files
-  {SPEC_FILE}                  the experiment spec (salt + arms), as `armlock init` writes it
-  {SPEC_FILE}.lock             the fingerprint recorded at first use
-  {SPEC_FILE}.history.sqlite   one audit per week (armlock audit --record), read by `armlock history`
-  logs/visits.csv              one row per visitor: first seen, recorded arm, browser, device...
-  logs/exposures.csv           the vendor's impressions and clicks
-  logs/identities.csv          visitor id -> logged-in customer key
-  snippet/armlock-tag.html     the browser snippet as a <script> block for a tag manager
-  snippet/armlock.js           the same snippet as a file to self-host
-  report.html                  the split-health report of the last week (open it in a browser)
-  report.json                  the same audit as JSON
+  {SPEC_FILE}
+      the experiment spec (salt + arms), as `armlock init` writes it
+  {SPEC_FILE}.lock
+      the spec's fingerprint, recorded at first use
+  {SPEC_FILE}.history.sqlite
+      one audit per week (armlock audit --record), read by `armlock history`
+  logs/visits.parquet
+      one row per visitor: first seen, recorded arm, browser family, device, country...
+  logs/exposures.parquet
+      the vendor's impressions and clicks
+  logs/identities.parquet
+      visitor id -> logged-in customer key
+  snippet/armlock-tag.html
+      the browser snippet as a <script> block for a tag manager
+  snippet/armlock.js
+      the same snippet as a file to self-host
+  report.html
+      the split-health report of the last week: open it in a browser
+  report.json
+      the same audit as JSON
 
-Try next
+The logs are Parquet, as warehouses export them. To peek at one:
+  python -c "import pandas as pd; print(pd.read_parquet('logs/visits.parquet').head())"
+
+Try next (in this folder)
   armlock history --spec {SPEC_FILE}
-  armlock audit --spec {SPEC_FILE} --visits logs/visits.csv --exposures logs/exposures.csv \\
-      --identities logs/identities.csv --format text
+  armlock audit --spec {SPEC_FILE} --visits logs/visits.parquet \\
+      --exposures logs/exposures.parquet --identities logs/identities.parquet --format text
 
 Visitor ids and cookies are personal data in many places. With real traffic, wait for consent
 where the law asks for it (the snippet can), and follow local privacy law and the site's own
 counsel.
 """
 
-STORY_FAULTS = ("Things went wrong, as they do: an audience was built and exposed before the test "
-                "started, the vendor reached part of the holdout in one campaign, and one browser "
-                "family resets cookies about weekly, so logged-in customers come back in new arms.")
-STORY_CLEAN = "This run is the clean version (--clean): no fault was injected."
+STORY_FAULTS = ("The story: the shop holds out 10% of its visitors from a display retargeting vendor "
+                "for twelve weeks, to measure what the ads really add. Things went wrong, as they "
+                "do: an audience was built and exposed before the test started, the vendor reached "
+                "part of the holdout in one campaign, and one browser family resets cookies about "
+                "weekly, so logged-in customers come back in new arms.")
+STORY_CLEAN = ("The story: the shop holds out 10% of its visitors from a display retargeting vendor "
+               "for twelve weeks, to measure what the ads really add. This is the clean version "
+               "(armlock demo --clean): no fault was injected.")
 
 
 @dataclass
@@ -117,10 +134,10 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
                          + text, encoding="utf-8")
     spec = load_spec(spec_path)
     check_lock(spec, spec_path, write=True)
-    (folder / "README.txt").write_text(README.replace("{story}", STORY_CLEAN if clean else STORY_FAULTS),
-                                       encoding="utf-8")
+    story = textwrap.fill(STORY_CLEAN if clean else STORY_FAULTS, width=92)
+    (folder / "README.txt").write_text(README.replace("{story}", story), encoding="utf-8")
     logs = synth.generate(spec, units=units, days=7 * WEEKS, seed=SEED, faults=() if clean else FAULTS)
-    paths = synth.write_logs(logs, folder / "logs", fmt="csv")
+    paths = synth.write_logs(logs, folder / "logs", fmt="parquet")  # audits read it twice as fast as CSV
     (folder / "snippet" / "armlock-tag.html").write_text(render_snippet(spec, "html"), encoding="utf-8")
     (folder / "snippet" / "armlock.js").write_text(render_snippet(spec, "js"), encoding="utf-8")
     history = default_history_path(spec_path)

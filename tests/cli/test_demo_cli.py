@@ -64,8 +64,11 @@ def test_demo_files_are_marked_invented_and_consistent(demo: tuple[Path, subproc
     assert len(rows) == 12 and rows[0][0] == "2026-01-11" and rows[-1][0] == "2026-03-29"
     html_tag = (folder / "snippet" / "armlock-tag.html").read_text(encoding="utf-8")
     assert html_tag.lstrip().startswith("<script") and spec.salt in html_tag
-    head = (folder / "logs" / "visits.csv").read_text(encoding="utf-8").splitlines()[0]
-    assert "unit_id" in head and "first_seen" in head
+    import pyarrow.parquet as pq
+
+    visits = pq.read_table(folder / "logs" / "visits.parquet")
+    assert {"unit_id", "first_seen", "arm", "browser_family"} <= set(visits.column_names)
+    assert visits.num_rows > 50_000
 
 
 def test_demo_report_opens_clean_in_chromium(demo: tuple[Path, subprocess.CompletedProcess[str]], tmp_path: Path) -> None:
