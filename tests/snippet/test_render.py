@@ -48,9 +48,9 @@ def test_js_literal_round_trips_and_hides_html_breakers(text: str) -> None:
 def test_js_literal_reads_back_identically_in_javascript() -> None:
     # Reference: the JavaScript engine itself (Node's V8) evaluating the literal as an expression.
     script = "process.stdout.write(JSON.stringify(" + js_literal(TRICKY) + "))"
-    proc = subprocess.run(["node", "-e", script], capture_output=True, text=True, check=False)
-    if proc.returncode != 0 and "not found" in proc.stderr:
-        pytest.skip("node is not installed")
+    from .helpers import need
+
+    proc = subprocess.run([need("node"), "-e", script], capture_output=True, text=True, check=False)
     assert proc.returncode == 0, proc.stderr
     assert json.loads(proc.stdout) == TRICKY
 
