@@ -152,7 +152,8 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
     assert report is not None
     (folder / "report.json").write_text(json.dumps(report.to_json_dict(), indent=2, ensure_ascii=False),
                                         encoding="utf-8")
-    (folder / "report.html").write_text(render_html(report, load(history, spec.fingerprint)),
+    (folder / "report.html").write_text(render_html(report, load(history, spec.fingerprint),
+                                                    thresholds=spec.audit.thresholds),
                                         encoding="utf-8")
     res.files = {"README": folder / "README.txt", "spec": spec_path, "history": history,
                  "visits": paths["visits"], "exposures": paths["exposures"],

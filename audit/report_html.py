@@ -220,7 +220,7 @@ def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str) -> str:
     return _svg(fig, chart_id, "Love plot of standardized mean differences with the ±0.1 lines")
 
 
-def chart_churn(rows: list[dict[str, Any]], chart_id: str) -> str:
+def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, chart_id: str) -> str:
     """Share of customers seen in more than one arm, by browser family, observed against expected."""
     names = [str(r["browser"]) for r in rows]
     obs = [float(r.get("share") or 0) * 100 for r in rows]
@@ -230,7 +230,9 @@ def chart_churn(rows: list[dict[str, Any]], chart_id: str) -> str:
     h = 0.38
     ax.barh([v + h / 2 for v in y], obs, height=h, color=ARM_COLOURS[0], label="observed")
     ax.barh([v - h / 2 for v in y], exp, height=h, color=BAND, edgecolor=MUTED, hatch="///", lw=0.6,
-            label="expected")
+            label="expected if extra ids\nwere re-randomized")
+    ax.axvline(warn_at * 100, color=INK, lw=1, ls=":", label=f"warns above {warn_at * 100:g}%")
+    ax.axvline(fail_at * 100, color=INK, lw=1, ls=(0, (4, 3)), label=f"fails above {fail_at * 100:g}%")
     ax.set_yticks(y, names, fontsize=8)
     ax.set_xlabel("% of logged-in customers seen in more than one arm")
     ax.grid(axis="y", visible=False)
@@ -338,7 +340,7 @@ def _charts_for(check: Check, report: AuditReport, th: AuditThresholds) -> list[
     elif cid == "balance" and s.get("smd"):
         out.append(chart_love(s["smd"], th.smd_warn, "love"))
     elif cid == "churn" and s.get("by_browser"):
-        out.append(chart_churn(s["by_browser"], "churn"))
+        out.append(chart_churn(s["by_browser"], th.churn_warn, th.churn_fail, "churn"))
     return out
 
 
@@ -423,9 +425,14 @@ code {{ background: #ebe6de; padding: 0 .25rem; border-radius: 4px; }}
 """
 
 
-def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None) -> str:
-    """The whole report page as a string; `history` is `audit.history.load(...)`'s rows, if any."""
-    th = AuditThresholds()
+def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None, *,
+                thresholds: AuditThresholds | None = None) -> str:
+    """The whole report page as a string; `history` is `audit.history.load(...)`'s rows, if any.
+
+    `thresholds` (the spec's `[audit.thresholds]`) places the threshold lines of the charts;
+    without it the defaults are drawn.
+    """
+    th = thresholds or AuditThresholds()
     word, fg, bg = STATUS_STYLE[report.verdict]
     bad = [c for c in report.checks if c.status in ("fail", "warn")]
     lead = _VERDICT_WORDS[report.verdict]

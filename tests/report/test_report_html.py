@@ -168,3 +168,14 @@ def test_text_colours_reach_wcag_aa() -> None:
     pairs += [(r.INK, bg) for _, _, bg in r.STATUS_STYLE.values()]  # verdict text on its box
     for fg, bg in pairs:
         assert contrast(fg, bg) >= 4.5, (fg, bg, round(contrast(fg, bg), 2))
+
+
+def test_charts_draw_the_specs_thresholds() -> None:
+    from assign.spec_audit import AuditThresholds
+
+    rep = build_report()
+    default = render_html(rep)
+    assert "fixed threshold 0.0005" in default and "warns above 2%" in default
+    custom = render_html(rep, thresholds=AuditThresholds(srm_p=0.0001, smd_warn=0.2, churn_warn=0.03))
+    assert "fixed threshold 0.0001" in custom and "fixed threshold 0.0005" not in custom
+    assert "|SMD| ≤ 0.2" in custom and "warns above 3%" in custom
