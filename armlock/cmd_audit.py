@@ -8,6 +8,7 @@ from pathlib import Path
 
 import typer
 
+from assign.spec_audit import AuditThresholds
 from assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
 from audit.model import AuditReport
 from audit.render import RENDERERS
@@ -19,10 +20,11 @@ from .common import SPEC_HELP, err, open_spec, progress
 FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
 
 
-def _html(report: AuditReport, history: list[dict] | None = None) -> str:
+def _html(report: AuditReport, history: list[dict] | None = None,
+          thresholds: AuditThresholds | None = None) -> str:
     from audit.report_html import render_html  # matplotlib loads only when html is asked for
 
-    return render_html(report, history)
+    return render_html(report, history, thresholds=thresholds)
 
 
 FORMATS["html"] = _html
@@ -82,7 +84,8 @@ def audit_cmd(
     hist = history_path or history.default_history_path(spec_path)
     if record:
         history.record(hist, report)
-    text = _html(report, history.load(hist, report.fingerprint)) if fmt == "html" else FORMATS[fmt](report)
+    text = (_html(report, history.load(hist, report.fingerprint), spec.audit.thresholds) if fmt == "html"
+            else FORMATS[fmt](report))
     if out is not None:
         try:
             out.write_text(text, encoding="utf-8")
