@@ -16,14 +16,17 @@ COOKIE_NOTE = ("Common practice: one major browser engine caps cookies written b
                "server-set first-party cookie or a logged-in key keeps them.")
 
 
-def expected_multi_arm(ids_per_customer: Sequence[int], theta: Sequence[float]) -> float:
+def expected_multi_arm(ids_per_customer: Sequence[int] | np.ndarray, theta: Sequence[float],
+                       weights: Sequence[int] | np.ndarray | None = None) -> float:
     """Expected number of customers in more than one arm if each of their ids were hashed afresh.
 
-    A customer with k ids stays in one arm with probability sum_i theta_i^k.
+    A customer with k ids stays in one arm with probability sum_i theta_i^k; `weights` counts
+    the customers with each k (default one each).
     """
     k = np.asarray(ids_per_customer, dtype=np.float64)
+    w = np.ones_like(k) if weights is None else np.asarray(weights, dtype=np.float64)
     th = np.asarray(theta, dtype=np.float64)
-    return float((1.0 - (th[None, :] ** k[:, None]).sum(axis=1)).sum())
+    return float(((1.0 - (th[None, :] ** k[:, None]).sum(axis=1)) * w).sum())
 
 
 def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
@@ -38,11 +41,14 @@ def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
         return Check(id="churn", title=title, status="skipped", summary="The identity-link table names no customers.",
                      reason="no customers in the identity links")
     th = spec.audit.thresholds
+    theta = np.array(spec.weights, dtype=np.float64) / 10_000
     share = ct.multi_arm / ct.customers
-    exp_share = ct.expected_multi / ct.customers
+    exp_share = expected_multi_arm(list(ct.ids_hist), theta, list(ct.ids_hist.values())) / ct.customers
     bb = ct.by_browser.copy()
     bb["share"] = bb["multi_arm"] / bb["customers"]
-    bb["expected_share"] = bb["expected_multi"] / bb["customers"]
+    exp_b = {name: expected_multi_arm(h["ids"].to_numpy(), theta, h["customers"].to_numpy())
+             for name, h in ct.browser_hist.groupby("browser", sort=False)}
+    bb["expected_share"] = [exp_b.get(name, 0.0) / n for name, n in zip(bb.index, bb["customers"])]
     levels: list[tuple[str, str]] = []
     if share > th.churn_fail:
         levels.append(("fail", f"{share:.1%} of customers are in more than one arm"))
@@ -55,7 +61,9 @@ def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
         elif r.share > th.churn_warn:
             levels.append(("warn", f"{name}: {r.share:.1%} of its customers are in several arms"))
     status = worst([s for s, _ in levels])
-    multi_ids = sum(v for k, v in ct.ids_per_customer.items() if k != "1")
+    multi_ids = sum(v for k, v in ct.ids_hist.items() if k > 1)
+    dist = {str(i): ct.ids_hist.get(i, 0) for i in range(1, 5)}
+    dist["5+"] = sum(v for k, v in ct.ids_hist.items() if k >= 5)
     if levels:
         summary = ("; ".join(t for _, t in levels) + f" (re-randomization of their extra ids would give "
                    f"{exp_share:.1%}): those people saw both sides of the split, which dilutes the contrast; "
@@ -79,7 +87,7 @@ def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
               rows=[[n, int(r.customers), int(r.multi_arm), round(float(r.share), 6), round(float(r.expected_share), 6)]
                     for n, r in zip(bb.index, bb.itertuples())]),
         Table(title="Ids per customer", columns=["ids", "customers"],
-              rows=[[k, v] for k, v in ct.ids_per_customer.items()]),
+              rows=[[k, v] for k, v in dist.items()]),
     ]
     series = [{"browser": str(n), "customers": int(r.customers), "multi_arm": int(r.multi_arm),
                "share": float(r.share), "expected_share": float(r.expected_share)}

@@ -229,7 +229,6 @@ def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> Chu
     ident, v = fr.identities, fr.visits
     assert ident is not None
     k = len(spec.arms)
-    theta = np.array(spec.weights, dtype=np.float64) / 10_000
     pos = _positions(ident[UNIT], vset)
     arm = np.where(pos >= 0, eff[np.maximum(pos, 0)], -1).astype(np.int64)
     missing = pos < 0
@@ -248,26 +247,24 @@ def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> Chu
     ok = arm >= 0
     c, a, b = ccodes[ok].astype(np.int64), arm[ok], bcode[ok].astype(np.int64)
     nids, narms = _ids_and_arms(c, a, k)
-    p_multi = 1.0 - (theta[None, :] ** nids[:, None]).sum(axis=1)
-    dist = {str(i): int((nids == i).sum()) for i in range(1, 5)}
-    dist["5+"] = int((nids >= 5).sum())
+    ks, kc = np.unique(nids, return_counts=True)
     ncust = int(c.max()) + 1 if len(c) else 1
     groups, inv = np.unique(b * ncust + c, return_inverse=True)
     g_n, g_arms = _ids_and_arms(inv.astype(np.int64), a, k)
     g_b = groups // ncust
-    g_exp = 1.0 - (theta[None, :] ** g_n[:, None]).sum(axis=1)
     nb = len(blevels)
     g = pd.DataFrame({
         "customers": np.bincount(g_b, minlength=nb),
         "multi_arm": np.bincount(g_b[g_arms > 1], minlength=nb),
-        "expected_multi": np.bincount(g_b, weights=g_exp, minlength=nb),
     }, index=pd.Index(blevels, name="browser"))
     g = g[g["customers"] > 0]
-    per_len = len(nids)
+    hist_keys, hist_counts = np.unique(g_b * (int(g_n.max()) + 1 if len(g_n) else 1) + g_n, return_counts=True)
+    width = int(g_n.max()) + 1 if len(g_n) else 1
+    bhist = pd.DataFrame({"browser": [blevels[i] for i in hist_keys // width], "ids": hist_keys % width,
+                          "customers": hist_counts})
     return ChurnTables(
-        links=len(ident), customers=per_len, multi_arm=int((narms > 1).sum()),
-        expected_multi=float(p_multi.sum()), ids_per_customer=dist,
-        by_browser=g,
+        links=len(ident), customers=len(nids), multi_arm=int((narms > 1).sum()),
+        ids_hist={int(x): int(n) for x, n in zip(ks, kc)}, by_browser=g, browser_hist=bhist,
         ids_not_in_visits=len(np.unique(ident.loc[missing, UNIT].to_numpy(dtype=object))) if missing.any() else 0,
     )
 

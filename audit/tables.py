@@ -72,9 +72,9 @@ class ChurnTables:
     links: int
     customers: int
     multi_arm: int  # customers whose ids fall in more than one arm
-    expected_multi: float  # expected count if every extra id were re-randomized
-    ids_per_customer: dict[str, int]  # "1", "2", "3", "4", "5+" -> customers
-    by_browser: pd.DataFrame  # index: browser; columns: customers, multi_arm, expected_multi
+    ids_hist: dict[int, int]  # ids per customer -> customers
+    by_browser: pd.DataFrame  # index: browser; columns: customers, multi_arm (a customer counts per browser)
+    browser_hist: pd.DataFrame  # columns: browser, ids (the customer's ids on it), customers
     ids_not_in_visits: int
 
 
