@@ -47,7 +47,6 @@ _VERDICT_WORDS = {
     "warn": "The split needs a look: at least one check warns.",
     "fail": "The split is broken: at least one check fails. Fix it before reading any results.",
 }
-CHART_CHECKS = {"srm", "leakage", "balance", "churn"}
 
 _RC: dict[str, Any] = {
     "svg.fonttype": "none",  # text stays text: small, selectable, escaped by the writer
