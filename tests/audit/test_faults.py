@@ -154,3 +154,18 @@ def test_integrity_recomputes_arms_and_flags_mismatches(tmp_path: Path) -> None:
     assert integ.figures["mismatches"].value == int(flip.sum()) - (1 if flip[5] else 0)
     assert integ.figures["unknown_arm_units"].value == 1
     assert "control (1)" in integ.summary
+
+
+@pytest.mark.parametrize("fault,expected", [((), {}), (("leakage",), {"leakage": "fail"}),
+                                            (("browser_loss",), {"srm": "fail", "srm_segments": "fail"})])
+def test_three_arms(tmp_path: Path, fault: tuple[str, ...], expected: dict[str, str]) -> None:
+    spec = spec_from_dict({"name": "three", "salt": "three-arms", "start": "2026-01-05T00:00:00Z",
+                           "arms": [{"name": "holdout", "weight": 2000}, {"name": "exposed_a", "weight": 4000},
+                                    {"name": "exposed_b", "weight": 4000}]})
+    logs = generate(spec, units=30_000, days=42, seed=8, faults=fault)
+    paths = write_logs(logs, tmp_path, "parquet")
+    rep = run_audit(spec, visits=paths["visits"], exposures=paths["exposures"], identities=paths["identities"])
+    assert {c.id: c.status for c in rep.checks} == {c: expected.get(c, "pass") for c in CHECKS}
+    assert len(check_by_id(rep, "srm").tables[0].rows) == 3
+    # balance compares each exposed arm with the holdout
+    assert {r[2] for r in check_by_id(rep, "balance").tables[0].rows if r[1] is None} == {"exposed_a", "exposed_b"}
