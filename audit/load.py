@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from datetime import date, datetime, time, timedelta, timezone
+from datetime import date, datetime, time, timedelta, timezone, UTC
 from pathlib import Path
 
 import numpy as np
@@ -35,7 +35,7 @@ PathLike = str | Path
 
 def cutoff_of(as_of: date) -> pd.Timestamp:
     """The end of the as-of day (UTC): data at or after this instant is ignored."""
-    return pd.Timestamp(datetime.combine(as_of + timedelta(days=1), time(0), tzinfo=timezone.utc))
+    return pd.Timestamp(datetime.combine(as_of + timedelta(days=1), time(0), tzinfo=UTC))
 
 
 def _note_empty(src: Source, col: str, empty: np.ndarray, what: str, notes: list[str]) -> int:

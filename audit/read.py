@@ -68,7 +68,7 @@ def _format(path: Path, role: str) -> str:
     name = path.name.lower()
     if name.endswith((".parquet", ".pq")):
         return "parquet"
-    if name.endswith((".csv", ".csv.gz", ".tsv.gz", ".txt", ".txt.gz")) or name.endswith(".gz"):
+    if name.endswith((".csv", ".csv.gz")):
         return "csv"
     raise InputError(
         f"{path}: cannot tell the format of the {role} file from its name; "

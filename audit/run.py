@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from datetime import date, datetime, timezone
+from datetime import date, datetime, timezone, UTC
 from pathlib import Path
 
 from assign import Spec, __version__
@@ -76,7 +76,7 @@ def run_audit(
         experiment=spec.name,
         fingerprint=spec.fingerprint,
         as_of=used.isoformat(),
-        generated_at=datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
+        generated_at=datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
         armlock_version=__version__,
         arms=[ArmInfo(name=a.name, weight=a.weight, role=a.role) for a in spec.arms],
         verdict=verdict,
