@@ -12,7 +12,7 @@ from .model import Check, Figure, Table, worst
 from .tables import ChurnTables
 
 COOKIE_NOTE = ("Common practice: one major browser engine caps cookies written by script at 7 days "
-               "(WebKit's tracking prevention), so long tests lose returning visitors' ids there; a "
+               "(its tracking prevention), so long tests lose returning visitors' ids there; a "
                "server-set first-party cookie or a logged-in key keeps them.")
 
 
