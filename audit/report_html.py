@@ -90,9 +90,13 @@ def _svg(fig: MplFigure, chart_id: str, caption: str) -> str:
     ids = set(re.findall(r'\sid="([^"]+)"', text))
     text = re.sub(r'(\sid="|#)([^")\s]+)(?=[")])',
                   lambda m: f"{m.group(1)}{chart_id}-{m.group(2)}" if m.group(2) in ids else m.group(0), text)
+    # never drawn below 95% of its natural size, so its smallest (8 pt) text stays readable on a
+    # phone; a narrow screen scrolls the chart inside its figure instead
+    box = re.search(r'viewBox="[\d.]+ [\d.]+ ([\d.]+) [\d.]+"', text)
+    least = float(box.group(1)) * 0.95 if box else 448.0
     text = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
-                  rf'<svg\1 role="img" aria-label="{esc(caption)}" data-chart="{esc(chart_id)}" class="chart"',
-                  text, count=1)
+                  rf'<svg\1 role="img" aria-label="{esc(caption)}" data-chart="{esc(chart_id)}" '
+                  rf'class="chart" style="min-width:{least:.0f}px"', text, count=1)
     return text
 
 
@@ -404,7 +408,7 @@ nav a:hover, nav a:focus {{ border-color: {ACCENT}; outline: 2px solid {ACCENT};
 .figures dt {{ font-size: .8rem; color: {MUTED}; overflow-wrap: anywhere; }}
 .figures dd {{ margin: 0; font-size: 1.1rem; font-weight: 600; font-variant-numeric: tabular-nums; overflow-wrap: anywhere; }}
 figure {{ margin: .8rem 0; overflow-x: auto; }}
-svg.chart {{ width: 100%; min-width: 28rem; height: auto; display: block; }}
+svg.chart {{ width: 100%; height: auto; display: block; }}
 .tablewrap {{ overflow-x: auto; margin: .6rem 0; }}
 table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
 caption {{ text-align: left; font-weight: 600; padding: .2rem 0; }}
@@ -419,7 +423,7 @@ code {{ background: #ebe6de; padding: 0 .25rem; border-radius: 4px; }}
 @media print {{
   body {{ background: #fff; font-size: 11pt; }} main {{ max-width: none; padding: 0; }}
   nav {{ display: none; }} .check {{ break-inside: avoid; border: 1px solid #999; border-top-width: 4px; }}
-  figure {{ break-inside: avoid; overflow: visible; }} svg.chart {{ min-width: 0; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
+  figure {{ break-inside: avoid; overflow: visible; }} svg.chart {{ min-width: 0 !important; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
 }}
 """
 
