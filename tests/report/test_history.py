@@ -167,3 +167,20 @@ def test_changes_is_quiet_when_nothing_meaningful_moved() -> None:
 def test_changes_example_from_the_issue() -> None:
     a, b = build_report(leak_share=0.002), build_report(leak_share=0.014)
     assert "holdout leakage rose from 0.2% to 1.4%" in changes(history.row_from_report(a), b)
+
+
+def test_record_into_a_missing_folder_is_a_clear_error(tmp_path: Path) -> None:
+    with pytest.raises(InputError, match="does not exist"):
+        record(tmp_path / "nowhere" / "h.sqlite", build_report())
+    assert not (tmp_path / "nowhere").exists()
+
+
+def test_figures_are_formatted_for_people() -> None:
+    from audit.history import format_value
+
+    assert format_value(0.014, "share") == "1.4%"
+    assert format_value(0.002, "share") == "0.2%"
+    assert format_value(12345, "count") == "12,345"
+    assert format_value(0.00001234, "p") == "1.2e-05"
+    assert format_value("2026-01-05T00:00:39.912000+00:00", "date") == "2026-01-05 00:00 UTC"
+    assert format_value(None, "share") == "n/a"
