@@ -168,7 +168,7 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
 
 
 def demo(
-    folder: Path = typer.Argument(Path("armlock-demo"), metavar="[DIR]", help="Folder to write the demo into (default ./armlock-demo)."),
+    folder: Path = typer.Argument(Path("armlock-demo"), metavar="DIR", help="Folder to write the demo into (default ./armlock-demo)."),
     clean: bool = typer.Option(False, "--clean", help="Inject no fault: the healthy version of the same test."),
 ) -> None:
     """Build an invented shop's twelve-week holdout test and audit it week by week.
