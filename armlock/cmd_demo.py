@@ -17,10 +17,10 @@ from assign.snippet import render_snippet
 
 from .common import err, progress
 
-SHOP = "Larkspur & Vine (invented)"
+SHOP = "Quillmoss Homewares (invented)"
 SITE = "shop.example"
-NAME = "larkspur-retargeting"
-SALT = "larkspur-vine-demo-salt-0001"  # fixed so the demo is the same on every machine; never reuse
+NAME = "quillmoss-retargeting"
+SALT = "quillmoss-demo-salt-0001"  # fixed so the demo is the same on every machine; never reuse
 START = datetime(2026, 1, 5, tzinfo=UTC)  # a Monday
 WEEKS = 12
 UNITS = 60_000

@@ -34,14 +34,14 @@ def test_demo_runs_in_a_fresh_folder_and_says_what_it_found(demo: tuple[Path, su
     cwd, r = demo
     assert r.returncode == 0, r.stderr
     out = r.stdout
-    assert "Larkspur & Vine (invented)" in out and "shop.example" in out
+    assert "Quillmoss Homewares (invented)" in out and "shop.example" in out
     assert "last week's verdict: FAIL." in out
     findings = [ln for ln in out.splitlines() if ln.startswith("  - ")]
     assert [f.split(":")[0] for f in findings] == ["  - FAIL Leakage (holdout reached by the vendor)",
                                                    "  - FAIL Identity churn (customers in several arms)"]
     assert all(f.endswith(".") and "; " not in f for f in findings)  # one sentence each
     assert "xdg-open armlock-demo/report.html" in out
-    assert "armlock history --spec armlock-demo/larkspur-retargeting.toml" in out
+    assert "armlock history --spec armlock-demo/quillmoss-retargeting.toml" in out
     for line in out.split("Files:\n")[1].split("\n\n")[0].splitlines():
         path = cwd / line.split()[-1]
         assert path.is_file() and path.stat().st_size > 0, line
@@ -51,15 +51,15 @@ def test_demo_runs_in_a_fresh_folder_and_says_what_it_found(demo: tuple[Path, su
 def test_demo_files_are_marked_invented_and_consistent(demo: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
     folder = demo[0] / "armlock-demo"
     assert "INVENTED" in (folder / "README.txt").read_text(encoding="utf-8")
-    spec_text = (folder / "larkspur-retargeting.toml").read_text(encoding="utf-8")
+    spec_text = (folder / "quillmoss-retargeting.toml").read_text(encoding="utf-8")
     assert spec_text.startswith("# INVENTED demo scenario")
-    spec = load_spec(folder / "larkspur-retargeting.toml")
+    spec = load_spec(folder / "quillmoss-retargeting.toml")
     assert "INVENTED" in spec.description and spec.weights == (1000, 9000)
     rep = AuditReport.model_validate(json.loads((folder / "report.json").read_text(encoding="utf-8")))
     assert rep.fingerprint == spec.fingerprint and rep.as_of == "2026-03-29"
     status = {c.id: c.status for c in rep.checks}
     assert status["leakage"] == "fail" and status["churn"] == "fail" and status["srm"] == "pass"
-    with sqlite3.connect(folder / "larkspur-retargeting.toml.history.sqlite") as conn:
+    with sqlite3.connect(folder / "quillmoss-retargeting.toml.history.sqlite") as conn:
         rows = conn.execute("SELECT as_of FROM runs ORDER BY as_of").fetchall()
     assert len(rows) == 12 and rows[0][0] == "2026-01-11" and rows[-1][0] == "2026-03-29"
     html_tag = (folder / "snippet" / "armlock-tag.html").read_text(encoding="utf-8")
@@ -88,10 +88,10 @@ def test_demo_rerun_replaces_history_rows_and_clean_passes(demo: tuple[Path, sub
     r = run(cwd, "demo", "--clean")
     assert r.returncode == 0, r.stderr
     assert "last week's verdict: PASS." in r.stdout and "no faults injected" in r.stdout
-    with sqlite3.connect(cwd / "armlock-demo" / "larkspur-retargeting.toml.history.sqlite") as conn:
+    with sqlite3.connect(cwd / "armlock-demo" / "quillmoss-retargeting.toml.history.sqlite") as conn:
         verdicts = [v for (v,) in conn.execute("SELECT verdict FROM runs ORDER BY as_of")]
     assert verdicts == ["pass"] * 12  # the same 12 as-of dates, replaced, not duplicated
-    h = run(cwd, "history", "--spec", "armlock-demo/larkspur-retargeting.toml")
+    h = run(cwd, "history", "--spec", "armlock-demo/quillmoss-retargeting.toml")
     assert h.returncode == 0 and "12 run(s)" in h.stdout
 
 
