@@ -145,6 +145,9 @@ class ArmWriter:
         self._pq = None
         if out and _is_parquet(out):
             self._fh = None
+            parent = Path(out).parent
+            if not parent.is_dir():
+                raise InputError(f"{out}: cannot write: folder {parent} does not exist")
         else:
             try:
                 self._fh = open(out, "w", encoding="utf-8", newline="") if out else None  # noqa: SIM115
@@ -176,12 +179,15 @@ class ArmWriter:
     def close(self) -> None:
         if self._pq is not None:
             self._pq.close()
-        elif self.out and _is_parquet(self.out):
+        elif self.out and _is_parquet(self.out):  # no rows at all: still write a valid, empty file
             import pyarrow as pa
             import pyarrow.parquet as pq
 
-            pq.write_table(pa.table({"unit_id": pa.array([], pa.string()), "bucket": pa.array([], pa.int16()),
-                                     "arm": pa.array([], pa.string())}), self.out)
+            try:
+                pq.write_table(pa.table({"unit_id": pa.array([], pa.string()), "bucket": pa.array([], pa.int16()),
+                                         "arm": pa.array([], pa.string())}), self.out)
+            except OSError as exc:
+                raise InputError(f"{self.out}: cannot write: {exc}") from None
         elif self._fh is not None:
             self._fh.close()
         else:

@@ -124,6 +124,8 @@ def test_assign_bad_files(spec: Path, tmp_path: Path) -> None:
     (tmp_path / "short.csv").write_text("a,id\n1,x\n2\n", encoding="utf-8")
     r = run(tmp_path, "assign", "--spec", spec.name, "short.csv", "--column", "id")
     assert (r.returncode, r.stderr.decode()) == (4, "Error: short.csv: row 2 (line 3) has 1 fields, no value for column 'id'\n")
+    r = run(tmp_path, "assign", "--spec", spec.name, "v.csv", "--column", "id", "--out", "nowhere/arms.parquet")
+    assert (r.returncode, r.stderr.decode()) == (4, "Error: nowhere/arms.parquet: cannot write: folder nowhere does not exist\n")
     (tmp_path / "bad.parquet").write_bytes(b"not parquet")
     r = run(tmp_path, "assign", "--spec", spec.name, "bad.parquet", "--column", "id")
     assert r.returncode == 4 and r.stderr.decode().startswith("Error: bad.parquet: not a readable Parquet file")
