@@ -12,7 +12,6 @@ from assign.spec_audit import AuditThresholds
 from assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
 from audit.model import AuditReport
 from audit.render import RENDERERS
-from audit.run import input_bytes, run_audit
 
 from .common import SPEC_HELP, err, open_spec, progress
 
@@ -76,6 +75,8 @@ def audit_cmd(
                                  param_hint="--format")
     day = _as_of(as_of)
     spec = open_spec(spec_path, record=False)
+    from audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
+
     with progress(input_bytes(visits, exposures, identities) or None, "reading logs") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
                            as_of=day, advance=advance)
