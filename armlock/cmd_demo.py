@@ -121,7 +121,7 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
     """Write the scenario into `folder`, audit it once per week with history, write the report."""
     from audit import synth
     from audit.history import default_history_path, load, record
-    from audit.report_html import first_clause, render_html
+    from audit.report_html import render_html
     from audit.run import run_audit
 
     t0 = time.perf_counter()
@@ -161,10 +161,21 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
                  "snippet (js)": folder / "snippet" / "armlock.js", "report (html)": folder / "report.html",
                  "report (json)": folder / "report.json"}
     res.verdict, res.verdict_text, res.weeks = report.verdict, report.verdict_text, len(dates)
-    res.findings = [f"{c.status.upper()} {c.title}: {first_clause(c.summary)}" for c in report.checks
-                    if c.status in ("fail", "warn")]
+    res.findings = [f"{c.status.upper()} {c.title}: {_headline(c.summary)}"
+                    for c in report.checks if c.status in ("fail", "warn")]
     res.seconds = time.perf_counter() - t0
     return res
+
+
+def _headline(summary: str) -> str:
+    """The first two clauses of a check's summary: what was found, and the next finding if any."""
+    from audit.report_html import first_clause
+
+    parts = summary.split("; ")
+    if len(parts) < 2:
+        return first_clause(summary)
+    second = first_clause(parts[1])
+    return first_clause(parts[0]).rstrip(".") + "; " + second[0].lower() + second[1:]
 
 
 def demo(
@@ -185,7 +196,7 @@ def demo(
     typer.echo(f"Audited {res.weeks} weeks ({'no faults injected' if clean else 'faults injected'}); "
                f"last week's verdict: {res.verdict.upper()}. {res.verdict_text}")
     for line in res.findings:
-        typer.echo(f"  - {line}")
+        typer.echo(textwrap.fill(line, width=100, initial_indent="  - ", subsequent_indent="    "))
     typer.echo("")
     typer.echo("Files:")
     width = max(len(k) for k in res.files)
