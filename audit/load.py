@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from datetime import date, datetime, time, timedelta, timezone, UTC
+from datetime import date, datetime, time, timedelta, UTC
 from pathlib import Path
 
 import numpy as np

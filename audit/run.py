@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from datetime import date, datetime, timezone, UTC
+from datetime import date, datetime, UTC
 from pathlib import Path
 
 from assign import Spec, __version__

@@ -59,7 +59,7 @@ def _random_ids(n: int, seed: int) -> list[str | None]:
     rng = random.Random(seed)
     alphabet = "abcXYZ019-_:,\"'\\ \n\té漢😀\u2028\u0301"
     out: list[str | None] = []
-    for i in range(n):
+    for _ in range(n):
         r = rng.random()
         if r < 0.01:
             out.append("")
