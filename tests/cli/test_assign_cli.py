@@ -5,18 +5,17 @@ from __future__ import annotations
 import csv
 import io
 import subprocess
-import sys
 from pathlib import Path
 
 import pytest
 
+from tests.cli.cli_run import run_cli
+
 from assign import arm_for, bucket, load_spec
 
 
-def run(cwd: Path, *args: str, stdin: str | bytes | None = None) -> subprocess.CompletedProcess[bytes]:
-    data = stdin.encode("utf-8") if isinstance(stdin, str) else stdin
-    return subprocess.run([sys.executable, "-m", "armlock", *args], cwd=cwd, input=data,
-                          capture_output=True, timeout=120)
+def run(cwd: Path, *args: str, stdin: str | None = None) -> subprocess.CompletedProcess[bytes]:
+    return run_cli(cwd, *args, stdin=stdin, text=False)
 
 
 @pytest.fixture

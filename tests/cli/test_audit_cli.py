@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import json
 import subprocess
-import sys
 from pathlib import Path
 
 import pytest
+
+from tests.cli.cli_run import run_cli
 
 from assign import arm_for, load_spec
 from audit.synth import generate, write_logs
@@ -36,8 +37,7 @@ HEADER = "unit_id,first_seen,arm,device,pre_orders"
 
 
 def run(cwd: Path, *args: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "armlock", "audit", *args], check=False, cwd=cwd,
-                          capture_output=True, text=True, timeout=300)
+    return run_cli(cwd, "audit", *args)
 
 
 @pytest.fixture

@@ -5,10 +5,11 @@ from __future__ import annotations
 import json
 import sqlite3
 import subprocess
-import sys
 from pathlib import Path
 
 import pytest
+
+from tests.cli.cli_run import run_cli
 
 from assign import load_spec
 from audit.model import AuditReport
@@ -19,9 +20,7 @@ COUNT_CHARTS = """() => Object.fromEntries([...document.querySelectorAll('sectio
     .map(s => [s.dataset.check, s.querySelectorAll('svg[data-chart]').length]))"""
 
 
-def run(cwd: Path, *args: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "armlock", *args], cwd=cwd, capture_output=True,
-                          text=True, timeout=300)
+run = run_cli
 
 
 @pytest.fixture(scope="module")

@@ -3,21 +3,19 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 from datetime import timedelta
 from pathlib import Path
 
 import pytest
+
+from tests.cli.cli_run import run_cli
 
 from assign import load_spec
 from audit.history import record
 from tests.report.fixtures import weekly
 
 
-def run(cwd: Path, *args: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "armlock", *args], cwd=cwd, capture_output=True,
-                          text=True, timeout=120)
+run = run_cli
 
 
 @pytest.fixture
