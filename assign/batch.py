@@ -55,17 +55,13 @@ def _missing_positions(ids: Sequence[object]) -> list[int]:
     return out
 
 
-def _hashes(salt: str, ids: Sequence[object]) -> list[int]:
+def hashes_many(salt: str, ids: Sequence[str]) -> list[int]:
+    """XXH64 (seed 42) of every salted key; meaningless for missing ids (see assign_many)."""
     h, prefix, seed = _hash, salt + SEPARATOR, SEED
     try:
         return [h((prefix + u).encode(), seed) for u in ids]  # type: ignore[operator]
     except (TypeError, UnicodeEncodeError):
         return list(map(_hash, _keys_careful(salt, ids), repeat(SEED)))
-
-
-def hashes_many(salt: str, ids: Sequence[str]) -> list[int]:
-    """XXH64 (seed 42) of every salted key; meaningless for missing ids (see assign_many)."""
-    return _hashes(salt, ids)
 
 
 def _blank_missing(ids: Sequence[object], *columns: list) -> None:
@@ -108,7 +104,7 @@ def assign_many(spec: Spec, ids: Iterable[str | None]) -> list[str | None]:
 
 def buckets_and_arms(spec: Spec, ids: Sequence[str | None]) -> tuple[list[int | None], list[str | None]]:
     """Bucket and arm of every id (None for missing ids), for the `assign` command's output."""
-    buckets: list[int | None] = [bucket_of_hash(h) for h in _hashes(spec.salt, ids)]
+    buckets: list[int | None] = [bucket_of_hash(h) for h in hashes_many(spec.salt, ids)]  # type: ignore[arg-type]
     cum, names = spec.cumulative, spec.arm_names
     arms: list[str | None] = [names[bisect_right(cum, b)] for b in buckets]  # type: ignore[arg-type]
     _blank_missing(ids, buckets, arms)

@@ -60,7 +60,7 @@ def snippet_config(spec: Spec) -> dict[str, Any]:
         "f": spec.fingerprint,
         "s": spec.salt,
         "a": list(spec.arm_names),
-        "b": spec.cumulative,
+        "b": list(spec.cumulative),
         "x": list(spec.exposed_arms),
         "k": s.cookie_name,
         "m": min(s.cookie_days, MAX_COOKIE_DAYS) * SECONDS_PER_DAY,

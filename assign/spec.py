@@ -7,6 +7,7 @@ import json
 import tomllib
 from datetime import datetime, timezone
 from decimal import Decimal, InvalidOperation
+from functools import cached_property
 from pathlib import Path
 from typing import Any, Literal
 
@@ -138,27 +139,28 @@ class Spec(BaseModel):
         return self
 
     # -- derived, assignment-relevant views ------------------------------------------------
-    @property
+    # Derived once per (frozen) spec: arm_for() reads them on every call.
+    @cached_property
     def arm_names(self) -> tuple[str, ...]:
         return tuple(a.name for a in self.arms)
 
-    @property
+    @cached_property
     def weights(self) -> tuple[int, ...]:
         return tuple(a.weight for a in self.arms)
 
-    @property
-    def cumulative(self) -> list[int]:
-        return cumulative(self.weights)
+    @cached_property
+    def cumulative(self) -> tuple[int, ...]:
+        return tuple(cumulative(self.weights))
 
-    @property
+    @cached_property
     def holdout_arms(self) -> tuple[str, ...]:
         return tuple(a.name for a in self.arms if a.role == "holdout")
 
-    @property
+    @cached_property
     def exposed_arms(self) -> tuple[str, ...]:
         return tuple(a.name for a in self.arms if a.role == "exposed")
 
-    @property
+    @cached_property
     def fingerprint(self) -> str:
         return fingerprint(self.salt, [(a.name, a.weight) for a in self.arms])
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator, model_validator
 
 MAX_COOKIE_DAYS = 400  # RFC 6265bis caps cookie lifetime at 400 days (34,560,000 s)
 
@@ -157,6 +157,17 @@ def _global_name(v: str, what: str) -> str:
     return v
 
 
+# Plain-pattern fields of [snippet]: (pattern, what would be valid).
+_FIELD_PATTERNS = {
+    "cookie_name": (r"^[A-Za-z0-9_\-]{1,64}$",
+                    "cookie_name is 1-64 letters, digits, _ or - (it is also the localStorage key)"),
+    "cookie_domain": (COOKIE_DOMAIN,
+                      'cookie_domain is a host name such as ".shop.example", or "" for this host only'),
+    "qa_param": (r"^([A-Za-z0-9_\-.]{1,64})?$",
+                 'qa_param is a URL parameter name of letters, digits, _, - or . (or "" for off)'),
+}
+
+
 class SnippetSettings(BaseModel):
     """Cookie and page integration settings the snippet is rendered with."""
 
@@ -173,31 +184,12 @@ class SnippetSettings(BaseModel):
     consent: ConsentRule = ConsentRule()
     qa_param: str = ""
 
-    @field_validator("cookie_name")
+    @field_validator("cookie_name", "cookie_domain", "qa_param")
     @classmethod
-    def _cookie_name_ok(cls, v: str) -> str:
-        if not re.match(r"^[A-Za-z0-9_\-]{1,64}$", v):
-            raise ValueError(
-                "cookie_name is 1-64 letters, digits, _ or - (it is also the localStorage key)"
-            )
-        return v
-
-    @field_validator("cookie_domain")
-    @classmethod
-    def _domain_ok(cls, v: str) -> str:
-        if not re.match(COOKIE_DOMAIN, v):
-            raise ValueError(
-                'cookie_domain is a host name such as ".shop.example", or "" for this host only'
-            )
-        return v
-
-    @field_validator("qa_param")
-    @classmethod
-    def _qa_ok(cls, v: str) -> str:
-        if not re.match(r"^([A-Za-z0-9_\-.]{1,64})?$", v):
-            raise ValueError(
-                'qa_param is a URL parameter name of letters, digits, _, - or . (or "" for off)'
-            )
+    def _pattern_fields(cls, v: str, info: ValidationInfo) -> str:
+        pattern, message = _FIELD_PATTERNS[info.field_name]  # type: ignore[index]
+        if not re.match(pattern, v):
+            raise ValueError(message)
         return v
 
     @field_validator("data_layer")

@@ -3,7 +3,9 @@
 Goal (issue 4): under 60 s and under 4 GB on a 2-core machine. Both the audit and the baseline
 (a bare `pandas.read_parquet` of the same three files, every column) run in a fresh subprocess,
 so the wall time includes the same interpreter start-up and the peak resident memory is that
-process's own (`resource.getrusage(RUSAGE_SELF).ru_maxrss`, reported by the child). The figures
+process's own: `VmHWM` of /proc/self/status, reported by the child. (`ru_maxrss` would be
+wrong here: Linux carries the forking parent's peak across exec into it, so every child would
+report the size of this pytest process.) The figures
 are recorded in `benchmark.extra_info`; tests/benchmarks/ratios.py prints the ratio. Set
 ARMLOCK_BENCH_UNITS to run smaller (the exposure rows scale with it).
 """
@@ -28,23 +30,32 @@ EVENTS_PER_UNIT = 10.0  # ~20,000,000 exposure rows at 2,000,000 units
 SPEC = {"name": "bench-audit", "salt": "bench-audit-salt", "start": "2026-01-05T00:00:00Z",
         "arms": [{"name": "holdout", "weight": 1000}, {"name": "exposed", "weight": 9000}]}
 
-_CHILD_AUDIT = """
-import json, resource, sys
+_PEAK = """
+def _peak_kb():
+    try:
+        with open("/proc/self/status") as fh:
+            return int(next(l for l in fh if l.startswith("VmHWM:")).split()[1])
+    except (OSError, StopIteration):
+        import resource
+        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+"""
+_CHILD_AUDIT = _PEAK + """
+import json, sys
 from assign import spec_from_dict
 from audit.run import run_audit
 spec = spec_from_dict(json.loads(sys.argv[1]))
 d = sys.argv[2]
 rep = run_audit(spec, visits=d + "/visits.parquet", exposures=d + "/exposures.parquet",
                 identities=d + "/identities.parquet")
-print(json.dumps({"maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss,
+print(json.dumps({"maxrss_kb": _peak_kb(),
                   "verdict": rep.verdict, "units": rep.checks[0].figures["units"].value}))
 """
-_CHILD_READ = """
-import json, resource, sys
+_CHILD_READ = _PEAK + """
+import json, sys
 import pandas as pd
 d = sys.argv[2]
 rows = sum(len(pd.read_parquet(d + f"/{n}.parquet")) for n in ("visits", "exposures", "identities"))
-print(json.dumps({"maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, "rows": rows}))
+print(json.dumps({"maxrss_kb": _peak_kb(), "rows": rows}))
 """
 
 
