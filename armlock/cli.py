@@ -8,8 +8,8 @@ import traceback
 
 import typer
 
-from assign import ArmlockError, __version__
-from assign.errors import EXIT_INTERNAL
+from armlock.assign import ArmlockError, __version__
+from armlock.assign.errors import EXIT_INTERNAL
 
 from . import cmd_assign, cmd_snippet, cmd_spec
 from . import cmd_demo, cmd_history

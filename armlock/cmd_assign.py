@@ -7,8 +7,8 @@ from pathlib import Path
 
 import typer
 
-from assign import InputError, buckets_and_arms
-from assign.sql import DIALECTS, spark_arm_expr, spark_bucket_expr
+from armlock.assign import InputError, buckets_and_arms
+from armlock.assign.sql import DIALECTS, spark_arm_expr, spark_bucket_expr
 
 from .common import SPEC_HELP, open_spec, progress
 from .io_ids import ArmWriter, read_ids

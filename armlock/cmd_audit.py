@@ -8,10 +8,10 @@ from pathlib import Path
 
 import typer
 
-from assign.spec_audit import AuditThresholds
-from assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
-from audit.model import AuditReport
-from audit.render import RENDERERS
+from armlock.assign.spec_audit import AuditThresholds
+from armlock.assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
+from armlock.audit.model import AuditReport
+from armlock.audit.render import RENDERERS
 
 from .common import SPEC_HELP, err, open_spec, progress
 
@@ -21,7 +21,7 @@ FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
 
 def _html(report: AuditReport, history: list[dict] | None = None,
           thresholds: AuditThresholds | None = None) -> str:
-    from audit.report_html import render_html  # matplotlib loads only when html is asked for
+    from armlock.audit.report_html import render_html  # matplotlib loads only when html is asked for
 
     return render_html(report, history, thresholds=thresholds)
 
@@ -75,12 +75,12 @@ def audit_cmd(
                                  param_hint="--format")
     day = _as_of(as_of)
     spec = open_spec(spec_path, record=False)
-    from audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
+    from armlock.audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
 
     with progress(input_bytes(visits, exposures, identities) or None, "reading logs") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
                            as_of=day, advance=advance)
-    from audit import history
+    from armlock.audit import history
 
     hist = history_path or history.default_history_path(spec_path)
     if record:

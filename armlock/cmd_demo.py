@@ -11,9 +11,9 @@ from pathlib import Path
 
 import typer
 
-from assign import InputError, check_lock, load_spec
-from assign.init import render_spec_toml
-from assign.snippet import render_snippet
+from armlock.assign import InputError, check_lock, load_spec
+from armlock.assign.init import render_spec_toml
+from armlock.assign.snippet import render_snippet
 
 from .common import err, progress
 
@@ -119,10 +119,10 @@ def _prepare(folder: Path) -> None:
 
 def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> DemoResult:
     """Write the scenario into `folder`, audit it once per week with history, write the report."""
-    from audit import synth
-    from audit.history import default_history_path, load, record
-    from audit.report_html import render_html
-    from audit.run import run_audit
+    from armlock.audit import synth
+    from armlock.audit.history import default_history_path, load, record
+    from armlock.audit.report_html import render_html
+    from armlock.audit.run import run_audit
 
     t0 = time.perf_counter()
     _prepare(folder)
@@ -169,7 +169,7 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
 
 def _headline(summary: str) -> str:
     """The first two clauses of a check's summary: what was found, and the next finding if any."""
-    from audit.report_html import first_clause
+    from armlock.audit.report_html import first_clause
 
     parts = summary.split("; ")
     if len(parts) < 2:

@@ -8,8 +8,8 @@ from typing import Any
 
 import typer
 
-from assign import load_spec
-from audit.history import changes, default_history_path, format_value, load, trend_keys
+from armlock.assign import load_spec
+from armlock.audit.history import changes, default_history_path, format_value, load, trend_keys
 
 from .common import SPEC_HELP, err
 

@@ -7,8 +7,8 @@ from pathlib import Path
 
 import typer
 
-from assign import SpecError
-from assign.snippet import render_snippet
+from armlock.assign import SpecError
+from armlock.assign.snippet import render_snippet
 
 from .common import SPEC_HELP, err, open_spec
 

@@ -7,9 +7,9 @@ from pathlib import Path
 
 import typer
 
-from assign import SpecError, check_lock, load_spec
-from assign.init import parse_arms, render_spec_toml
-from assign.spec import EXPERIMENT_PATTERN
+from armlock.assign import SpecError, check_lock, load_spec
+from armlock.assign.init import parse_arms, render_spec_toml
+from armlock.assign.spec import EXPERIMENT_PATTERN
 
 from .common import SPEC_HELP, warn_box
 
@@ -37,7 +37,7 @@ def init(
         else:
             if not 0 < holdout_share < 1:
                 raise ValueError(f"--holdout-share must be between 0 and 1, got {holdout_share}")
-            from assign.spec import share_to_basis_points
+            from armlock.assign.spec import share_to_basis_points
 
             h = share_to_basis_points(holdout_share)
             arm_list = [("holdout", h), ("exposed", 10_000 - h)]

@@ -10,7 +10,7 @@ from typing import Any
 
 import typer
 
-from assign import Spec, check_lock, load_spec
+from armlock.assign import Spec, check_lock, load_spec
 
 SPEC_HELP = "The experiment spec file (TOML), as written by `armlock init`."
 

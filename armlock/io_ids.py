@@ -10,7 +10,7 @@ from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import IO
 
-from assign import InputError
+from armlock.assign import InputError
 
 CHUNK = 200_000
 csv.field_size_limit(16 * 1024 * 1024)

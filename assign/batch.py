@@ -18,7 +18,7 @@ _encode = str.encode
 def arm_for(spec: Spec, unit_id: str) -> str | None:
     """The arm of one unit, or None for an empty id.
 
-    >>> from assign.spec import Spec
+    >>> from armlock.assign.spec import Spec
     >>> s = Spec(name="t", salt="s1", start="2026-01-01T00:00:00Z",
     ...          arms=[{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}])
     >>> arm_for(s, "visitor-1") in ("holdout", "exposed")

@@ -255,13 +255,13 @@ def _minified() -> str:
 
 @lru_cache(maxsize=4)
 def _template(name: str) -> str:
-    return resources.files("snippets").joinpath(name).read_text(encoding="utf-8")
+    return resources.files("armlock.snippets").joinpath(name).read_text(encoding="utf-8")
 
 
 def render_snippet(spec: Spec, form: Literal["js", "html"] | str = "js") -> str:
     """The snippet for this spec: `js` a file to self-host, `html` a <script> block to paste.
 
-    >>> from assign.spec import Spec
+    >>> from armlock.assign.spec import Spec
     >>> s = Spec(name="t", salt="s1", start="2026-01-01T00:00:00Z",
     ...          arms=[{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}])
     >>> render_snippet(s, "html").startswith("<script>")

@@ -7,7 +7,7 @@ import math
 import numpy as np
 from scipy import stats
 
-from assign import Spec
+from armlock.assign import Spec
 
 from .model import Check, Figure, Status, Table
 from .srm import holm

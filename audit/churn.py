@@ -6,7 +6,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from assign import Spec
+from armlock.assign import Spec
 
 from .model import Check, Figure, Table, worst
 from .tables import ChurnTables

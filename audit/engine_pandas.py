@@ -10,7 +10,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from assign import Spec, assign_many
+from armlock.assign import Spec, assign_many
 
 from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
 from .tables import (

@@ -14,7 +14,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from assign.errors import InputError
+from armlock.assign.errors import InputError
 
 from .model import AuditReport
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from assign import Spec
+from armlock.assign import Spec
 
 from .model import Check, Figure, Table, worst
 from .tables import LeakageTables

@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from assign import InputError, Spec
+from armlock.assign import InputError, Spec
 
 from .read import (
     ARM,

@@ -20,7 +20,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
-from assign import InputError
+from armlock.assign import InputError
 
 MISSING_LEVEL = "(missing)"  # the level an empty categorical value is counted under
 SHOW_ROWS = 5  # how many row numbers an error message lists

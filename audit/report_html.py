@@ -20,7 +20,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt
 from matplotlib.figure import Figure as MplFigure
 
-from assign.spec_audit import AuditThresholds
+from armlock.assign.spec_audit import AuditThresholds
 
 from .history import changes, format_value, row_from_report, trend_keys
 from .model import AuditReport, Check

@@ -6,7 +6,7 @@ from collections.abc import Callable
 from datetime import date, datetime, UTC
 from pathlib import Path
 
-from assign import Spec, __version__
+from armlock.assign import Spec, __version__
 
 from . import engine_pandas
 from .balance import check_balance

@@ -9,7 +9,7 @@ import pandas as pd
 from scipy import stats
 from scipy.special import gammaln
 
-from assign import Spec
+from armlock.assign import Spec
 
 from .model import Check, Figure, Status, Table
 from .tables import SplitTables

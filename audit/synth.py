@@ -28,7 +28,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from assign import Spec, assign_many
+from armlock.assign import Spec, assign_many
 
 FAULTS = ("browser_loss", "leakage", "pre_exposure", "cookie_churn", "imbalance")
 
@@ -113,7 +113,7 @@ def generate(
     `events_per_unit` is the mean number of exposure rows per unit in the visits (so the exposure
     log has about units * events_per_unit rows). Deterministic for a given seed.
 
-    >>> from assign import spec_from_dict
+    >>> from armlock.assign import spec_from_dict
     >>> s = spec_from_dict({"name": "t", "salt": "s", "start": "2026-01-05T00:00:00Z",
     ...     "arms": [{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}]})
     >>> logs = generate(s, units=1000, faults=("leakage",))

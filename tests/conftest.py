@@ -8,10 +8,10 @@ from typing import Any
 
 import pytest
 
-from assign import Spec
+from armlock.assign import Spec
 
 ROOT = Path(__file__).resolve().parents[1]
-VECTORS = ROOT / "tests" / "vectors" / "assignment_vectors.json"
+VECTORS = ROOT / "shared" / "vectors" / "assignment_vectors.json"
 
 
 def load_vectors() -> dict[str, Any]:

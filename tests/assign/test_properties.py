@@ -7,8 +7,8 @@ from bisect import bisect_right
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from assign import Spec, arm_for, assign_many, bucket, buckets_and_arms
-from assign.contract import BUCKETS, bucket_of_hash, cumulative, hash_thresholds
+from armlock.assign import Spec, arm_for, assign_many, bucket, buckets_and_arms
+from armlock.assign.contract import BUCKETS, bucket_of_hash, cumulative, hash_thresholds
 
 
 @st.composite

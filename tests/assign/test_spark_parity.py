@@ -11,8 +11,8 @@ import shutil
 
 import pytest
 
-from assign import Spec, buckets_and_arms
-from assign.sql import spark_arm_expr, spark_bucket_expr
+from armlock.assign import Spec, buckets_and_arms
+from armlock.assign.sql import spark_arm_expr, spark_bucket_expr
 from tests.conftest import layout_spec, load_vectors
 
 IN_CI = os.environ.get("CI") == "true"

@@ -9,9 +9,9 @@ from pathlib import Path
 
 import pytest
 
-from assign import SpecError, check_lock, load_spec, spec_from_dict
-from assign.init import new_salt, parse_arms, render_spec_toml
-from assign.spec import share_to_basis_points
+from armlock.assign import SpecError, check_lock, load_spec, spec_from_dict
+from armlock.assign.init import new_salt, parse_arms, render_spec_toml
+from armlock.assign.spec import share_to_basis_points
 
 
 def _spec_text(**repl: str) -> str:
@@ -115,7 +115,7 @@ def test_fingerprint_is_pinned() -> None:
     # The canonical form is part of the contract (reports carry it): SHA-256 of this exact text.
     import hashlib
 
-    from assign import fingerprint
+    from armlock.assign import fingerprint
 
     canon = '{"arms":[["holdout",5000],["exposed",5000]],"contract":"armlock-assign-1","salt":"fixed-salt"}'
     expected = hashlib.sha256(canon.encode()).hexdigest()[:16]

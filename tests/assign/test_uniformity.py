@@ -5,9 +5,9 @@ from __future__ import annotations
 import pytest
 from scipy.stats import chi2_contingency, chisquare
 
-from assign import Spec, assign_many
-from assign.batch import hashes_many
-from assign.contract import bucket_of_hash
+from armlock.assign import Spec, assign_many
+from armlock.assign.batch import hashes_many
+from armlock.assign.contract import bucket_of_hash
 
 N = 1_000_000
 IDS = [f"visitor-{i}" for i in range(N)]  # sequential ids: the worst case for a weak hash

@@ -6,8 +6,8 @@ import hashlib
 
 import pytest
 
-from assign import arm_for, assign_many, bucket, buckets_and_arms
-from assign.contract import hash64
+from armlock.assign import arm_for, assign_many, bucket, buckets_and_arms
+from armlock.assign.contract import hash64
 from tests.conftest import VECTORS, layout_spec, load_vectors
 
 # Adding layouts or ids is allowed (regenerate with make_vectors.py --write and update this

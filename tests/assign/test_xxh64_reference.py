@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 import xxhash
 
-from assign.contract import SEED, bucket_of_hash, hash64
+from armlock.assign.contract import SEED, bucket_of_hash, hash64
 
 PRIME32 = 2654435761
 PRIME64 = 11400714785074694797

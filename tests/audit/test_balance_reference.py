@@ -11,8 +11,8 @@ from scipy import stats
 from statsmodels.stats.meta_analysis import effectsize_smd
 from statsmodels.stats.weightstats import ttest_ind
 
-from assign import spec_from_dict
-from audit.balance import (
+from armlock.assign import spec_from_dict
+from armlock.audit.balance import (
     check_balance,
     chi2_independence_p,
     moments,
@@ -20,7 +20,7 @@ from audit.balance import (
     smd_continuous,
     welch_p,
 )
-from audit.tables import BalanceTables
+from armlock.audit.tables import BalanceTables
 
 
 def test_smd_continuous_hand_computation() -> None:

@@ -8,11 +8,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from assign import Spec, spec_from_dict
-from audit.model import AuditReport
-from audit.render import check_by_id, render
-from audit.run import run_audit
-from audit.synth import FAULTS, generate, write_logs
+from armlock.assign import Spec, spec_from_dict
+from armlock.audit.model import AuditReport
+from armlock.audit.render import check_by_id, render
+from armlock.audit.run import run_audit
+from armlock.audit.synth import FAULTS, generate, write_logs
 
 SPEC = spec_from_dict({"name": "shop-test", "salt": "invented-shop-2026", "start": "2026-01-05T00:00:00Z",
                        "arms": [{"name": "holdout", "weight": 3000}, {"name": "exposed", "weight": 7000}]})

@@ -8,11 +8,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from assign import assign_many, spec_from_dict
-from audit.churn import expected_multi_arm
-from audit.leakage import itt_dilution
-from audit.render import check_by_id
-from audit.run import run_audit
+from armlock.assign import assign_many, spec_from_dict
+from armlock.audit.churn import expected_multi_arm
+from armlock.audit.leakage import itt_dilution
+from armlock.audit.render import check_by_id
+from armlock.audit.run import run_audit
 
 
 def test_itt_dilution_is_the_exposure_rate_gap() -> None:

@@ -9,9 +9,9 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from assign import InputError, arm_for, spec_from_dict
-from audit.render import check_by_id
-from audit.run import run_audit
+from armlock.assign import InputError, arm_for, spec_from_dict
+from armlock.audit.render import check_by_id
+from armlock.audit.run import run_audit
 
 SPEC = spec_from_dict({"name": "r", "salt": "read-salt", "start": "2026-01-05T00:00:00Z",
                        "arms": [{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}],

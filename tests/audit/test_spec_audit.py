@@ -7,8 +7,8 @@ import tomllib
 import pytest
 from pydantic import BaseModel, ValidationError
 
-from assign import SpecError, spec_from_dict
-from assign.spec_audit import AuditSettings, audit_section_toml
+from armlock.assign import SpecError, spec_from_dict
+from armlock.assign.spec_audit import AuditSettings, audit_section_toml
 
 
 def _fields(model: type[BaseModel], prefix: str = "") -> list[str]:

@@ -8,9 +8,9 @@ import pytest
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
-from assign import spec_from_dict
-from audit.srm import check_srm, chi_square, holm, log_bayes_factor, sequential_p
-from audit.tables import SplitTables
+from armlock.assign import spec_from_dict
+from armlock.audit.srm import check_srm, chi_square, holm, log_bayes_factor, sequential_p
+from armlock.audit.tables import SplitTables
 
 
 @pytest.mark.parametrize("counts,theta", [

@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from assign import arm_for, spec_from_dict
-from audit.synth import FAULTS, generate, write_logs
+from armlock.assign import arm_for, spec_from_dict
+from armlock.audit.synth import FAULTS, generate, write_logs
 
 SPEC = spec_from_dict({"name": "synth", "salt": "synth-salt", "start": "2026-03-02T00:00:00Z",
                        "arms": [{"name": "holdout", "weight": 1000}, {"name": "exposed", "weight": 9000}]})

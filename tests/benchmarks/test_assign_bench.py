@@ -14,7 +14,7 @@ import uuid
 import pytest
 import xxhash
 
-from assign import Spec, assign_many
+from armlock.assign import Spec, assign_many
 
 pytestmark = pytest.mark.bench
 

@@ -20,8 +20,8 @@ from pathlib import Path
 
 import pytest
 
-from assign import spec_from_dict
-from audit.synth import generate, write_logs
+from armlock.assign import spec_from_dict
+from armlock.audit.synth import generate, write_logs
 
 pytestmark = pytest.mark.bench
 
@@ -41,8 +41,8 @@ def _peak_kb():
 """
 _CHILD_AUDIT = _PEAK + """
 import json, sys
-from assign import spec_from_dict
-from audit.run import run_audit
+from armlock.assign import spec_from_dict
+from armlock.audit.run import run_audit
 spec = spec_from_dict(json.loads(sys.argv[1]))
 d = sys.argv[2]
 rep = run_audit(spec, visits=d + "/visits.parquet", exposures=d + "/exposures.parquet",

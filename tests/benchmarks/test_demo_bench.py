@@ -15,11 +15,11 @@ from pathlib import Path
 import pytest
 
 from armlock.cmd_demo import SPEC_FILE, build_demo, weekly_as_of
-from assign import load_spec
-from audit.history import load, record
-from audit.model import AuditReport
-from audit.report_html import render_html
-from audit.run import run_audit
+from armlock.assign import load_spec
+from armlock.audit.history import load, record
+from armlock.audit.model import AuditReport
+from armlock.audit.report_html import render_html
+from armlock.audit.run import run_audit
 
 pytestmark = pytest.mark.bench
 

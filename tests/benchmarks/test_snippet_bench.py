@@ -14,9 +14,9 @@ from typing import Any
 
 import pytest
 
-from assign.batch import arm_for
-from assign.snippet import js_literal, render_snippet, snippet_config
-from assign.spec import load_spec
+from armlock.assign.batch import arm_for
+from armlock.assign.snippet import js_literal, render_snippet, snippet_config
+from armlock.assign.spec import load_spec
 
 from ..snippet.helpers import HERE as SNIPPET_TESTS
 from ..snippet.helpers import make_spec, need, random_ids, serve

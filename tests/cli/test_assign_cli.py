@@ -11,7 +11,7 @@ import pytest
 
 from tests.cli.cli_run import run_cli
 
-from assign import arm_for, bucket, load_spec
+from armlock.assign import arm_for, bucket, load_spec
 
 
 def run(cwd: Path, *args: str, stdin: str | None = None) -> subprocess.CompletedProcess[bytes]:

@@ -10,8 +10,8 @@ import pytest
 
 from tests.cli.cli_run import run_cli
 
-from assign import arm_for, load_spec
-from audit.synth import generate, write_logs
+from armlock.assign import arm_for, load_spec
+from armlock.audit.synth import generate, write_logs
 
 SPEC_TOML = '''format = 1
 name = "cli-audit"

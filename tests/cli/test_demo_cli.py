@@ -11,8 +11,8 @@ import pytest
 
 from tests.cli.cli_run import run_cli
 
-from assign import load_spec
-from audit.model import AuditReport
+from armlock.assign import load_spec
+from armlock.audit.model import AuditReport
 from tests.report.browser import open_page
 
 CHARTS = {"srm": 2, "srm_segments": 0, "integrity": 0, "leakage": 1, "churn": 1, "balance": 1, "history": 1}

@@ -10,8 +10,8 @@ import pytest
 
 from tests.cli.cli_run import run_cli
 
-from assign import load_spec
-from audit.history import record
+from armlock.assign import load_spec
+from armlock.audit.history import record
 from tests.report.fixtures import weekly
 
 
@@ -93,7 +93,7 @@ def test_history_unknown_format_is_usage_error(spec: Path, tmp_path: Path) -> No
 
 
 def _logs(tmp_path: Path, spec: Path) -> dict[str, Path]:
-    from audit import synth
+    from armlock.audit import synth
 
     logs = synth.generate(load_spec(spec), units=4_000, days=21, seed=5, faults=("leakage",))
     return synth.write_logs(logs, tmp_path / "logs", fmt="parquet")

@@ -6,7 +6,7 @@ from collections.abc import Callable
 
 import pytest
 
-from audit.model import AuditReport
+from armlock.audit.model import AuditReport
 
 from .fixtures import build_report, weekly
 

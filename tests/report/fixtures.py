@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from datetime import date, timedelta
 
-from audit.model import ArmInfo, AuditReport, Check, Figure, Table, worst
+from armlock.audit.model import ArmInfo, AuditReport, Check, Figure, Table, worst
 
 HOSTILE = ['<script>alert(1)</script>', '"><img src=x onerror=alert(2)>', "</svg>", "&amp;",
            "it's \"quoted\"", "$x^2$ and {braces}"]

@@ -11,9 +11,9 @@ from pathlib import Path
 
 import pytest
 
-from assign.errors import InputError
-from audit import history
-from audit.history import changes, default_history_path, load, record
+from armlock.assign.errors import InputError
+from armlock.audit import history
+from armlock.audit.history import changes, default_history_path, load, record
 
 from .fixtures import build_report
 
@@ -64,8 +64,8 @@ def test_specs_are_kept_apart_by_fingerprint(tmp_path: Path) -> None:
 _WORKER = textwrap.dedent("""
     import json, sys
     from datetime import date, timedelta
-    from audit.history import record
-    from audit.model import AuditReport
+    from armlock.audit.history import record
+    from armlock.audit.model import AuditReport
     base = json.loads(open(sys.argv[1], encoding="utf-8").read())
     proc = int(sys.argv[3])
     for j in range(10):
@@ -176,7 +176,7 @@ def test_record_into_a_missing_folder_is_a_clear_error(tmp_path: Path) -> None:
 
 
 def test_figures_are_formatted_for_people() -> None:
-    from audit.history import format_value
+    from armlock.audit.history import format_value
 
     assert format_value(0.014, "share") == "1.4%"
     assert format_value(0.002, "share") == "0.2%"

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 
-from audit.history import row_from_report
-from audit.report_html import render_html
+from armlock.audit.history import row_from_report
+from armlock.audit.report_html import render_html
 
 from .browser import open_page
 from .fixtures import HOSTILE, build_report, weekly

@@ -7,12 +7,12 @@ from pathlib import Path
 
 import pandas as pd
 
-from assign import load_spec
-from assign.init import render_spec_toml
-from audit import synth
-from audit.history import load, record
-from audit.report_html import render_html
-from audit.run import run_audit
+from armlock.assign import load_spec
+from armlock.assign.init import render_spec_toml
+from armlock.audit import synth
+from armlock.audit.history import load, record
+from armlock.audit.report_html import render_html
+from armlock.audit.run import run_audit
 
 from .browser import open_page
 

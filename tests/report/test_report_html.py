@@ -9,8 +9,8 @@ from xml.etree import ElementTree
 import pytest
 from scipy import stats
 
-from audit.history import row_from_report
-from audit.report_html import render_html, share_band
+from armlock.audit.history import row_from_report
+from armlock.audit.report_html import render_html, share_band
 
 from .fixtures import HOSTILE, build_report, weekly
 
@@ -161,7 +161,7 @@ def test_contrast_formula_matches_wcag_extremes() -> None:
 
 def test_text_colours_reach_wcag_aa() -> None:
     # WCAG 2.1 success criterion 1.4.3 (Contrast, Minimum): at least 4.5:1 for normal text
-    from audit import report_html as r
+    from armlock.audit import report_html as r
 
     pairs = [(r.INK, r.PAPER), (r.INK, r.CARD), (r.MUTED, r.PAPER), (r.MUTED, r.CARD), (r.ACCENT, r.CARD)]
     pairs += [(fg, bg) for _, fg, bg in r.STATUS_STYLE.values()]  # badges and the verdict box
@@ -171,7 +171,7 @@ def test_text_colours_reach_wcag_aa() -> None:
 
 
 def test_charts_draw_the_specs_thresholds() -> None:
-    from assign.spec_audit import AuditThresholds
+    from armlock.assign.spec_audit import AuditThresholds
 
     rep = build_report()
     default = render_html(rep)

@@ -18,12 +18,12 @@ from typing import Any
 
 import pytest
 
-from assign.spec import Spec, spec_from_dict
+from armlock.assign.spec import Spec, spec_from_dict
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parents[1]
 HARNESS = HERE / "node_harness.js"
-VECTORS = REPO / "tests" / "vectors" / "assignment_vectors.json"
+VECTORS = REPO / "shared" / "vectors" / "assignment_vectors.json"
 ACORN = REPO / "node_modules" / "acorn"
 
 

@@ -10,10 +10,10 @@ from typing import Any
 
 import pytest
 
-from assign.batch import arm_for
-from assign.contract import bucket
-from assign.snippet import render_snippet
-from assign.spec import Spec
+from armlock.assign.batch import arm_for
+from armlock.assign.contract import bucket
+from armlock.assign.snippet import render_snippet
+from armlock.assign.spec import Spec
 
 from .helpers import make_spec, need, random_ids, serve
 

@@ -6,11 +6,11 @@ from typing import Any
 
 import pytest
 
-from assign import SpecError
-from assign.batch import arm_for
-from assign.contract import bucket
-from assign.snippet import render_snippet
-from assign.spec import Spec
+from armlock.assign import SpecError
+from armlock.assign.batch import arm_for
+from armlock.assign.contract import bucket
+from armlock.assign.snippet import render_snippet
+from armlock.assign.spec import Spec
 
 from .helpers import acorn_parse, make_spec, run_node, script_body
 
@@ -81,7 +81,7 @@ def test_a_near_miss_consent_value_does_not_grant() -> None:
 def test_description_never_lands_in_the_snippet() -> None:
     base = make_spec().model_dump(mode="json")
     base["description"] = "</script><!-- secret note"
-    from assign.spec import spec_from_dict
+    from armlock.assign.spec import spec_from_dict
 
     assert "secret note" not in render_snippet(spec_from_dict(base), "html")
 
@@ -110,7 +110,7 @@ REJECTED: list[tuple[str, Any]] = [
 
 @pytest.mark.parametrize(("field", "value"), REJECTED, ids=[f"{f}-{i}" for i, (f, _) in enumerate(REJECTED)])
 def test_values_that_cannot_be_valid_are_rejected(field: str, value: Any) -> None:
-    from assign.spec import spec_from_dict
+    from armlock.assign.spec import spec_from_dict
 
     data = make_spec().model_dump(mode="json")
     if field.startswith("snippet."):

@@ -7,8 +7,8 @@ from typing import Any
 
 import pytest
 
-from assign.batch import arm_for
-from assign.snippet import render_snippet
+from armlock.assign.batch import arm_for
+from armlock.assign.snippet import render_snippet
 
 from .helpers import make_spec, run_node
 

@@ -8,9 +8,9 @@ import subprocess
 import pytest
 import xxhash
 
-from assign.batch import arm_for
-from assign.contract import SEED, bucket, key_bytes
-from assign.snippet import TEMPLATE, _template, render_snippet
+from armlock.assign.batch import arm_for
+from armlock.assign.contract import SEED, bucket, key_bytes
+from armlock.assign.snippet import TEMPLATE, _template, render_snippet
 
 from .helpers import VECTORS, make_spec, need, random_ids, run_node
 

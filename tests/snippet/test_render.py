@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from assign.snippet import (
+from armlock.assign.snippet import (
     CONFIG_MARK,
     TEMPLATE,
     _template,
@@ -21,7 +21,7 @@ from assign.snippet import (
     render_snippet,
     snippet_config,
 )
-from assign.spec import load_spec
+from armlock.assign.spec import load_spec
 
 from .helpers import HERE, acorn_parse, make_spec, run_node, script_body
 
@@ -140,7 +140,7 @@ def test_golden_snippet_behaves_in_node() -> None:
     spec = load_spec(GOLDEN_SPEC)
     res = run_node({"snippet": js, "cookie": "shop_uid=v1.abc123", "protocol": "https:",
                     "after": [{"consent": {"ads": "granted"}}], "gate": [None]})
-    from assign.batch import arm_for
+    from armlock.assign.batch import arm_for
 
     assert res["arm"] == arm_for(spec, "abc123")
     assert res["cookieWrites"] == []  # the site's own id was used: armlock sets no cookie

@@ -10,10 +10,10 @@ from typing import Any
 
 import pytest
 
-from assign import SpecError
-from assign.init import render_spec_toml
-from assign.spec import load_spec, spec_from_dict
-from assign.spec_snippet import MAX_COOKIE_DAYS, SnippetSettings, snippet_section_toml
+from armlock.assign import SpecError
+from armlock.assign.init import render_spec_toml
+from armlock.assign.spec import load_spec, spec_from_dict
+from armlock.assign.spec_snippet import MAX_COOKIE_DAYS, SnippetSettings, snippet_section_toml
 
 from .helpers import make_spec
 

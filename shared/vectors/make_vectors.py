@@ -1,6 +1,6 @@
 """Regenerates the frozen assignment vectors. Run only to ADD layouts or ids, never to change rows.
 
-    python tests/vectors/make_vectors.py --write
+    python shared/vectors/make_vectors.py --write
 
 The test suite fails if any existing row's bucket or arm changes: that would be a new contract.
 """
@@ -11,9 +11,8 @@ import json
 import sys
 from pathlib import Path
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from assign.contract import BUCKETS, bucket, hash64  # noqa: E402
+from armlock.assign.contract import BUCKETS, bucket, hash64
 
 HERE = Path(__file__).parent
 OUT = HERE / "assignment_vectors.json"
