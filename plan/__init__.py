@@ -1,0 +1,1 @@
+"""armlock plan: before the test, how big a holdout, for how long and at what cost (pure statistics + report)."""
