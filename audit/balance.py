@@ -27,15 +27,9 @@ def smd_binary(p_t: float, p_c: float) -> float:
     return smd_continuous(p_t, p_t * (1 - p_t), p_c, p_c * (1 - p_c))
 
 
-def moments(n: int, total: float, sumsq: float) -> tuple[float, float]:
-    """Mean and sample variance (ddof = 1) from n, sum and sum of squares."""
-    if n == 0:
-        return math.nan, math.nan
-    mean = total / n
-    if n < 2:
-        return mean, math.nan
-    var = max(sumsq - n * mean * mean, 0.0) / (n - 1)
-    return mean, var
+def sample_variance(n: int, m2: float) -> float:
+    """Sample variance (ddof = 1) from n and the sum of squared deviations m2 (NaN below 2 values)."""
+    return m2 / (n - 1) if n >= 2 else math.nan
 
 
 def welch_p(n_t: int, m_t: float, v_t: float, n_c: int, m_c: float, v_c: float) -> float:
@@ -69,10 +63,10 @@ def check_balance(spec: Spec, bt: BalanceTables) -> Check:
     for cov, grp in bt.numeric.groupby("covariate", sort=False):
         g = grp.set_index("arm")
         binary = bool(g["binary"].iloc[0])
-        mc, vc = moments(int(g.loc[ref, "n"]), float(g.loc[ref, "sum"]), float(g.loc[ref, "sumsq"]))
+        mc, vc = float(g.loc[ref, "mean"]), sample_variance(int(g.loc[ref, "n"]), float(g.loc[ref, "m2"]))
         for arm in others:
             nt = int(g.loc[arm, "n"])
-            mt, vt = moments(nt, float(g.loc[arm, "sum"]), float(g.loc[arm, "sumsq"]))
+            mt, vt = float(g.loc[arm, "mean"]), sample_variance(nt, float(g.loc[arm, "m2"]))
             nc = int(g.loc[ref, "n"])
             if binary:
                 d = smd_binary(mt, mc)

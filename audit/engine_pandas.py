@@ -1,7 +1,8 @@
-"""The pandas engine: tidy frames -> the small tables of `audit.tables` (counts, sums, sums of squares)."""
+"""The pandas engine: tidy frames -> the small tables of `audit.tables` (counts, central moments, rank sums)."""
 
 from __future__ import annotations
 
+import math
 import os
 from concurrent.futures import ThreadPoolExecutor
 
@@ -9,11 +10,13 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
+from scipy import stats
 
 from armlock.assign import Spec, assign_many
 
 from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
 from .tables import (
+    NUMERIC_COLUMNS,
     AuditTables,
     BalanceTables,
     ChurnTables,
@@ -107,22 +110,48 @@ def split_and_integrity(spec: Spec, fr: Frames, eff: np.ndarray, rec: np.ndarray
     return split, integ
 
 
+def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, object]]:
+    """Per arm 0..k-1: n, missing, invalid, mean, m2, rank_sum; plus the pooled ties and binary flag.
+
+    `x` is float64 per unit (NaN = missing), `arm` the recorded arm index (-1/-2: not counted).
+    Two-pass central moments keep precision at any offset (see `audit.tables`).
+    """
+    ok = arm >= 0
+    nan = np.isnan(x)
+    fin = np.isfinite(x)
+    use = ok & fin
+    vals, arms_used = x[use], arm[use]
+    binary = bool(len(vals)) and bool(np.isin(vals, (0.0, 1.0)).all())
+    ranks = stats.rankdata(vals, method="average") if len(vals) else vals
+    _, tie_counts = np.unique(vals, return_counts=True)
+    t = tie_counts.astype(np.float64)
+    ties = float(np.sum(t * t * t - t))
+    rows = []
+    for i in range(k):
+        m = arms_used == i
+        xi = vals[m]
+        mean = float(np.mean(xi)) if len(xi) else math.nan
+        d = xi - mean
+        rows.append({"arm_index": i, "n": len(xi), "missing": int((ok & nan & (arm == i)).sum()),
+                     "invalid": int((ok & ~nan & ~fin & (arm == i)).sum()),
+                     "mean": mean, "m2": float(np.dot(d, d)), "rank_sum": float(ranks[m].sum()),
+                     "ties": ties, "binary": binary})
+    return rows
+
+
 def balance_tables(spec: Spec, fr: Frames, rec: np.ndarray) -> BalanceTables:
     v = fr.visits
     arms, k = list(spec.arm_names), len(spec.arms)
-    ok = rec >= 0
     rows = []
     for col in spec.audit.covariates:
-        x = v[col].to_numpy(dtype=np.float64)
-        fin = ~np.isnan(x)
-        vals = x[fin & ok]
-        binary = bool(np.isin(vals, (0.0, 1.0)).all()) if len(vals) else False
-        for i, a in enumerate(arms):
-            m = ok & (rec == i)
-            xi = x[m & fin]
-            rows.append({"covariate": col, "arm": a, "n": len(xi), "missing": int((m & ~fin).sum()),
-                         "sum": float(xi.sum()), "sumsq": float(np.dot(xi, xi)), "binary": binary})
-    numeric = pd.DataFrame(rows, columns=["covariate", "arm", "n", "missing", "sum", "sumsq", "binary"])
+        per_arm = numeric_moments(v[col].to_numpy(dtype=np.float64), rec, k)
+        bad = sum(int(r["invalid"]) for r in per_arm)  # type: ignore[call-overload]
+        if bad:
+            fr.notes.append(f"covariate {col}: {bad} value(s) were +/-infinity; counted as invalid input and "
+                            "left out of the balance check")
+        for r in per_arm:
+            rows.append({"covariate": col, "arm": arms[int(r.pop("arm_index"))], **r})  # type: ignore[call-overload]
+    numeric = pd.DataFrame(rows, columns=NUMERIC_COLUMNS)
     cats = {}
     for col in spec.audit.categorical_covariates:
         cat = v[col]

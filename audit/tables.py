@@ -3,6 +3,30 @@
 Every table is counts or sums keyed by arm / day / segment / campaign / week; the statistics
 modules read only these, never the raw logs. Arms are always in spec order; "days" are UTC
 calendar days of first-seen; "weeks" start on Monday (ISO 8601).
+
+Numeric covariates (`BalanceTables.numeric`) are kept as central moments, not raw sums of squares:
+per covariate and arm, over the units with a known recorded arm and a finite value,
+
+- ``n``        values used; ``missing`` empty / NaN cells; ``invalid`` +/-inf cells (left out, counted)
+- ``mean``     the arm's mean
+- ``m2``       sum of squared deviations from the arm's own mean (sample variance = m2 / (n - 1))
+- ``rank_sum`` sum of the arm's ranks among the pooled values of all arms (ties get their average
+               rank, ranks 1..N)
+- ``ties``     (same on every row of a covariate) sum over groups of tied pooled values of t^3 - t
+- ``binary``   (same on every row of a covariate) every pooled value is 0 or 1
+
+Why (n, mean, m2): ``sumsq - n * mean^2`` cancels catastrophically once mean/SD exceeds about 1e7
+(1e9 + N(0, 1) would give variance 0 or garbage); n, mean and m2 keep full precision and merge
+exactly across partitions (Chan, Golub & LeVeque 1979, "Updating formulae and a pairwise algorithm
+for computing sample variances"; see `merge_moments`). A Spark engine fills them with
+``count``, ``avg`` and ``var_pop * count`` (Spark's own aggregates merge partial central moments the
+same way), or by merging per-partition (n, mean, m2) triples with `merge_moments`.
+
+Rank sums from a value -> count-per-arm table: sort the distinct pooled values; with ``below`` the
+number of pooled values smaller than v and ``c`` the pooled count of v, every unit with value v has
+the average rank ``below + (c + 1) / 2``; ``rank_sum[arm] = sum_v count[arm, v] * avg_rank(v)`` and
+``ties = sum_v (c^3 - c)``. (pandas: `scipy.stats.rankdata(method="average")`; Spark: a group-by on
+the value, then a running sum of counts over the sorted values.)
 """
 
 from __future__ import annotations
@@ -43,8 +67,23 @@ class IntegrityTables:
 class BalanceTables:
     """Per-arm sums for numeric covariates and per-level counts for categorical ones."""
 
-    numeric: pd.DataFrame  # columns: covariate, arm, n, missing, sum, sumsq, binary (bool per covariate)
+    # columns: covariate, arm, n, missing, invalid, mean, m2, rank_sum, ties, binary (see module docstring)
+    numeric: pd.DataFrame
     categorical: dict[str, pd.DataFrame]  # covariate -> index: level, columns: arms
+
+
+NUMERIC_COLUMNS = ["covariate", "arm", "n", "missing", "invalid", "mean", "m2", "rank_sum", "ties", "binary"]
+
+
+def merge_moments(a: tuple[int, float, float], b: tuple[int, float, float]) -> tuple[int, float, float]:
+    """Merge two partial (n, mean, m2) triples into one (Chan, Golub & LeVeque 1979, pairwise update)."""
+    na, ma, qa = a
+    nb, mb, qb = b
+    n = na + nb
+    if n == 0:
+        return 0, 0.0, 0.0
+    delta = mb - ma
+    return n, ma + delta * nb / n, qa + qb + delta * delta * na * nb / n
 
 
 @dataclass

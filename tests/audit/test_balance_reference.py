@@ -15,12 +15,13 @@ from armlock.assign import spec_from_dict
 from armlock.audit.balance import (
     check_balance,
     chi2_independence_p,
-    moments,
+    sample_variance,
     smd_binary,
     smd_continuous,
     welch_p,
 )
-from armlock.audit.tables import BalanceTables
+from armlock.audit.engine_pandas import numeric_moments
+from armlock.audit.tables import NUMERIC_COLUMNS, BalanceTables, merge_moments
 
 
 def test_smd_continuous_hand_computation() -> None:
@@ -57,11 +58,52 @@ def test_smd_matches_statsmodels_effectsize_smd_without_bias_correction() -> Non
     assert ours == pytest.approx(bc / corr, rel=1e-10)
 
 
-def test_moments_from_sums_match_numpy() -> None:
-    x = np.random.default_rng(2).lognormal(3, 1, 10_000)
-    m, v = moments(len(x), float(x.sum()), float(x @ x))
-    assert m == pytest.approx(x.mean(), rel=1e-12)
-    assert v == pytest.approx(x.var(ddof=1), rel=1e-8)
+def test_moments_match_numpy_and_keep_precision_at_a_large_offset() -> None:
+    # Reference: numpy mean / var(ddof=1) on the raw values. 1e9 + N(0, 1): raw sums of squares
+    # would cancel to nothing (mean/SD = 1e9); central moments keep the SMD to 1e-9.
+    rng = np.random.default_rng(2)
+    for x in (rng.lognormal(3, 1, 10_000), 1e9 + rng.normal(0, 1, 10_000)):
+        arm = rng.integers(0, 2, len(x))
+        rows = numeric_moments(x, arm, 2)
+        for i in (0, 1):
+            assert rows[i]["mean"] == pytest.approx(x[arm == i].mean(), rel=1e-15)
+            var = sample_variance(int(rows[i]["n"]), float(rows[i]["m2"]))
+            assert var == pytest.approx(x[arm == i].var(ddof=1), rel=1e-9)
+        a, b = x[arm == 1], x[arm == 0]
+        ref = (a.mean() - b.mean()) / math.sqrt((a.var(ddof=1) + b.var(ddof=1)) / 2)
+        ours = smd_continuous(float(rows[1]["mean"]), sample_variance(int(rows[1]["n"]), float(rows[1]["m2"])),
+                              float(rows[0]["mean"]), sample_variance(int(rows[0]["n"]), float(rows[0]["m2"])))
+        assert abs(ours - ref) < 1e-9
+
+
+def test_merge_moments_equals_the_pooled_moments() -> None:
+    # Chan, Golub & LeVeque (1979), pairwise update; reference: numpy on the pooled values.
+    rng = np.random.default_rng(9)
+    x = 1e9 + rng.normal(0, 1, 3001)
+    parts = np.array_split(x, 7)
+    acc = (0, 0.0, 0.0)
+    for p in parts:
+        acc = merge_moments(acc, (len(p), float(p.mean()), float(((p - p.mean()) ** 2).sum())))
+    assert acc[0] == len(x)
+    assert acc[1] == pytest.approx(x.mean(), rel=1e-15)
+    # each part's mean is rounded to the spacing of doubles near 1e9 (1.2e-7), so 1e-8 relative
+    assert acc[2] / (len(x) - 1) == pytest.approx(x.var(ddof=1), rel=1e-8)
+
+
+def test_rank_sums_and_ties_give_scipy_kruskal() -> None:
+    # Reference: scipy.stats.kruskal (Kruskal & Wallis 1952, with the tie correction); the rank sums
+    # come from the pooled average ranks (scipy.stats.rankdata), as audit.tables documents.
+    rng = np.random.default_rng(10)
+    x = np.where(rng.random(900) < 0.6, 0.0, np.round(rng.lognormal(3, 1, 900), 0))
+    arm = rng.integers(0, 3, 900)
+    rows = numeric_moments(x, arm, 3)
+    n = np.array([r["n"] for r in rows], dtype=float)
+    r_sum = np.array([r["rank_sum"] for r in rows])
+    big_n = n.sum()
+    h = 12 / (big_n * (big_n + 1)) * (r_sum ** 2 / n).sum() - 3 * (big_n + 1)
+    h /= 1 - rows[0]["ties"] / (big_n ** 3 - big_n)
+    ref = stats.kruskal(*(x[arm == i] for i in range(3)))
+    assert h == pytest.approx(ref.statistic, rel=1e-10)
 
 
 def test_welch_matches_statsmodels_and_scipy() -> None:
@@ -87,11 +129,11 @@ SPEC = spec_from_dict({"name": "t", "salt": "s", "start": "2026-01-05T00:00:00Z"
 def _tables(data: dict[str, tuple[np.ndarray, np.ndarray]], cats: dict[str, pd.DataFrame]) -> BalanceTables:
     rows = []
     for cov, (h, e) in data.items():
-        binary = bool(np.isin(np.concatenate([h, e]), (0, 1)).all())
-        for arm, x in (("holdout", h), ("exposed", e)):
-            rows.append({"covariate": cov, "arm": arm, "n": len(x), "missing": 0, "sum": float(x.sum()),
-                         "sumsq": float(x @ x), "binary": binary})
-    return BalanceTables(numeric=pd.DataFrame(rows), categorical=cats)
+        x = np.concatenate([h, e])
+        arm = np.repeat([0, 1], [len(h), len(e)])
+        for name, r in zip(("holdout", "exposed"), numeric_moments(x, arm, 2)):
+            rows.append({"covariate": cov, "arm": name, **{c: r[c] for c in NUMERIC_COLUMNS[2:]}})
+    return BalanceTables(numeric=pd.DataFrame(rows, columns=NUMERIC_COLUMNS), categorical=cats)
 
 
 def test_check_balance_figures_equal_direct_computation_and_flag_imbalance() -> None:
