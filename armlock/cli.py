@@ -3,10 +3,13 @@
 from __future__ import annotations
 
 import os
+import re
 import sys
 import traceback
+from typing import Any
 
 import typer
+from typer.core import TyperArgument, TyperCommand, TyperGroup
 
 from armlock.assign import ArmlockError, __version__
 from armlock.assign.errors import EXIT_INTERNAL
@@ -15,8 +18,53 @@ from . import cmd_assign, cmd_snippet, cmd_spec
 from . import cmd_demo, cmd_history
 from . import cmd_audit
 
+# The commands in the order of the job: plan it, fix the split, apply it, audit it, read it out.
+# A command not listed here (a new one) is shown after these, in the order it was registered.
+JOB_ORDER = ("plan", "init", "check", "assign", "snippet", "audit", "readout", "history", "demo")
+
+
+def usage_name(param: Any) -> str:
+    """An argument as the usage line shows it: NAME when required, [NAME] when optional."""
+    name = (param.metavar or param.name or "").strip("[]").upper()
+    return name if param.required else f"[{name}]"
+
+
+class ArmlockCommand(TyperCommand):
+    """One command's help: usage in one notation, example paragraphs printed as written."""
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        for param in self.params:  # arguments read the same in the usage line and in their list
+            if isinstance(param, TyperArgument):
+                param.metavar = (param.metavar or param.name or "").strip("[]").upper()
+
+    def collect_usage_pieces(self, ctx: Any) -> list[str]:
+        pieces = [self.options_metavar] if self.options_metavar else []
+        for param in self.get_params(ctx):
+            if isinstance(param, TyperArgument):
+                pieces.append(usage_name(param))
+        return pieces
+
+    def format_help_text(self, ctx: Any, formatter: Any) -> None:
+        # An "Example:" paragraph keeps its line breaks: click leaves a paragraph that starts
+        # with a lone \b line unwrapped.
+        if self.help:
+            self.help = re.sub(r"(?m)^([ \t]*)(Examples?:)", "\\1\b\n\\1\\2", self.help)
+        super().format_help_text(ctx, formatter)
+
+
+class ArmlockGroup(TyperGroup):
+    """The root command: lists its commands in the job's order (JOB_ORDER)."""
+
+    def list_commands(self, ctx: Any) -> list[str]:
+        names = list(self.commands)
+        rank = {n: i for i, n in enumerate(JOB_ORDER)}
+        return sorted(names, key=lambda n: (rank.get(n, len(JOB_ORDER)), names.index(n)))
+
+
 app = typer.Typer(
     name="armlock",
+    cls=ArmlockGroup,
     help=(
         "armlock: the plumbing of a user-level advertising holdout test.\n\n"
         "A spec file fixes the split (salt + arms); `assign` and the browser snippet apply it "
@@ -51,6 +99,9 @@ cmd_snippet.register(app)
 cmd_history.register(app)
 cmd_demo.register(app)
 cmd_audit.register(app)
+for _info in app.registered_commands:  # every command, however registered, gets the same help layout
+    if _info.cls in (None, TyperCommand):
+        _info.cls = ArmlockCommand
 
 
 def main() -> None:

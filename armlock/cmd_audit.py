@@ -54,7 +54,7 @@ def audit_cmd(
     exposures: Path = typer.Option(None, "--exposures", help="The ad vendor's exposure log (impressions, clicks); enables the leakage check."),
     identities: Path = typer.Option(None, "--identities", help="Identity links: unit id -> logged-in customer key; enables the churn check."),
     as_of: str = typer.Option(None, "--as-of", help="Audit as of the end of this UTC day (YYYY-MM-DD); later rows are ignored. Default: the last first-seen day."),
-    fmt: str = typer.Option("text", "--format", "-f", help=f"Report format: {', '.join(FORMATS)}."),
+    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help="Report format: text for a terminal, markdown for a ticket, json (schema armlock.audit/1) for machines, html for a self-contained page."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is warn (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),

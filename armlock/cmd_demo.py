@@ -179,7 +179,7 @@ def _headline(summary: str) -> str:
 
 
 def demo(
-    folder: Path = typer.Argument(Path("armlock-demo"), metavar="DIR", help="Folder to write the demo into (default ./armlock-demo)."),
+    folder: Path = typer.Argument(Path("armlock-demo"), metavar="DIR", help="Folder to write the demo into; an existing one must be empty or an earlier demo."),
     clean: bool = typer.Option(False, "--clean", help="Inject no fault: the healthy version of the same test."),
 ) -> None:
     """Build an invented shop's twelve-week holdout test and audit it week by week.

@@ -50,7 +50,7 @@ def trend_table(runs: list[dict[str, Any]]) -> str:
 def history_cmd(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
     history_path: Path = typer.Option(None, "--history", help="The history file (default: beside the spec, SPEC.history.sqlite)."),
-    fmt: str = typer.Option("text", "--format", "-f", help="text (a table and sentences) or json."),
+    fmt: str = typer.Option("text", "--format", "-f", metavar="<text|json>", help="text (a table and sentences) or json."),
 ) -> None:
     """Show the recorded audits of a spec week by week, and what changed since the previous run.
 

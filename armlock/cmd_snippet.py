@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from enum import Enum
 from pathlib import Path
 
 import typer
@@ -13,17 +12,16 @@ from armlock.assign.snippet import render_snippet
 from .common import SPEC_HELP, err, open_spec
 
 
-class Form(str, Enum):
-    html = "html"
-    js = "js"
+FORMS = ("html", "js")
 
 
 def snippet(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    form: Form = typer.Option(
-        Form.html,
+    form: str = typer.Option(
+        "html",
         "--form",
         "-f",
+        metavar="<html|js>",
         help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host.",
     ),
     out: Path = typer.Option(
@@ -38,8 +36,10 @@ def snippet(
 
     Example: armlock snippet --spec spring-retargeting.toml --form html --out armlock-tag.html
     """
+    if form not in FORMS:
+        raise typer.BadParameter(f"unknown form {form!r}; choose html or js", param_hint="--form")
     spec = open_spec(spec_path)
-    text = render_snippet(spec, form.value)
+    text = render_snippet(spec, form)
     if out is None:
         typer.echo(text, nl=False)
         return
@@ -48,7 +48,7 @@ def snippet(
     except OSError as exc:
         raise SpecError(f"{out}: cannot write the snippet: {exc.strerror}") from None
     err(
-        f"Wrote {out} ({form.value}, {len(text.encode('utf-8'))} bytes) for experiment "
+        f"Wrote {out} ({form}, {len(text.encode('utf-8'))} bytes) for experiment "
         f"{spec.name!r}, fingerprint {spec.fingerprint}"
     )
 

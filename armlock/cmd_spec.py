@@ -8,6 +8,7 @@ from pathlib import Path
 import typer
 
 from armlock.assign import SpecError, check_lock, load_spec
+from armlock.assign.errors import EXIT_BAD_INPUT
 from armlock.assign.init import parse_arms, render_spec_toml
 from armlock.assign.spec import EXPERIMENT_PATTERN
 
@@ -17,7 +18,11 @@ from .common import SPEC_HELP, warn_box
 def init(
     name: str = typer.Argument(..., help="Experiment name: letters, digits, '.', '_' or '-'."),
     holdout_share: float = typer.Option(0.5, "--holdout-share", help="Share of visitors held out from the vendor, e.g. 0.1 for 10%."),
-    arms: str = typer.Option(None, "--arms", help="All arms as NAME=SHARE,... (shares, N%% or Nbp), overriding --holdout-share; e.g. holdout=0.1,exposed_a=0.45,exposed_b=0.45."),
+    arms: str = typer.Option(None, "--arms", help=(
+        "All arms as NAME=SHARE,... in order, overriding --holdout-share. A share is a fraction (0.1), "
+        "a percentage (10%) or basis points (1000bp); they add up to 1. An arm whose name starts with "
+        "'holdout' gets role holdout (the vendor must never reach it), every other arm role exposed; "
+        "a test needs at least one of each. E.g. holdout=0.1,exposed_a=0.45,exposed_b=0.45.")),
     out: Path = typer.Option(None, "--out", "-o", help="Where to write the spec (default NAME.toml here)."),
     force: bool = typer.Option(False, "--force", help="Overwrite an existing file."),
 ) -> None:
@@ -34,6 +39,10 @@ def init(
     try:
         if arms:
             arm_list = parse_arms(arms)
+            if not any(n.lower().startswith("holdout") for n, _ in arm_list):
+                raise ValueError(f"--arms {arms}: no arm name starts with 'holdout', so no arm would be held "
+                                 "out; name the held-out arm holdout (or holdout_...), e.g. "
+                                 "holdout=10%,exposed=90%")
         else:
             if not 0 < holdout_share < 1:
                 raise ValueError(f"--holdout-share must be between 0 and 1, got {holdout_share}")
@@ -44,6 +53,8 @@ def init(
     except ValueError as exc:
         raise SpecError(str(exc)) from None
     target = out or Path(f"{name}.toml")
+    if target.is_dir():
+        raise SpecError(f"--out {target}: is a folder; give the spec's file name, e.g. --out {target / (name + '.toml')}")
     if target.exists() and not force:
         raise SpecError(f"{target}: already exists; choose another --out or pass --force")
     text = render_spec_toml(name, arm_list)
@@ -59,13 +70,21 @@ def init(
 
 def check(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON (an invalid spec gives valid: false and its errors, exit code 4)."),
 ) -> None:
     """Validate a spec and print its fingerprint and lock status (does not record the lock).
 
     Example: armlock check --spec spring-retargeting.toml
     """
-    spec = load_spec(spec_path)
+    try:
+        spec = load_spec(spec_path)
+    except SpecError as exc:
+        if not as_json:
+            raise
+        head, _, rest = str(exc).partition("\n")
+        errors = [line.strip() for line in rest.splitlines() if line.strip()] or [head]
+        typer.echo(json.dumps({"spec": str(spec_path), "valid": False, "errors": errors}, indent=2, ensure_ascii=False))
+        raise typer.Exit(EXIT_BAD_INPUT) from None
     lock = check_lock(spec, spec_path, write=False)
     info = {
         "spec": str(spec_path), "valid": True, "experiment": spec.name, "fingerprint": spec.fingerprint,
