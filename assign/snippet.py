@@ -220,7 +220,13 @@ def minify(src: str, keep_names: frozenset[str] = frozenset()) -> str:
     letters = ascii_lowercase + ascii_uppercase
     pool = ("".join(p) for n in (1, 2, 3) for p in product(letters, repeat=n))
     fresh = (p for p in pool if p not in used and p not in _KEYWORDS)
-    rename = {n: next(fresh) for n in _declared(tokens) if len(n) > 1 and n not in keep_names}
+    # the most used names get the shortest replacements (ties keep the order of declaration)
+    count: dict[str, int] = {}
+    for k, t in tokens:
+        if k == "word":
+            count[t.split(".")[0]] = count.get(t.split(".")[0], 0) + 1
+    long_names = [n for n in _declared(tokens) if len(n) > 1 and n not in keep_names]
+    rename = {n: next(fresh) for n in sorted(long_names, key=lambda n: -count[n])}
     sig = [i for i, t in enumerate(tokens) if t[0] != "ws"]
     out = ""
     space = False
@@ -230,7 +236,8 @@ def minify(src: str, keep_names: frozenset[str] = frozenset()) -> str:
         before = tokens[sig[n - 1]][1] if n else ""
         after = tokens[sig[n + 1]][1] if n + 1 < len(sig) else ""
         # a property name (after `.`) or an object key (`{name:` / `,name:`) keeps its name
-        is_key = before in ("{", ",") and after == ":"
+        # (an ES5 accessor `get name(` is a key too)
+        is_key = (before in ("{", ",") and after == ":") or (before in ("get", "set") and after == "(")
         if text == ";" and after == "}":
             continue  # `;}` -> `}`: the template has no empty statements, so this is ASI-safe
         if kind == "word" and before != "." and not is_key:
@@ -246,6 +253,16 @@ def minify(src: str, keep_names: frozenset[str] = frozenset()) -> str:
                 out += " "
         out += text
     return out + "\n"
+
+
+def preload_stub(global_name: str = "armlock") -> str:
+    """The one-line queue a page may run before the snippet has loaded (README, "Paste it").
+
+    `gate()` calls made before the snippet arrives are kept in `q` as their argument lists; the
+    snippet runs them through its own gate when it loads. Run after the snippet, it does nothing.
+    """
+    g = global_name
+    return f"window.{g}=window.{g}||{{q:[],gate:function(){{window.{g}.q.push(arguments)}}}};"
 
 
 @lru_cache(maxsize=1)

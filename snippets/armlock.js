@@ -6,8 +6,14 @@
   // b their cumulative weights (basis points), x exposed arm names, k own cookie name, m Max-Age (s), o cookie domain, l data-layer name,
   // e event name, r error event name, g global object name, i id sources [[kind, name, pattern]],
   // c consent [key, value] or [function path] or null, q QA override parameter ("" = off).
-  var dl, G, queue = [], waiting = 1;
+  // The decision lives in these closure variables only; window[C.g] is a frozen read-only view.
+  var dl, G, arm = null, forced = false, state = 'waiting', queue = [], hexDigits = '0123456789abcdef',
+    toText = String, freeze = Object.freeze, U8 = Uint8Array, cr = w.crypto;
   // @hash-begin (tests run the code between these markers on the xxHash reference vectors)
+  // Built-ins the hash, the arm and the gate use are taken once, here, at load. Bound copies
+  // (f = call.bind(method), called as f(thisValue, args...)) look nothing up when called, so page
+  // code that later patches a prototype or Function.prototype.call cannot reach them.
+  var FP = Function.prototype, unbind = FP.bind.bind(FP.call), code = unbind(''.charCodeAt);
   // ---- unsigned 64-bit arithmetic on four 16-bit limbs, least significant first ----------
   // (every intermediate stays below 2^53, so plain doubles compute it exactly)
   function add(a, b) {
@@ -24,7 +30,7 @@
       for (c = 0, j = 0; i + j < 4; j++) {
         c += r[i + j] + a[i] * b[j];
         r[i + j] = c & 65535;
-        c = Math.floor(c / 65536);
+        c = (c - r[i + j]) / 65536;
       }
     }
     return r;
@@ -66,14 +72,26 @@
   function merge(acc, v) {
     return add(mul(xor(acc, round(ZERO, v)), P1), P4);
   }
-  // UTF-8 bytes of a JS string: a lone surrogate first becomes U+FFFD, as TextEncoder does
-  // (WHATWG Encoding Standard), then encodeURIComponent + unescape (ECMA-262 5.1, 15.1.3.4 and
-  // B.2.2) turn each UTF-8 byte into one character
+  // UTF-8 bytes of a JS string (RFC 3629, section 3); a lone surrogate becomes U+FFFD, as
+  // TextEncoder does (WHATWG Encoding Standard). An own loop over a charCodeAt taken at load, so
+  // page code that patches String.prototype later cannot change the bytes that are hashed.
   function utf8(s) {
-    var t = unescape(encodeURIComponent(s.replace(/[\ud800-\udbff][\udc00-\udfff]|[\ud800-\udfff]/g, function (p) {
-      return p.length > 1 ? p : '\ufffd';
-    }))), out = [], i;
-    for (i = 0; i < t.length; i++) out.push(t.charCodeAt(i));
+    for (var out = [], n = 0, i = 0, c, d, k; i < s.length; i++) {
+      c = code(s, i);
+      if (c > 55295 && c < 57344) {
+        d = code(s, i + 1);
+        if (c < 56320 && d > 56319 && d < 57344) {
+          c = 65536 + (c - 55296) * 1024 + d - 56320;
+          i++;
+        } else {
+          c = 65533;
+        }
+      }
+      // k continuation bytes; the lead byte is 110xxxxx, 1110xxxx or 11110xxx for k = 1, 2, 3
+      k = c < 128 ? 0 : c < 2048 ? 1 : c < 65536 ? 2 : 3;
+      out[n++] = k ? 256 - (128 >> k) | c >> 6 * k : c;
+      while (k--) out[n++] = 128 | c >> 6 * k & 63;
+    }
     return out;
   }
   function xxh64(b) {
@@ -109,17 +127,32 @@
     return xsr(mul(xsr(mul(xsr(acc, 33), P2), 29), P3), 32);
   }
   // @hash-end
+  var rand = cr && unbind(cr.getRandomValues);
   // bucket = ((h >> 32) * 10000) >> 32 on the top 32 bits; the product is exact in a double
   function bucketOf(id) {
     if (typeof id != 'string' || id === '') return null;
-    var h = xxh64(utf8(C.s + ':' + id));
-    return Math.floor((h[3] * 65536 + h[2]) * 10000 / 4294967296);
+    var h = xxh64(utf8(C.s + ':' + id)), x = (h[3] * 65536 + h[2]) * 10000;
+    return (x - x % 4294967296) / 4294967296;
   }
   // the first arm whose cumulative weight exceeds the bucket
   function armOf(id) {
     var b = bucketOf(id), i;
     for (i = 0; b !== null && i < C.b.length; i++) if (b < C.b[i]) return C.a[i];
     return null;
+  }
+  // whether a list holds v: an own loop, so a patched Array.prototype.indexOf cannot answer
+  function has(list, v) {
+    for (var i = 0; i < list.length; i++) if (list[i] === v) return 1;
+    return 0;
+  }
+  // text of any thrown value, never throwing itself (a Symbol, an object without a prototype or
+  // with a throwing toString gives its type instead)
+  function text(e) {
+    try {
+      return toText(e && e.message || e);
+    } catch (x) {
+      return typeof e;
+    }
   }
   // ---- page integration ---------------------------------------------------------------------
   // a dotted path such as "site.customer.key" read from an object, without eval
@@ -144,13 +177,20 @@
     }
     return v;
   }
-  // RFC 9562 version-4 UUID from the browser's cryptographic random source (no fallback)
+  // RFC 9562 version-4 UUID from the browser's cryptographic random source (no fallback). It is
+  // drawn twice: a source that left the buffer at zero, or gives the same bytes again, fails closed.
   function mint() {
-    var b = new Uint8Array(16), s = '', i;
-    w.crypto.getRandomValues(b);
+    var b = new U8(16), c = new U8(16), s = '', i, any = 0, same = 1;
+    rand(cr, b);
+    rand(cr, c);
+    for (i = 0; i < 16; i++) {
+      any |= b[i];
+      same &= b[i] == c[i];
+    }
+    if (!any || same) throw 'random source failed: ' + (any ? 'the same bytes twice' : 'no bytes');
     b[6] = b[6] & 15 | 64;
     b[8] = b[8] & 63 | 128;
-    for (i = 0; i < 16; i++) s += (i == 4 || i == 6 || i == 8 || i == 10 ? '-' : '') + (b[i] + 256).toString(16).slice(1);
+    for (i = 0; i < 16; i++) s += (i == 4 || i == 6 || i == 8 || i == 10 ? '-' : '') + hexDigits[b[i] >> 4] + hexDigits[b[i] & 15];
     return s;
   }
   function store(name, v) {
@@ -167,7 +207,7 @@
     for (i = 0; i < C.i.length; i++) {
       s = C.i[i];
       v = s[0] == 'cookie' ? getCookie(s[1]) : s[0] == 'global' ? path(w, s[1]) : fromLayer(s[1]);
-      if (typeof v == 'number' && isFinite(v)) v = String(v);
+      if (typeof v == 'number' && v - v === 0) v = toText(v);
       if (typeof v == 'string' && s[2]) {
         m = new RegExp(s[2]).exec(v);
         v = m && m[1] || '';
@@ -179,21 +219,27 @@
     if (!/^[\w.\-]{1,128}$/.test(kept || '')) kept = '';
     v = own || kept || mint();
     if (own !== v) {
-      d.cookie = C.k + '=' + v + '; Path=/; Max-Age=' + Math.min(C.m, 34560000) +
+      d.cookie = C.k + '=' + v + '; Path=/; Max-Age=' + C.m +
         (C.o ? '; Domain=' + C.o : '') + '; SameSite=Lax' + (w.location.protocol == 'https:' ? '; Secure' : '');
       if (getCookie(C.k) !== v) throw 'cookie not stored';
     }
     if (kept !== v) store(C.k, v);
     return v;
   }
-  // QA override: ?<param>=<arm> forces that arm for this page view only; unknown arm = error
+  // QA override: ?<param>=<arm> forces that arm for this page view only; unknown arm = error.
+  // A parameter that is not ours and does not decode (e.g. "100%") is skipped.
   function forcedArm() {
     var parts = C.q ? w.location.search.replace(/^\?/, '').split('&') : [], i, kv, v;
     for (i = 0; i < parts.length; i++) {
       kv = parts[i].split('=');
-      if (decodeURIComponent(kv[0]) === C.q) {
+      try {
+        v = decodeURIComponent(kv[0]) === C.q;
+      } catch (e) {
+        v = false;
+      }
+      if (v) {
         v = decodeURIComponent((kv[1] || '').replace(/\+/g, ' '));
-        if (C.a.indexOf(v) >= 0) return v;
+        if (has(C.a, v)) return v;
         throw 'QA parameter: no such arm';
       }
     }
@@ -207,59 +253,94 @@
       return typeof f == 'function' && f() === true;
     }
     f = fromLayer(C.c[0]);
-    return f != null && String(f) === C.c[1];
+    return f != null && toText(f) === C.c[1];
   }
   function send(o) {
     try {
       dl.push(o);
     } catch (e) {}
   }
+  function report(message) {
+    send({event: C.r, armlock_experiment: C.n, armlock_error: message});
+  }
+  // one gated callback; whatever it throws is reported and stays inside this call
   function run(job) {
     try {
-      if (job[1].indexOf(G.arm) >= 0) job[0](G.arm);
+      if (has(job[1], arm)) job[0](arm);
     } catch (e) {
-      send({event: C.r, armlock_experiment: C.n, armlock_error: 'callback: ' + e});
+      report('callback: ' + text(e));
     }
   }
   function fail(e) {
-    waiting = 0;
+    arm = null;
+    state = 'failed';
     queue = [];
-    if (G) {
-      G.arm = null;
-      G.state = 'failed';
-    }
-    send({event: C.r, armlock_experiment: C.n, armlock_error: String(e && e.message || e)});
+    report(text(e));
   }
   function decide() {
-    var f = forcedArm(), arm = f || armOf(visitorId());
-    if (!arm) throw 'no arm';
-    waiting = 0;
-    G.arm = arm;
-    G.forced = !!f;
-    G.state = 'ready';
-    send({event: C.e, armlock_experiment: C.n, armlock_arm: arm, armlock_fingerprint: C.f, armlock_forced: G.forced});
-    while (queue.length) run(queue.shift());
+    var f = forcedArm(), a = f || armOf(visitorId());
+    if (!a) throw 'no arm';
+    arm = a;
+    forced = !!f;
+    state = 'ready';
+    send({event: C.e, armlock_experiment: C.n, armlock_arm: a, armlock_fingerprint: C.f, armlock_forced: forced});
   }
+  // decide once consent is there, then run the queued callbacks, each on its own
+  // (the queue is emptied before any callback runs, so a re-entrant call never runs one twice)
   function check() {
+    var jobs, i;
     try {
-      if (waiting && consented()) decide();
+      if (state == 'waiting' && consented()) decide();
     } catch (e) {
       fail(e);
     }
+    if (state == 'ready') {
+      jobs = queue;
+      queue = [];
+      for (i = 0; i < jobs.length; i++) run(jobs[i]);
+    }
+  }
+  // gate(callback[, arms]): run callback(arm) only for these arms (default: the exposed ones)
+  function gate(cb, arms) {
+    var job = [cb, arms == null ? C.x : typeof arms == 'string' ? [arms] : arms];
+    if (state == 'ready') run(job);
+    else if (state == 'waiting') queue[queue.length] = job;
+  }
+  // one call queued by the pre-load stub: its arguments (callback, arms)
+  function queued(args) {
+    if (args) gate(args[0], args[1]);
   }
   try {
-    G = w[C.g] = {
-      experiment: C.n, fingerprint: C.f, arm: null, forced: false, state: 'waiting',
-      bucketOf: bucketOf, armOf: armOf, recheck: check,
-      // gate(callback[, arms]): run callback(arm) only for these arms (default: the exposed ones)
-      gate: function (cb, arms) {
-        var job = [cb, arms == null ? C.x : typeof arms == 'string' ? [arms] : arms];
-        if (G.state == 'ready') run(job);
-        else if (waiting) queue.push(job);
-      }
+    dl = w[C.l];
+    if (dl == null) dl = w[C.l] = [];
+    G = w[C.g];
+    // loaded before on this page: the first copy stays in charge; a copy of another spec on the
+    // same global only reports the clash (no cookie, no arm event, no gated callback)
+    if (G && typeof G.fingerprint == 'string') {
+      if (G.fingerprint !== C.f) report('global ' + C.g + ' holds fingerprint ' + G.fingerprint + ', this copy has ' + C.f);
+      return;
+    }
+    var stub = G && G.q, i;
+    G = {
+      experiment: C.n, fingerprint: C.f,
+      get arm() {
+        return arm;
+      },
+      get state() {
+        return state;
+      },
+      get forced() {
+        return forced;
+      },
+      bucketOf: bucketOf, armOf: armOf, recheck: check, gate: gate,
+      // a page that kept the stub's gate (it pushes into armlock.q) still reaches the real one
+      q: freeze({push: queued})
     };
-    dl = w[C.l] = w[C.l] || [];
-    if (C.c) {
+    w[C.g] = freeze(G);
+    for (i = 0; stub && i < stub.length; i++) queued(stub[i]);
+    // consent by data layer: re-check on every push. A data layer that is not an object with a
+    // push method is left exactly as the page made it
+    if (C.c && typeof dl.push == 'function') {
       var push = dl.push;
       dl.push = function () {
         var out = push.apply(dl, arguments);
@@ -269,8 +350,6 @@
     }
     check();
   } catch (e) {
-    try {
-      fail(e);
-    } catch (e2) {}
+    fail(e);
   }
 })(window, document);

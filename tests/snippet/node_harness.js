@@ -7,7 +7,13 @@
 //   globals: extra properties of window (JSON values); before: data-layer entries pushed first;
 //   after: data-layer entries pushed after the snippet ran; gate: [[arms or null], ...] calls
 //   of gate() made right after the snippet ran (each records whether its callback ran);
-//   consentAfter: after the snippet ran, set window[name] = function returning true, then recheck.
+//   consentAfter: after the snippet ran, set window[name] = function returning true, then recheck;
+//   pre: page script run before the snippet; again: snippet sources run after the first one
+//   (a second tag); post: page script run last; probe: an expression whose JSON value is returned;
+//   random: "zero" (getRandomValues leaves the buffer as it is) or "repeat" (same bytes each call).
+// Page scripts run in the same context as the snippet, whose global object is `window`, so
+// bare names (armlock, Array.prototype...) mean what they mean in a page. An exception of a page
+// script is recorded in scriptErrors, as a browser reports it, and the next script still runs.
 'use strict';
 var vm = require('vm');
 var nodeCrypto = require('crypto');
@@ -33,25 +39,40 @@ function main(req) {
     }
   });
   var store = Object.assign({}, req.storage || {});
-  var window = Object.assign({}, req.globals || {});
+  var sandbox = Object.assign({}, req.globals || {});
+  var ctx = vm.createContext(sandbox);
+  var window = vm.runInContext('this', ctx);
+  sandbox.window = window;
+  sandbox.document = document;
   window.location = {protocol: req.protocol || 'https:', search: req.search || ''};
   window.localStorage = {
     getItem: function (k) { return Object.prototype.hasOwnProperty.call(store, k) ? store[k] : null; },
     setItem: function (k, v) { store[k] = String(v); }
   };
+  var fixed = nodeCrypto.randomBytes(16);
   if (!req.noCrypto) window.crypto = {getRandomValues: function (b) {
-    var r = nodeCrypto.randomBytes(b.length);
+    if (req.random === 'zero') return b;
+    var r = req.random === 'repeat' ? fixed : nodeCrypto.randomBytes(b.length);
     for (var i = 0; i < b.length; i++) b[i] = r[i];
     return b;
   }};
   if (req.before) window.dataLayer = req.before.slice();
-  var ctx = vm.createContext({window: window, document: document});
+  var scriptErrors = [];
+  function page(src, name) {
+    try {
+      vm.runInContext(src, ctx, {filename: name});
+    } catch (e) {
+      scriptErrors.push(name + ': ' + String(e));
+    }
+  }
+  if (req.pre) page(req.pre, 'pre.js');
   var pageError = null;
   try {
     vm.runInContext(req.snippet, ctx, {filename: 'snippet.js'});
   } catch (e) {
     pageError = String(e);
   }
+  (req.again || []).forEach(function (src, i) { page(src, 'again' + i + '.js'); });
   var g = window[req.global || 'armlock'];
   var ran = [];
   (req.gate || []).forEach(function (arms, i) {
@@ -63,8 +84,10 @@ function main(req) {
     window[req.consentAfter] = function () { return true; };
     g.recheck();
   }
+  if (req.post) page(req.post, 'post.js');
   var out = {
-    pageError: pageError,
+    pageError: pageError, scriptErrors: scriptErrors,
+    probe: req.probe ? JSON.parse(JSON.stringify(vm.runInContext(req.probe, ctx)) || 'null') : null,
     arm: g ? g.arm : null, forced: g ? g.forced : null, state: g ? g.state : null,
     experiment: g ? g.experiment : null, fingerprint: g ? g.fingerprint : null,
     dataLayer: JSON.parse(JSON.stringify(window[req.dataLayer || 'dataLayer'] || null)),
