@@ -8,7 +8,9 @@ import json
 import os
 import random
 import shutil
+import ssl
 import subprocess
+import tempfile
 import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -109,21 +111,80 @@ def random_ids(n: int, seed: int) -> list[str]:
     return out
 
 
+def self_signed_certificate(directory: Path) -> tuple[Path, Path]:
+    """A throw-away self-signed certificate for 127.0.0.1, valid one day: (cert.pem, key.pem).
+
+    Made with the `openssl` command when present, else with the `cryptography` package; without
+    either the test skips, except under CI=true where it fails.
+    """
+    cert, key = directory / "cert.pem", directory / "key.pem"
+    openssl = shutil.which("openssl")
+    if openssl is not None:
+        subprocess.run([openssl, "req", "-x509", "-newkey", "ec", "-pkeyopt", "ec_paramgen_curve:prime256v1",
+                        "-nodes", "-keyout", str(key), "-out", str(cert), "-days", "1",
+                        "-subj", "/CN=127.0.0.1", "-addext", "subjectAltName=IP:127.0.0.1"],
+                       check=True, capture_output=True, timeout=60)
+        return cert, key
+    try:
+        return _certificate_with_cryptography(cert, key)
+    except ImportError:
+        if os.environ.get("CI") == "true":
+            pytest.fail("neither openssl nor the cryptography package is installed but CI=true")
+        pytest.skip("neither openssl nor the cryptography package is installed")
+
+
+def _certificate_with_cryptography(cert: Path, key: Path) -> tuple[Path, Path]:
+    import ipaddress
+    from datetime import timedelta
+
+    from cryptography import x509
+    from cryptography.hazmat.primitives import hashes, serialization
+    from cryptography.hazmat.primitives.asymmetric import ec
+    from cryptography.x509.oid import NameOID
+
+    private = ec.generate_private_key(ec.SECP256R1())
+    name = x509.Name([x509.NameAttribute(NameOID.COMMON_NAME, "127.0.0.1")])
+    now = datetime.now(UTC)
+    certificate = (
+        x509.CertificateBuilder().subject_name(name).issuer_name(name).public_key(private.public_key())
+        .serial_number(x509.random_serial_number()).not_valid_before(now - timedelta(minutes=5))
+        .not_valid_after(now + timedelta(days=1))
+        .add_extension(x509.SubjectAlternativeName([x509.IPAddress(ipaddress.ip_address("127.0.0.1"))]),
+                       critical=False)
+        .sign(private, hashes.SHA256())
+    )
+    key.write_bytes(private.private_bytes(serialization.Encoding.PEM, serialization.PrivateFormat.PKCS8,
+                                          serialization.NoEncryption()))
+    cert.write_bytes(certificate.public_bytes(serialization.Encoding.PEM))
+    return cert, key
+
+
 @contextmanager
-def serve(directory: Path) -> Iterator[str]:
-    """Serve `directory` over http on 127.0.0.1 at a free port; yields the base URL."""
+def serve(directory: Path, tls: bool = False) -> Iterator[str]:
+    """Serve `directory` on 127.0.0.1 at a free port, over https with a throw-away self-signed
+    certificate when `tls`; yields the base URL."""
 
     class Quiet(http.server.SimpleHTTPRequestHandler):
         def log_message(self, *args: Any) -> None:
             pass
 
+    class Server(http.server.ThreadingHTTPServer):
+        def handle_error(self, request: Any, client_address: Any) -> None:
+            pass  # a browser that drops a connection (or a TLS handshake) is not a test failure
+
     handler = functools.partial(Quiet, directory=str(directory))
-    server = http.server.ThreadingHTTPServer(("127.0.0.1", 0), handler)
-    thread = threading.Thread(target=server.serve_forever, daemon=True)
-    thread.start()
-    try:
-        yield f"http://127.0.0.1:{server.server_address[1]}"
-    finally:
-        server.shutdown()
-        server.server_close()
-        thread.join(timeout=5)
+    server = Server(("127.0.0.1", 0), handler)
+    with tempfile.TemporaryDirectory() as keys:
+        if tls:
+            context = ssl.SSLContext(ssl.PROTOCOL_TLS_SERVER)
+            context.load_cert_chain(*self_signed_certificate(Path(keys)))
+            # the handshake happens in each request's own thread, on its first read
+            server.socket = context.wrap_socket(server.socket, server_side=True, do_handshake_on_connect=False)
+        thread = threading.Thread(target=server.serve_forever, daemon=True)
+        thread.start()
+        try:
+            yield f"{'https' if tls else 'http'}://127.0.0.1:{server.server_address[1]}"
+        finally:
+            server.shutdown()
+            server.server_close()
+            thread.join(timeout=5)

@@ -4,86 +4,16 @@ from __future__ import annotations
 
 import json
 import time
-from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
-import pytest
-
 from armlock.assign.batch import arm_for
 from armlock.assign.contract import bucket
-from armlock.assign.snippet import render_snippet
-from armlock.assign.spec import Spec
 
-from .helpers import make_spec, need, random_ids, serve
+from .browser import write_page
+from .helpers import make_spec, random_ids
 
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-         "--disable-component-update", "--disable-sync", "--no-first-run"]
-VENDOR = "<script>armlock.gate(function (arm) { window.vendorFired = (window.vendorFired || 0) + 1; });</script>"
 DAY = 86_400
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[Any]:
-    sync_api = pytest.importorskip("playwright.sync_api")
-    path = need("chromium")
-    with sync_api.sync_playwright() as pw:
-        b = pw.chromium.launch(executable_path=path, args=FLAGS)
-        try:
-            yield b
-        finally:
-            b.close()
-
-
-@pytest.fixture
-def site(tmp_path: Path) -> Iterator[tuple[Path, str]]:
-    with serve(tmp_path) as base:
-        yield tmp_path, base
-
-
-class Page:
-    """One fresh browser context (no cookies, no storage) with page errors collected."""
-
-    def __init__(self, browser: Any, base: str) -> None:
-        self.ctx = browser.new_context()
-        self.page = self.ctx.new_page()
-        self.base = base
-        self.errors: list[str] = []
-        self.page.on("pageerror", lambda e: self.errors.append(str(e)))
-
-    def open(self, name: str) -> Page:
-        self.page.goto(f"{self.base}/{name}", wait_until="load")
-        return self
-
-    def js(self, expr: str, arg: Any = None) -> Any:
-        return self.page.evaluate(expr, arg)
-
-    def events(self, name: str = "armlock_arm") -> list[dict[str, Any]]:
-        return self.js("n => (window.dataLayer || []).filter(e => e && e.event === n)", name)
-
-    def cookie(self, name: str = "armlock_uid") -> dict[str, Any] | None:
-        found = [c for c in self.ctx.cookies() if c["name"] == name]
-        return found[0] if found else None
-
-
-def write_page(root: Path, name: str, spec: Spec, before: str = "", after: str = VENDOR) -> str:
-    html = ("<!doctype html><html><head><meta charset='utf-8'><title>invented shop</title>"
-            f"{before}{render_snippet(spec, 'html')}{after}</head><body>shop.example page</body></html>")
-    (root / name).write_text(html, encoding="utf-8")
-    return name
-
-
-@pytest.fixture
-def opened(browser: Any, site: tuple[Path, str]) -> Iterator[Any]:
-    pages: list[Page] = []
-
-    def make() -> Page:
-        pages.append(Page(browser, site[1]))
-        return pages[-1]
-
-    yield make
-    for p in pages:
-        p.ctx.close()
 
 
 def test_cookie_attributes_event_and_persistence_across_reloads(site: tuple[Path, str], opened: Any) -> None:
