@@ -1,10 +1,12 @@
-"""Covariate balance: standardized mean differences (Austin 2009), variance ratios, Welch / chi-square with Holm."""
+"""Covariate balance: SMD and variance ratio (Austin 2009) shown; status from randomization tests at this size, Holm."""
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 from scipy import stats
 
 from armlock.assign import Spec
@@ -12,6 +14,14 @@ from armlock.assign import Spec
 from .model import Check, Figure, Status, Table
 from .srm import holm
 from .tables import BalanceTables
+
+# Fewer units with a value than this in an arm: the covariate is "too few units to judge". At 30
+# units the normal approximations of the rank and mean tests hold well enough for the audit's
+# thresholds (measured in scripts/calibrate_audit.py; 30 is also the common-practice rule of thumb).
+MIN_ARM_UNITS = 30
+# Categorical levels (and binary 2x2 cells) with fewer expected units than this are pooled /
+# tested exactly (Cochran's rule for the chi-square approximation, common practice).
+MIN_EXPECTED = 5.0
 
 
 def smd_continuous(mean_t: float, var_t: float, mean_c: float, var_c: float) -> float:
@@ -32,12 +42,62 @@ def sample_variance(n: int, m2: float) -> float:
     return m2 / (n - 1) if n >= 2 else math.nan
 
 
-def welch_p(n_t: int, m_t: float, v_t: float, n_c: int, m_c: float, v_c: float) -> float:
-    """Two-sided Welch t-test p from summary statistics (scipy.stats.ttest_ind_from_stats)."""
-    if min(n_t, n_c) < 2 or (v_t == 0 and v_c == 0):
-        return 1.0 if m_t == m_c else 0.0
-    res = stats.ttest_ind_from_stats(m_t, math.sqrt(v_t), n_t, m_c, math.sqrt(v_c), n_c, equal_var=False)
-    return float(res.pvalue)
+def variance_ratio(var_t: float, var_c: float) -> float:
+    """s_T^2 / s_C^2; 1 when both are 0 (two constant arms are alike), inf when only the reference is 0."""
+    if var_c == 0.0:
+        return 1.0 if var_t == 0.0 else math.inf
+    return var_t / var_c
+
+
+def smd_chance_se(n_t: int, n_c: int) -> float:
+    """How large |SMD| gets by chance alone: its standard error under random allocation, sqrt(1/n_T + 1/n_C).
+
+    DERIVED: under randomization the difference of means has variance S^2 (1/n_T + 1/n_C), S^2 the
+    pooled variance (Cochran 1977, Sampling Techniques, variance of a mean under sampling without
+    replacement); dividing by the SD gives the SMD's SE. Austin (2009) discusses this sampling
+    spread of the SMD.
+    """
+    return math.sqrt(1.0 / n_t + 1.0 / n_c)
+
+
+def pooled_moments(parts: list[tuple[int, float, float]]) -> tuple[int, float, float]:
+    """(n, mean, m2) of the union of arms (Chan, Golub & LeVeque 1979 merge)."""
+    from .tables import merge_moments
+
+    acc: tuple[int, float, float] = (0, 0.0, 0.0)
+    for p in parts:
+        acc = merge_moments(acc, p)
+    return acc
+
+
+def randomization_mean_p(n_t: int, m_t: float, n_c: int, m_c: float, pooled_var: float) -> float:
+    """Two-sided p of the mean difference against its randomization distribution (normal approximation).
+
+    Under random allocation of the n_T + n_C units, mean_T - mean_C has mean 0 and variance
+    S^2 (1/n_T + 1/n_C), S^2 the pooled sample variance of both arms (DERIVED from Cochran 1977,
+    sampling without replacement); this is the permutation test's variance.
+    """
+    if pooled_var <= 0.0 or min(n_t, n_c) < 2:
+        return math.nan
+    z = (m_t - m_c) / math.sqrt(pooled_var * (1.0 / n_t + 1.0 / n_c))
+    return float(2.0 * stats.norm.sf(abs(z)))
+
+
+def kruskal_from_ranks(n: np.ndarray, rank_sum: np.ndarray, ties: float) -> float:
+    """Kruskal-Wallis p from per-arm counts and rank sums of the pooled ranks (equals scipy.stats.kruskal).
+
+    H = 12 / (N (N + 1)) sum_i R_i^2 / n_i - 3 (N + 1), divided by 1 - sum(t^3 - t) / (N^3 - N)
+    (Kruskal & Wallis 1952); chi-square with k - 1 degrees of freedom. With two arms it is the
+    two-sided Mann-Whitney / Wilcoxon rank-sum test without continuity correction.
+    """
+    n = np.asarray(n, dtype=np.float64)
+    r = np.asarray(rank_sum, dtype=np.float64)
+    big = n.sum()
+    denom = 1.0 - ties / (big**3 - big)
+    if len(n) < 2 or denom <= 0.0:
+        return math.nan
+    h = (12.0 / (big * (big + 1.0)) * float((r * r / n).sum()) - 3.0 * (big + 1.0)) / denom
+    return float(stats.chi2.sf(max(h, 0.0), len(n) - 1))
 
 
 def chi2_independence_p(table: np.ndarray) -> float:
@@ -49,103 +109,233 @@ def chi2_independence_p(table: np.ndarray) -> float:
     return float(stats.chi2_contingency(t, correction=False).pvalue)
 
 
+def pool_rare_levels(counts: np.ndarray) -> np.ndarray:
+    """Levels x arms counts with levels of fewer than MIN_EXPECTED expected units in some arm merged into one row.
+
+    The merged row is dropped if it is still below the rule. Which levels merge depends only on the
+    pooled level totals, not on the arms, so the test stays valid under randomization.
+    """
+    t = np.asarray(counts, dtype=np.float64)
+    col = t.sum(axis=0)
+    total = col.sum()
+    if total == 0:
+        return t
+    expected_min = t.sum(axis=1) * col.min() / total
+    rare = expected_min < MIN_EXPECTED
+    if not rare.any():
+        return t
+    merged = t[rare].sum(axis=0, keepdims=True)
+    keep = t[~rare]
+    if merged.sum() * col.min() / total >= MIN_EXPECTED:
+        keep = np.vstack([keep, merged])
+    return keep
+
+
+def two_by_two_p(table: np.ndarray) -> float:
+    """Independence of a 2x2 table: chi-square, or Fisher's exact test when an expected cell is below 5."""
+    t = np.asarray(table, dtype=np.float64)
+    if t.sum(axis=1).min() == 0 or t.sum(axis=0).min() == 0:
+        return 1.0
+    expected = np.outer(t.sum(axis=1), t.sum(axis=0)) / t.sum()
+    if expected.min() < MIN_EXPECTED:
+        return float(stats.fisher_exact(np.rint(t).astype(np.int64)).pvalue)
+    return float(stats.chi2_contingency(t, correction=False).pvalue)
+
+
 def _reference(spec: Spec) -> str:
     return spec.holdout_arms[0]
 
 
+@dataclass
+class _Row:
+    covariate: str
+    level: str | None
+    arm: str
+    ref: float | None
+    value: float | None
+    smd: float | None
+    vr: float | None
+    chance: float | None  # SMD's chance SE
+    test: str
+    p: float | None
+    note: str = ""
+    p_holm: float | None = None
+
+
+def _numeric_rows(cov: str, g: pd.DataFrame, ref: str, others: list[str], arms: list[str]) -> list[_Row]:
+    binary = bool(g["binary"].iloc[0])
+    n = {a: int(g.loc[a, "n"]) for a in arms}
+    mean = {a: float(g.loc[a, "mean"]) for a in arms}
+    var = {a: sample_variance(n[a], float(g.loc[a, "m2"])) for a in arms}
+    out: list[_Row] = []
+    pooled_all = pooled_moments([(n[a], mean[a] if n[a] else 0.0, float(g.loc[a, "m2"])) for a in arms])
+    constant = pooled_all[0] >= 2 and pooled_all[2] == 0.0
+    for arm in others:
+        nt, nc = n[arm], n[ref]
+        base = dict(covariate=cov, level=None, arm=arm, ref=mean[ref] if nc else None,
+                    value=mean[arm] if nt else None)
+        if min(nt, nc) < 2:
+            out.append(_Row(**base, smd=None, vr=None, chance=None, test="-", p=None,  # type: ignore[arg-type]
+                            note="not testable: fewer than two values in an arm"))
+            continue
+        if constant:
+            out.append(_Row(**base, smd=0.0, vr=1.0, chance=None, test="-", p=None,  # type: ignore[arg-type]
+                            note="constant, not tested"))
+            continue
+        chance = smd_chance_se(nt, nc)
+        if binary:
+            d, vr = smd_binary(mean[arm], mean[ref]), None
+            ones = np.array([mean[arm] * nt, mean[ref] * nc])
+            table = np.array([[ones[0], nt - ones[0]], [ones[1], nc - ones[1]]])
+            test, p = "2x2 chi-square / Fisher", two_by_two_p(np.rint(table))
+        else:
+            d, vr = smd_continuous(mean[arm], var[arm], mean[ref], var[ref]), variance_ratio(var[arm], var[ref])
+            pair = pooled_moments([(nt, mean[arm], float(g.loc[arm, "m2"])), (nc, mean[ref], float(g.loc[ref, "m2"]))])
+            test, p = "mean vs randomization", randomization_mean_p(nt, mean[arm], nc, mean[ref],
+                                                                     sample_variance(pair[0], pair[2]))
+        if min(nt, nc) < MIN_ARM_UNITS:
+            out.append(_Row(**base, smd=d, vr=vr, chance=chance, test="-", p=None,  # type: ignore[arg-type]
+                            note=f"too few units to judge (< {MIN_ARM_UNITS} with a value in an arm)"))
+            continue
+        out.append(_Row(**base, smd=d, vr=vr, chance=chance, test=test, p=p))  # type: ignore[arg-type]
+    if not binary and not constant and min(n.values()) >= MIN_ARM_UNITS:
+        p_rank = kruskal_from_ranks(np.array([n[a] for a in arms]),
+                                    np.array([float(g.loc[a, "rank_sum"]) for a in arms]), float(g["ties"].iloc[0]))
+        out.append(_Row(covariate=cov, level="(ranks, all arms)", arm=",".join(others), ref=None, value=None,
+                        smd=None, vr=None, chance=None, test="rank-sum (Kruskal-Wallis)", p=p_rank))
+    return out
+
+
+def _categorical_rows(cov: str, frame: pd.DataFrame, ref: str, others: list[str]) -> list[_Row]:
+    counts = frame[[ref, *others]].to_numpy(dtype=np.float64)
+    totals = counts.sum(axis=0)
+    out: list[_Row] = []
+    for arm_i, arm in enumerate(others, start=1):
+        for level, row in zip(frame.index, counts):
+            pc_ = row[0] / totals[0] if totals[0] else math.nan
+            pt = row[arm_i] / totals[arm_i] if totals[arm_i] else math.nan
+            chance = smd_chance_se(int(totals[arm_i]), int(totals[0])) if min(totals[0], totals[arm_i]) > 0 else None
+            out.append(_Row(covariate=cov, level=str(level), arm=arm, ref=pc_, value=pt, smd=smd_binary(pt, pc_),
+                            vr=None, chance=chance, test="-", p=None))
+    if totals.min() < MIN_ARM_UNITS:
+        out.append(_Row(covariate=cov, level="(all levels)", arm=",".join(others), ref=None, value=None, smd=None,
+                        vr=None, chance=None, test="-", p=None,
+                        note=f"too few units to judge (< {MIN_ARM_UNITS} in an arm)"))
+    else:
+        out.append(_Row(covariate=cov, level="(all levels)", arm=",".join(others), ref=None, value=None, smd=None,
+                        vr=None, chance=None, test="chi-square (rare levels pooled)",
+                        p=chi2_independence_p(pool_rare_levels(counts))))
+    return out
+
+
 def check_balance(spec: Spec, bt: BalanceTables) -> Check:
-    """Each arm against the (first) holdout arm, per covariate (categoricals per level)."""
+    """Each arm against the (first) holdout arm, per covariate (categoricals per level).
+
+    Status: the split is judged against what random allocation produces at this sample size. Every
+    test (mean difference against its randomization spread, rank-sum across arms, chi-square or
+    Fisher for binary and categorical covariates) enters one Holm family; a Holm-adjusted p below
+    `balance_p` warns, and fails when the same covariate's |SMD| also exceeds `smd_fail` (and, for a
+    numeric covariate, its rank test agrees). SMD and variance ratio are shown, with the SMD's chance
+    size sqrt(1/n_T + 1/n_C) beside it; the fixed lines of matched observational studies no longer
+    set the status on their own.
+    """
     th = spec.audit.thresholds
     ref = _reference(spec)
-    others = [a for a in spec.arm_names if a != ref]
-    rows: list[dict[str, object]] = []
-    pvals: list[float] = []
+    arms = list(spec.arm_names)
+    others = [a for a in arms if a != ref]
+    rows: list[_Row] = []
     for cov, grp in bt.numeric.groupby("covariate", sort=False):
-        g = grp.set_index("arm")
-        binary = bool(g["binary"].iloc[0])
-        mc, vc = float(g.loc[ref, "mean"]), sample_variance(int(g.loc[ref, "n"]), float(g.loc[ref, "m2"]))
-        for arm in others:
-            nt = int(g.loc[arm, "n"])
-            mt, vt = float(g.loc[arm, "mean"]), sample_variance(nt, float(g.loc[arm, "m2"]))
-            nc = int(g.loc[ref, "n"])
-            if binary:
-                d = smd_binary(mt, mc)
-                p = chi2_independence_p(np.array([[mt * nt, (1 - mt) * nt], [mc * nc, (1 - mc) * nc]]))
-                vr = None
-            else:
-                d = smd_continuous(mt, vt, mc, vc)
-                p = welch_p(nt, mt, vt, nc, mc, vc)
-                vr = vt / vc if vc > 0 else math.inf
-            rows.append({"covariate": str(cov), "level": None, "arm": arm, "ref": mc, "value": mt,
-                         "smd": d, "vr": vr, "p": p, "missing": int(g["missing"].sum()),
-                         "kind": "binary" if binary else "continuous"})
-            pvals.append(p)
+        rows += _numeric_rows(str(cov), grp.set_index("arm"), ref, others, arms)
     for cov, frame in bt.categorical.items():
-        counts = frame[[ref, *others]].to_numpy(dtype=np.float64)
-        p_cov = chi2_independence_p(counts)
-        totals = counts.sum(axis=0)
-        for arm_i, arm in enumerate(others, start=1):
-            for level, row in zip(frame.index, counts):
-                pc_ = row[0] / totals[0] if totals[0] else math.nan
-                pt = row[arm_i] / totals[arm_i] if totals[arm_i] else math.nan
-                rows.append({"covariate": cov, "level": str(level), "arm": arm, "ref": pc_, "value": pt,
-                             "smd": smd_binary(pt, pc_), "vr": None, "p": None, "missing": 0,
-                             "kind": "level"})
-        pvals.append(p_cov)
-        rows.append({"covariate": cov, "level": "(all levels)", "arm": ",".join(others), "ref": None,
-                     "value": None, "smd": None, "vr": None, "p": p_cov, "missing": 0, "kind": "test"})
+        rows += _categorical_rows(cov, frame, ref, others)
     if not rows:
         return Check(id="balance", title="Covariate balance", status="skipped",
                      summary="No covariates are configured ([audit] covariates, categorical_covariates).",
                      reason="no covariates configured")
-    adj = holm(pvals)
-    it = iter(adj)
-    for r in rows:
-        r["p_holm"] = float(next(it)) if r["p"] is not None else None
-    smds = [abs(float(r["smd"])) for r in rows if r["smd"] is not None and not math.isnan(float(r["smd"]))]  # type: ignore[arg-type]
-    max_smd = max(smds, default=0.0)
-    vr_bad = [r for r in rows if r["vr"] is not None and not (1 / th.variance_ratio_max <= float(r["vr"]) <= th.variance_ratio_max)]  # type: ignore[arg-type]
-    p_bad = [r for r in rows if r["p_holm"] is not None and float(r["p_holm"]) < th.balance_p]  # type: ignore[arg-type]
-    worst = max((r for r in rows if r["smd"] is not None and not math.isnan(float(r["smd"]))),  # type: ignore[arg-type]
-                key=lambda r: abs(float(r["smd"])), default=None)  # type: ignore[arg-type]
-    name = (f"{worst['covariate']}" + (f"={worst['level']}" if worst and worst["level"] else "")) if worst else "-"
+    tested = [r for r in rows if r.p is not None and not math.isnan(r.p)]
+    adj = holm([r.p for r in tested])  # type: ignore[misc]
+    for r, a in zip(tested, adj):
+        r.p_holm = float(a)
+    invalid = int(bt.numeric["invalid"].sum()) if "invalid" in bt.numeric else 0
+    smd_rows = [r for r in rows if r.smd is not None and math.isfinite(r.smd)]
+    worst = max(smd_rows, key=lambda r: abs(r.smd or 0.0), default=None)
+    max_smd = abs(worst.smd or 0.0) if worst else 0.0
+    name = (worst.covariate + (f"={worst.level}" if worst.level else "")) if worst else "-"
+    sig = [r for r in tested if (r.p_holm or 1.0) < th.balance_p]
+    sig_covs = {r.covariate for r in sig}
+    rank_sig = {r.covariate for r in sig if r.test.startswith("rank")}
+    has_rank = {r.covariate for r in tested if r.test.startswith("rank")}
+
+    def big(r: _Row) -> bool:
+        return r.smd is not None and abs(r.smd) > th.smd_fail
+
+    fail_rows = [r for r in rows if r.covariate in sig_covs and big(r)
+                 and (r.covariate not in has_rank or r.covariate in rank_sig)
+                 and not r.note]
+    judged = {r.covariate for r in tested}
+    unjudged = sorted({r.covariate for r in rows if r.note.startswith("too few")} - judged)
+    untestable = sorted({f"{r.covariate} ({r.note.split(':')[0]})" for r in rows
+                         if r.note and not r.note.startswith("too few")})
     status: Status
-    if max_smd > th.smd_fail:
-        status = "fail"
-    elif max_smd > th.smd_warn or vr_bad or p_bad:
+    extra = ""
+    if untestable:
+        extra += " Not tested: " + ", ".join(untestable) + "."
+    if invalid:
+        extra += f" {invalid} covariate value(s) were +/-infinity and were left out (invalid input)."
+    if not tested:
         status = "warn"
+        small = min((int(v) for v in bt.numeric["n"]), default=0) if len(bt.numeric) else 0
+        summary = ("Cannot judge: too few units to tell a real difference from chance "
+                   f"(fewer than {MIN_ARM_UNITS} units with a value in an arm"
+                   + (f"; smallest arm has {small}" if len(bt.numeric) else "") + ")." + extra)
+    elif fail_rows:
+        status = "fail"
+        r = max(fail_rows, key=lambda r: abs(r.smd or 0.0))
+        summary = (f"Arms differ before the test far beyond chance: {r.covariate}"
+                   + (f"={r.level}" if r.level else "") + f" has SMD {r.smd:.3f} (chance alone gives about "
+                   f"+/-{r.chance or 0:.3f}), Holm p {min(x.p_holm or 1 for x in sig if x.covariate == r.covariate):.2g}; "
+                   "check how units enter the arms (pre-period data joined by arm, a filter applied to one arm) "
+                   "before reading any result." + extra)
+    elif sig:
+        status = "warn"
+        r = min(sig, key=lambda r: r.p_holm or 1.0)
+        size = (f" (largest |SMD| {max_smd:.3f} on {name}"
+                + ("; small in size" if max_smd <= th.smd_warn else "") + ")")
+        summary = (f"Arms differ before the test by more than chance allows on {', '.join(sorted(sig_covs))} "
+                   f"(Holm p {r.p_holm:.2g}, {r.test}){size}: check how units enter the arms; adjust the readout "
+                   "for the covariate (e.g. CUPED) only once the cause is known." + extra)
     else:
         status = "pass"
-    if status == "pass":
-        summary = f"Arms look alike on every configured covariate (largest |SMD| {max_smd:.3f}, {name}); nothing to do."
-    else:
-        why = []
-        if max_smd > th.smd_warn:
-            why.append(f"|SMD| {max_smd:.3f} on {name}")
-        if vr_bad:
-            why.append(f"variance ratio {float(vr_bad[0]['vr']):.2f} on {vr_bad[0]['covariate']}")  # type: ignore[arg-type]
-        if p_bad:
-            why.append(f"Holm p {float(p_bad[0]['p_holm']):.2g} on {p_bad[0]['covariate']}")  # type: ignore[arg-type]
-        summary = ("Arms differ before the test on " + "; ".join(why) + ": a random split should not do this at "
-                   "this size, so check how units enter the arms (pre-period data joined by arm, a filter applied "
-                   "to one arm); adjust the readout for the covariate (e.g. CUPED) only once the cause is known.")
+        summary = (f"Arms differ on no covariate by more than chance allows at this size (largest |SMD| {max_smd:.3f}, "
+                   f"{name}; chance alone gives about +/-{(worst.chance if worst and worst.chance else 0):.3f})."
+                   + (f" Too few units to judge: {', '.join(unjudged)}." if unjudged else "") + extra)
 
     def fmt(x: object) -> object:
-        return None if x is None else (round(float(x), 6) if isinstance(x, (float, int)) else x)  # type: ignore[arg-type]
+        if x is None:
+            return None
+        if isinstance(x, float) and not math.isfinite(x):
+            return None if math.isnan(x) else ("inf" if x > 0 else "-inf")
+        return round(float(x), 6) if isinstance(x, (float, int)) else x  # type: ignore[arg-type]
 
     table = Table(
         title=f"Balance against {ref}",
-        columns=["covariate", "level", "arm", f"{ref} mean/share", "arm mean/share", "SMD", "variance ratio", "p", "p (Holm)"],
-        rows=[[r["covariate"], r["level"], r["arm"], fmt(r["ref"]), fmt(r["value"]), fmt(r["smd"]), fmt(r["vr"]),
-               fmt(r["p"]), fmt(r["p_holm"])] for r in rows],
+        columns=["covariate", "level", "arm", f"{ref} mean/share", "arm mean/share", "SMD", "SMD by chance (SE)",
+                 "variance ratio", "test", "p", "p (Holm)", "note"],
+        rows=[[r.covariate, r.level, r.arm, fmt(r.ref), fmt(r.value), fmt(r.smd), fmt(r.chance), fmt(r.vr), r.test,
+               fmt(r.p), fmt(r.p_holm), r.note or None] for r in rows],
     )
-    series = [{"covariate": str(r["covariate"]), "level": r["level"], "smd": float(r["smd"])}  # type: ignore[arg-type]
-              for r in rows if r["smd"] is not None and not math.isnan(float(r["smd"])) and math.isfinite(float(r["smd"]))]  # type: ignore[arg-type]
+    series = [{"covariate": r.covariate, "level": r.level, "smd": float(r.smd)}
+              for r in rows if r.smd is not None and math.isfinite(r.smd)]
     figs = {
         "max_abs_smd": Figure(label="largest |SMD|", value=round(max_smd, 6), unit="number"),
         "worst_covariate": Figure(label="least balanced covariate", value=name, unit="text"),
         "min_p_holm": Figure(label="smallest Holm-adjusted balance p-value",
                              value=float(min(adj)) if len(adj) else None, unit="p"),
+        "smd_chance": Figure(label="|SMD| chance alone gives (1 SE), least balanced covariate",
+                             value=round(worst.chance, 6) if worst and worst.chance else None, unit="number"),
     }
+    if invalid:
+        figs["invalid_values"] = Figure(label="covariate values that were +/-infinity (left out)", value=invalid,
+                                        unit="count")
     return Check(id="balance", title="Covariate balance", status=status, summary=summary, figures=figs,
                  tables=[table], series={"smd": series})

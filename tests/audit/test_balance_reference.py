@@ -18,7 +18,12 @@ from armlock.audit.balance import (
     sample_variance,
     smd_binary,
     smd_continuous,
-    welch_p,
+    kruskal_from_ranks,
+    pool_rare_levels,
+    randomization_mean_p,
+    smd_chance_se,
+    two_by_two_p,
+    variance_ratio,
 )
 from armlock.audit.engine_pandas import numeric_moments
 from armlock.audit.tables import NUMERIC_COLUMNS, BalanceTables, merge_moments
@@ -106,13 +111,58 @@ def test_rank_sums_and_ties_give_scipy_kruskal() -> None:
     assert h == pytest.approx(ref.statistic, rel=1e-10)
 
 
-def test_welch_matches_statsmodels_and_scipy() -> None:
-    # References: scipy.stats.ttest_ind(equal_var=False) and statsmodels ttest_ind(usevar="unequal").
-    rng = np.random.default_rng(4)
-    a, b = rng.normal(0.0, 1.0, 500), rng.normal(0.15, 1.7, 800)
-    p = welch_p(len(a), a.mean(), a.var(ddof=1), len(b), b.mean(), b.var(ddof=1))
-    assert p == pytest.approx(stats.ttest_ind(a, b, equal_var=False).pvalue, rel=1e-10)
-    assert p == pytest.approx(ttest_ind(a, b, usevar="unequal")[1], rel=1e-10)
+def test_randomization_variance_of_the_mean_difference_equals_full_enumeration() -> None:
+    # DERIVED (Cochran 1977, Sampling Techniques, variance of a mean under sampling without
+    # replacement): over all ways to allocate the pooled units, mean_T - mean_C has variance
+    # S^2 (1/n_T + 1/n_C). Reference: brute-force enumeration of every allocation of 10 units (numpy).
+    from itertools import combinations
+    x = np.array([0.0, 0.0, 0.0, 1.0, 2.0, 3.5, 10.0, 0.0, 40.0, 7.0])
+    diffs = []
+    for t in combinations(range(10), 4):
+        mask = np.zeros(10, bool)
+        mask[list(t)] = True
+        diffs.append(x[mask].mean() - x[~mask].mean())
+    enum_var = np.var(diffs)  # over all 210 allocations (mean is exactly 0)
+    assert enum_var == pytest.approx(x.var(ddof=1) * (1 / 4 + 1 / 6), rel=1e-12)
+    z = 1.5 / math.sqrt(enum_var)
+    assert randomization_mean_p(4, 1.5, 6, 0.0, x.var(ddof=1)) == pytest.approx(2 * stats.norm.sf(z), rel=1e-12)
+    assert smd_chance_se(100, 900) == pytest.approx(math.sqrt(1 / 100 + 1 / 900))
+
+
+def test_kruskal_from_ranks_equals_scipy_kruskal_and_mannwhitney() -> None:
+    # References: scipy.stats.kruskal (Kruskal & Wallis 1952) and, for two arms,
+    # scipy.stats.mannwhitneyu(use_continuity=False, method="asymptotic") (two-sided).
+    rng = np.random.default_rng(12)
+    x = np.where(rng.random(700) < 0.7, 0.0, np.round(rng.lognormal(3, 1, 700), 1))
+    arm = (rng.random(700) < 0.2).astype(int)
+    rows = numeric_moments(x, arm, 2)
+    p = kruskal_from_ranks(np.array([r["n"] for r in rows]), np.array([r["rank_sum"] for r in rows]),
+                           float(rows[0]["ties"]))
+    assert p == pytest.approx(stats.kruskal(x[arm == 0], x[arm == 1]).pvalue, rel=1e-10)
+    mw = stats.mannwhitneyu(x[arm == 0], x[arm == 1], use_continuity=False, method="asymptotic").pvalue
+    assert p == pytest.approx(mw, rel=1e-8)
+
+
+def test_two_by_two_uses_fisher_for_small_cells_and_chi2_otherwise() -> None:
+    # References: scipy.stats.fisher_exact (Fisher 1922) and scipy.stats.chi2_contingency.
+    small = np.array([[3, 97], [0, 900]])
+    assert two_by_two_p(small) == pytest.approx(stats.fisher_exact(small).pvalue)
+    large = np.array([[300, 700], [2900, 6100]])
+    assert two_by_two_p(large) == pytest.approx(stats.chi2_contingency(large, correction=False).pvalue)
+
+
+def test_rare_levels_are_pooled_by_their_totals_only() -> None:
+    t = np.array([[500, 4500], [2, 20], [1, 10], [400, 3600]])
+    out = pool_rare_levels(t)
+    np.testing.assert_array_equal(out, [[500, 4500], [400, 3600]])  # 33 units pooled: 3.3 expected, dropped
+    t2 = np.array([[500, 4500], [4, 30], [3, 35], [400, 3600]])  # 3.4 and 3.8 expected: 7.2 when pooled
+    np.testing.assert_array_equal(pool_rare_levels(t2), [[500, 4500], [400, 3600], [7, 65]])
+
+
+def test_variance_ratio_edge_values() -> None:
+    assert variance_ratio(0.0, 0.0) == 1.0
+    assert variance_ratio(2.0, 0.0) == math.inf
+    assert variance_ratio(4.0, 2.0) == 2.0
 
 
 def test_chi2_independence_matches_scipy_and_ignores_empty_levels() -> None:
@@ -146,9 +196,9 @@ def test_check_balance_figures_equal_direct_computation_and_flag_imbalance() -> 
     rows = {(r[0], r[1]): r for r in check.tables[0].rows}
     expect = (e.mean() - h.mean()) / math.sqrt((e.var(ddof=1) + h.var(ddof=1)) / 2)
     assert rows[("x", None)][5] == pytest.approx(expect, abs=1e-6)
-    assert rows[("x", None)][6] == pytest.approx(e.var(ddof=1) / h.var(ddof=1), abs=1e-6)
+    assert rows[("x", None)][7] == pytest.approx(e.var(ddof=1) / h.var(ddof=1), abs=1e-6)
     assert rows[("flag", None)][5] == pytest.approx(smd_binary(fe.mean(), fh.mean()), abs=1e-6)
-    assert rows[("flag", None)][6] is None  # no variance ratio for a binary covariate
+    assert rows[("flag", None)][7] is None  # no variance ratio for a binary covariate
     assert rows[("dev", "mobile")][5] == pytest.approx(smd_binary(2990 / 5000, 3000 / 5000), abs=1e-6)
     assert check.status == "warn"
     assert check.figures["worst_covariate"].value == "x"

@@ -151,7 +151,8 @@ def test_duplicate_first_seen_keeps_earliest(tmp_path: Path, spec: Path) -> None
     rows.append(_row(spec, "u3", "2026-01-20T00:00:00Z", arm=wrong))  # later rows, recorded wrongly
     rows.append(_row(spec, "u3", "2026-01-21T00:00:00Z", arm=wrong))
     _visits(tmp_path, rows)
-    r = run(tmp_path, "--spec", spec.name, "--visits", "visits.csv", "--format", "json", "--strict")
+    # no --strict: 40 units are too few for the balance check to judge (a warn, exit 1 under --strict)
+    r = run(tmp_path, "--spec", spec.name, "--visits", "visits.csv", "--format", "json")
     assert r.returncode == 0, r.stderr
     rep = _json(r)
     assert ("visits.csv: 1 unit id(s) had several first-seen rows (2 extra row(s)); the earliest row of each was kept"
