@@ -14,7 +14,7 @@ from typer.core import TyperArgument, TyperCommand, TyperGroup
 from armlock.assign import ArmlockError, __version__
 from armlock.assign.errors import EXIT_INTERNAL
 
-from . import cmd_assign, cmd_snippet, cmd_spec
+from . import cmd_assign, cmd_plan, cmd_snippet, cmd_spec
 from . import cmd_demo, cmd_history
 from . import cmd_audit
 
@@ -67,7 +67,7 @@ app = typer.Typer(
     cls=ArmlockGroup,
     help=(
         "armlock: the plumbing of a user-level advertising holdout test.\n\n"
-        "A spec file fixes the split (salt + arms); `assign` and the browser snippet apply it "
+        "`plan` sizes the test (holdout share, weeks, cost); a spec file fixes the split (salt + arms); `assign` and the browser snippet apply it "
         "identically everywhere; `audit` checks weekly that the split is healthy.\n\n"
         "Example: armlock init spring-retargeting --holdout-share 0.1"
     ),
@@ -93,6 +93,7 @@ def _root(
     """armlock: deterministic holdout assignment, tag snippet and split-health audit."""
 
 
+cmd_plan.register(app)
 cmd_spec.register(app)
 cmd_assign.register(app)
 cmd_snippet.register(app)

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import typer
 
-from armlock.assign import SpecError, check_lock, load_spec
+from armlock.assign import Spec, SpecError, check_lock, load_spec
 from armlock.assign.errors import EXIT_BAD_INPUT
 from armlock.assign.init import parse_arms, render_spec_toml
 from armlock.assign.spec import EXPERIMENT_PATTERN
@@ -15,23 +15,9 @@ from armlock.assign.spec import EXPERIMENT_PATTERN
 from .common import SPEC_HELP, warn_box
 
 
-def init(
-    name: str = typer.Argument(..., help="Experiment name: letters, digits, '.', '_' or '-'."),
-    holdout_share: float = typer.Option(0.5, "--holdout-share", help="Share of visitors held out from the vendor, e.g. 0.1 for 10%."),
-    arms: str = typer.Option(None, "--arms", help=(
-        "All arms as NAME=SHARE,... in order, overriding --holdout-share. A share is a fraction (0.1), "
-        "a percentage (10%) or basis points (1000bp); they add up to 1. An arm whose name starts with "
-        "'holdout' gets role holdout (the vendor must never reach it), every other arm role exposed; "
-        "a test needs at least one of each. E.g. holdout=0.1,exposed_a=0.45,exposed_b=0.45.")),
-    out: Path = typer.Option(None, "--out", "-o", help="Where to write the spec (default NAME.toml here)."),
-    force: bool = typer.Option(False, "--force", help="Overwrite an existing file."),
-) -> None:
-    """Write a new experiment spec with a fresh random salt.
-
-    The file is commented so it can be edited by hand before the test starts.
-
-    Example: armlock init spring-retargeting --holdout-share 0.1
-    """
+def write_new_spec(name: str, *, holdout_share: float = 0.5, arms: str | None = None, out: Path | None = None,
+                   force: bool = False) -> tuple[Path, Spec]:
+    """Validate the name and split, write NAME.toml (or `out`) with a fresh salt; `init` and `plan --write-spec` share it."""
     import re
 
     if not re.match(EXPERIMENT_PATTERN, name):
@@ -62,7 +48,27 @@ def init(
         target.write_text(text, encoding="utf-8")
     except OSError as exc:
         raise SpecError(f"{target}: cannot write: {exc.strerror}") from None
-    spec = load_spec(target)
+    return target, load_spec(target)
+
+
+def init(
+    name: str = typer.Argument(..., help="Experiment name: letters, digits, '.', '_' or '-'."),
+    holdout_share: float = typer.Option(0.5, "--holdout-share", help="Share of visitors held out from the vendor, e.g. 0.1 for 10%."),
+    arms: str = typer.Option(None, "--arms", help=(
+        "All arms as NAME=SHARE,... in order, overriding --holdout-share. A share is a fraction (0.1), "
+        "a percentage (10%) or basis points (1000bp); they add up to 1. An arm whose name starts with "
+        "'holdout' gets role holdout (the vendor must never reach it), every other arm role exposed; "
+        "a test needs at least one of each. E.g. holdout=0.1,exposed_a=0.45,exposed_b=0.45.")),
+    out: Path = typer.Option(None, "--out", "-o", help="Where to write the spec (default NAME.toml here)."),
+    force: bool = typer.Option(False, "--force", help="Overwrite an existing file."),
+) -> None:
+    """Write a new experiment spec with a fresh random salt.
+
+    The file is commented so it can be edited by hand before the test starts.
+
+    Example: armlock init spring-retargeting --holdout-share 0.1
+    """
+    target, spec = write_new_spec(name, holdout_share=holdout_share, arms=arms, out=out, force=force)
     split = ", ".join(f"{a.name} {a.weight / 100:g}%" for a in spec.arms)
     typer.echo(f"Wrote {target}  (arms: {split}; fingerprint {spec.fingerprint})")
     typer.echo("Edit it now if needed; once the test starts, never change salt or weights.")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from scipy.stats import norm
 
 
@@ -21,3 +23,49 @@ def mde(se: float, *, alpha: float = 0.05, power: float = 0.8) -> float:
     2.8016
     """
     return z_sum(alpha, power) * se
+
+
+def se_difference(sd: float, n_a: float, n_b: float) -> float:
+    """Standard error of a difference of two arm means with a common per-unit SD: sd * sqrt(1/n_a + 1/n_b)."""
+    if n_a <= 0 or n_b <= 0:
+        raise ValueError(f"arm sizes must be positive, got {n_a!r} and {n_b!r}")
+    return sd * math.sqrt(1.0 / n_a + 1.0 / n_b)
+
+
+def units_needed(effect: float, sd: float, share: float, *, alpha: float = 0.05, power: float = 0.8) -> float:
+    """Total units (both arms) so that a difference `effect` is detected, with `share` of them in one arm.
+
+    Solves z_sum * sd * sqrt(1/(share N) + 1/((1-share) N)) = effect for N. At share 0.5 this is twice
+    the textbook n = 2 (z_{1-a/2} + z_{1-b})^2 sd^2 / effect^2 per arm.
+    """
+    if effect <= 0 or sd <= 0:
+        raise ValueError(f"effect and sd must be positive, got {effect!r} and {sd!r}")
+    if not 0.0 < share < 1.0:
+        raise ValueError(f"share must lie in (0, 1), got {share!r}")
+    return (z_sum(alpha, power) * sd / effect) ** 2 * (1.0 / share + 1.0 / (1.0 - share))
+
+
+def power_at(effect: float, se: float, *, alpha: float = 0.05, z_crit: float | None = None) -> float:
+    """Power of the two-sided test (reject when |estimate| > z_crit * se) if the true difference is `effect`.
+
+    `z_crit` defaults to z_{1-alpha/2}; pass a wider multiplier (e.g. an anytime-valid factor) to get the
+    power of a test that reads a wider interval at the end. Both rejection tails are counted.
+    """
+    if se <= 0:
+        raise ValueError(f"se must be positive, got {se!r}")
+    z = float(norm.isf(alpha / 2.0)) if z_crit is None else z_crit
+    lam = abs(effect) / se
+    return float(norm.sf(z - lam) + norm.cdf(-z - lam))
+
+
+def conversion_mde(p: float, n_a: float, n_b: float, *, alpha: float = 0.05, power: float = 0.8) -> float:
+    """Smallest upward change of a conversion rate p detectable between arms of n_a and n_b units.
+
+    Arcsine (Cohen's h) scale, where the variance does not depend on p: h = z_sum * sqrt(1/n_a + 1/n_b),
+    and p2 = sin^2(asin(sqrt p) + h/2). Returns p2 - p (a difference of rates, not a relative lift).
+    """
+    if not 0.0 < p < 1.0:
+        raise ValueError(f"p must lie in (0, 1), got {p!r}")
+    h = z_sum(alpha, power) * math.sqrt(1.0 / n_a + 1.0 / n_b)
+    angle = min(math.asin(math.sqrt(p)) + h / 2.0, math.pi / 2.0)
+    return math.sin(angle) ** 2 - p

@@ -1,0 +1,231 @@
+"""What a plan is made from (`PlanInputs`, checked with clear errors) and what it returns (`Plan`, `Cell`)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+from armlock.assign import InputError
+
+SCHEMA = "armlock.plan/1"
+DEFAULT_SHARES = (0.05, 0.10, 0.20, 0.30, 0.50)
+DEFAULT_WEEKS = tuple(range(2, 27))
+DEFAULT_MAX_WEEKS = 12
+MIN_WEEKS = 2  # common practice: whole weeks, at least two, so every weekday is seen twice
+
+# field -> the command-line option that sets it, so an error names what the user typed
+FLAGS = {
+    "weekly_units": "--weekly-units", "revenue_mean": "--revenue-mean", "revenue_sd": "--revenue-sd",
+    "conversion": "--conversion", "order_value": "--order-value", "order_value_sd": "--order-value-sd",
+    "exposure_rate": "--exposure-rate", "effect": "--effect", "lift": "--lift",
+    "target_iroas": "--target-iroas", "weekly_spend": "--weekly-spend", "margin": "--margin",
+    "alpha": "--alpha", "power": "--power", "rho": "--rho",
+}
+
+
+def _bad(name: str, why: str) -> InputError:
+    return InputError(f"{FLAGS.get(name, name)}: {why}")
+
+
+@dataclass(frozen=True)
+class PlanInputs:
+    """The shop and the test as numbers. Effects are per exposed unit; spend is with nobody held out.
+
+    Give revenue per unit either as `revenue_mean` and `revenue_sd`, or as `conversion` and
+    `order_value` (with `order_value_sd` if order values vary; see `from_conversion`). Give at most one
+    target: `effect` (currency per exposed unit), `lift` (relative to revenue per unit) or
+    `target_iroas` (needs `weekly_spend`).
+    """
+
+    weekly_units: float
+    revenue_mean: float
+    revenue_sd: float
+    exposure_rate: float = 1.0
+    effect: float | None = None
+    lift: float | None = None
+    target_iroas: float | None = None
+    weekly_spend: float | None = None
+    margin: float | None = None
+    alpha: float = 0.05
+    power: float = 0.8
+    rho: float = 0.0
+    conversion: float | None = None
+    order_value: float | None = None
+    order_value_sd: float | None = None
+
+    def __post_init__(self) -> None:
+        for name in ("weekly_units", "revenue_mean", "revenue_sd", "exposure_rate", "alpha", "power", "rho",
+                     "effect", "lift", "target_iroas", "weekly_spend", "margin", "conversion", "order_value",
+                     "order_value_sd"):
+            v = getattr(self, name)
+            if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v)):
+                raise _bad(name, f"must be a finite number, got {v!r}")
+        if self.weekly_units <= 0:
+            raise _bad("weekly_units", f"must be positive, got {self.weekly_units:g}: with no new units a week "
+                       "there is no test to plan")
+        if self.revenue_mean <= 0:
+            raise _bad("revenue_mean", f"must be positive, got {self.revenue_mean:g} (revenue per unit over the test)")
+        if self.revenue_sd <= 0:
+            raise _bad("revenue_sd", f"must be positive, got {self.revenue_sd:g}: revenue that never varies "
+                       "between units is not real data (check the SD, or give --conversion and --order-value)")
+        if not 0 < self.exposure_rate <= 1:
+            raise _bad("exposure_rate", f"must lie in (0, 1], got {self.exposure_rate:g} (the share of the "
+                       "exposed arm the vendor actually reaches)")
+        for name in ("alpha", "power"):
+            if not 0 < getattr(self, name) < 1:
+                raise _bad(name, f"must lie in (0, 1), got {getattr(self, name):g}")
+        if not -1 < self.rho < 1:
+            raise _bad("rho", f"must lie in (-1, 1), got {self.rho:g} (the correlation of revenue with its "
+                       "pre-period covariate; 0 when there is none)")
+        targets = [n for n in ("effect", "lift", "target_iroas") if getattr(self, n) is not None]
+        if len(targets) > 1:
+            raise InputError(f"give one target, not {' and '.join(FLAGS[n] for n in targets)}")
+        for name in targets:
+            if getattr(self, name) <= 0:
+                raise _bad(name, f"must be positive, got {getattr(self, name):g}")
+        if self.weekly_spend is not None and self.weekly_spend <= 0:
+            raise _bad("weekly_spend", f"must be positive, got {self.weekly_spend:g}")
+        if self.target_iroas is not None and self.weekly_spend is None:
+            raise _bad("target_iroas", "needs --weekly-spend (the iROAS is incremental revenue per unit of spend)")
+        if self.margin is not None and not 0 < self.margin <= 1:
+            raise _bad("margin", f"must lie in (0, 1], got {self.margin:g} (gross margin as a share of revenue)")
+
+    @classmethod
+    def from_conversion(cls, *, conversion: float, order_value: float, order_value_sd: float = 0.0,
+                        **rest: Any) -> PlanInputs:
+        """Revenue per unit from a conversion rate p and order values (mean v, SD s), one order per buyer.
+
+        mean = p v;  variance = p (s^2 + v^2) - (p v)^2  (a buyer's revenue is one order value).
+        """
+        if not 0 < conversion < 1:
+            raise _bad("conversion", f"must lie in (0, 1), got {conversion:g} (the share of units that buy)")
+        if order_value <= 0:
+            raise _bad("order_value", f"must be positive, got {order_value:g}")
+        if order_value_sd < 0:
+            raise _bad("order_value_sd", f"must not be negative, got {order_value_sd:g}")
+        mean = conversion * order_value
+        var = conversion * (order_value_sd ** 2 + order_value ** 2) - mean ** 2
+        return cls(revenue_mean=mean, revenue_sd=math.sqrt(var), conversion=conversion, order_value=order_value,
+                   order_value_sd=order_value_sd, **rest)
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """One figure the planner estimated from the pre-period files, and from how much data."""
+
+    name: str
+    value: float
+    units: int
+    how: str
+
+
+@dataclass(frozen=True)
+class Cell:
+    """One holdout share run for one number of weeks. Differences are arm-level per unit unless named."""
+
+    share: float
+    weeks: int
+    units: float
+    holdout_units: float
+    exposed_units: float
+    se: float  # of the arm difference in revenue per unit, without CUPED
+    mde: float  # arm-level difference detectable without CUPED
+    mde_cuped: float  # the same with the pre-period covariate (variance x (1 - rho^2))
+    mde_relative: float  # mde / revenue per unit
+    mde_relative_cuped: float
+    mde_per_exposed: float  # the planned MDE (CUPED if rho != 0) divided by the exposure rate
+    mde_weekly_reading: float  # planned MDE when the anytime-valid interval is read every week
+    mde_conversion: float | None  # change in conversion rate detectable (rate difference), if known
+    iroas_vs_zero: float | None  # smallest iROAS distinguishable from zero (needs spend)
+    iroas_vs_break_even: float | None  # smallest iROAS distinguishable from break-even (needs spend, margin)
+    revenue_forgone: float | None  # holdout revenue lost if the channel works at the target effect
+    profit_forgone: float | None  # margin x revenue forgone minus the spend saved on the holdout
+    power_at_target: float | None  # power of this cell against the target (planned variance)
+
+
+@dataclass(frozen=True)
+class ShareSummary:
+    """One holdout share against the target: the weeks it needs and what those weeks cost."""
+
+    share: float
+    weeks_needed: float  # exact (fractional) weeks, planned variance
+    weeks_needed_raw: float  # without CUPED
+    weeks_needed_weekly_reading: float  # when read weekly with the anytime-valid interval
+    weeks: int  # whole weeks to run (at least MIN_WEEKS)
+    revenue_forgone: float
+    profit_forgone: float | None
+
+
+@dataclass(frozen=True)
+class Recommendation:
+    """The one-sentence advice. status: pass (meets the target in time), warn (only later than allowed),
+    fail (not within the longest duration planned), skipped (no target given)."""
+
+    status: str
+    share: float | None
+    weeks: int | None
+    sentence: str
+
+
+@dataclass
+class Plan:
+    """The whole plan: inputs, target, the share x weeks grid, per-share summaries and the advice."""
+
+    inputs: PlanInputs
+    shares: list[float]
+    weeks: list[int]
+    max_weeks: int
+    cells: list[Cell]
+    target_difference: float | None  # arm-level difference per unit at the target
+    target_per_exposed: float | None
+    target_iroas: float | None
+    break_even_iroas: float | None
+    anytime_factor: float  # anytime-valid half-width / SE at the planned end
+    z_alpha: float
+    summaries: list[ShareSummary]
+    recommendation: Recommendation
+    estimates: list[Estimate] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    assumptions: list[str] = field(default_factory=list)
+
+    @property
+    def cuped(self) -> bool:
+        return self.inputs.rho != 0
+
+    def cell(self, share: float, weeks: int) -> Cell:
+        for c in self.cells:
+            if c.weeks == weeks and math.isclose(c.share, share):
+                return c
+        raise KeyError((share, weeks))
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON form (schema armlock.plan/1)."""
+        from armlock.assign import __version__
+
+        return {
+            "schema": SCHEMA,
+            "armlock_version": __version__,
+            "inputs": asdict(self.inputs),
+            "estimated": [asdict(e) for e in self.estimates],
+            "target": None if self.target_difference is None else {
+                "difference_per_unit": self.target_difference,
+                "per_exposed_unit": self.target_per_exposed,
+                "relative": self.target_difference / self.inputs.revenue_mean,
+                "iroas": self.target_iroas,
+            },
+            "break_even_iroas": self.break_even_iroas,
+            "cuped": self.cuped,
+            "weekly_reading": {
+                "anytime_factor": self.anytime_factor, "fixed_factor": self.z_alpha,
+                "width_ratio": self.anytime_factor / self.z_alpha,
+            },
+            "max_weeks": self.max_weeks,
+            "shares": self.shares,
+            "weeks": self.weeks,
+            "cells": [asdict(c) for c in self.cells],
+            "by_share": [asdict(s) for s in self.summaries],
+            "recommendation": asdict(self.recommendation),
+            "assumptions": self.assumptions,
+            "notes": self.notes,
+        }
