@@ -123,6 +123,7 @@ def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
                 iroas_vs_break_even=None if (spend is None or break_even is None) else break_even + planned * W / spend,
                 revenue_forgone=forgone, profit_forgone=profit,
                 power_at_target=None if target is None else power_at(target, se_p, alpha=x.alpha),
+                power_weekly_reading=None if target is None else power_at(target, se_p, alpha=x.alpha, z_crit=f_any),
             ))
 
     summaries: list[ShareSummary] = []

@@ -142,6 +142,7 @@ class Cell:
     revenue_forgone: float | None  # holdout revenue lost if the channel works at the target effect
     profit_forgone: float | None  # margin x revenue forgone minus the spend saved on the holdout
     power_at_target: float | None  # power of this cell against the target (planned variance)
+    power_weekly_reading: float | None  # the same when read every week with the anytime-valid interval (a lower bound)
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,151 @@
+"""The plan's own logic: dilution by reach, iROAS and break-even, revenue forgone, weeks needed, the advice."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from armlock.assign import InputError
+from armlock.plan.compute import make_plan
+from armlock.plan.model import PlanInputs
+from armlock.plan.power import units_needed, z_sum
+
+BASE = dict(weekly_units=50_000, revenue_mean=4.0, revenue_sd=30.0)
+
+
+def test_exposure_rate_dilutes_the_effect_the_arms_show() -> None:
+    full = make_plan(PlanInputs(**BASE, effect=0.5), shares=[0.1], weeks=[8])
+    half = make_plan(PlanInputs(**BASE, effect=0.5, exposure_rate=0.5), shares=[0.1], weeks=[8])
+    assert half.target_difference == pytest.approx(0.25)
+    assert full.target_difference == pytest.approx(0.5)
+    # the detectable difference between arms does not depend on reach; per exposed unit it doubles
+    assert half.cell(0.1, 8).mde == full.cell(0.1, 8).mde
+    assert half.cell(0.1, 8).mde_per_exposed == pytest.approx(2 * full.cell(0.1, 8).mde_per_exposed)
+    # halving the effect on the arms quadruples the units needed (n ~ 1 / effect^2)
+    assert half.summaries[0].weeks_needed == pytest.approx(4 * full.summaries[0].weeks_needed)
+
+
+def test_weeks_needed_is_the_closed_form_and_meets_the_target() -> None:
+    p = make_plan(PlanInputs(**BASE, lift=0.04, exposure_rate=0.7), shares=[0.2], weeks=list(range(1, 80)),
+                  max_weeks=80)
+    target = 0.04 * 4.0 * 0.7
+    s = p.summaries[0]
+    assert s.weeks_needed == pytest.approx((z_sum(0.05, 0.8) * 30.0 / target) ** 2 * (1 / 0.2 + 1 / 0.8) / 50_000)
+    assert p.cell(0.2, s.weeks).mde <= target < p.cell(0.2, s.weeks - 1).mde
+    assert p.cell(0.2, s.weeks).power_at_target >= 0.8 > p.cell(0.2, s.weeks - 1).power_at_target
+
+
+def test_iroas_is_difference_times_weekly_units_over_weekly_spend_for_every_share() -> None:
+    p = make_plan(PlanInputs(**BASE, target_iroas=3.0, weekly_spend=20_000, margin=0.4), shares=[0.05, 0.5], weeks=[6])
+    assert p.target_difference == pytest.approx(3.0 * 20_000 / 50_000)
+    assert p.target_iroas == pytest.approx(3.0)
+    assert p.break_even_iroas == pytest.approx(2.5)
+    for h in (0.05, 0.5):
+        c = p.cell(h, 6)
+        # incremental revenue of the exposed arm / its spend = (mde x exposed units) / (spend x (1-h) x weeks)
+        assert c.iroas_vs_zero == pytest.approx(c.mde * c.exposed_units / (20_000 * (1 - h) * 6))
+        assert c.iroas_vs_break_even == pytest.approx(2.5 + c.iroas_vs_zero)
+
+
+def test_revenue_and_profit_forgone() -> None:
+    p = make_plan(PlanInputs(**BASE, effect=0.3, exposure_rate=0.5, weekly_spend=10_000, margin=0.5),
+                  shares=[0.1], weeks=[4])
+    c = p.cell(0.1, 4)
+    assert c.revenue_forgone == pytest.approx(0.15 * 0.1 * 50_000 * 4)  # arm difference x holdout units
+    assert c.profit_forgone == pytest.approx(0.5 * c.revenue_forgone - 10_000 * 0.1 * 4)  # less the spend saved
+
+
+def test_recommendation_pass_picks_the_smallest_share_in_time() -> None:
+    p = make_plan(PlanInputs(weekly_units=400_000, revenue_mean=7.0, revenue_sd=75.0, lift=0.05), max_weeks=12)
+    rec = p.recommendation
+    assert rec.status == "pass"
+    in_time = [s for s in p.summaries if s.weeks <= 12]
+    assert rec.share == min(s.share for s in in_time) and rec.weeks == in_time[0].weeks
+    smaller = [s for s in p.summaries if s.share < rec.share]
+    assert all(s.weeks > 12 for s in smaller)
+    assert f"Hold out {rec.share * 100:g}%" in rec.sentence and f"for {rec.weeks} weeks" in rec.sentence
+    assert rec.sentence.count(".") <= 4 and rec.sentence.endswith(".")  # one sentence (decimals aside)
+
+
+def test_recommendation_warn_fail_and_skipped() -> None:
+    warn = make_plan(PlanInputs(weekly_units=150_000, revenue_mean=7.0, revenue_sd=75.0, lift=0.05), max_weeks=4)
+    assert warn.recommendation.status == "warn" and warn.recommendation.share == 0.5
+    assert warn.recommendation.weeks > 4
+    fail = make_plan(PlanInputs(weekly_units=2_000, revenue_mean=7.0, revenue_sd=75.0, lift=0.05))
+    assert fail.recommendation.status == "fail" and fail.recommendation.share is None
+    assert "inconclusive" in fail.recommendation.sentence
+    none = make_plan(PlanInputs(weekly_units=2_000, revenue_mean=7.0, revenue_sd=75.0))
+    assert none.recommendation.status == "skipped" and none.summaries == []
+    assert all(c.revenue_forgone is None for c in none.cells)
+
+
+def test_whole_weeks_at_least_two() -> None:
+    p = make_plan(PlanInputs(weekly_units=10_000_000, revenue_mean=7.0, revenue_sd=75.0, lift=0.2))
+    assert p.summaries[0].weeks_needed < 1 and p.recommendation.weeks == 2
+
+
+def test_weekly_reading_costs_a_constant_factor_at_the_planned_end() -> None:
+    from armlock.readout.confseq import anytime_factor
+
+    p = make_plan(PlanInputs(**BASE, effect=0.4), shares=[0.2], weeks=[6])
+    f = anytime_factor(123.0, t_opt=123.0, alpha=0.05)  # scale-free at t = t_opt
+    assert p.anytime_factor == pytest.approx(f)
+    assert p.anytime_factor / p.z_alpha > 1.3  # the price of looking every week is real
+    c = p.cell(0.2, 6)
+    assert c.mde_weekly_reading == pytest.approx((f + 0.8416212) * c.se, rel=1e-6)
+    s = p.summaries[0]
+    assert s.weeks_needed_weekly_reading / s.weeks_needed == pytest.approx(((f + 0.8416212) / 2.8015852) ** 2, rel=1e-6)
+
+
+def test_from_conversion_revenue_moments() -> None:
+    x = PlanInputs.from_conversion(conversion=0.02, order_value=80.0, order_value_sd=60.0, weekly_units=1000)
+    assert x.revenue_mean == pytest.approx(1.6)
+    assert x.revenue_sd ** 2 == pytest.approx(0.02 * (60 ** 2 + 80 ** 2) - 1.6 ** 2)
+    c = make_plan(x, shares=[0.5], weeks=[2]).cell(0.5, 2)
+    assert c.mde_conversion is not None and c.mde_conversion > 0
+
+
+@pytest.mark.parametrize("kw,flag", [
+    (dict(weekly_units=0), "--weekly-units"),
+    (dict(revenue_sd=0), "--revenue-sd"),
+    (dict(revenue_mean=-1), "--revenue-mean"),
+    (dict(exposure_rate=0), "--exposure-rate"),
+    (dict(exposure_rate=1.2), "--exposure-rate"),
+    (dict(alpha=1.0), "--alpha"),
+    (dict(power=0), "--power"),
+    (dict(rho=1.0), "--rho"),
+    (dict(effect=-0.1), "--effect"),
+    (dict(effect=0.1, lift=0.1), "give one target"),
+    (dict(target_iroas=2.0), "--weekly-spend"),
+    (dict(margin=1.5), "--margin"),
+    (dict(weekly_units=math.nan), "--weekly-units"),
+])
+def test_bad_numbers_are_input_errors_naming_the_option(kw: dict, flag: str) -> None:
+    with pytest.raises(InputError, match=flag):
+        PlanInputs(**{**BASE, **kw})
+
+
+@pytest.mark.parametrize("shares,weeks,match", [
+    ([0.0, 0.1], [4], "outside"), ([1.0], [4], "outside"), ([0.12345], [4], "basis points"),
+    ([], [4], "at least one"), ([0.1], [0], "at least 1"), ([0.1], [], "at least one"),
+])
+def test_bad_grid(shares: list[float], weeks: list[int], match: str) -> None:
+    with pytest.raises(InputError, match=match):
+        make_plan(PlanInputs(**BASE), shares=shares, weeks=weeks)
+
+
+def test_json_form_is_versioned_and_complete() -> None:
+    import json
+
+    from armlock.plan.render import render_json
+
+    p = make_plan(PlanInputs(**BASE, effect=0.3, weekly_spend=9_000, margin=0.3, rho=0.4), shares=[0.1, 0.3],
+                  weeks=[2, 4])
+    d = json.loads(render_json(p))
+    assert d["schema"] == "armlock.plan/1"
+    assert len(d["cells"]) == 4 and {c["share"] for c in d["cells"]} == {0.1, 0.3}
+    assert d["recommendation"]["status"] in {"pass", "warn", "fail", "skipped"}
+    assert d["target"]["difference_per_unit"] == pytest.approx(0.3)
+    assert d["inputs"]["rho"] == 0.4 and d["cuped"] is True
+    assert units_needed(0.3, 30.0 * math.sqrt(1 - 0.16), 0.1) / 50_000 == pytest.approx(d["by_share"][0]["weeks_needed"])
