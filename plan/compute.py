@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
-from scipy.stats import norm
+from .power import N01 as _N
 
 from armlock.assign import InputError
 from armlock.readout.confseq import anytime_factor
@@ -83,7 +83,7 @@ def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
     k = 1.0 - x.rho ** 2  # CUPED: Var(diff_cv) = Var(diff)(1 - rho^2), Deng, Xu, Kohavi & Walker 2013
     sd_plan = sd * math.sqrt(k)
     zs = z_sum(x.alpha, x.power)
-    z_a = float(norm.isf(x.alpha / 2))
+    z_a = float(-_N.inv_cdf(x.alpha / 2))
     z_b = zs - z_a
     f_any = anytime_factor(1.0, t_opt=1.0, alpha=x.alpha)  # at the planned end t = t_opt, scale-free
     spend = x.weekly_spend

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import math
 
-from scipy.stats import norm
+from statistics import NormalDist
+
+N01 = _N = NormalDist()  # the stdlib normal (Wichura AS241 quantiles) keeps scipy out of `armlock plan`: it starts fast
 
 
 def z_sum(alpha: float, power: float) -> float:
@@ -13,7 +15,7 @@ def z_sum(alpha: float, power: float) -> float:
         raise ValueError(f"alpha must lie in (0, 1), got {alpha!r}")
     if not 0.0 < power < 1.0:
         raise ValueError(f"power must lie in (0, 1), got {power!r}")
-    return float(norm.isf(alpha / 2.0) + norm.ppf(power))
+    return float(-_N.inv_cdf(alpha / 2.0) + _N.inv_cdf(power))
 
 
 def mde(se: float, *, alpha: float = 0.05, power: float = 0.8) -> float:
@@ -53,9 +55,9 @@ def power_at(effect: float, se: float, *, alpha: float = 0.05, z_crit: float | N
     """
     if se <= 0:
         raise ValueError(f"se must be positive, got {se!r}")
-    z = float(norm.isf(alpha / 2.0)) if z_crit is None else z_crit
+    z = float(-_N.inv_cdf(alpha / 2.0)) if z_crit is None else z_crit
     lam = abs(effect) / se
-    return float(norm.sf(z - lam) + norm.cdf(-z - lam))
+    return float(_N.cdf(lam - z) + _N.cdf(-z - lam))
 
 
 def conversion_mde(p: float, n_a: float, n_b: float, *, alpha: float = 0.05, power: float = 0.8) -> float:

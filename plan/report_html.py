@@ -9,7 +9,7 @@ import matplotlib
 
 from armlock.assign import __version__
 from armlock.audit.report_html import (  # one visual language: the audit report's styles and chart writer
-    _ICON, _RC, ACCENT, ARM_COLOURS, BAND, CSS, INK, MUTED, STATUS_STYLE, _svg, esc,
+    _ICON, _RC, ARM_COLOURS, BAND, CSS, INK, MUTED, STATUS_STYLE, _svg, esc,
 )
 from armlock.readout.confseq import anytime_halfwidth
 

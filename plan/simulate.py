@@ -15,7 +15,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import norm
+from .power import N01 as _N
 
 from armlock.readout.confseq import anytime_factor
 
@@ -58,7 +58,7 @@ def simulate(inputs: PlanInputs, share: float, weeks: int, *, effect_per_exposed
         raise ValueError(f"effect {effect_per_exposed} is not reachable by a change of conversion from {p}")
     W = x.weekly_units
     n_h_w, n_e_w = int(round(share * W)), int(round((1 - share) * W))
-    z = float(norm.isf(x.alpha / 2))
+    z = float(-_N.inv_cdf(x.alpha / 2))
     t_opt = (n_h_w + n_e_w) * weeks
     f_looks = np.array([anytime_factor((n_h_w + n_e_w) * (k + 1), t_opt=t_opt, alpha=x.alpha) for k in range(weeks)])
     cuped = x.rho != 0

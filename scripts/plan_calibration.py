@@ -33,8 +33,8 @@ def main() -> None:
     ap.add_argument("--sims", type=int, default=1000)
     args = ap.parse_args()
     mu = 2.0
-    print(f"| scenario | units | planned power | observed, fixed at end | within 3 points | weekly reading: "
-          f"planned at least | observed | no effect: fixed at end | fixed read weekly | anytime read weekly |")
+    print("| scenario | units | planned power | observed, fixed at end | within 3 points | weekly reading: "
+          "planned at least | observed | no effect: fixed at end | fixed read weekly | anytime read weekly |")
     print("|---|---:|---:|---:|:---:|---:|---:|---:|---:|---:|")
     for name, sd, h, e, lift, rho in SCENARIOS:
         t0 = time.time()

@@ -1,0 +1,118 @@
+"""`armlock plan` as a user runs it: formats, the spec it writes, estimates from files, and bad input (exit 4)."""
+
+from __future__ import annotations
+
+import json
+import tomllib
+from pathlib import Path
+
+import pytest
+import typer
+
+from armlock.cli import app
+
+from .cli_run import run_cli
+
+SHOP = ["--weekly-units", "300000", "--revenue-mean", "7", "--revenue-sd", "75", "--exposure-rate", "0.8",
+        "--lift", "0.05", "--weekly-spend", "40000", "--margin", "0.4", "--rho", "0.4"]
+
+
+def test_plan_is_the_first_command() -> None:
+    group = typer.main.get_command(app)
+    assert list(group.commands)[:2] == ["plan", "init"]  # type: ignore[attr-defined]
+
+
+def test_text_plan(tmp_path: Path) -> None:
+    r = run_cli(tmp_path, "plan", *SHOP)
+    assert r.returncode == 0, r.stderr
+    out = r.stdout
+    assert out.startswith("armlock plan: 300,000 new units a week")
+    assert "Recommendation [PASS]: Hold out" in out
+    assert "Smallest detectable difference in revenue per unit" in out
+    assert "Smallest iROAS distinguishable from zero / from break-even (2.5)" in out
+    assert "Reading the result every week" in out
+    assert "Traceback" not in r.stderr
+
+
+def test_json_and_markdown(tmp_path: Path) -> None:
+    r = run_cli(tmp_path, "plan", *SHOP, "--format", "json", "--holdout-shares", "10%,0.2", "--weeks", "2-4,8")
+    d = json.loads(r.stdout)
+    assert d["schema"] == "armlock.plan/1" and d["shares"] == [0.1, 0.2] and d["weeks"] == [2, 3, 4, 8]
+    md = run_cli(tmp_path, "plan", *SHOP, "--format", "markdown").stdout
+    assert md.startswith("# Holdout plan") and "| weeks | holdout 5% |" in md
+
+
+def test_write_spec_uses_the_recommended_share(tmp_path: Path) -> None:
+    r = run_cli(tmp_path, "plan", *SHOP, "--format", "json", "--write-spec", "spring-test")
+    assert r.returncode == 0, r.stderr
+    rec = json.loads(r.stdout)["recommendation"]  # stdout stays pure JSON; the spec message is on stderr
+    spec = tomllib.loads((tmp_path / "spring-test.toml").read_text())
+    weights = {a["name"]: a["weight"] for a in spec["arms"]}
+    assert weights == {"holdout": round(rec["share"] * 10_000), "exposed": 10_000 - round(rec["share"] * 10_000)}
+    assert "Wrote spring-test.toml" in r.stderr and f"{rec['weeks']} weeks" in r.stderr
+    # the same code as `armlock init`: `check` accepts it, and a second write is refused before any work
+    assert run_cli(tmp_path, "check", "--spec", "spring-test.toml").returncode == 0
+    again = run_cli(tmp_path, "plan", *SHOP, "--write-spec", "spring-test")
+    assert again.returncode == 4 and "already exists" in again.stderr and again.stdout == ""
+
+
+def test_write_spec_refused_without_a_recommendation(tmp_path: Path) -> None:
+    r = run_cli(tmp_path, "plan", "--weekly-units", "500", "--revenue-mean", "7", "--revenue-sd", "75",
+                "--lift", "0.05", "--write-spec", "tiny")
+    assert r.returncode == 4 and "no spec written" in r.stderr
+    assert not (tmp_path / "tiny.toml").exists()
+
+
+def test_html_out(tmp_path: Path) -> None:
+    r = run_cli(tmp_path, "plan", *SHOP, "--format", "html", "--out", "plan.html")
+    assert r.returncode == 0, r.stderr
+    page = (tmp_path / "plan.html").read_text()
+    assert page.count('data-chart="') == 3 and "Holdout plan" in page
+
+
+def test_from_files(tmp_path: Path) -> None:
+    lines = ["unit_id,first_seen,pre_revenue"] + [f"u{i},2026-10-{1 + i % 28:02d}T10:00:00Z,{(i * 37) % 50}"
+                                                   for i in range(2000)]
+    (tmp_path / "v.csv").write_text("\n".join(lines) + "\n")
+    (tmp_path / "o.csv").write_text("unit_id,revenue\n" + "".join(f"u{i},{20 + (i * 37) % 50}\n" for i in range(0, 2000, 9)))
+    r = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv", "--lift", "0.1")
+    assert r.returncode == 0, r.stderr
+    assert "Estimated from the pre-period files:" in r.stdout
+    assert "weekly new units: 500 (2,000 units first seen over 28 days" in r.stdout
+    assert "pre-period correlation (rho)" in r.stdout
+    over = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv", "--lift", "0.1",
+                   "--weekly-units", "9000", "--format", "json")
+    d = json.loads(over.stdout)
+    assert d["inputs"]["weekly_units"] == 9000 and any("instead of the estimate" in n for n in d["notes"])
+
+
+@pytest.mark.parametrize("args,message", [
+    (["--weekly-units", "0", "--revenue-mean", "7", "--revenue-sd", "75"], "--weekly-units: must be positive"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "0"], "--revenue-sd: must be positive"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--holdout-shares", "5,10"],
+     "--holdout-shares: 5 is outside (0, 1); write 0.05 or 5%"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--holdout-shares", "0%"],
+     "outside (0, 1)"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--holdout-shares", "100%"],
+     "outside (0, 1)"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--weeks", "0-3"], "--weeks"),
+    (["--weekly-units", "1000", "--revenue-mean", "7"], "give revenue per unit"),
+    (["--revenue-mean", "7", "--revenue-sd", "5"], "--weekly-units"),
+    (["--weekly-units", "1000", "--conversion", "0.02"], "go together"),
+    (["--weekly-units", "1000", "--conversion", "1.5", "--order-value", "50"], "--conversion: must lie in (0, 1)"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--target-iroas", "3"], "--weekly-spend"),
+    (["--visits", "missing.csv", "--weekly-units", "10"], "give both --visits and --orders"),
+    (["--visits", "missing.csv", "--orders", "o.csv"], "missing.csv: visits file not found"),
+])
+def test_bad_input_exit_4_with_a_clear_message(tmp_path: Path, args: list[str], message: str) -> None:
+    r = run_cli(tmp_path, "plan", *args)
+    assert r.returncode == 4, (r.stdout, r.stderr)
+    assert r.stderr.startswith("Error: ") and message in r.stderr, r.stderr
+    assert "Traceback" not in r.stderr and r.stdout == ""
+
+
+def test_pre_period_file_without_orders(tmp_path: Path) -> None:
+    (tmp_path / "v.csv").write_text("unit_id,first_seen\n" + "".join(f"u{i},2026-10-0{1 + i % 7}T00:00:00Z\n" for i in range(100)))
+    (tmp_path / "o.csv").write_text("unit_id,revenue\n")
+    r = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv")
+    assert r.returncode == 4 and "o.csv: the orders file has no orders" in r.stderr

@@ -1,0 +1,125 @@
+"""Planning from pre-period files: what is estimated (checked against numpy on the same data) and clear errors."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from armlock.assign import InputError
+from armlock.plan.estimate import PrePeriodColumns, estimate_pre_period
+
+
+def _files(tmp_path: Path, n: int = 3000, days: int = 28, seed: int = 3, fmt: str = "csv") -> tuple[Path, Path, dict]:
+    rng = np.random.default_rng(seed)
+    ids = [f"u{i}" for i in range(n)]
+    first = pd.Timestamp("2026-10-01", tz="UTC") + pd.to_timedelta(rng.integers(0, days * 86400, n), unit="s")
+    first = first.where(np.arange(n) != 0, pd.Timestamp("2026-10-01 00:00", tz="UTC"))
+    first = first.where(np.arange(n) != 1, pd.Timestamp("2026-10-01 00:00", tz="UTC") + pd.Timedelta(days=days - 1))
+    pre_rev = rng.gamma(0.2, 40.0, n)
+    buys = rng.random(n) < 0.04 + 0.2 * (pre_rev > 20)
+    orders = []
+    for i in np.flatnonzero(buys):
+        for _ in range(rng.integers(1, 3)):
+            orders.append((ids[i], float(np.round(rng.lognormal(3.5, 0.8), 2))))
+    visits = pd.DataFrame({"unit_id": ids, "first_seen": first.strftime("%Y-%m-%dT%H:%M:%SZ"),
+                           "pre_revenue": np.round(pre_rev, 2), "pre_orders": rng.poisson(0.2, n)})
+    od = pd.DataFrame(orders, columns=["unit_id", "revenue"])
+    vp, op = tmp_path / f"visits.{fmt}", tmp_path / f"orders.{fmt}"
+    if fmt == "csv":
+        visits.to_csv(vp, index=False)
+        od.to_csv(op, index=False)
+    else:
+        visits.to_parquet(vp)
+        od.to_parquet(op)
+    per_unit = od.groupby("unit_id")["revenue"].sum().reindex(ids, fill_value=0.0).to_numpy()
+    truth = {"n": n, "days": days, "y": per_unit, "orders": len(od), "x": visits["pre_revenue"].to_numpy(),
+             "buyers": int((od.groupby("unit_id").size() > 0).sum())}
+    return vp, op, truth
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_estimates_match_numpy_on_the_same_data(tmp_path: Path, fmt: str) -> None:
+    vp, op, t = _files(tmp_path, fmt=fmt)
+    pre = estimate_pre_period(vp, op)
+    v = pre.values
+    assert v["weekly_units"] == pytest.approx(t["n"] / (t["days"] / 7))
+    assert v["revenue_mean"] == pytest.approx(t["y"].mean())
+    assert v["revenue_sd"] == pytest.approx(t["y"].std(ddof=1))
+    assert v["conversion"] == pytest.approx(t["buyers"] / t["n"])
+    assert v["order_value"] == pytest.approx(t["y"].sum() / t["orders"])
+    assert v["rho"] == pytest.approx(np.corrcoef(t["x"], t["y"])[0, 1])  # pre_revenue beats pre_orders here
+    names = {e.name: e for e in pre.estimates}
+    assert names["weekly new units"].units == t["n"] and f"{t['days']} days" in names["weekly new units"].how
+    assert "pre_revenue" in names["pre-period correlation (rho)"].how
+
+
+def test_rows_set_aside_are_counted(tmp_path: Path) -> None:
+    vp, op, t = _files(tmp_path)
+    with open(vp, "a") as fh:
+        fh.write(",2026-10-03T00:00:00Z,1,0\nu5,2026-10-02T00:00:00Z,1,0\n")
+    with open(op, "a") as fh:
+        fh.write("stranger,10\n,5\nu7,-12.5\n")
+    pre = estimate_pre_period(vp, op)
+    text = " ".join(pre.notes)
+    assert "1 row(s) with an empty 'unit_id'" in text
+    assert "1 repeated row(s)" in text
+    assert "1 order(s) of" in text and "not in the visits file" in text
+    assert "negative revenue (refunds) were kept" in text
+
+
+def test_spec_column_map_and_explicit_orders_columns(tmp_path: Path) -> None:
+    vp, op, t = _files(tmp_path)
+    pd.read_csv(vp).rename(columns={"unit_id": "vid", "first_seen": "ts"}).to_csv(vp, index=False)
+    pd.read_csv(op).rename(columns={"unit_id": "visitor", "revenue": "amount"}).to_csv(op, index=False)
+    cols = PrePeriodColumns(unit_id="vid", first_seen="ts", orders_unit_id="visitor", orders_revenue="amount",
+                            covariates=("pre_orders",), covariate_explicit=True)
+    pre = estimate_pre_period(vp, op, cols)
+    assert pre.values["revenue_mean"] == pytest.approx(t["y"].mean())
+    assert "pre_orders" in pre.estimates[-1].how
+
+
+def test_orders_file_without_orders(tmp_path: Path) -> None:
+    vp, op, _ = _files(tmp_path)
+    op.write_text("unit_id,revenue\n")
+    with pytest.raises(InputError, match="orders file has no orders"):
+        estimate_pre_period(vp, op)
+
+
+def test_orders_of_other_units_only(tmp_path: Path) -> None:
+    vp, op, _ = _files(tmp_path)
+    op.write_text("unit_id,revenue\nx1,10\nx2,20\n")
+    with pytest.raises(InputError, match="none of its 2 order"):
+        estimate_pre_period(vp, op)
+
+
+def test_missing_column_names_file_and_spec_key(tmp_path: Path) -> None:
+    vp, op, _ = _files(tmp_path)
+    with pytest.raises(InputError, match=r"column 'amount' not found in the orders file .* revenue = \"amount\""):
+        estimate_pre_period(vp, op, PrePeriodColumns(orders_revenue="amount"))
+    with pytest.raises(InputError, match="column 'nope' not found in the visits file"):
+        estimate_pre_period(vp, op, PrePeriodColumns(covariates=("nope",), covariate_explicit=True))
+
+
+def test_revenue_that_never_varies(tmp_path: Path) -> None:
+    vp, op, _ = _files(tmp_path, n=100)
+    op.write_text("unit_id,revenue\n" + "".join(f"u{i},5\n" for i in range(100)))
+    with pytest.raises(InputError, match="same revenue"):
+        estimate_pre_period(vp, op)
+
+
+def test_not_a_number_revenue_names_the_line(tmp_path: Path) -> None:
+    vp, op, _ = _files(tmp_path)
+    op.write_text("unit_id,revenue\nu1,10\nu2,ten\n")
+    with pytest.raises(InputError, match="line 3"):
+        estimate_pre_period(vp, op)
+
+
+def test_too_few_units_and_short_history(tmp_path: Path) -> None:
+    vp, op, _ = _files(tmp_path, n=10)
+    with pytest.raises(InputError, match="at least 30"):
+        estimate_pre_period(vp, op)
+    vp, op, _ = _files(tmp_path, n=500, days=3)
+    assert any("only 3 day(s)" in n for n in estimate_pre_period(vp, op).notes)
