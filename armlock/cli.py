@@ -67,8 +67,9 @@ app = typer.Typer(
     cls=ArmlockGroup,
     help=(
         "armlock: the plumbing of a user-level advertising holdout test.\n\n"
-        "`plan` sizes the test (holdout share, weeks, cost); a spec file fixes the split (salt + arms); `assign` and the browser snippet apply it "
-        "identically everywhere; `audit` checks weekly that the split is healthy.\n\n"
+        "`plan` sizes the test (holdout share, weeks, cost); a spec file fixes the split (salt + arms); "
+        "`assign` and the browser snippet apply it identically everywhere; `audit` checks weekly that the "
+        "split is healthy.\n\n"
         "Example: armlock init spring-retargeting --holdout-share 0.1"
     ),
     no_args_is_help=True,
