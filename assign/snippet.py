@@ -10,6 +10,7 @@ from itertools import product
 from string import ascii_lowercase, ascii_uppercase
 from typing import Any, Literal
 
+from .contract import bucket
 from .spec import Spec
 from .spec_snippet import MAX_COOKIE_DAYS
 
@@ -72,6 +73,9 @@ def snippet_config(spec: Spec) -> dict[str, Any]:
         "i": [[src.kind, src.name, src.pattern] for src in s.id_sources],
         "c": consent,
         "q": s.qa_param,
+        # self-test at load: the experiment name's bucket by Python. A page whose built-ins were
+        # patched before the snippet loaded, so that it would hash differently, fails closed.
+        "t": bucket(spec.salt, spec.name),
     }
 
 

@@ -5,7 +5,8 @@
   // Role of each key of C: n experiment, f fingerprint, s salt, a arm names in order,
   // b their cumulative weights (basis points), x exposed arm names, k own cookie name, m Max-Age (s), o cookie domain, l data-layer name,
   // e event name, r error event name, g global object name, i id sources [[kind, name, pattern]],
-  // c consent [key, value] or [function path] or null, q QA override parameter ("" = off).
+  // c consent [key, value] or [function path] or null, q QA override parameter ("" = off),
+  // t the bucket Python gives the experiment name (the self-test at load).
   // The decision lives in these closure variables only; window[C.g] is a frozen read-only view.
   var dl, G, arm = null, forced = false, state = 'waiting', queue = [], hexDigits = '0123456789abcdef',
     toText = String, freeze = Object.freeze, U8 = Uint8Array, cr = w.crypto;
@@ -338,6 +339,7 @@
     };
     w[C.g] = freeze(G);
     for (i = 0; stub && i < stub.length; i++) queued(stub[i]);
+    if (bucketOf(C.n) !== C.t) throw 'self-test failed: this page hashes differently';
     // consent by data layer: re-check on every push. A data layer that is not an object with a
     // push method is left exactly as the page made it
     if (C.c && typeof dl.push == 'function') {

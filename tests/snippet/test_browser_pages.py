@@ -119,6 +119,16 @@ def test_built_ins_patched_before_consent_do_not_change_the_arm(
     assert p.errors == []
 
 
+def test_a_hash_changed_by_built_ins_patched_before_load_fails_closed(
+        site: tuple[Path, str], opened: Callable[[], Page]) -> None:
+    patch = "<script>String.prototype.charCodeAt = function () { return 65; };</script>"
+    p = opened().open(write_page(site[0], "p.html", make_spec(), before=STUB + VENDOR + patch))
+    assert p.js("[armlock.state, armlock.arm]") == ["failed", None] and p.cookie() is None
+    assert p.js("window.vendorFired || 0") == 0 and p.events() == []
+    assert p.events("armlock_error")[0]["armlock_error"] == "self-test failed: this page hashes differently"
+    assert p.errors == []
+
+
 def test_a_random_source_that_fills_nothing_fails_closed(site: tuple[Path, str], opened: Callable[[], Page]) -> None:
     spec = make_spec()
     broken = "<script>Crypto.prototype.getRandomValues = function (b) { return b; };</script>"

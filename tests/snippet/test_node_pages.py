@@ -147,6 +147,27 @@ def test_prototypes_patched_before_consent_do_not_change_the_arm() -> None:
         assert res["probe"] == (["vendor:exposed"] if arm == "exposed" else [])
 
 
+@pytest.mark.parametrize("patch", [
+    "String.prototype.charCodeAt = function () { return 65; };",
+    "Function.prototype.call = function () { return 0; };",
+    "Function.prototype.bind = function () { return function () { return function () { return 66; }; }; };",
+])
+def test_built_ins_patched_before_load_that_change_the_hash_fail_closed(patch: str) -> None:
+    # the self-test: the experiment name's bucket must equal Python's (config key t)
+    res = run_node({"snippet": render_snippet(make_spec()), "pre": patch, "gate": [["holdout", "exposed"]]})
+    assert res["pageError"] is None and res["state"] == "failed" and res["arm"] is None
+    assert res["cookieWrites"] == [] and res["gateRan"] == [False]
+    assert events(res, "armlock_error")[0]["armlock_error"] == "self-test failed: this page hashes differently"
+
+
+def test_a_correct_replacement_of_a_built_in_before_load_changes_nothing() -> None:
+    spec = make_spec()
+    res = run_node({"snippet": render_snippet(spec), "cookie": "armlock_uid=visitor-1",
+                    "pre": "var own = String.prototype.charCodeAt;"
+                           " String.prototype.charCodeAt = function (i) { return own.call(this, i); };"})
+    assert res["state"] == "ready" and res["arm"] == arm_for(spec, "visitor-1")
+
+
 # ---- 4. thrown values and isolated callbacks ----------------------------------------------------
 
 THROWERS = """

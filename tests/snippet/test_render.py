@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pytest
 
+from armlock.assign.contract import bucket
 from armlock.assign.snippet import (
     CONFIG_MARK,
     TEMPLATE,
@@ -68,6 +69,7 @@ def test_config_carries_the_spec_exactly() -> None:
     assert cfg["m"] == 30 * 86_400 and cfg["o"] == ".shop.example" and cfg["q"] == "qa"
     assert cfg["c"] == ["site.ok"] and cfg["i"] == [["cookie", "uid", "^(.+)$"]]
     assert cfg["f"] == spec.fingerprint and cfg["s"] == spec.salt and cfg["n"] == spec.name
+    assert cfg["t"] == bucket(spec.salt, spec.name)  # the self-test's answer, by python-xxhash
 
 
 def test_forms_differ_only_by_the_script_wrapper() -> None:
