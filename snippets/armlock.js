@@ -1,4 +1,7 @@
 /* armlock snippet: do not edit, render again */
+// (the outer try: an engine without what the snippet needs at load, such as
+// Function.prototype.bind, gets no snippet at all rather than an error thrown into the page)
+try {
 (function (w, d) {
   // Every value from the spec arrives in this one JSON literal (escaped by assign/snippet.py).
   var C = /*@CONFIG@*/null;
@@ -9,7 +12,7 @@
   // t the bucket Python gives the experiment name (the self-test at load).
   // The decision lives in these closure variables only; window[C.g] is a frozen read-only view.
   var dl, G, arm = null, forced = false, state = 'waiting', queue = [], hexDigits = '0123456789abcdef',
-    toText = String, freeze = Object.freeze, U8 = Uint8Array, cr = w.crypto;
+    toText = String, freeze = Object.freeze, U8 = w.Uint8Array, cr = w.crypto;
   // @hash-begin (tests run the code between these markers on the xxHash reference vectors)
   // Built-ins the hash, the arm and the gate use are taken once, here, at load. Bound copies
   // (f = call.bind(method), called as f(thisValue, args...)) look nothing up when called, so page
@@ -355,3 +358,4 @@
     fail(e);
   }
 })(window, document);
+} catch (e) {}

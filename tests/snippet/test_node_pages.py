@@ -160,6 +160,18 @@ def test_built_ins_patched_before_load_that_change_the_hash_fail_closed(patch: s
     assert events(res, "armlock_error")[0]["armlock_error"] == "self-test failed: this page hashes differently"
 
 
+@pytest.mark.parametrize(("patch", "state"), [
+    ("delete Function.prototype.bind;", "undefined"),  # at load: no snippet, the stub stays
+    ("delete Uint8Array;", "failed"),  # when minting an id: fails closed
+])
+def test_an_engine_without_what_the_snippet_needs_never_throws_into_the_page(patch: str, state: str) -> None:
+    res = run_node({"snippet": render_snippet(make_spec()),
+                    "pre": f"{RECORD} {preload_stub()} armlock.gate(rec('vendor'), ['holdout', 'exposed']); {patch}",
+                    "probe": "[String(armlock.state), window.ran || []]"})
+    assert res["pageError"] is None and res["scriptErrors"] == []
+    assert res["probe"] == [state, []] and res["cookieWrites"] == []
+
+
 def test_a_correct_replacement_of_a_built_in_before_load_changes_nothing() -> None:
     spec = make_spec()
     res = run_node({"snippet": render_snippet(spec), "cookie": "armlock_uid=visitor-1",
