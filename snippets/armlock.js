@@ -338,9 +338,11 @@ try {
       },
       bucketOf: bucketOf, armOf: armOf, recheck: check, gate: gate,
       // a page that kept the stub's gate (it pushes into armlock.q) still reaches the real one
-      q: freeze({push: queued})
+      q: {push: queued}
     };
-    w[C.g] = freeze(G);
+    freeze(G.q);
+    freeze(G);
+    w[C.g] = G;
     for (i = 0; stub && i < stub.length; i++) queued(stub[i]);
     if (bucketOf(C.n) !== C.t) throw 'self-test failed: this page hashes differently';
     // consent by data layer: re-check on every push. A data layer that is not an object with a

@@ -172,12 +172,16 @@ def test_an_engine_without_what_the_snippet_needs_never_throws_into_the_page(pat
     assert res["probe"] == [state, []] and res["cookieWrites"] == []
 
 
-def test_a_correct_replacement_of_a_built_in_before_load_changes_nothing() -> None:
+@pytest.mark.parametrize("patch", [
+    "var own = String.prototype.charCodeAt;"
+    " String.prototype.charCodeAt = function (i) { return own.call(this, i); };",
+    "Object.freeze = function () {};",  # a no-op freeze: the view is not frozen, but it is there
+])
+def test_a_harmless_replacement_of_a_built_in_before_load_changes_nothing(patch: str) -> None:
     spec = make_spec()
-    res = run_node({"snippet": render_snippet(spec), "cookie": "armlock_uid=visitor-1",
-                    "pre": "var own = String.prototype.charCodeAt;"
-                           " String.prototype.charCodeAt = function (i) { return own.call(this, i); };"})
-    assert res["state"] == "ready" and res["arm"] == arm_for(spec, "visitor-1")
+    res = run_node({"snippet": render_snippet(spec), "cookie": "armlock_uid=visitor-1", "pre": patch,
+                    "gate": [["holdout", "exposed"]]})
+    assert res["state"] == "ready" and res["arm"] == arm_for(spec, "visitor-1") and res["gateRan"] == [True]
 
 
 # ---- 4. thrown values and isolated callbacks ----------------------------------------------------

@@ -125,6 +125,19 @@ def test_js_form_size_is_under_the_goal() -> None:
     assert size < 3000, size
 
 
+def test_readme_size_table_is_the_measured_size() -> None:
+    # the README's "Size" table states the current sizes; a change of the template updates it
+    readme = (HERE.parents[1] / "README.md").read_text(encoding="utf-8")
+    spec = load_spec(GOLDEN_SPEC)
+    for label, form, packed in (("js, raw", "js", False), ("js, gzipped", "js", True),
+                                ("html, gzipped", "html", True)):
+        data = render_snippet(spec, form).encode("utf-8")
+        size = len(gzip.compress(data, 9)) if packed else len(data)
+        row = re.search(rf"^\| {label} \| [\d,]+ bytes \| ([\d,]+) bytes \|$", readme, re.MULTILINE)
+        assert row is not None, label
+        assert int(row.group(1).replace(",", "")) == size, (label, size)
+
+
 def test_golden_snippet_is_unchanged() -> None:
     """The rendered html form of the invented golden spec, byte for byte.
 
