@@ -16,7 +16,7 @@ from armlock.assign.errors import EXIT_INTERNAL
 
 from . import cmd_assign, cmd_plan, cmd_snippet, cmd_spec
 from . import cmd_demo, cmd_history
-from . import cmd_audit
+from . import cmd_audit, cmd_readout
 
 # The commands in the order of the job: plan it, fix the split, apply it, audit it, read it out.
 # A command not listed here (a new one) is shown after these, in the order it was registered.
@@ -69,7 +69,7 @@ app = typer.Typer(
         "armlock: the plumbing of a user-level advertising holdout test.\n\n"
         "`plan` sizes the test (holdout share, weeks, cost); a spec file fixes the split (salt + arms); "
         "`assign` and the browser snippet apply it identically everywhere; `audit` checks weekly that the "
-        "split is healthy.\n\n"
+        "split is healthy; `readout` says at the end whether the channel caused sales and paid.\n\n"
         "Example: armlock init spring-retargeting --holdout-share 0.1"
     ),
     no_args_is_help=True,
@@ -101,6 +101,7 @@ cmd_snippet.register(app)
 cmd_history.register(app)
 cmd_demo.register(app)
 cmd_audit.register(app)
+cmd_readout.register(app)
 for _info in app.registered_commands:  # every command, however registered, gets the same help layout
     if _info.cls in (None, TyperCommand):
         _info.cls = ArmlockCommand

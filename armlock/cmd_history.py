@@ -9,7 +9,7 @@ from typing import Any
 import typer
 
 from armlock.assign import load_spec
-from armlock.audit.history import changes, default_history_path, format_value, load, trend_keys
+from armlock.audit.history import changes, default_history_path, format_value, load, load_readouts, trend_keys
 
 from .common import SPEC_HELP, err
 
@@ -47,6 +47,22 @@ def trend_table(runs: list[dict[str, Any]]) -> str:
     return "\n".join([line(head), line(["-" * w for w in width])] + [line(r) for r in rows])
 
 
+def readout_table(readouts: list[dict[str, Any]]) -> str:
+    """One row per recorded readout: the gate, incremental revenue with its interval, iROAS, p."""
+    def fig(r: dict[str, Any], key: str) -> Any:
+        return r["figures"].get(key, {}).get("value")
+
+    head = ["as of", "gate", "incremental revenue", "interval", "iROAS", "p"]
+    rows = [[r["as_of"], _MARK.get(r["status"], r["status"]), format_value(fig(r, "incremental_revenue"), "count"),
+             f"{format_value(fig(r, 'incremental_revenue_lo'), 'count')} to "
+             f"{format_value(fig(r, 'incremental_revenue_hi'), 'count')}",
+             format_value(fig(r, "iroas"), "ratio"), format_value(fig(r, "p"), "p")] for r in readouts]
+    width = [max(len(str(c)) for c in col) for col in zip(head, *rows)]
+    line = lambda cells: "  ".join(  # noqa: E731
+        str(c).ljust(w) if i < 2 else str(c).rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
+    return "\n".join([line(head), line(["-" * w for w in width])] + [line(r) for r in rows])
+
+
 def history_cmd(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
     history_path: Path = typer.Option(None, "--history", help="The history file (default: beside the spec, SPEC.history.sqlite)."),
@@ -64,12 +80,19 @@ def history_cmd(
     spec = load_spec(spec_path)
     path = history_path or default_history_path(spec_path)
     runs = load(path, spec.fingerprint)
+    readouts = load_readouts(path, spec.fingerprint)
     said = changes(runs[-2], runs[-1]) if len(runs) >= 2 else []
     if fmt == "json":
         typer.echo(json.dumps({"history": str(path), "experiment": spec.name,
                                "fingerprint": spec.fingerprint, "runs": runs,
-                               "changes_since_previous": said}, indent=2, ensure_ascii=False))
+                               "changes_since_previous": said, "readouts": readouts},
+                              indent=2, ensure_ascii=False))
         return
+    if readouts:
+        typer.echo(f"Readout history of {spec.name!r}, {len(readouts)} readout(s) (armlock readout --record):")
+        typer.echo("")
+        typer.echo(readout_table(readouts))
+        typer.echo("")
     if not runs:
         where = "does not exist yet" if not path.exists() else f"has no run of fingerprint {spec.fingerprint}"
         err(f"No audit runs recorded for {spec.name!r}: {path} {where}. "

@@ -8,6 +8,7 @@ from datetime import datetime, timezone
 
 from .spec import share_to_basis_points, spec_from_dict
 from .spec_audit import audit_section_toml
+from .spec_readout import readout_section_toml
 from .spec_snippet import snippet_section_toml
 
 SALT_BYTES = 12  # 96 bits of randomness from the OS (secrets), written as hex
@@ -70,7 +71,7 @@ salt = {q(salt)}
 # When the test starts (UTC). Units first seen before this are reported by the audit.
 start = {start.strftime("%Y-%m-%dT%H:%M:%SZ")}
 # end = 2027-03-01T00:00:00Z   # optional
-{arm_tables}{snippet_section_toml()}{audit_section_toml()}'''
+{arm_tables}{snippet_section_toml()}{audit_section_toml()}{readout_section_toml()}'''
     import tomllib
 
     spec_from_dict(tomllib.loads(text), f"<new spec {name}>")  # never write an invalid spec

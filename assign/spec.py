@@ -16,6 +16,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 from .contract import BUCKETS, SEPARATOR, cumulative
 from .errors import SpecError
 from .spec_audit import AuditSettings
+from .spec_readout import ReadoutSettings
 from .spec_snippet import SnippetSettings
 
 SPEC_FORMAT = 1
@@ -91,6 +92,7 @@ class Spec(BaseModel):
     arms: tuple[Arm, ...] = Field(min_length=2, max_length=26)
     snippet: SnippetSettings = SnippetSettings()
     audit: AuditSettings = AuditSettings()
+    readout: ReadoutSettings = ReadoutSettings()
 
     @field_validator("salt")
     @classmethod

@@ -250,7 +250,7 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
         pre_before_assignment=int(np.count_nonzero(mark(before_assign) & ~mark(before_start))),
         pre_rows=int(pre.sum()), unseen_ids=len(uniq), unseen_rows=int((~seen).sum()),
         unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
-        exposed_ids=n_seen_ids + len(uniq),
+        exposed_ids=n_seen_ids + len(uniq), exposed_rows=exposed_u,
     )
 
 
@@ -319,6 +319,7 @@ def compute(spec: Spec, fr: Frames) -> AuditTables:
     hashed = hashed.astype(np.int64)
     split, integ = split_and_integrity(spec, fr, eff, rec, hashed, unknown, missing)
     tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, rec))
+    tables.extra["hashed_arm"] = hashed  # per visits row, spec order: the readout's intent-to-treat arm
     if fr.exposures is not None or fr.identities is not None:
         vset = _arrow_ids(v[UNIT]).combine_chunks()
         if fr.exposures is not None:

@@ -270,3 +270,89 @@ def changes(previous: dict[str, Any], current: AuditReport | dict[str, Any]) -> 
             verb = "changed"
         out.append(f"{label} {verb} from {format_value(a, unit)} to {format_value(b, unit)}")
     return out
+
+
+# --- readouts (armlock readout --record) ----------------------------------------------------------
+# A table of its own beside `runs`, created on first use: files written before it existed stay
+# readable by both versions (same schema_version; an older armlock ignores the extra table).
+
+_READOUT_DDL = (
+    "CREATE TABLE IF NOT EXISTS readouts ("
+    " fingerprint TEXT NOT NULL, as_of TEXT NOT NULL, experiment TEXT NOT NULL,"
+    " status TEXT NOT NULL, recorded_at TEXT NOT NULL, figures TEXT NOT NULL,"
+    " PRIMARY KEY (fingerprint, as_of))"
+)
+_READOUT_UPSERT = (
+    "INSERT INTO readouts (fingerprint, as_of, experiment, status, recorded_at, figures)"
+    " VALUES (?, ?, ?, ?, ?, ?)"
+    " ON CONFLICT (fingerprint, as_of) DO UPDATE SET experiment = excluded.experiment,"
+    " status = excluded.status, recorded_at = excluded.recorded_at, figures = excluded.figures"
+)
+
+
+def record_readout(path: str | Path, *, fingerprint: str, as_of: str, experiment: str, status: str,
+                   figures: dict[str, dict[str, Any]]) -> None:
+    """Keep one readout's gate status and headline figures ({key: {label, value, unit}}); a rerun
+    for the same as-of date replaces its row. Same file, locking and refusals as `record`."""
+    path = Path(path)
+    if path.exists():
+        _check_header(path)
+    elif not path.parent.is_dir():
+        raise InputError(f"history file {path}: folder {path.parent} does not exist")
+    now = datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    try:
+        conn = _connect(path, read_only=False)
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    try:
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+            if tables and "meta" not in tables:
+                raise _corrupt(path, "an SQLite database of something else: it has no meta table")
+            for ddl in (*_DDL, _READOUT_DDL):
+                conn.execute(ddl)
+            conn.execute("INSERT OR IGNORE INTO meta (key, value) VALUES ('schema_version', ?)",
+                         (str(SCHEMA_VERSION),))
+            _check_version(conn, path)
+            conn.execute(_READOUT_UPSERT, (fingerprint, as_of, experiment, status, now, json.dumps(figures)))
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        conn.execute("COMMIT")
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    finally:
+        conn.close()
+
+
+def load_readouts(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
+    """Every recorded readout of one spec, oldest as-of first; `[]` when there is none."""
+    path = Path(path)
+    if not path.exists():
+        return []
+    _check_header(path)
+    if path.stat().st_size == 0:
+        return []
+    try:
+        conn = _connect(path, read_only=True)
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    try:
+        _check_version(conn, path)
+        if not conn.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'readouts'").fetchone():
+            return []
+        rows = conn.execute("SELECT as_of, experiment, status, recorded_at, figures FROM readouts"
+                            " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,)).fetchall()
+    except sqlite3.Error as exc:
+        raise _db_error(exc, path) from None
+    finally:
+        conn.close()
+    out = []
+    for as_of, experiment, status, recorded_at, figures in rows:
+        try:
+            out.append({"as_of": as_of, "experiment": experiment, "status": status,
+                        "recorded_at": recorded_at, "figures": json.loads(figures)})
+        except json.JSONDecodeError as exc:
+            raise _corrupt(path, f"readout row for as-of {as_of} is not valid JSON: {exc.msg}") from None
+    return out

@@ -306,3 +306,109 @@ def days_between(spec: Spec, days: int) -> tuple[str, str]:
     """First and last calendar day (UTC, YYYY-MM-DD) the generated logs cover."""
     first = spec.start.date()
     return first.isoformat(), (first + timedelta(days=days - 1)).isoformat()
+
+
+# --- orders with a known true effect (for the readout) ------------------------------------------
+
+ORDER_VALUE = (3.7, 0.6)  # lognormal order value: median about 40, mean about 48 currency units
+OTHER_CHANNELS = ("organic_search", "email", "direct", "paid_search")
+
+
+@dataclass
+class SyntheticOrders:
+    """An orders log for `SyntheticLogs` and the truth it was built with."""
+
+    orders: pd.DataFrame
+    truth: dict[str, float | int | str] = field(default_factory=dict)
+
+
+def generate_orders(
+    spec: Spec,
+    logs: SyntheticLogs,
+    *,
+    days: int = 84,
+    seed: int = 1,
+    base_rate: float = 0.04,
+    uplift: float = 0.15,
+    credit: float = 0.6,
+    refunds: float = 0.03,
+    duplicates: float = 0.0,
+) -> SyntheticOrders:
+    """Orders of the invented shop's visitors with a known true effect of the channel.
+
+    Each unit buys at a rate proportional to `base_rate * (0.5 + 1.2 * pre_orders)` per 28 days
+    from its first-seen time to the end of the `days`-day test (so the pre-period covariate
+    predicts revenue, as lagged sales do). A unit the vendor reached during the test buys at
+    `(1 + uplift)` times that rate: the channel's true effect. `truth["incremental_revenue"]`
+    is its expected value, summed over the exposed arms' units (what the readout estimates).
+    `credit` is the share of orders of reached units that attribution credits to the channel
+    (column `attributed_channel`, value "display"): attribution over-credits by construction.
+    `refunds` adds that share of refunds (negative revenue, their own order id); `duplicates`
+    repeats that share of order rows with the same order id (as an export glitch would).
+    Column names follow the spec's `[readout.orders]` map; the key is the unit id.
+    """
+    co = spec.readout.orders
+    key = co.unit_id or "unit_id"
+    rng = np.random.default_rng(seed)
+    cv, ce = spec.audit.visits, spec.audit.exposures
+    v, e = logs.visits, logs.exposures
+    start = pd.Timestamp(spec.start).tz_convert("UTC")
+    horizon = start + pd.Timedelta(days=days)
+    ids = v[cv.unit_id].astype(str).to_numpy()
+    fs = pd.to_datetime(v[cv.first_seen], utc=True)
+    span_days = ((horizon - fs).dt.total_seconds().to_numpy() / 86_400.0).clip(min=0)
+    during = pd.to_datetime(e[ce.time], utc=True) >= start
+    reached = np.isin(ids, e.loc[during.to_numpy(), ce.unit_id].astype(str).unique())
+    exposed_arm = np.isin(v[cv.arm].astype(str).to_numpy(), list(spec.exposed_arms))
+    pre = v["pre_orders"].to_numpy(dtype=np.float64) if "pre_orders" in v else np.zeros(len(v))
+    rate = base_rate * (0.5 + 1.2 * pre) * span_days / 28.0
+    treated = reached  # the ad works on whoever it reaches (leaked holdout units included)
+    n_base = rng.poisson(rate)
+    n_extra = np.where(treated, rng.poisson(rate * uplift), 0)
+    count = n_base + n_extra
+    unit = np.repeat(np.arange(len(v)), count)
+    fs_ns = fs.to_numpy(dtype="datetime64[ns]").view(np.int64)
+    t_ns = fs_ns[unit] + np.round(rng.random(len(unit)) * span_days[unit] * 86_400e9).astype(np.int64)
+    t = pd.to_datetime(t_ns, utc=True)
+    value = np.round(rng.lognormal(*ORDER_VALUE, size=len(unit)), 2)
+    credited = treated[unit] & (rng.random(len(unit)) < credit)
+    channel = np.where(credited, "display", np.asarray(OTHER_CHANNELS)[rng.integers(0, len(OTHER_CHANNELS), len(unit))])
+    oid = _ids(np.arange(len(unit)), "o-")
+    mean_value = float(np.exp(ORDER_VALUE[0] + ORDER_VALUE[1] ** 2 / 2))
+    truth: dict[str, float | int | str] = {
+        "uplift": uplift, "mean_order_value": mean_value, "orders": int(len(unit)),
+        "incremental_revenue": float((rate * uplift * mean_value)[treated & exposed_arm].sum()),
+        "incremental_orders": float((rate * uplift)[treated & exposed_arm].sum()),
+        "attributed_revenue": float(value[credited & exposed_arm[unit]].sum()),
+    }
+    frame = pd.DataFrame({key: ids[unit], co.time: t, co.revenue: value, "_oid": oid, "_ch": channel})
+    if refunds > 0 and len(frame):
+        r = np.flatnonzero(rng.random(len(frame)) < refunds)
+        back = frame.iloc[r].copy()
+        back[co.time] = back[co.time] + pd.to_timedelta(rng.uniform(1, 14, len(r)) * 86_400.0, "s")
+        back[co.revenue] = -back[co.revenue]
+        back["_oid"] = _ids(np.arange(len(r)), "r-")
+        frame = pd.concat([frame, back[back[co.time] < horizon]], ignore_index=True)
+        truth["refunds"] = int((back[co.time] < horizon).sum())
+    if duplicates > 0 and len(frame):
+        d = np.flatnonzero(rng.random(len(frame)) < duplicates)
+        frame = pd.concat([frame, frame.iloc[d]], ignore_index=True)
+        truth["duplicate_rows"] = len(d)
+    frame = frame.sort_values(co.time, kind="stable").reset_index(drop=True)
+    frame[co.time] = pd.to_datetime(frame[co.time], utc=True)
+    out = frame.rename(columns={"_oid": co.order_id or "order_id", "_ch": co.attributed or "attributed_channel"})
+    return SyntheticOrders(orders=out, truth=truth)
+
+
+def write_orders(orders: SyntheticOrders, directory: str | Path, fmt: str = "csv") -> Path:
+    """Write the orders log as `orders.<fmt>` (csv, csv.gz or parquet) into `directory`."""
+    if fmt not in ("csv", "csv.gz", "parquet"):
+        raise ValueError(f"fmt must be csv, csv.gz or parquet, not {fmt!r}")
+    out = Path(directory)
+    out.mkdir(parents=True, exist_ok=True)
+    path = out / f"orders.{fmt}"
+    if fmt == "parquet":
+        orders.orders.to_parquet(path, index=False)
+    else:
+        orders.orders.to_csv(path, index=False, date_format="%Y-%m-%dT%H:%M:%S.%fZ")
+    return path

@@ -32,6 +32,7 @@ the value, then a running sum of counts over the sorted values.)
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import pandas as pd
 
@@ -102,6 +103,9 @@ class LeakageTables:
     unseen_rows: int
     unseen_by_arm: dict[str, int]  # the arm the spec gives those ids
     exposed_ids: int  # distinct ids in the exposure log
+    # Per visits row (the engine's row order): exposed during the test. The readout's exposure
+    # flag; an engine that keeps no row order (Spark) leaves it None and the readout joins instead.
+    exposed_rows: Any = field(default=None, repr=False)
 
 
 @dataclass

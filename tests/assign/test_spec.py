@@ -58,7 +58,7 @@ def test_share_not_whole_basis_points_rejected() -> None:
         ({"weight = 5000": "weight = 4000"},
          "s.toml: arms: arm weights must sum to 10000 basis points (100%); got 4000 + 4000 = 8000"),
         ({"format = 1": 'format = 1\ncolour = "red"'},
-         "s.toml: colour: unknown key 'colour'; valid keys here: format, name, description, salt, start, end, arms, snippet, audit"),
+         "s.toml: colour: unknown key 'colour'; valid keys here: format, name, description, salt, start, end, arms, snippet, audit, readout"),
         ({'role = "holdout"': 'role = "holdout"\nlabel = "x"'},
          "s.toml: arms[0].label: unknown key 'label'; valid keys here: name, weight, role"),
         ({'salt = "fixed-salt"': 'salt = "a:b"'},

@@ -1,0 +1,94 @@
+"""`armlock readout`: did the channel cause sales, and did it pay? The audit gates it; its verdict sets the exit code."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import typer
+
+from armlock.assign.errors import InputError
+
+from .cmd_audit import _as_of, exit_code
+from .common import SPEC_HELP, err, open_spec, progress
+
+FORMATS = ("text", "markdown", "json", "html")
+
+
+def readout_cmd(
+    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    visits: Path = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet)."),
+    orders: Path = typer.Option(..., "--orders", help="Orders log from the shop's back end: one row per order, refunds as negative revenue (columns: [readout.orders])."),
+    exposures: Path = typer.Option(None, "--exposures", help="The ad vendor's exposure log: enables the leakage check and the effect per exposed unit."),
+    identities: Path = typer.Option(None, "--identities", help="Identity links: unit id -> customer key; needed when orders carry a customer key."),
+    spend: float = typer.Option(None, "--spend", help="What the channel cost over the test, one amount for the exposed arm(s), in the spec's currency."),
+    spend_file: Path = typer.Option(None, "--spend-file", help="Spend per campaign and day (columns: [readout.spend]); days outside the test are left out."),
+    attributed: float = typer.Option(None, "--attributed-revenue", help="Revenue the attribution report credited to the channel over the test (overrides the orders' attributed column)."),
+    as_of: str = typer.Option(None, "--as-of", help="Read out as of the end of this UTC day (YYYY-MM-DD). Default: the last first-seen day."),
+    fmt: str = typer.Option("text", "--format", "-f", help=f"Report format: {', '.join(FORMATS)}."),
+    out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
+    strict: bool = typer.Option(False, "--strict", help="Exit 1 when the audit gate warns (default: 0)."),
+    record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
+    history_path: Path = typer.Option(None, "--history", help="The history file for --record (default: beside the spec, SPEC.history.sqlite)."),
+) -> None:
+    """Read out the test: incremental revenue, profit, iROAS and ROI with honest intervals, the
+    effect per exposed unit, and what attribution credited, arm against arm (intent to treat).
+
+    The audit's checks run on the same files first: when the split fails, the readout still
+    computes, but its headline says the estimate is not trustworthy and why, and it exits 3.
+    Intervals: the fixed-horizon one is valid for one planned look; reading weekly, use the
+    anytime interval beside it. Column names come from the spec's [readout] tables.
+
+    Exit codes: 0 pass (or warn without --strict), 1 warn with --strict, 3 the audit fails,
+    4 bad input (a file, column or row is wrong: nothing was judged).
+
+    Example:
+      armlock readout --spec spring.toml --visits visits.parquet --orders orders.csv \\
+          --exposures exposures.parquet --spend 42000 --format html --out readout.html
+    """
+    if fmt not in FORMATS:
+        raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
+                                 param_hint="--format")
+    if spend is not None and spend_file is not None:
+        raise typer.BadParameter("give either --spend or --spend-file, not both", param_hint="--spend")
+    if spend is not None and spend < 0:
+        raise typer.BadParameter(f"spend must not be negative, got {spend:g}", param_hint="--spend")
+    day = _as_of(as_of)
+    spec = open_spec(spec_path, record=False)
+    from armlock.audit.run import input_bytes  # pandas/scipy load only when a readout runs
+    from armlock.readout.run import run_readout
+
+    total = input_bytes(visits, exposures, identities, orders) or None
+    with progress(total, "reading logs") as advance:
+        report = run_readout(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,
+                             spend=spend, spend_file=spend_file, attributed_revenue=attributed, as_of=day,
+                             advance=advance)
+    from armlock.audit import history
+
+    hist = history_path or history.default_history_path(spec_path)
+    if record:
+        history.record_readout(hist, fingerprint=report.fingerprint, as_of=report.as_of,
+                               experiment=report.experiment, status=report.status,
+                               figures={k: f.model_dump() for k, f in report.figures.items()})
+    if fmt == "html":
+        from armlock.readout.report_html import render_html
+
+        text = render_html(report)
+    else:
+        from armlock.readout.render import RENDERERS
+
+        text = RENDERERS[fmt](report)
+    if out is not None:
+        try:
+            out.write_text(text, encoding="utf-8")
+        except OSError as exc:
+            raise InputError(f"{out}: cannot write the report: {exc.strerror}") from None
+        err(f"Wrote the {fmt} readout to {out}: {report.headline}")
+    else:
+        typer.echo(text, nl=False)
+    code = exit_code(report.status, strict)
+    if code:
+        raise typer.Exit(code)
+
+
+def register(app: typer.Typer) -> None:
+    app.command("readout")(readout_cmd)

@@ -1,0 +1,272 @@
+"""From the sufficient-statistics tables to the readout: effects, money, exposure, looks, gate, headline."""
+
+from __future__ import annotations
+
+import math
+from datetime import UTC, datetime
+
+from armlock.assign import Spec, __version__
+from armlock.audit.model import Check, Figure
+from armlock.plan.power import mde
+
+from .model import (
+    Adjustment,
+    ArmRow,
+    Effect,
+    ExposureEffect,
+    GateCheck,
+    Interval,
+    Look,
+    Money,
+    ReadoutReport,
+)
+from .money import money
+from .stats import Estimate, anytime, cuped, mean_estimate, ratio_diff, ratio_estimate, relative_lift, wald, welch
+from .tables import COV_PREFIX, Moments, ReadoutTables
+
+ASSUMPTIONS = [
+    "The ad changes sales only through exposure: being in the exposed arm without seeing an ad does nothing.",
+    "Exposure is what the vendor's log records; exposures the log misses make this figure too large.",
+    "No unit is pushed away by the ad (monotonicity); holdout units the vendor reached count as exposed.",
+]
+READING = ("Reading the result every week? Use the anytime interval: it stays valid at every look. "
+           "The fixed interval is valid only for one look planned in advance.")
+METRICS = (("revenue_per_unit", "revenue", "revenue per unit", "money"),
+           ("conversion", "buyer", "conversion (buyers per unit)", "share"),
+           ("orders_per_unit", "orders", "orders per unit", "number"))
+
+
+def _f(v: float | None) -> float | None:
+    return None if v is None or not math.isfinite(v) else float(v)
+
+
+def interval(e: Estimate, units: int | None = None, *, t_opt: float = 0, alpha: float = 0.05) -> Interval:
+    """An `Estimate` as the report's `Interval`, with the anytime interval when `units` is given."""
+    lo_a = hi_a = None
+    if units:
+        lo_a, hi_a = (_f(x) for x in anytime(e, units, t_opt=t_opt, alpha=alpha))
+    return Interval(value=_f(e.value), se=_f(e.se), lo=_f(e.lo), hi=_f(e.hi), p=_f(e.p),
+                    anytime_lo=lo_a, anytime_hi=hi_a)
+
+
+def pooled(tables: dict[str, Moments], arms: list[str], names: tuple[str, ...]) -> Moments:
+    out = Moments.empty(names)
+    for a in arms:
+        out = out + tables[a]
+    return out
+
+
+def _primary(a: Moments, b: Moments, covs: list[str], alpha: float) -> Estimate:
+    """The pre-registered primary estimate of revenue per unit: CUPED with the spec's covariates, else Welch."""
+    if covs:
+        return cuped(a, b, "revenue", covs, alpha).estimate
+    return welch(a, b, "revenue", alpha)
+
+
+def money_text(v: float | None, cur: str) -> str:
+    if v is None or not math.isfinite(v):
+        return "n/a"
+    return f"{'-' if v < 0 else ''}{cur} {abs(v):,.0f}"
+
+
+def _num(v: float | None, digits: int = 2) -> str:
+    return "n/a" if v is None or not math.isfinite(v) else f"{v:,.{digits}f}"
+
+
+def headline(m: Money, status: str, failing: list[Check], level: int) -> str:
+    """One sentence a marketing lead can repeat (and, on a failing audit, why not to)."""
+    cur, inc = m.currency, m.incremental_revenue
+    span = f"{level}% interval {money_text(inc.lo, cur)} to {money_text(inc.hi, cur)}"
+    if inc.lo is not None and inc.lo > 0:
+        said = f"The channel added {money_text(inc.value, cur)} in revenue ({span})"
+    elif inc.hi is not None and inc.hi < 0:
+        said = f"The channel lowered revenue by {money_text(-(inc.value or 0), cur)} ({span})"
+    else:
+        said = (f"The test cannot tell the channel's effect from zero: {money_text(inc.value, cur)} in revenue "
+                f"({span})")
+    if m.spend:
+        said += f" for spend {money_text(m.spend, cur)}: iROAS {_num(m.iroas.value if m.iroas else None)}"
+        if m.iroas is not None:
+            said += f" ({_num(m.iroas.lo)} to {_num(m.iroas.hi)})"
+    if m.attributed_revenue is not None:
+        said += f"; attribution credited {money_text(m.attributed_revenue, cur)}"
+        if m.attributed_roas is not None:
+            said += f" (ROAS {_num(m.attributed_roas)})"
+    said += "."
+    if status == "fail":
+        names = ", ".join(c.title for c in failing)
+        said = f"NOT TRUSTWORTHY: the split audit fails ({names}), so this estimate may be biased. " + said
+    return said
+
+
+def _arm_row(name: str, role: str, m: Moments, alpha: float) -> ArmRow:
+    return ArmRow(
+        name=name, role=role, units=m.n, buyers=int(round(m.total("buyer"))), orders=int(round(m.total("orders"))),
+        revenue=float(m.total("revenue")),
+        exposure_rate=_f(m.mean("exposed")) if m.n else None,
+        conversion=interval(mean_estimate(m, "buyer", alpha)),
+        revenue_per_unit=interval(mean_estimate(m, "revenue", alpha)),
+        orders_per_unit=interval(mean_estimate(m, "orders", alpha)),
+        aov=interval(ratio_estimate(m, "revenue", "orders", alpha)),
+    )
+
+
+def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check], spend: float | None,
+            attributed: float | None, notes: list[str], has_exposures: bool) -> ReadoutReport:
+    """The readout from the tables, the audit's checks (the gate) and the money inputs."""
+    cfg = spec.readout
+    alpha, power = cfg.alpha, cfg.power
+    level = round(100 * (1 - alpha))
+    covs = [COV_PREFIX + c for c in tables.covariates]
+    final = tables.final
+    holdouts, exposed = list(spec.holdout_arms), list(spec.exposed_arms)
+    names = next(iter(final.values())).names
+    hold = pooled(final, holdouts, names)
+    units_total = sum(m.n for m in final.values())
+    t_opt = float(cfg.planned_units or units_total or 1)
+    cautions: list[str] = []
+    if not cfg.planned_units:
+        cautions.append(f"[readout] planned_units is not set: the anytime interval is tuned to the units at this as-of "
+                        f"({units_total:,}); set it before the test to read weekly with a fixed rule.")
+    versus = "+".join(holdouts)
+    effects: list[Effect] = []
+    exposure: list[ExposureEffect] = []
+    adjustment = None
+    for arm in exposed:
+        a = final[arm]
+        n_ab = a.n + hold.n
+        for metric, var, label, _unit in METRICS:
+            raw = welch(a, hold, var, alpha)
+            rel = relative_lift(a, hold, var, alpha)
+            primary_raw = metric == "revenue_per_unit" and not covs
+            effects.append(Effect(arm=arm, versus=versus, metric=metric, label=label, method="Welch",
+                                  primary=primary_raw, absolute=interval(raw, n_ab, t_opt=t_opt, alpha=alpha),
+                                  relative=interval(rel), mde=_f(mde(raw.se, alpha=alpha, power=power))
+                                  if math.isfinite(raw.se) else None))
+            if metric == "revenue_per_unit" and covs:
+                c = cuped(a, hold, "revenue", covs, alpha)
+                effects.append(Effect(arm=arm, versus=versus, metric=metric, label=label + " (adjusted)",
+                                      method=f"CUPED ({', '.join(tables.covariates)})", primary=True,
+                                      absolute=interval(c.estimate, n_ab, t_opt=t_opt, alpha=alpha),
+                                      relative=interval(_scaled_rel(c.estimate, hold)),
+                                      mde=_f(mde(c.estimate.se, alpha=alpha, power=power))
+                                      if math.isfinite(c.estimate.se) else None))
+                if adjustment is None:
+                    adjustment = Adjustment(covariates=tables.covariates, theta=c.theta,
+                                            variance_reduction=_f(c.variance_reduction), primary="CUPED")
+        aov = ratio_diff(a, hold, "revenue", "orders", alpha)
+        effects.append(Effect(arm=arm, versus=versus, metric="aov", label="average order value",
+                              method="delta method", absolute=interval(aov, n_ab, t_opt=t_opt, alpha=alpha),
+                              mde=_f(mde(aov.se, alpha=alpha, power=power)) if math.isfinite(aov.se) else None))
+        if has_exposures:
+            w = wald(a, hold, "revenue", "exposed", alpha)
+            exposure.append(ExposureEffect(
+                arm=arm, exposure_rate_exposed=float(w.exposure_a), exposure_rate_holdout=float(w.exposure_b),
+                itt_exposure=float(w.itt_d), per_exposed_unit=interval(w.estimate), assumptions=ASSUMPTIONS))
+            if w.exposure_b > 0:
+                cautions.append(f"The vendor reached {w.exposure_b:.2%} of the holdout: the effect per exposed unit "
+                                "treats that as two-sided non-compliance; the per-unit and money figures are diluted.")
+    if covs and adjustment is None:
+        adjustment = Adjustment(covariates=tables.covariates, theta=[], variance_reduction=None, primary="CUPED")
+
+    # money: all exposed arms together against the holdout
+    ex = pooled(final, exposed, names)
+    prim = _primary(ex, hold, covs, alpha)
+    buyers = welch(ex, hold, "buyer", alpha)
+    mf = money(revenue_per_unit=prim, buyers_per_unit=buyers, exposed_units=ex.n, margin=cfg.margin,
+               spend=spend, attributed=attributed)
+    n_all = ex.n + hold.n
+
+    def scaled_iv(e: Estimate | None, k: float, shift: float = 0.0) -> Interval | None:
+        if e is None:
+            return None
+        lo_a, hi_a = anytime(prim, n_all, t_opt=t_opt, alpha=alpha)
+        return Interval(value=_f(e.value), se=_f(e.se), lo=_f(e.lo), hi=_f(e.hi), p=_f(e.p),
+                        anytime_lo=_f(k * lo_a + shift), anytime_hi=_f(k * hi_a + shift))
+
+    cpb = None
+    if mf.cost_per_incremental_buyer is not None:
+        v, lo, hi = mf.cost_per_incremental_buyer
+        cpb = Interval(value=_f(v), lo=_f(lo), hi=_f(hi))
+    m = Money(
+        currency=cfg.currency, margin=cfg.margin, exposed_units=ex.n, spend=spend,
+        incremental_revenue=scaled_iv(mf.incremental_revenue, ex.n),  # type: ignore[arg-type]
+        incremental_profit=scaled_iv(mf.incremental_profit, ex.n * cfg.margin),  # type: ignore[arg-type]
+        iroas=scaled_iv(mf.iroas, ex.n / spend) if spend else None,
+        roi=scaled_iv(mf.roi, ex.n * cfg.margin / spend, -1.0) if spend else None,
+        incremental_buyers=interval(mf.incremental_buyers),
+        cost_per_incremental_buyer=cpb, attributed_revenue=attributed, attributed_roas=_f(mf.attributed_roas),
+        incremental_to_attributed=scaled_iv(mf.incremental_to_attributed, ex.n / attributed) if attributed else None,
+    )
+    if spend is None:
+        cautions.append("No spend was given (--spend or --spend-file): iROAS, ROI and cost per incremental buyer "
+                        "are not computed.")
+    if attributed is None:
+        cautions.append("No attributed revenue was given (--attributed-revenue or an [readout.orders] attributed "
+                        "column): the comparison with attribution is not made.")
+
+    looks = []
+    for day, arms_m in tables.looks:
+        e_m, h_m = pooled(arms_m, exposed, names), pooled(arms_m, holdouts, names)
+        if e_m.n < 2 or h_m.n < 2:
+            continue
+        est = _primary(e_m, h_m, covs, alpha)
+        lo_a, hi_a = anytime(est, e_m.n + h_m.n, t_opt=t_opt, alpha=alpha)
+        looks.append(Look(date=day, units={a: arms_m[a].n for a in tables.arms}, difference=_f(est.value),
+                          lo=_f(est.lo), hi=_f(est.hi), anytime_lo=_f(lo_a), anytime_hi=_f(hi_a)))
+
+    status = _gate_status(checks)
+    failing = [c for c in checks if c.status == "fail"]
+    warning = [c for c in checks if c.status == "warn"]
+    if warning and status != "fail":
+        cautions.insert(0, "Caution: the split audit warns (" + ", ".join(c.title for c in warning)
+                        + "); read the estimate with that in mind.")
+    roles = {a.name: a.role for a in spec.arms}
+    rows = [_arm_row(a, roles[a], final[a], alpha) for a in tables.arms]
+    report = ReadoutReport(
+        experiment=spec.name, fingerprint=spec.fingerprint, as_of=as_of,
+        generated_at=datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
+        armlock_version=__version__, status=status, trustworthy=status != "fail",
+        headline=headline(m, status, failing, level), reading_advice=READING, cautions=cautions,
+        gate=[GateCheck(id=c.id, title=c.title, status=c.status, summary=c.summary) for c in checks],
+        arms=rows, effects=effects, adjustment=adjustment, exposure=exposure, money=m, looks=looks,
+        settings={"alpha": alpha, "power": power, "margin": cfg.margin, "currency": cfg.currency,
+                  "window": cfg.window, "revenue_cap": cfg.revenue_cap, "planned_units": cfg.planned_units,
+                  "anytime_t_opt": t_opt, "covariates": tables.covariates,
+                  "primary": "CUPED" if covs else "raw (Welch)", "arm_rule": "intent to treat: the arm the spec's "
+                  "hash gives each unit; customers count in the arm of their first unit"},
+        input_notes=notes, figures=_figures(m, prim, adjustment),
+    )
+    return report
+
+
+def _scaled_rel(e: Estimate, hold: Moments) -> Estimate:
+    """Relative lift of an adjusted difference against the holdout's mean (its SE scaled alike)."""
+    mu = hold.mean("revenue")
+    if not mu:
+        return Estimate(float("nan"), float("nan"), float("nan"), float("nan"))
+    return Estimate(e.value / mu, e.se / abs(mu), e.lo / mu, e.hi / mu, e.p, e.df)
+
+
+def _gate_status(checks: list[Check]) -> str:
+    st = [c.status for c in checks]
+    return "fail" if "fail" in st else "warn" if "warn" in st else "pass"
+
+
+def _figures(m: Money, prim: Estimate, adj: Adjustment | None) -> dict[str, Figure]:
+    out = {
+        "incremental_revenue": Figure(label="incremental revenue", value=_f(m.incremental_revenue.value)),
+        "incremental_revenue_lo": Figure(label="incremental revenue, interval low", value=m.incremental_revenue.lo),
+        "incremental_revenue_hi": Figure(label="incremental revenue, interval high", value=m.incremental_revenue.hi),
+        "revenue_per_unit_difference": Figure(label="revenue per unit difference", value=_f(prim.value)),
+        "p": Figure(label="p-value of the revenue difference", value=_f(prim.p), unit="p"),
+    }
+    if m.iroas is not None:
+        out["iroas"] = Figure(label="iROAS", value=m.iroas.value, unit="ratio")
+    if m.roi is not None:
+        out["roi"] = Figure(label="ROI", value=m.roi.value, unit="share")
+    if m.attributed_roas is not None:
+        out["attributed_roas"] = Figure(label="attributed ROAS", value=m.attributed_roas, unit="ratio")
+    if adj is not None and adj.variance_reduction is not None:
+        out["variance_reduction"] = Figure(label="CUPED variance reduction", value=adj.variance_reduction, unit="share")
+    return out

@@ -1,0 +1,149 @@
+"""The readout's I/O edge: the orders log, the spend file and extra visits covariates, by the spec's column map.
+
+Uses the audit's readers (`audit.read`), so a bad file gets the same clear error naming file,
+column and rows (InputError, exit 4); rows set aside are counted and become input notes.
+"""
+
+from __future__ import annotations
+
+from datetime import date
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from armlock.assign import InputError, Spec
+from armlock.audit.load import cutoff_of
+from armlock.audit.read import (
+    TIME,
+    UNIT,
+    Source,
+    _header,
+    _need,
+    _read_table,
+    read_ids,
+    read_labels,
+    read_numbers,
+    read_times,
+)
+
+PathLike = str | Path
+KEY, REV, ATTR = "_key", "_revenue", "_attributed"
+
+
+def _set_aside(src: Source, col: str, mask: np.ndarray, why: str, notes: list[str]) -> int:
+    n = int(mask.sum())
+    if n:
+        notes.append(f"{src.path.name}: {n:,} row(s) with an empty '{col}' ({src.rows(np.flatnonzero(mask), n)}) "
+                     f"were set aside: {why}")
+    return n
+
+
+def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], counts: dict[str, float]) -> pd.DataFrame:
+    """Orders as a frame of _key (unit id or customer key), _time (UTC), _revenue, _attributed (bool).
+
+    Repeated order ids are counted once; rows after the as-of date are ignored; negative revenue
+    (refunds) is kept and counted. Sorted by time.
+    """
+    co = spec.readout.orders
+    src = Source(Path(path), "orders")
+    present = _header(src)
+    key = co.unit_id or co.customer
+    which = "unit_id" if co.unit_id else "customer"
+    _need(src, present, {which: key, "time": co.time, "revenue": co.revenue}, "[readout.orders]")
+    optional = {}
+    for name, col in (("order_id", co.order_id), ("attributed", co.attributed)):
+        if col and col in present:
+            optional[name] = col
+        elif col:
+            notes.append(f"{src.path.name}: no '{col}' column ([readout.orders] {name}); "
+                         + ("orders are not de-duplicated" if name == "order_id"
+                            else "attributed revenue comes only from --attributed-revenue"))
+    table = _read_table(src, list(dict.fromkeys([key, co.time, co.revenue, *optional.values()])))
+    ids, empty = read_ids(src, table, key, notes)
+    frame = pd.DataFrame({KEY: ids, TIME: read_times(src, table, co.time, notes),
+                          REV: read_numbers(src, table, co.revenue)})
+    if "attributed" in optional:
+        lab = read_labels(table, optional["attributed"])
+        frame[ATTR] = (lab == co.attributed_value).to_numpy()
+    oid = None
+    if "order_id" in optional:
+        oid, no_oid = read_ids(src, table, optional["order_id"], [])
+    del table
+    counts["order_rows"] = len(frame)
+    counts["order_empty_keys"] = _set_aside(src, key, empty, "an order needs a key to find its unit", notes)
+    no_time = frame[TIME].isna().to_numpy() & ~empty
+    counts["order_missing_time"] = _set_aside(src, co.time, no_time, "an order needs a time", notes)
+    no_rev = frame[REV].isna().to_numpy() & ~empty & ~no_time
+    counts["order_missing_revenue"] = _set_aside(src, co.revenue, no_rev, "an order needs revenue", notes)
+    keep = ~(empty | no_time | no_rev)
+    late = (frame[TIME] >= cutoff_of(as_of)).to_numpy() & keep
+    counts["orders_after_as_of"] = int(late.sum())
+    if late.any():
+        notes.append(f"{src.path.name}: {int(late.sum()):,} order(s) after the as-of date {as_of} are ignored")
+    keep &= ~late
+    if oid is not None:
+        dup = (oid.duplicated(keep="first").to_numpy() & ~no_oid) & keep
+        counts["duplicate_orders"] = int(dup.sum())
+        if dup.any():
+            notes.append(f"{src.path.name}: {int(dup.sum()):,} row(s) repeat an order id already seen "
+                         f"({src.rows(np.flatnonzero(dup))}); each order id was counted once")
+        keep &= ~dup
+    frame = frame[keep] if not keep.all() else frame
+    refunds = frame[REV].to_numpy() < 0
+    counts["refund_rows"] = int(refunds.sum())
+    counts["refund_total"] = float(frame[REV].to_numpy()[refunds].sum())
+    if refunds.any():
+        notes.append(f"{src.path.name}: {int(refunds.sum()):,} refund row(s) (negative revenue, "
+                     f"{-counts['refund_total']:,.2f} in total) were kept: revenue is net of refunds")
+    return frame.sort_values(TIME, kind="stable").reset_index(drop=True)
+
+
+def load_spend(spec: Spec, path: PathLike, as_of: date, notes: list[str]) -> float:
+    """Total spend in the spend file on the test's days (start to as-of, UTC); other days noted."""
+    cs = spec.readout.spend
+    src = Source(Path(path), "spend")
+    present = _header(src)
+    _need(src, present, {"day": cs.day, "amount": cs.amount}, "[readout.spend]")
+    table = _read_table(src, list(dict.fromkeys([cs.day, cs.amount])))
+    day = read_times(src, table, cs.day, [])
+    amount = read_numbers(src, table, cs.amount)
+    del table
+    blank = (day.isna() | amount.isna()).to_numpy()
+    if blank.any():
+        raise InputError(f"{src.path}: {int(blank.sum()):,} row(s) lack a day or an amount "
+                         f"({src.rows(np.flatnonzero(blank))}); every spend row needs both")
+    neg = (amount < 0).to_numpy()
+    if neg.any():
+        raise InputError(f"{src.path}: column '{cs.amount}' has {int(neg.sum()):,} negative amount(s) "
+                         f"({src.rows(np.flatnonzero(neg))}); spend is never negative")
+    start = pd.Timestamp(spec.start).normalize()
+    inside = ((day >= start) & (day < cutoff_of(as_of))).to_numpy()
+    out = int((~inside).sum())
+    if out:
+        notes.append(f"{src.path.name}: {out:,} spend row(s) outside the test's days ({spec.start.date()} to "
+                     f"{as_of}), {float(amount[~inside].sum()):,.2f} in total, were left out")
+    return float(amount[inside].sum())
+
+
+def attach_covariates(spec: Spec, path: PathLike, visits: pd.DataFrame, notes: list[str]) -> None:
+    """Add the [readout] covariates the audit did not read to `visits` (matched by unit id,
+    each unit's earliest row, as the audit keeps)."""
+    missing = [c for c in spec.readout.covariates if c not in visits.columns]
+    if not missing:
+        return
+    cv = spec.audit.visits
+    src = Source(Path(path), "visits")
+    present = _header(src)
+    _need(src, present, {f"covariates[{i}]": c for i, c in enumerate(missing)}, "[readout]")
+    table = _read_table(src, list(dict.fromkeys([cv.unit_id, cv.first_seen, *missing])))
+    ids, _ = read_ids(src, table, cv.unit_id, [])
+    extra = pd.DataFrame({UNIT: ids, TIME: read_times(src, table, cv.first_seen, [])})
+    for c in missing:
+        extra[c] = read_numbers(src, table, c)
+    del table
+    extra = extra.sort_values(TIME, kind="stable").drop_duplicates(UNIT, keep="first")
+    pos = pd.Index(extra[UNIT]).get_indexer(visits[UNIT])
+    for c in missing:
+        vals = extra[c].to_numpy()
+        visits[c] = np.where(pos >= 0, vals[np.maximum(pos, 0)], np.nan)

@@ -1,0 +1,167 @@
+"""The readout's result: per-arm table, effects, money, exposure effect, looks, gate; the JSON schema's source.
+
+JSON output is `ReadoutReport.to_json_dict()`, schema id `SCHEMA`; a change that removes or
+renames a field bumps the schema number. Money is in `money.currency` (display only). Every
+interval is two-sided at 1 - `settings["alpha"]`; `anytime_lo`/`anytime_hi` is the anytime-valid
+interval (valid at every look), `lo`/`hi` the fixed-horizon one (valid for one planned look).
+`status` uses the audit's words: pass | warn | fail (the gate's verdict).
+"""
+
+from __future__ import annotations
+
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from armlock.audit.model import Figure
+
+SCHEMA = "armlock.readout/1"
+Status = Literal["pass", "warn", "fail", "skipped"]
+
+
+class Interval(BaseModel):
+    """An estimate with its standard error, fixed-horizon interval, p against zero and anytime interval."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    value: float | None
+    se: float | None = None
+    lo: float | None = None
+    hi: float | None = None
+    p: float | None = None
+    anytime_lo: float | None = None
+    anytime_hi: float | None = None
+
+
+class ArmRow(BaseModel):
+    """One arm's outcomes in the outcome window."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    name: str
+    role: str
+    units: int
+    buyers: int
+    orders: int
+    revenue: float
+    exposure_rate: float | None  # share of the arm's units the vendor's log shows exposed
+    conversion: Interval  # buyers / units
+    revenue_per_unit: Interval
+    orders_per_unit: Interval
+    aov: Interval  # average order value: revenue / orders (delta method)
+
+
+class Effect(BaseModel):
+    """One metric's effect of one exposed arm against the holdout."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    arm: str
+    versus: str
+    metric: str  # revenue_per_unit | conversion | orders_per_unit | aov
+    label: str
+    method: str  # "Welch", "CUPED (pre_revenue)", "delta method"
+    primary: bool = False
+    absolute: Interval
+    relative: Interval | None = None  # mean_exposed / mean_holdout - 1
+    mde: float | None = None  # minimum detectable absolute effect at this size
+
+
+class Adjustment(BaseModel):
+    """CUPED: covariates, the pooled theta, the variance reduction achieved, which estimate leads."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    covariates: list[str]
+    theta: list[float]
+    variance_reduction: float | None
+    primary: str  # "CUPED" or "raw"
+
+
+class ExposureEffect(BaseModel):
+    """The effect per exposed unit (Wald / complier average causal effect) of one exposed arm."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    arm: str
+    exposure_rate_exposed: float
+    exposure_rate_holdout: float
+    itt_exposure: float
+    per_exposed_unit: Interval  # revenue per exposed unit
+    assumptions: list[str]
+
+
+class Money(BaseModel):
+    """The channel's money figures (all exposed arms together against the holdout)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    currency: str
+    margin: float
+    exposed_units: int
+    spend: float | None
+    incremental_revenue: Interval
+    incremental_profit: Interval
+    iroas: Interval | None
+    roi: Interval | None
+    incremental_buyers: Interval
+    cost_per_incremental_buyer: Interval | None  # hi None: unbounded
+    attributed_revenue: float | None
+    attributed_roas: float | None
+    incremental_to_attributed: Interval | None
+
+
+class Look(BaseModel):
+    """The primary revenue-per-unit difference as a reader would have seen it at the end of a day."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    date: str
+    units: dict[str, int]
+    difference: float | None
+    lo: float | None
+    hi: float | None
+    anytime_lo: float | None
+    anytime_hi: float | None
+
+
+class GateCheck(BaseModel):
+    """One audit check as the readout's gate reads it."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    id: str
+    title: str
+    status: Status
+    summary: str
+
+
+class ReadoutReport(BaseModel):
+    """The whole readout: `status` is the audit gate's verdict; the headline says what it means."""
+
+    model_config = ConfigDict(extra="forbid", populate_by_name=True)
+
+    schema_: str = Field(SCHEMA, alias="schema")
+    experiment: str
+    fingerprint: str
+    as_of: str
+    generated_at: str
+    armlock_version: str
+    status: Status
+    trustworthy: bool
+    headline: str
+    reading_advice: str  # which interval a weekly reader should use
+    cautions: list[str] = Field(default_factory=list)
+    gate: list[GateCheck] = Field(default_factory=list)
+    arms: list[ArmRow]
+    effects: list[Effect]
+    adjustment: Adjustment | None = None
+    exposure: list[ExposureEffect] = Field(default_factory=list)
+    money: Money
+    looks: list[Look] = Field(default_factory=list)
+    settings: dict[str, Any] = Field(default_factory=dict)
+    input_notes: list[str] = Field(default_factory=list)
+    figures: dict[str, Figure] = Field(default_factory=dict)  # the headline numbers kept in the history
+
+    def to_json_dict(self) -> dict[str, Any]:
+        return self.model_dump(mode="json", by_alias=True)

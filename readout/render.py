@@ -1,0 +1,193 @@
+"""Reports of a ReadoutReport: terminal text, markdown for a ticket, and the versioned JSON."""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Callable
+from typing import Any
+
+from armlock.audit.model import Table
+from armlock.audit.render import md_table, text_table
+
+from .model import Interval, ReadoutReport
+
+MARK = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIP"}
+
+
+def num(v: float | None, digits: int = 2) -> str:
+    if v is None or not math.isfinite(v):
+        return "-"
+    return f"{v:,.{digits}f}"
+
+
+def pct(v: float | None, digits: int = 1) -> str:
+    return "-" if v is None or not math.isfinite(v) else f"{v * 100:.{digits}f}%"
+
+
+def span(iv: Interval | None, f: Callable[[float | None], str] = num, anytime: bool = False) -> str:
+    if iv is None:
+        return "-"
+    lo, hi = (iv.anytime_lo, iv.anytime_hi) if anytime else (iv.lo, iv.hi)
+    if lo is None and hi is None:
+        return "-"
+    return f"{f(lo)} to {f(hi) if hi is not None else 'unbounded'}"
+
+
+def _digits(metric: str) -> int:
+    return 4 if metric in ("conversion", "orders_per_unit") else 2
+
+
+def arms_table(r: ReadoutReport) -> Table:
+    rows = [[a.name, a.role, a.units, a.buyers, pct(a.conversion.value, 2), a.orders, num(a.revenue),
+             num(a.revenue_per_unit.value, 3), num(a.revenue_per_unit.se, 3), num(a.aov.value),
+             pct(a.exposure_rate)] for a in r.arms]
+    return Table(title=f"Per arm (revenue in {r.money.currency}, net of refunds)",
+                 columns=["arm", "role", "units", "buyers", "conversion", "orders", "revenue", "revenue/unit",
+                          "SE", "AOV", "exposed"], rows=rows)
+
+
+def effects_table(r: ReadoutReport) -> Table:
+    level = round(100 * (1 - r.settings.get("alpha", 0.05)))
+    rows = []
+    for e in r.effects:
+        d = _digits(e.metric)
+        rows.append([f"{e.label}{' *' if e.primary else ''}", f"{e.arm} vs {e.versus}", e.method,
+                     num(e.absolute.value, d), span(e.absolute, lambda v: num(v, d)),
+                     span(e.absolute, lambda v: num(v, d), anytime=True),
+                     pct(e.relative.value) if e.relative else "-", e.absolute.p, num(e.mde, d)])
+    return Table(title="Effects (exposed - holdout); * = primary estimate",
+                 columns=["metric", "arms", "method", "difference", f"{level}% interval", "anytime interval",
+                          "relative", "p", "MDE"], rows=rows)
+
+
+def money_table(r: ReadoutReport) -> Table:
+    m, cur = r.money, r.money.currency
+    rows: list[list[Any]] = [
+        [f"incremental revenue ({cur})", num(m.incremental_revenue.value, 0), span(m.incremental_revenue, lambda v: num(v, 0)),
+         span(m.incremental_revenue, lambda v: num(v, 0), anytime=True)],
+        [f"incremental profit ({cur}, margin {m.margin:g})", num(m.incremental_profit.value, 0),
+         span(m.incremental_profit, lambda v: num(v, 0)), span(m.incremental_profit, lambda v: num(v, 0), anytime=True)],
+        ["incremental buyers", num(m.incremental_buyers.value, 0), span(m.incremental_buyers, lambda v: num(v, 0)), "-"],
+        [f"spend ({cur})", num(m.spend, 0), "-", "-"],
+        ["iROAS (incremental revenue / spend)", num(m.iroas.value if m.iroas else None), span(m.iroas),
+         span(m.iroas, anytime=True)],
+        ["ROI ((incremental profit - spend) / spend)", pct(m.roi.value if m.roi else None, 0), span(m.roi, lambda v: pct(v, 0)),
+         span(m.roi, lambda v: pct(v, 0), anytime=True)],
+        [f"cost per incremental buyer ({cur})", num(m.cost_per_incremental_buyer.value if m.cost_per_incremental_buyer else None),
+         span(m.cost_per_incremental_buyer), "-"],
+        [f"attributed revenue ({cur})", num(m.attributed_revenue, 0), "-", "-"],
+        ["attributed ROAS", num(m.attributed_roas), "-", "-"],
+        ["incremental / attributed revenue", num(m.incremental_to_attributed.value if m.incremental_to_attributed else None),
+         span(m.incremental_to_attributed), span(m.incremental_to_attributed, anytime=True)],
+    ]
+    level = round(100 * (1 - r.settings.get("alpha", 0.05)))
+    return Table(title="Did it pay? (all exposed arms against the holdout; spend taken as known)",
+                 columns=["figure", "estimate", f"{level}% interval", "anytime interval"], rows=rows)
+
+
+def exposure_table(r: ReadoutReport) -> Table | None:
+    if not r.exposure:
+        return None
+    rows = [[x.arm, pct(x.exposure_rate_exposed), pct(x.exposure_rate_holdout, 2), num(x.per_exposed_unit.value, 3),
+             span(x.per_exposed_unit, lambda v: num(v, 3)), x.per_exposed_unit.p] for x in r.exposure]
+    return Table(title="Effect on the exposed (Wald / complier average causal effect), revenue per exposed unit",
+                 columns=["arm", "exposed share", "holdout reached", "per exposed unit", "interval", "p"], rows=rows)
+
+
+def looks_table(r: ReadoutReport) -> Table:
+    rows = [[lk.date, sum(lk.units.values()), num(lk.difference, 3), span(Interval(value=None, lo=lk.lo, hi=lk.hi),
+             lambda v: num(v, 3)), span(Interval(value=None, anytime_lo=lk.anytime_lo, anytime_hi=lk.anytime_hi),
+                                        lambda v: num(v, 3), anytime=True)] for lk in r.looks]
+    return Table(title="Revenue per unit difference at each look (primary estimate)",
+                 columns=["as of", "units", "difference", "fixed interval", "anytime interval"], rows=rows)
+
+
+def tables(r: ReadoutReport) -> list[Table]:
+    out = [arms_table(r), effects_table(r), money_table(r)]
+    ex = exposure_table(r)
+    if ex is not None:
+        out.append(ex)
+    if r.looks:
+        out.append(looks_table(r))
+    return out
+
+
+def _adjust_line(r: ReadoutReport) -> str | None:
+    a = r.adjustment
+    if a is None:
+        return "No covariate adjustment: the raw difference (Welch) is the primary estimate."
+    red = pct(a.variance_reduction) if a.variance_reduction is not None else "-"
+    return (f"CUPED with {', '.join(a.covariates)} (pooled theta {', '.join(f'{t:.4g}' for t in a.theta)}) "
+            f"reduced the variance by {red}; the adjusted estimate is primary (chosen in the spec, before the data).")
+
+
+def render_text(r: ReadoutReport) -> str:
+    out = [f"armlock readout: {r.experiment}   as of {r.as_of}   spec {r.fingerprint}",
+           f"audit gate: {MARK[r.status]}", "", r.headline, ""]
+    bad = [g for g in r.gate if g.status in ("fail", "warn")]
+    if bad:
+        out.append("Audit checks that gate this readout:")
+        out += [f"  [{MARK[g.status]}] {g.title}: {g.summary.split('; ')[0]}" for g in bad]
+        out.append("")
+    out += [r.reading_advice, _adjust_line(r) or "", ""]
+    if r.cautions:
+        out.append("Cautions:")
+        out += [f"  - {c}" for c in r.cautions]
+        out.append("")
+    if r.input_notes:
+        out.append("Input notes:")
+        out += [f"  - {n}" for n in r.input_notes]
+        out.append("")
+    for t in tables(r):
+        out.append(text_table(t, indent="  "))
+        out.append("")
+    if r.exposure:
+        out.append("Assumptions of the effect on the exposed:")
+        out += [f"  - {a}" for a in r.exposure[0].assumptions]
+    return "\n".join(out).rstrip() + "\n"
+
+
+def _md(s: str) -> str:
+    return s.replace("|", "\\|").replace("\n", " ")
+
+
+def render_markdown(r: ReadoutReport) -> str:
+    out = [f"## armlock readout: {r.experiment} — audit gate **{MARK[r.status]}**", "",
+           f"As of **{r.as_of}** (UTC), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
+           f"> {_md(r.headline)}", ""]
+    bad = [g for g in r.gate if g.status in ("fail", "warn")]
+    if bad:
+        out += ["**Audit checks that gate this readout**", ""]
+        out += [f"- **{MARK[g.status]}** {_md(g.title)}: {_md(g.summary.split('; ')[0])}" for g in bad]
+        out.append("")
+    out += [_md(r.reading_advice), "", _md(_adjust_line(r) or "")]
+    if r.cautions:
+        out += ["", "**Cautions**", ""] + [f"- {_md(c)}" for c in r.cautions]
+    if r.input_notes:
+        out += ["", "**Input notes**", ""] + [f"- {_md(n)}" for n in r.input_notes]
+    for t in tables(r):
+        out += ["", md_table(t)]
+    if r.exposure:
+        out += ["", "**Assumptions of the effect on the exposed**", ""] + [f"- {_md(a)}" for a in r.exposure[0].assumptions]
+    return "\n".join(out) + "\n"
+
+
+def render_json(r: ReadoutReport) -> str:
+    def clean(o: Any) -> Any:
+        if isinstance(o, float) and not math.isfinite(o):
+            return None
+        if isinstance(o, dict):
+            return {k: clean(v) for k, v in o.items()}
+        if isinstance(o, list):
+            return [clean(v) for v in o]
+        return o
+
+    return json.dumps(clean(r.to_json_dict()), indent=2, ensure_ascii=False) + "\n"
+
+
+RENDERERS: dict[str, Callable[[ReadoutReport], str]] = {
+    "text": render_text,
+    "markdown": render_markdown,
+    "json": render_json,
+}
