@@ -12,10 +12,10 @@ Per unit the engine builds these variables (names in `VARIABLES`, then one per c
 - ``exposed``  1 if the vendor's log shows an exposure of the unit during the test, else 0
 - ``cov:<c>``  each pre-period covariate of the visits file (an empty cell: the pooled mean)
 
-For a group of units, `Moments` keeps n, the sum of each variable and the sum of each product of
-two variables (the full cross-product matrix, squares on its diagonal). Means, variances and
-covariances of any of them, in any arm, follow, and so do the Welch, delta-method, CUPED and
-Wald statistics (`readout.stats`).
+For a group of units, `Moments` keeps n, the mean of each variable and the central cross-product
+matrix (co-moments; squared deviations on its diagonal). Means, variances and covariances of any
+of them, in any arm, follow, and so do the Welch, delta-method, CUPED and Wald statistics
+(`readout.stats`). A Spark engine fills them per partition and merges with `+`.
 """
 
 from __future__ import annotations
@@ -30,18 +30,28 @@ COV_PREFIX = "cov:"
 
 @dataclass
 class Moments:
-    """n, sums and cross-product sums of `names` over one group of units (one arm, one look)."""
+    """n, means and central cross-products of `names` over one group of units (one arm, one look).
+
+    Kept as central moments (mean vector and M2 = sum of (x - mean)(x - mean)^T) rather than raw
+    sums of squares, so a variable with a large mean keeps its variance exactly; two groups merge
+    with the pairwise update of Chan, Golub & LeVeque (1979, "Updating formulae and a pairwise
+    algorithm for computing sample variances"), as the audit's balance tables do.
+    """
 
     names: tuple[str, ...]
     n: int
-    sums: np.ndarray  # shape (k,): sum of each variable
-    cross: np.ndarray  # shape (k, k): sum over units of x_a * x_b
+    means: np.ndarray  # shape (k,)
+    m2: np.ndarray  # shape (k, k): sum over units of (x_a - mean_a)(x_b - mean_b)
 
     @classmethod
     def of(cls, names: tuple[str, ...] | list[str], data: np.ndarray) -> Moments:
         """Moments of the rows of `data` (units x variables, float64)."""
         data = np.asarray(data, dtype=np.float64).reshape(-1, len(names))
-        return cls(tuple(names), int(data.shape[0]), data.sum(axis=0), data.T @ data)
+        if not len(data):
+            return cls.empty(names)
+        mean = data.mean(axis=0)
+        centred = data - mean
+        return cls(tuple(names), int(data.shape[0]), mean, centred.T @ centred)
 
     @classmethod
     def empty(cls, names: tuple[str, ...] | list[str]) -> Moments:
@@ -51,30 +61,35 @@ class Moments:
     def __add__(self, other: Moments) -> Moments:
         if self.names != other.names:
             raise ValueError("cannot add moments of different variables")
-        return Moments(self.names, self.n + other.n, self.sums + other.sums, self.cross + other.cross)
+        if not other.n:
+            return self
+        if not self.n:
+            return other
+        n = self.n + other.n
+        delta = other.means - self.means
+        return Moments(self.names, n, self.means + delta * (other.n / n),
+                       self.m2 + other.m2 + np.outer(delta, delta) * (self.n * other.n / n))
 
     def index(self, name: str) -> int:
         return self.names.index(name)
 
     def total(self, name: str) -> float:
-        return float(self.sums[self.index(name)])
+        return float(self.means[self.index(name)] * self.n)
 
     def mean(self, name: str) -> float:
-        return self.total(name) / self.n if self.n else float("nan")
+        return float(self.means[self.index(name)]) if self.n else float("nan")
 
     def cov(self, a: str, b: str) -> float:
         """Sample covariance (ddof = 1) of two variables; the variance when a == b."""
         if self.n < 2:
             return float("nan")
-        i, j = self.index(a), self.index(b)
-        return float((self.cross[i, j] - self.sums[i] * self.sums[j] / self.n) / (self.n - 1))
+        return float(self.m2[self.index(a), self.index(b)] / (self.n - 1))
 
     def var(self, name: str) -> float:
         return self.cov(name, name)
 
     def to_dict(self) -> dict[str, object]:
-        return {"names": list(self.names), "n": self.n, "sums": self.sums.tolist(),
-                "cross": self.cross.tolist()}
+        return {"names": list(self.names), "n": self.n, "means": self.means.tolist(), "m2": self.m2.tolist()}
 
 
 @dataclass

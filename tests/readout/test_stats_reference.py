@@ -51,8 +51,17 @@ def test_moments_add_up_like_the_whole() -> None:
     whole = Moments.of(names, x)
     parts = Moments.of(names, x[:400]) + Moments.of(names, x[400:])
     assert parts.n == whole.n
-    assert np.allclose(parts.cross, whole.cross) and np.allclose(parts.sums, whole.sums)
+    assert np.allclose(parts.m2, whole.m2) and np.allclose(parts.means, whole.means)
     assert parts.cov("a", "c") == pytest.approx(np.cov(x[:, 0], x[:, 2])[0, 1], rel=1e-9)
+
+
+def test_large_mean_keeps_its_variance() -> None:
+    # 1e9 + N(0, 1): raw sums of squares would lose every digit of the variance; central moments
+    # merged pairwise (Chan, Golub & LeVeque 1979) give numpy's variance.
+    rng = np.random.default_rng(4)
+    x = 1e9 + rng.normal(size=20_000)
+    m = Moments.of(("x",), x[:7_000]) + Moments.of(("x",), x[7_000:])
+    assert m.var("x") == pytest.approx(np.var(x, ddof=1), rel=1e-9)
 
 
 def test_delta_method_toy_vector() -> None:
