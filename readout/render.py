@@ -53,8 +53,8 @@ def effects_table(r: ReadoutReport) -> Table:
     for e in r.effects:
         d = _digits(e.metric)
         rows.append([f"{e.label}{' *' if e.primary else ''}", f"{e.arm} vs {e.versus}", e.method,
-                     num(e.absolute.value, d), span(e.absolute, lambda v: num(v, d)),
-                     span(e.absolute, lambda v: num(v, d), anytime=True),
+                     num(e.absolute.value, d), span(e.absolute, lambda v, d=d: num(v, d)),
+                     span(e.absolute, lambda v, d=d: num(v, d), anytime=True),
                      pct(e.relative.value) if e.relative else "-", e.absolute.p, num(e.mde, d)])
     return Table(title="Effects (exposed - holdout); * = primary estimate",
                  columns=["metric", "arms", "method", "difference", f"{level}% interval", "anytime interval",
