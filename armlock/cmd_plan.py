@@ -57,10 +57,16 @@ def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | N
         spec = load_spec(spec_path)
         kw.update(unit_id=spec.audit.visits.unit_id, first_seen=spec.audit.visits.first_seen,
                   covariates=tuple(spec.audit.covariates))
-        ro = getattr(spec, "readout", None)  # the readout's [readout] orders map, once specs carry it
+        ro = getattr(spec, "readout", None)  # the readout's [readout] tables, in specs that carry them
         orders = getattr(ro, "orders", None)
         if orders is not None:
-            kw.update(orders_unit_id=getattr(orders, "unit_id", "unit_id"), orders_revenue=getattr(orders, "revenue", "revenue"))
+            if not getattr(orders, "unit_id", "unit_id") and not orders_unit:
+                raise InputError(f"{spec_path}: [readout.orders] keys orders by customer, not by visitor id; the "
+                                 "planner needs the visitor id of each order: give --orders-unit-column")
+            kw.update(orders_unit_id=getattr(orders, "unit_id", None) or "unit_id",
+                      orders_revenue=getattr(orders, "revenue", "revenue"))
+        if getattr(ro, "covariates", None):
+            kw["covariates"] = tuple(dict.fromkeys([*ro.covariates, *spec.audit.covariates]))
     if covariate:
         kw.update(covariates=(covariate,), covariate_explicit=True)
     if orders_unit:
@@ -68,6 +74,31 @@ def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | N
     if orders_revenue:
         kw["orders_revenue"] = orders_revenue
     return PrePeriodColumns(**kw)
+
+
+def carry_plan_into_spec_text(text: str, *, planned_units: int, margin: float | None, alpha: float,
+                              power: float) -> str:
+    """Set the `[readout]` keys the plan decides (planned units, margin, alpha, power) in a new spec's text.
+
+    Only the first `key = value` line of each key after the `[readout]` header is touched; a spec without
+    that section is returned unchanged.
+    """
+    import re
+
+    head = re.search(r"(?m)^\[readout\][ \t]*$", text)
+    if head is None:
+        return text
+    start = head.end()
+    nxt = re.search(r"(?m)^\[(?!readout\])", text[start:])
+    end = start + nxt.start() if nxt else len(text)
+    section = text[start:end]
+    values = {"planned_units": f"{planned_units}", "alpha": f"{alpha:g}", "power": f"{power:g}"}
+    if margin is not None:
+        values["margin"] = f"{margin:g}"
+    for key, value in values.items():
+        section = re.sub(rf"(?m)^({key}[ \t]*=[ \t]*)[^#\n]*?([ \t]*(#.*)?)$",
+                         lambda m, v=value: f"{m.group(1)}{v}{m.group(2)}", section, count=1)
+    return text[:start] + section + text[end:]
 
 
 def plan_cmd(
@@ -85,6 +116,7 @@ def plan_cmd(
     margin: float = typer.Option(None, "--margin", help="Gross margin as a share of revenue, e.g. 0.4 (break-even iROAS = 1 / margin)."),
     alpha: float = typer.Option(0.05, "--alpha", help="Two-sided significance level."),
     power: float = typer.Option(0.8, "--power", help="Power to plan for."),
+    equal_variance: bool = typer.Option(False, "--equal-variance", help="Plan with the textbook formula (both arms keep the same SD under the effect) instead of letting the exposed arm's variance grow with the effect."),
     rho: float = typer.Option(None, "--rho", help="Correlation of revenue with its pre-period covariate, for CUPED (default 0, or estimated from --visits)."),
     visits: Path = typer.Option(None, "--visits", help="Pre-period visits file (CSV, CSV.gz, Parquet): one row per unit, first-seen time, pre-period columns."),
     orders: Path = typer.Option(None, "--orders", help="Pre-period orders file: unit id and revenue per order."),
@@ -152,7 +184,8 @@ def plan_cmd(
         notes.append("Given on the command line instead of the estimate: " + ", ".join(
             f"{k.replace('_', ' ')} {v:g}" for k, v in given.items()))
     common = dict(exposure_rate=exposure_rate, effect=effect, lift=lift, target_iroas=target_iroas,
-                  weekly_spend=weekly_spend, margin=margin, alpha=alpha, power=power)
+                  weekly_spend=weekly_spend, margin=margin, alpha=alpha, power=power,
+                  equal_variance=equal_variance)
     units = given.get("weekly_units", found.get("weekly_units"))
     the_rho = given.get("rho", found.get("rho", 0.0))
     if units is None:
@@ -198,6 +231,15 @@ def plan_cmd(
 
         assert plan.recommendation.share is not None
         target, spec = write_new_spec(write_spec, holdout_share=plan.recommendation.share, out=spec_out, force=force)
+        weeks_planned = plan.recommendation.weeks or 0
+        text = target.read_text(encoding="utf-8")
+        carried = carry_plan_into_spec_text(text, planned_units=int(round(inputs.weekly_units * weeks_planned)),
+                                            margin=inputs.margin, alpha=inputs.alpha, power=inputs.power)
+        if carried != text:  # the readout reads the test as planned: its anytime interval is tightest there
+            from armlock.assign import load_spec
+
+            target.write_text(carried, encoding="utf-8")
+            spec = load_spec(target)
         split = ", ".join(f"{a.name} {a.weight / 100:g}%" for a in spec.arms)
         err(f"Wrote {target}  (arms: {split}; fingerprint {spec.fingerprint}); plan to run it "
             f"{plan.recommendation.weeks} weeks. Once the test starts, never change salt or weights.")

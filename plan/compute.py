@@ -14,7 +14,9 @@ from .model import (
     DEFAULT_MAX_WEEKS, DEFAULT_SHARES, DEFAULT_WEEKS, MIN_WEEKS, Cell, Estimate, Plan, PlanInputs,
     Recommendation, ShareSummary,
 )
-from .power import conversion_mde, power_at, se_difference, units_needed, z_sum
+from .power import (
+    conversion_mde, extra_variance, power_two_variances, se_difference, units_needed_two_variances, z_sum,
+)
 
 SMALL_ARM = 1000  # below this many units in an arm the normal approximation is shaky (common practice)
 
@@ -101,42 +103,71 @@ def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
     target_iroas = None if (target is None or spend is None) else target * W / spend
     break_even = None if x.margin is None else 1.0 / x.margin
 
+    def extra(diff: float) -> float:  # the exposed arm's variance grows with the effect (see power.extra_variance)
+        return 0.0 if x.equal_variance else extra_variance(diff, mu, sd)
+
+    def se_alt(var: float, n_h: float, n_e: float, diff: float) -> float:
+        """SE of the difference when the true difference is `diff`: each arm with its own variance, as the
+        readout's Welch interval estimates it (so the critical value and the spread both use it)."""
+        return math.sqrt(var / n_h + max(var + extra(diff), 1e-12 * var) / n_e)
+
+    def detectable(var: float, n_h: float, n_e: float, z_crit: float) -> float:
+        """Smallest arm difference detected with the planned power: solves diff = (z_crit + z_power) se(diff)
+        by fixed-point iteration (the SE moves slowly with diff)."""
+        diff = (z_crit + z_b) * se_alt(var, n_h, n_e, 0.0)
+        for _ in range(100):
+            new = (z_crit + z_b) * se_alt(var, n_h, n_e, diff)
+            if abs(new - diff) <= 1e-12 * diff:
+                break
+            diff = new
+        return new
+
+    def power(var: float, n_h: float, n_e: float, z_crit: float) -> float:
+        assert target is not None
+        se1 = se_alt(var, n_h, n_e, target)
+        return power_two_variances(target, se1, se1, z_crit=z_crit)
+
+    def weeks_for(var: float, h: float, z_crit: float) -> float:
+        assert target is not None
+        var_e = max(var + extra(target), 1e-12 * var)
+        pooled = (var / h + var_e / (1 - h)) / (1 / h + 1 / (1 - h))  # critical value on the same SE as power
+        return units_needed_two_variances(target, pooled, var, var_e, h, z_crit=z_crit, z_power=z_b) / W
+
+    var_raw, var_plan = sd ** 2, sd_plan ** 2
     cells: list[Cell] = []
     for h in shares:
         for w in weeks:
             n = W * w
             n_h, n_e = h * n, (1 - h) * n
             se = se_difference(sd, n_h, n_e)
-            se_p = se * math.sqrt(k)
-            planned = zs * se_p
+            raw_mde = detectable(var_raw, n_h, n_e, z_a)
+            planned = detectable(var_plan, n_h, n_e, z_a)
             forgone = None if target is None else target * n_h
             profit = None
             if forgone is not None and x.margin is not None and spend is not None:
                 profit = x.margin * forgone - spend * h * w
             cells.append(Cell(
                 share=h, weeks=w, units=n, holdout_units=n_h, exposed_units=n_e, se=se,
-                mde=zs * se, mde_cuped=planned, mde_relative=zs * se / mu, mde_relative_cuped=planned / mu,
-                mde_per_exposed=planned / e, mde_weekly_reading=(f_any + z_b) * se_p,
+                mde=raw_mde, mde_cuped=planned, mde_relative=raw_mde / mu, mde_relative_cuped=planned / mu,
+                mde_per_exposed=planned / e, mde_weekly_reading=detectable(var_plan, n_h, n_e, f_any),
                 mde_conversion=None if x.conversion is None else conversion_mde(x.conversion, n_h, n_e,
                                                                                 alpha=x.alpha, power=x.power),
                 iroas_vs_zero=None if spend is None else planned * W / spend,
                 iroas_vs_break_even=None if (spend is None or break_even is None) else break_even + planned * W / spend,
                 revenue_forgone=forgone, profit_forgone=profit,
-                power_at_target=None if target is None else power_at(target, se_p, alpha=x.alpha),
-                power_weekly_reading=None if target is None else power_at(target, se_p, alpha=x.alpha, z_crit=f_any),
+                power_at_target=None if target is None else power(var_plan, n_h, n_e, z_a),
+                power_weekly_reading=None if target is None else power(var_plan, n_h, n_e, f_any),
             ))
 
     summaries: list[ShareSummary] = []
     if target is not None:
-        weekly_cost = ((f_any + z_b) / zs) ** 2
         for h in shares:
-            need = units_needed(target, sd_plan, h, alpha=x.alpha, power=x.power) / W
-            raw = units_needed(target, sd, h, alpha=x.alpha, power=x.power) / W
+            need = weeks_for(var_plan, h, z_a)
             ww = _whole_weeks(need)
             forgone = target * h * W * ww
             profit = None if (x.margin is None or spend is None) else x.margin * forgone - spend * h * ww
-            summaries.append(ShareSummary(share=h, weeks_needed=need, weeks_needed_raw=raw,
-                                          weeks_needed_weekly_reading=need * weekly_cost, weeks=ww,
+            summaries.append(ShareSummary(share=h, weeks_needed=need, weeks_needed_raw=weeks_for(var_raw, h, z_a),
+                                          weeks_needed_weekly_reading=weeks_for(var_plan, h, f_any), weeks=ww,
                                           revenue_forgone=forgone, profit_forgone=profit))
 
     plan = Plan(inputs=x, shares=shares, weeks=weeks, max_weeks=max_weeks, cells=cells,
@@ -153,7 +184,7 @@ def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
 def _target_words(p: Plan) -> str:
     x = p.inputs
     assert p.target_difference is not None and p.target_per_exposed is not None
-    words = (f"+{money(p.target_per_exposed)} per exposed unit (a {pct(p.target_per_exposed / x.revenue_mean)} lift "
+    words = (f"+{money(p.target_per_exposed)} per exposed unit (a lift of {pct(p.target_per_exposed / x.revenue_mean)} "
              "for the units reached")
     if p.target_iroas is not None:
         words += f", iROAS {p.target_iroas:.3g}"
@@ -205,8 +236,12 @@ def _assumptions(p: Plan) -> list[str]:
     out = [
         "Units are randomized at their first visit; revenue per unit over the test has the given mean and SD "
         "whatever the duration (in practice both grow as early units keep buying, which the plan does not model).",
-        "Both arms have the same revenue SD; the test is two-sided at alpha on the difference of arm means "
-        "(normal approximation, which matches the t-test at these sizes).",
+        ("Both arms have the same revenue SD (the textbook formula, --equal-variance)" if x.equal_variance else
+         "The ad adds revenue by bringing more buyers with the same baskets, so the exposed arm's variance grows "
+         "with the effect (by about the relative lift; each arm is read with its own variance, as the readout's "
+         "Welch interval does)")
+        + "; the test is two-sided at alpha on the difference of arm means (normal approximation, which matches "
+        "the t-test at these sizes).",
         f"Only reached units respond: the arm-level difference is the effect per exposed unit times the "
         f"exposure rate ({pct(x.exposure_rate)}).",
     ]
@@ -219,8 +254,8 @@ def _assumptions(p: Plan) -> list[str]:
                    "it, so iROAS = difference per unit x weekly units / weekly spend, whatever the share.")
     out.append(f"Reading the test every week with the anytime-valid interval (normal mixture, tightest at the "
                f"planned end) widens the final interval {p.anytime_factor / p.z_alpha:.2f} times; its detectable "
-               f"effect is taken as (anytime factor + z_power) x SE, conservative since an earlier crossing only "
-               "adds power.")
+               f"effect takes the anytime factor in place of z_(1-alpha/2), conservative since an earlier crossing "
+               "only adds power.")
     return out
 
 
@@ -230,6 +265,10 @@ def _notes(p: Plan) -> list[str]:
     if x.conversion is not None and not x.order_value_sd:
         out.append("Order values were taken as constant (no --order-value-sd): real order values vary, so the "
                    "revenue SD and every detectable effect here are understated.")
+    if p.target_iroas is not None and p.break_even_iroas is not None and p.target_iroas < p.break_even_iroas:
+        out.append(f"At the target the channel would not pay: iROAS {p.target_iroas:.3g} is below break-even "
+                   f"{p.break_even_iroas:.3g} (1 / margin), so the holdout saves more spend than the profit it forgoes; "
+                   "the iROAS table shows whether the test can tell a paying channel from break-even.")
     small = [c for c in p.cells if c.holdout_units < SMALL_ARM]
     if small:
         out.append(f"{len(small)} plan cell(s) have fewer than {SMALL_ARM:,} units in the holdout, where the normal "

@@ -53,6 +53,7 @@ class PlanInputs:
     conversion: float | None = None
     order_value: float | None = None
     order_value_sd: float | None = None
+    equal_variance: bool = False  # True: the textbook formula, both arms with the same SD under the effect
 
     def __post_init__(self) -> None:
         for name in ("weekly_units", "revenue_mean", "revenue_sd", "exposure_rate", "alpha", "power", "rho",

@@ -71,3 +71,28 @@ def conversion_mde(p: float, n_a: float, n_b: float, *, alpha: float = 0.05, pow
     h = z_sum(alpha, power) * math.sqrt(1.0 / n_a + 1.0 / n_b)
     angle = min(math.asin(math.sqrt(p)) + h / 2.0, math.pi / 2.0)
     return math.sin(angle) ** 2 - p
+
+
+def extra_variance(diff: float, mean: float, sd: float) -> float:
+    """How much the exposed arm's revenue variance grows when the ad adds `diff` per unit by bringing more buyers.
+
+    Model: a unit's revenue is one basket with probability p; the ad raises p, baskets are unchanged. With
+    E[Y^2] = (sd^2 + mean^2) / p per buyer fixed, the variance at mean + diff is
+    sd^2 + diff (sd^2 / mean - mean) - diff^2 (whatever p is), so the increment is returned.
+    """
+    return diff * (sd ** 2 / mean - mean) - diff ** 2
+
+
+def power_two_variances(diff: float, se_null: float, se_alt: float, *, z_crit: float) -> float:
+    """Power when the critical value uses the SE under no effect and the estimate's spread is the SE under the effect
+    (the construction of Fleiss's sample size for two proportions, R's power.prop.test)."""
+    return float(_N.cdf((diff - z_crit * se_null) / se_alt) + _N.cdf((-diff - z_crit * se_null) / se_alt))
+
+
+def units_needed_two_variances(diff: float, var_null: float, var_alt_holdout: float, var_alt_exposed: float,
+                               share: float, *, z_crit: float, z_power: float) -> float:
+    """Total units so that `diff` is detected: [z_crit sqrt(v0 c) + z_power sqrt(vh/h + ve/(1-h))]^2 / diff^2,
+    c = 1/h + 1/(1-h). With equal variances this is `units_needed`."""
+    c = 1.0 / share + 1.0 / (1.0 - share)
+    alt = var_alt_holdout / share + var_alt_exposed / (1.0 - share)
+    return (z_crit * math.sqrt(var_null * c) + z_power * math.sqrt(alt)) ** 2 / diff ** 2

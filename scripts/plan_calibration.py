@@ -15,7 +15,7 @@ import time
 
 from armlock.plan.compute import make_plan
 from armlock.plan.model import PlanInputs
-from armlock.plan.power import units_needed
+from armlock.plan.power import extra_variance, units_needed_two_variances, z_sum
 from armlock.plan.simulate import simulate
 
 WEEKS = 8
@@ -38,7 +38,11 @@ def main() -> None:
     print("|---|---:|---:|---:|:---:|---:|---:|---:|---:|---:|")
     for name, sd, h, e, lift, rho in SCENARIOS:
         t0 = time.time()
-        units = units_needed(lift * mu * e, sd * math.sqrt(1 - rho ** 2), h)
+        diff, var = lift * mu * e, sd ** 2 * (1 - rho ** 2)  # sized by the planner: 80% power at WEEKS weeks
+        z_a = z_sum(0.05, 0.5)  # z_(1-alpha/2) + z_0.5 = z_(1-alpha/2)
+        var_e = var + extra_variance(diff, mu, sd)
+        pooled = (var / h + var_e / (1 - h)) / (1 / h + 1 / (1 - h))  # Welch: one SE for both
+        units = units_needed_two_variances(diff, pooled, var, var_e, h, z_crit=z_a, z_power=z_sum(0.05, 0.8) - z_a)
         x = PlanInputs(weekly_units=units / WEEKS, revenue_mean=mu, revenue_sd=sd, exposure_rate=e, lift=lift, rho=rho)
         plan = make_plan(x, shares=[h], weeks=[WEEKS])
         c = plan.cell(h, WEEKS)

@@ -9,7 +9,6 @@ import pandas as pd
 import pytest
 from scipy import stats
 from statsmodels.stats.meta_analysis import effectsize_smd
-from statsmodels.stats.weightstats import ttest_ind
 
 from armlock.assign import spec_from_dict
 from armlock.audit.balance import (

@@ -7,7 +7,6 @@ import subprocess
 import sys
 from pathlib import Path
 
-import armlock
 
 FOLDERS = ("plan", "assign", "snippets", "audit", "readout")
 ROOT = Path(__file__).resolve().parents[2]

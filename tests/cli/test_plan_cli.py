@@ -50,6 +50,9 @@ def test_write_spec_uses_the_recommended_share(tmp_path: Path) -> None:
     weights = {a["name"]: a["weight"] for a in spec["arms"]}
     assert weights == {"holdout": round(rec["share"] * 10_000), "exposed": 10_000 - round(rec["share"] * 10_000)}
     assert "Wrote spring-test.toml" in r.stderr and f"{rec['weeks']} weeks" in r.stderr
+    if "readout" in spec:  # specs with the readout's tables carry the plan: planned size, margin, alpha, power
+        assert spec["readout"]["planned_units"] == 300_000 * rec["weeks"]
+        assert spec["readout"]["margin"] == 0.4 and spec["readout"]["power"] == 0.8
     # the same code as `armlock init`: `check` accepts it, and a second write is refused before any work
     assert run_cli(tmp_path, "check", "--spec", "spring-test.toml").returncode == 0
     again = run_cli(tmp_path, "plan", *SHOP, "--write-spec", "spring-test")
@@ -116,3 +119,31 @@ def test_pre_period_file_without_orders(tmp_path: Path) -> None:
     (tmp_path / "o.csv").write_text("unit_id,revenue\n")
     r = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv")
     assert r.returncode == 4 and "o.csv: the orders file has no orders" in r.stderr
+
+
+READOUT_SECTION = '''
+[audit]
+x = 1
+
+[readout]
+covariates = ["pre_revenue"]  # pre-period columns
+alpha = 0.05                  # two-sided level
+power = 0.8                   # power
+margin = 0.3                  # gross margin
+planned_units = 0             # units the test plans; 0 = as of now
+
+[readout.orders]
+unit_id = "unit_id"           # the visitor id
+'''
+
+
+def test_plan_carries_into_the_readout_section() -> None:
+    from armlock.cmd_plan import carry_plan_into_spec_text
+
+    out = carry_plan_into_spec_text(READOUT_SECTION, planned_units=1_260_000, margin=0.35, alpha=0.1, power=0.9)
+    assert "planned_units = 1260000             # units the test plans; 0 = as of now" in out
+    assert "margin = 0.35                  # gross margin" in out
+    assert "alpha = 0.1                  # two-sided level" in out and "power = 0.9" in out
+    assert "[audit]\nx = 1" in out and 'unit_id = "unit_id"' in out  # other sections untouched
+    assert carry_plan_into_spec_text("[audit]\nplanned_units = 0\n", planned_units=5, margin=None, alpha=0.05,
+                                     power=0.8) == "[audit]\nplanned_units = 0\n"  # no [readout]: unchanged

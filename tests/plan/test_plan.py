@@ -12,11 +12,12 @@ from armlock.plan.model import PlanInputs
 from armlock.plan.power import units_needed, z_sum
 
 BASE = dict(weekly_units=50_000, revenue_mean=4.0, revenue_sd=30.0)
+EQ = dict(BASE, equal_variance=True)  # the textbook formula, for identities that hold exactly there
 
 
 def test_exposure_rate_dilutes_the_effect_the_arms_show() -> None:
-    full = make_plan(PlanInputs(**BASE, effect=0.5), shares=[0.1], weeks=[8])
-    half = make_plan(PlanInputs(**BASE, effect=0.5, exposure_rate=0.5), shares=[0.1], weeks=[8])
+    full = make_plan(PlanInputs(**EQ, effect=0.5), shares=[0.1], weeks=[8])
+    half = make_plan(PlanInputs(**EQ, effect=0.5, exposure_rate=0.5), shares=[0.1], weeks=[8])
     assert half.target_difference == pytest.approx(0.25)
     assert full.target_difference == pytest.approx(0.5)
     # the detectable difference between arms does not depend on reach; per exposed unit it doubles
@@ -27,7 +28,7 @@ def test_exposure_rate_dilutes_the_effect_the_arms_show() -> None:
 
 
 def test_weeks_needed_is_the_closed_form_and_meets_the_target() -> None:
-    p = make_plan(PlanInputs(**BASE, lift=0.04, exposure_rate=0.7), shares=[0.2], weeks=list(range(1, 80)),
+    p = make_plan(PlanInputs(**EQ, lift=0.04, exposure_rate=0.7), shares=[0.2], weeks=list(range(1, 80)),
                   max_weeks=80)
     target = 0.04 * 4.0 * 0.7
     s = p.summaries[0]
@@ -88,7 +89,7 @@ def test_whole_weeks_at_least_two() -> None:
 def test_weekly_reading_costs_a_constant_factor_at_the_planned_end() -> None:
     from armlock.readout.confseq import anytime_factor
 
-    p = make_plan(PlanInputs(**BASE, effect=0.4), shares=[0.2], weeks=[6])
+    p = make_plan(PlanInputs(**EQ, effect=0.4), shares=[0.2], weeks=[6])
     f = anytime_factor(123.0, t_opt=123.0, alpha=0.05)  # scale-free at t = t_opt
     assert p.anytime_factor == pytest.approx(f)
     assert p.anytime_factor / p.z_alpha > 1.3  # the price of looking every week is real
@@ -140,7 +141,7 @@ def test_json_form_is_versioned_and_complete() -> None:
 
     from armlock.plan.render import render_json
 
-    p = make_plan(PlanInputs(**BASE, effect=0.3, weekly_spend=9_000, margin=0.3, rho=0.4), shares=[0.1, 0.3],
+    p = make_plan(PlanInputs(**EQ, effect=0.3, weekly_spend=9_000, margin=0.3, rho=0.4), shares=[0.1, 0.3],
                   weeks=[2, 4])
     d = json.loads(render_json(p))
     assert d["schema"] == "armlock.plan/1"
@@ -149,3 +150,30 @@ def test_json_form_is_versioned_and_complete() -> None:
     assert d["target"]["difference_per_unit"] == pytest.approx(0.3)
     assert d["inputs"]["rho"] == 0.4 and d["cuped"] is True
     assert units_needed(0.3, 30.0 * math.sqrt(1 - 0.16), 0.1) / 50_000 == pytest.approx(d["by_share"][0]["weeks_needed"])
+
+
+def test_exposed_arm_variance_grows_with_the_effect() -> None:
+    # the default plan lets the exposed arm's variance grow as the ad brings more buyers (power.extra_variance):
+    # it needs more weeks than the textbook formula, by about half the arm-level relative lift at equal split
+    x = dict(BASE, lift=0.10, exposure_rate=0.8)
+    eq = make_plan(PlanInputs(**x, equal_variance=True), shares=[0.5], weeks=[4])
+    alt = make_plan(PlanInputs(**x), shares=[0.5], weeks=[4])
+    ratio = alt.summaries[0].weeks_needed / eq.summaries[0].weeks_needed
+    rel = 0.10 * 0.8  # arm-level relative lift
+    assert 1 + 0.4 * rel < ratio < 1 + 0.6 * rel
+    assert alt.cell(0.5, 4).mde > eq.cell(0.5, 4).mde
+    assert alt.cell(0.5, 4).power_at_target < eq.cell(0.5, 4).power_at_target
+    # and the weeks needed do meet the target under that variance
+    s = alt.summaries[0]
+    sized = make_plan(PlanInputs(**x), shares=[0.5], weeks=[s.weeks - 1, s.weeks])
+    assert sized.cell(0.5, s.weeks).power_at_target >= 0.8 > sized.cell(0.5, s.weeks - 1).power_at_target
+
+
+def test_extra_variance_is_the_variance_of_a_zero_inflated_basket() -> None:
+    # exact moments of revenue = one basket (mean v, SD s) with probability p, before and after p rises
+    from armlock.plan.power import extra_variance
+
+    p, v, s, dp = 0.03, 60.0, 45.0, 0.004
+    var = lambda q: q * (s ** 2 + v ** 2) - (q * v) ** 2  # noqa: E731
+    mean, sd = p * v, math.sqrt(var(p))
+    assert var(p) + extra_variance(dp * v, mean, sd) == pytest.approx(var(p + dp), rel=1e-12)

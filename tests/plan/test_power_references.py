@@ -109,6 +109,28 @@ def test_worked_example_ninety_ten_small_arm() -> None:
     assert 10 * n_small == pytest.approx(448_000, rel=0.001)
 
 
+def test_two_variance_machinery_reproduces_r_power_prop_test() -> None:
+    # R power.prop.test (Fleiss, REFERENCES §5): critical value on the pooled variance, spread on each arm's own.
+    # The planner's general functions give R's n and power when fed those variances.
+    from armlock.plan.power import power_two_variances, units_needed_two_variances
+
+    p1, p2 = 0.02, 0.022
+    pbar = (p1 + p2) / 2
+    za = z_sum(0.05, 0.5)
+    n = units_needed_two_variances(p2 - p1, pbar * (1 - pbar), p1 * (1 - p1), p2 * (1 - p2), 0.5,
+                                   z_crit=za, z_power=z_sum(0.05, 0.8) - za) / 2
+    assert n == pytest.approx(power_prop_test_n(p1, p2), rel=1e-12)
+    assert n == pytest.approx(80_681.4, abs=0.1)
+    se0 = math.sqrt(2 * 0.625 * 0.375 / 50)
+    se1 = math.sqrt((0.5 * 0.5 + 0.75 * 0.25) / 50)
+    # plus the far rejection tail (1.3e-6 here), which R leaves out with strict = FALSE
+    assert power_two_variances(0.25, se0, se1, z_crit=za) == pytest.approx(0.7401659, abs=2e-6)
+    # with a 0/1 "revenue" (basket 1, no spread) the planner's exposed-arm variance is exactly p2(1 - p2)
+    from armlock.plan.power import extra_variance
+
+    assert p1 * (1 - p1) + extra_variance(p2 - p1, p1, math.sqrt(p1 * (1 - p1))) == pytest.approx(p2 * (1 - p2))
+
+
 def test_lehr_sixteen_s_squared_over_d_squared() -> None:
     # Lehr (1992), Stat Med 11(8): n ~ 16 s^2 / d^2 per group at alpha .05, power .8 (REFERENCES §5, MEMORY).
     # Exact normal: 2 (1.95996 + 0.84162)^2 = 15.6978.
@@ -124,8 +146,8 @@ def test_lehr_sixteen_s_squared_over_d_squared() -> None:
 def test_lewis_rao_sales_lift_needs_720815_per_arm() -> None:
     # mean sales $7, SD $75, lift $0.35 per customer: 720,815 per arm (alpha .05 two-sided, power .8)
     assert round(units_needed(0.35, 75.0, 0.5) / 2) == 720_815
-    plan = make_plan(PlanInputs(weekly_units=1_441_630, revenue_mean=7.0, revenue_sd=75.0, effect=0.35),
-                     shares=[0.5], weeks=[1])
+    plan = make_plan(PlanInputs(weekly_units=1_441_630, revenue_mean=7.0, revenue_sd=75.0, effect=0.35,
+                                equal_variance=True), shares=[0.5], weeks=[1])
     assert plan.summaries[0].weeks_needed == pytest.approx(1.0, rel=1e-5)
     assert plan.cell(0.5, 1).power_at_target == pytest.approx(0.8, abs=1e-4)
 
@@ -137,7 +159,7 @@ def test_lewis_rao_roi_to_25_points_needs_18_million_per_arm() -> None:
     assert per_arm == pytest.approx(18.0e6, rel=0.005)
     weekly = 2 * per_arm / 4  # four weeks of traffic, all of it exposed, $0.14 spend per customer
     plan = make_plan(PlanInputs(weekly_units=weekly, revenue_mean=7.0, revenue_sd=75.0, weekly_spend=0.14 * weekly,
-                                margin=0.5), shares=[0.5], weeks=[4])
+                                margin=0.5, equal_variance=True), shares=[0.5], weeks=[4])
     c = plan.cell(0.5, 4)
     assert c.iroas_vs_zero == pytest.approx(0.5, rel=1e-9)  # iROAS resolution 0.5 -> ROI 25 points
     assert (c.iroas_vs_break_even - plan.break_even_iroas) * 0.5 * 100 == pytest.approx(25.0, rel=1e-9)
@@ -153,7 +175,7 @@ def test_lewis_rao_roi_interval_at_100k_per_arm() -> None:
 
 @pytest.mark.parametrize("rho", [0.3, -0.5, 0.8])
 def test_cuped_shrinks_variance_by_one_minus_rho_squared(rho: float) -> None:
-    base = PlanInputs(weekly_units=30_000, revenue_mean=5.0, revenue_sd=40.0, effect=0.5)
+    base = PlanInputs(weekly_units=30_000, revenue_mean=5.0, revenue_sd=40.0, effect=0.5, equal_variance=True)
     raw = make_plan(base, shares=[0.1], weeks=[6])
     adj = make_plan(PlanInputs(**{**base.__dict__, "rho": rho}), shares=[0.1], weeks=[6])
     c0, c1 = raw.cell(0.1, 6), adj.cell(0.1, 6)
