@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import json
 import math
+import textwrap
 from collections.abc import Callable
 from dataclasses import dataclass
 
 from .compute import money, num, pct
 from .model import Cell, Plan
 
+WIDTH = 100  # terminal text is wrapped at this width (tables are as wide as their columns)
 _STATUS_WORD = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIPPED"}
 
 
@@ -59,17 +61,22 @@ def headline(p: Plan) -> list[str]:
     return lines
 
 
-def tables(p: Plan) -> list[Table]:
-    """Every table of the plan, in reading order."""
+def tables(p: Plan, *, compact: bool = False) -> list[Table]:
+    """Every table of the plan, in reading order; `compact` (the terminal) leaves the no-CUPED figures out of the grid."""
     x = p.inputs
-    which = "with CUPED; without in brackets" if p.cuped else "no pre-period covariate"
+    if p.cuped and compact:
+        ratio = sum(c.mde / c.mde_cuped for c in p.cells) / len(p.cells)
+        which = f"with CUPED; without it about {ratio:.2f} times these"
+    else:
+        which = "with CUPED; without in brackets" if p.cuped else "no pre-period covariate"
     out = [_grid(p, f"Smallest detectable difference in revenue per unit between the arms ({which}; "
                     f"% of revenue per unit {money(x.revenue_mean)})",
-                 (lambda c: f"{num(c.mde_cuped)} ({num(c.mde)}) {num(c.mde_relative_cuped * 100)}%") if p.cuped
-                 else (lambda c: f"{num(c.mde)} {num(c.mde_relative * 100)}%"))]
+                 (lambda c: f"{num(c.mde_cuped)} ({num(c.mde)}) {num(c.mde_relative_cuped * 100)}%")
+                 if p.cuped and not compact
+                 else (lambda c: f"{num(c.mde_cuped)} {num(c.mde_relative_cuped * 100)}%"))]
     if p.summaries:
         has_profit = any(s.profit_forgone is not None for s in p.summaries)
-        head = ["holdout", "weeks to run", "exact", "without CUPED" if p.cuped else "", "read weekly",
+        head = ["holdout", "weeks", "exact", "no CUPED" if p.cuped else "", "read weekly",
                 "holdout units", "revenue forgone"] + (["profit forgone"] if has_profit else [])
         rows = []
         for s in p.summaries:
@@ -110,22 +117,27 @@ def weekly_reading_line(p: Plan) -> str:
 def _text_table(t: Table) -> str:
     widths = [max(len(r[i]) for r in [t.header, *t.rows]) for i in range(len(t.header))]
     fmt = lambda r: "  ".join(v.ljust(w) if i == 0 else v.rjust(w) for i, (v, w) in enumerate(zip(r, widths)))  # noqa: E731
-    return "\n".join([t.title, fmt(t.header), *(fmt(r).rstrip() for r in t.rows)])
+    return "\n".join([*textwrap.wrap(t.title, WIDTH), fmt(t.header), *(fmt(r).rstrip() for r in t.rows)])
 
 
 def render_text(p: Plan) -> str:
     rec = p.recommendation
+    wrap = lambda text, first="", rest="  ": textwrap.wrap(text, WIDTH, initial_indent=first, subsequent_indent=rest)  # noqa: E731
     parts = ["armlock plan: " + headline(p)[0], *("  " + line for line in headline(p)[1:]), "",
-             f"Recommendation [{_STATUS_WORD[rec.status]}]: {rec.sentence}", ""]
+             *wrap(f"Recommendation [{_STATUS_WORD[rec.status]}]: {rec.sentence}"), ""]
     if p.estimates:
         parts += ["Estimated from the pre-period files:",
                   *(f"  {e.name}: {money(e.value) if abs(e.value) >= 1 else f'{e.value:.4g}'} ({e.how})"
                     for e in p.estimates), ""]
-    for t in tables(p):
+    for t in tables(p, compact=True):
         parts += [_text_table(t), ""]
-    parts += [weekly_reading_line(p), "", "Assumptions:", *(f"  - {a}" for a in p.assumptions)]
+    parts += [*wrap(weekly_reading_line(p)), "", "Assumptions:"]
+    for a in p.assumptions:
+        parts += wrap(a, "  - ", "    ")
     if p.notes:
-        parts += ["", "Notes:", *(f"  - {n}" for n in p.notes)]
+        parts += ["", "Notes:"]
+        for n in p.notes:
+            parts += wrap(n, "  - ", "    ")
     return "\n".join(parts) + "\n"
 
 
