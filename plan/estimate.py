@@ -19,6 +19,7 @@ from armlock.audit.read import Source, _header, _need, _read_table, read_ids, re
 
 from .model import Estimate
 
+MIN_RHO = 0.05  # a weaker correlation shrinks the variance by under 0.25%: not worth planning on
 MIN_UNITS = 30  # fewer units than this cannot give a usable SD or correlation (common practice)
 
 
@@ -54,7 +55,10 @@ def _visits(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Da
     present = _header(src)
     _need(src, present, {"unit_id": cols.unit_id, "first_seen": cols.first_seen}, "[audit.visits]")
     if cols.covariate_explicit:
-        _need(src, present, {f"covariate[{i}]": c for i, c in enumerate(cols.covariates)}, "--covariate")
+        for c in cols.covariates:
+            if c not in present:
+                raise InputError(f"{path}: column '{c}' (--covariate) not found in the visits file; the file has "
+                                 f"columns: {', '.join(present) or '(none)'}")
     covs = [c for c in dict.fromkeys(cols.covariates) if c in present and c not in (cols.unit_id, cols.first_seen)]
     table = _read_table(src, list(dict.fromkeys([cols.unit_id, cols.first_seen, *covs])))
     ids, empty = read_ids(src, table, cols.unit_id, notes)
@@ -157,13 +161,18 @@ def estimate_pre_period(visits: str | Path, orders: str | Path, columns: PrePeri
                 notes.append(f"{vsrc.path.name}: '{c}' is empty for {int((~ok).sum()):,} unit(s); rho uses the others")
         else:
             notes.append(f"{vsrc.path.name}: '{c}' does not vary (or has fewer than {MIN_UNITS} values); not used for CUPED")
+    if best is not None and abs(best[0]) < MIN_RHO:
+        notes.append(f"{vsrc.path.name}: the best pre-period column, '{best[1]}', correlates only {best[0]:.3f} with "
+                     f"revenue per unit (over {best[2]:,} units); too weak to plan on, so planned without CUPED")
+        best = None
+        covs = []
     if best is not None:
         values["rho"] = best[0]
         others = [c for c in covs if c != best[1]]
         est.append(Estimate("pre-period correlation (rho)", best[0], best[2],
                             f"correlation of revenue per unit with '{best[1]}' over {best[2]:,} units"
                             + (f" (the best of {', '.join([best[1], *others])})" if others else "")))
-    elif not covs:
+    elif not covs and not any("too weak" in n for n in notes):
         notes.append(f"{vsrc.path.name}: no pre-period column ({', '.join(cols.covariates) or 'none named'}) found; "
                      "planned without CUPED")
     notes.append("Revenue per unit is each unit's revenue from its first visit to the end of the orders file; "

@@ -39,7 +39,7 @@ def headline(p: Plan) -> list[str]:
     x = p.inputs
     lines = [f"{money(x.weekly_units)} new units a week; revenue per unit {money(x.revenue_mean)} "
              f"(SD {money(x.revenue_sd)})"
-             + (f", from conversion {_rate(x.conversion)} x order value {money(x.order_value or 0)}"
+             + (f", conversion {_rate(x.conversion)}, order value {money(x.order_value or 0)}"
                 if x.conversion is not None else "")
              + f"; {pct(x.exposure_rate)} of the exposed arm reached"]
     if p.cuped:

@@ -72,13 +72,16 @@ def test_rows_set_aside_are_counted(tmp_path: Path) -> None:
 
 def test_spec_column_map_and_explicit_orders_columns(tmp_path: Path) -> None:
     vp, op, t = _files(tmp_path)
-    pd.read_csv(vp).rename(columns={"unit_id": "vid", "first_seen": "ts"}).to_csv(vp, index=False)
+    v = pd.read_csv(vp).rename(columns={"unit_id": "vid", "first_seen": "ts"})
+    v["pre_orders"] = (t["y"] > 0).astype(int) + np.random.default_rng(4).poisson(0.2, len(v))  # correlated
+    v.to_csv(vp, index=False)
     pd.read_csv(op).rename(columns={"unit_id": "visitor", "revenue": "amount"}).to_csv(op, index=False)
     cols = PrePeriodColumns(unit_id="vid", first_seen="ts", orders_unit_id="visitor", orders_revenue="amount",
                             covariates=("pre_orders",), covariate_explicit=True)
     pre = estimate_pre_period(vp, op, cols)
     assert pre.values["revenue_mean"] == pytest.approx(t["y"].mean())
     assert "pre_orders" in pre.estimates[-1].how
+    assert pre.values["rho"] == pytest.approx(np.corrcoef(v["pre_orders"], t["y"])[0, 1])
 
 
 def test_orders_file_without_orders(tmp_path: Path) -> None:
@@ -99,7 +102,7 @@ def test_missing_column_names_file_and_spec_key(tmp_path: Path) -> None:
     vp, op, _ = _files(tmp_path)
     with pytest.raises(InputError, match=r"column 'amount' not found in the orders file .* revenue = \"amount\""):
         estimate_pre_period(vp, op, PrePeriodColumns(orders_revenue="amount"))
-    with pytest.raises(InputError, match="column 'nope' not found in the visits file"):
+    with pytest.raises(InputError, match=r"column 'nope' \(--covariate\) not found in the visits file"):
         estimate_pre_period(vp, op, PrePeriodColumns(covariates=("nope",), covariate_explicit=True))
 
 
@@ -123,3 +126,15 @@ def test_too_few_units_and_short_history(tmp_path: Path) -> None:
         estimate_pre_period(vp, op)
     vp, op, _ = _files(tmp_path, n=500, days=3)
     assert any("only 3 day(s)" in n for n in estimate_pre_period(vp, op).notes)
+
+
+def test_a_weak_correlation_is_not_planned_on(tmp_path: Path) -> None:
+    vp, op, t = _files(tmp_path)
+    v = pd.read_csv(vp)
+    v["pre_revenue"] = np.random.default_rng(9).normal(size=len(v))  # unrelated to revenue
+    v["pre_orders"] = np.random.default_rng(10).normal(size=len(v))
+    v.to_csv(vp, index=False)
+    pre = estimate_pre_period(vp, op)
+    r = max(abs(np.corrcoef(v[c], t["y"])[0, 1]) for c in ("pre_revenue", "pre_orders"))
+    assert r < 0.05 and "rho" not in pre.values
+    assert any("too weak to plan on" in n for n in pre.notes)
