@@ -55,17 +55,21 @@ class AuditThresholds(BaseModel):
 
     model_config = ConfigDict(extra="forbid")
 
-    # Fabijan et al. (2019, KDD) use p < 0.0005 for SRM (as commonly quoted).
+    # Fabijan et al. (2019, KDD) use p < 0.0005 for SRM (as commonly quoted). Used by SRM by day and
+    # segment (Holm-adjusted exact p); the overall fixed-horizon p is shown for information only.
     srm_p: float = Field(0.0005, gt=0, lt=1)
-    # The anytime-valid p-value is larger by design; it needs its own threshold.
+    # The overall SRM fails when the anytime-valid p (valid at every weekly look) falls below this.
     srm_anytime_p: float = Field(0.001, gt=0, lt=1)
-    # |SMD| > 0.1 is the common imbalance line (Austin 2009, Statistics in Medicine).
+    # |SMD| > 0.1 is the common imbalance line (Austin 2009, Statistics in Medicine). The balance
+    # status is set by randomization tests (balance_p); a warning says whether |SMD| is above this.
     smd_warn: float = Field(0.1, gt=0)
-    # |SMD| > 0.25 fails (Rubin 2001 / Stuart 2010, as quoted in the SAS PROC PSMATCH guide).
+    # |SMD| > 0.25 (Rubin 2001 / Stuart 2010, as quoted in the SAS PROC PSMATCH guide): a balance
+    # difference beyond chance (balance_p) AND this large fails.
     smd_fail: float = Field(0.25, gt=0)
-    # Variance ratio outside [1/vr_max, vr_max] warns (Rubin 2001: between 0.5 and 2).
+    # Variance ratio range (Rubin 2001: between 0.5 and 2); shown, it no longer sets the status
+    # (heavy-tailed covariates make it swing widely by chance).
     variance_ratio_max: float = Field(2.0, gt=1)
-    # Holm-adjusted p of a balance test below this warns.
+    # Holm-adjusted p of a balance test (mean vs randomization, rank-sum, chi-square) below this warns.
     balance_p: float = Field(0.001, gt=0, lt=1)
     # Share of units whose recorded arm differs from the recomputed one: warn above / fail above.
     mismatch_warn: float = Field(0.0, ge=0, lt=1)
@@ -164,12 +168,12 @@ customer = "customer_key"           # the logged-in customer key (pseudonymous i
 
 [audit.thresholds]
 # Where the weekly audit turns a check from pass to warn/fail. Shares are fractions (0.01 = 1%).
-srm_p = 0.0005          # fixed-horizon chi-square SRM fails below (Fabijan et al. 2019, as commonly quoted)
-srm_anytime_p = 0.001   # anytime-valid sequential SRM fails below (Lindon & Malek 2022); p-values are larger by design
-smd_warn = 0.1          # balance: |standardized mean difference| above this warns (Austin 2009)
-smd_fail = 0.25         # balance: |SMD| above this fails (Rubin 2001, Stuart 2010)
-variance_ratio_max = 2.0  # balance: variance ratio outside [1/2, 2] warns (Rubin 2001)
-balance_p = 0.001       # balance: Holm-adjusted Welch / chi-square p below this warns
+srm_p = 0.0005          # SRM by day/segment: Holm-adjusted exact p below this fails (Fabijan et al. 2019, as commonly quoted)
+srm_anytime_p = 0.001   # overall SRM fails below this anytime-valid p (Lindon & Malek 2022; valid at every weekly look)
+smd_warn = 0.1          # balance: a warning says whether |standardized mean difference| is above this (Austin 2009)
+smd_fail = 0.25         # balance: a difference beyond chance with |SMD| above this fails (Rubin 2001, Stuart 2010)
+variance_ratio_max = 2.0  # balance: variance ratio range (Rubin 2001); shown for information
+balance_p = 0.001       # balance: Holm-adjusted randomization / rank-sum / chi-square p below this warns
 mismatch_warn = 0.0     # integrity: share of units whose recorded arm differs from the spec's; above warns
 mismatch_fail = 0.001   # ... above this fails
 pre_start_warn = 0.0    # integrity: share of units first seen before `start`; above warns

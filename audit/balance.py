@@ -187,11 +187,11 @@ def _numeric_rows(cov: str, g: pd.DataFrame, ref: str, others: list[str], arms: 
             d, vr = smd_binary(mean[arm], mean[ref]), None
             ones = np.array([mean[arm] * nt, mean[ref] * nc])
             table = np.array([[ones[0], nt - ones[0]], [ones[1], nc - ones[1]]])
-            test, p = "2x2 chi-square / Fisher", two_by_two_p(np.rint(table))
+            test, p = "chi-square / Fisher", two_by_two_p(np.rint(table))
         else:
             d, vr = smd_continuous(mean[arm], var[arm], mean[ref], var[ref]), variance_ratio(var[arm], var[ref])
             pair = pooled_moments([(nt, mean[arm], float(g.loc[arm, "m2"])), (nc, mean[ref], float(g.loc[ref, "m2"]))])
-            test, p = "mean vs randomization", randomization_mean_p(nt, mean[arm], nc, mean[ref],
+            test, p = "mean vs chance", randomization_mean_p(nt, mean[arm], nc, mean[ref],
                                                                      sample_variance(pair[0], pair[2]))
         if min(nt, nc) < MIN_ARM_UNITS:
             out.append(_Row(**base, smd=d, vr=vr, chance=chance, test="-", p=None,  # type: ignore[arg-type]
@@ -202,7 +202,7 @@ def _numeric_rows(cov: str, g: pd.DataFrame, ref: str, others: list[str], arms: 
         p_rank = kruskal_from_ranks(np.array([n[a] for a in arms]),
                                     np.array([float(g.loc[a, "rank_sum"]) for a in arms]), float(g["ties"].iloc[0]))
         out.append(_Row(covariate=cov, level="(ranks, all arms)", arm=",".join(others), ref=None, value=None,
-                        smd=None, vr=None, chance=None, test="rank-sum (Kruskal-Wallis)", p=p_rank))
+                        smd=None, vr=None, chance=None, test="rank-sum", p=p_rank))
     return out
 
 
@@ -223,7 +223,7 @@ def _categorical_rows(cov: str, frame: pd.DataFrame, ref: str, others: list[str]
                         note=f"too few units to judge (< {MIN_ARM_UNITS} in an arm)"))
     else:
         out.append(_Row(covariate=cov, level="(all levels)", arm=",".join(others), ref=None, value=None, smd=None,
-                        vr=None, chance=None, test="chi-square (rare levels pooled)",
+                        vr=None, chance=None, test="chi-square",
                         p=chi2_independence_p(pool_rare_levels(counts))))
     return out
 

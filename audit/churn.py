@@ -50,25 +50,29 @@ def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
              for name, h in ct.browser_hist.groupby("browser", sort=False)}
     bb["expected_share"] = [exp_b.get(name, 0.0) / n for name, n in zip(bb.index, bb["customers"])]
     levels: list[tuple[str, str]] = []
+    overall = (f"{share:.1%} of customers are in more than one arm ({exp_share:.1%} expected if their extra ids "
+               "were split afresh)")
     if share > th.churn_fail:
-        levels.append(("fail", f"{share:.1%} of customers are in more than one arm"))
+        levels.append(("fail", overall))
     elif share > th.churn_warn:
-        levels.append(("warn", f"{share:.1%} of customers are in more than one arm"))
+        levels.append(("warn", overall))
     big = bb[bb["customers"] >= th.min_customers].sort_values("share", ascending=False)
     for name, r in zip(big.index, big.itertuples()):
+        one = (f"{name}: {r.share:.1%} of its customers are in several arms "
+               f"({r.expected_share:.1%} expected for its customers' ids)")
         if r.share > th.churn_fail:
-            levels.append(("fail", f"{name}: {r.share:.1%} of its customers are in several arms"))
+            levels.append(("fail", one))
         elif r.share > th.churn_warn:
-            levels.append(("warn", f"{name}: {r.share:.1%} of its customers are in several arms"))
+            levels.append(("warn", one))
     status = worst([s for s, _ in levels])
     multi_ids = sum(v for k, v in ct.ids_hist.items() if k > 1)
     dist = {str(i): ct.ids_hist.get(i, 0) for i in range(1, 5)}
     dist["5+"] = sum(v for k, v in ct.ids_hist.items() if k >= 5)
     if levels:
-        summary = ("; ".join(t for _, t in levels) + f" (re-randomization of their extra ids would give "
-                   f"{exp_share:.1%}): those people saw both sides of the split, which dilutes the contrast; "
-                   "keep the id stable (a server-set first-party cookie, or key on the logged-in customer). "
-                   + COOKIE_NOTE)
+        summary = ("; ".join(t for _, t in levels) + ": those people were assigned to both arms (their ids fall in "
+                   "more than one), so some may have been shown ads under one id and held out under another, "
+                   "which dilutes the contrast; keep the id stable (a server-set first-party cookie, or key on the "
+                   "logged-in customer). " + COOKIE_NOTE)
     else:
         summary = (f"{share:.2%} of customers are in more than one arm ({exp_share:.2%} expected from their extra ids); "
                    "within limits. " + COOKIE_NOTE)

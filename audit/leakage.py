@@ -13,7 +13,10 @@ def itt_dilution(rate_exposed: float, rate_holdout: float) -> float:
 
     With exposure D and assignment Z, ITT_Y = effect_on_compliers x (E[D|Z=1] - E[D|Z=0])
     (Angrist, Imbens & Rubin 1996, JASA), so the ITT difference is the exposure-rate gap times
-    the per-exposed effect; leakage into the holdout raises E[D|Z=0] and shrinks the gap.
+    the per-exposed effect; leakage into the holdout raises E[D|Z=0] and shrinks the gap. This holds
+    when the arm moves outcomes only through exposure (exclusion restriction), nobody is exposed
+    *because* they are in the holdout (monotonicity), and, to call it "the per-exposed effect", when
+    the effect is alike for everyone exposed (leaked holdout units included).
     """
     return rate_exposed - rate_holdout
 
@@ -56,13 +59,16 @@ def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
         parts.append(("warn", f"{lt.unseen_ids:,} exposed ids ({unseen_share:.2%} of exposed ids) never appear in the "
                               "visits: the vendor targets people the split never saw (an old audience, or an id mismatch)"))
     status = worst([p[0] for p in parts])
+    dilution = (f"the arms' difference in revenue per unit (the ITT difference) is about {dil:.1%} of the effect on a "
+                f"person the ads reach, because the ads reached {rate_e:.1%} of the exposed arm and {rate_h:.2%} of the "
+                "holdout (assuming the arm changes sales only through the ads, and the ads work alike on everyone "
+                "they reach)")
     if parts:
-        summary = ("; ".join(p for _, p in parts) + f". The ITT difference is {dil:.1%} of the per-exposed "
-                   f"effect (exposure {rate_e:.1%} in the exposed arm vs {rate_h:.2%} in the holdout): have the vendor "
-                   "suppress the holdout list and drop audiences built before the test.")
+        summary = ("; ".join(p for _, p in parts) + f". So {dilution}. Have the vendor suppress the holdout list "
+                   "and drop audiences built before the test.")
     else:
-        summary = (f"No holdout unit was reached and nobody was exposed before assignment; the exposed arm's "
-                   f"exposure rate is {rate_e:.1%}, so the ITT difference is {dil:.1%} of the per-exposed effect.")
+        summary = (f"No holdout unit was reached and nobody was exposed before assignment. The ads reached {rate_e:.1%} "
+                   f"of the exposed arm, so {dilution}.")
     figs = {
         "holdout_leak_share": Figure(label="holdout leakage", value=leak_share, unit="share"),
         "holdout_leak_units": Figure(label="holdout units reached", value=h_leak, unit="count"),

@@ -4,9 +4,11 @@ from __future__ import annotations
 
 import json
 import math
+import textwrap
 from collections.abc import Callable
 from typing import Any
 
+from .explain import explanations
 from .model import AuditReport, Check, Figure, Table
 
 MARK = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIP"}
@@ -88,6 +90,8 @@ def render_text(r: AuditReport) -> str:
         for t in c.tables:
             out.append("")
             out.append(text_table(t))
+        for line in explanations(c):
+            out.append(textwrap.fill(line, width=100, initial_indent="    * ", subsequent_indent="      "))
         out.append("")
     return "\n".join(out).rstrip() + "\n"
 
@@ -123,6 +127,9 @@ def render_markdown(r: AuditReport) -> str:
             out += [f"| {_md_escape(f.label)} | {_md_escape(_fig(f))} |" for f in c.figures.values()]
         for t in c.tables:
             out += ["", md_table(t)]
+        expl = explanations(c)
+        if expl:
+            out += [""] + [f"- {_md_escape(e)}" for e in expl]
     return "\n".join(out) + "\n"
 
 

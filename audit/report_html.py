@@ -22,6 +22,7 @@ from matplotlib.figure import Figure as MplFigure
 
 from armlock.assign.spec_audit import AuditThresholds
 
+from .explain import explanations
 from .history import changes, format_value, row_from_report, trend_keys
 from .model import AuditReport, Check
 
@@ -351,6 +352,8 @@ def _section(check: Check, report: AuditReport, th: AuditThresholds) -> str:
     charts = "".join(f"<figure>{svg}</figure>" for svg in _charts_for(check, report, th))
     reason = f'<p class="reason">Skipped: {esc(check.reason)}</p>' if check.reason else ""
     tables = "".join(_table(t) for t in check.tables)
+    expl = explanations(check)
+    tables += (f'<ul class="explain">{"".join(f"<li>{esc(e)}</li>" for e in expl)}</ul>' if expl else "")
     return (f'<section class="check s-{esc(check.status)}" id="check-{esc(check.id)}" data-check="{esc(check.id)}">'
             f'<header><h2>{esc(check.title)}</h2>{badge(check.status)}</header>'
             f'<p class="summary">{esc(sentence(check.summary))}</p>{reason}{_figures(check)}{charts}{tables}</section>')

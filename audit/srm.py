@@ -180,8 +180,7 @@ def check_srm(spec: Spec, split: SplitTables) -> Check:
     theta = _theta(spec)
     if n == 0:
         return Check(id="srm", title="Sample ratio (SRM), overall", status="warn",
-                     summary="Cannot judge: no units with a known recorded arm, so there is nothing to count.",
-                     reason="no units with a known recorded arm")
+                     summary="Cannot judge: no units with a known recorded arm, so there is nothing to count.")
     stat, _ = chi_square(counts, theta)
     p_fixed, method = fixed_p(counts, theta, th.min_expected)
     cum = split.daily[arms].to_numpy().cumsum(axis=0)
@@ -209,8 +208,8 @@ def check_srm(spec: Spec, split: SplitTables) -> Check:
         half, reliable = seen
         summary = (f"Units per arm are within chance (anytime-valid p {p_any:.2g}, allowing for weekly looks). "
                    f"At {n:,} units this check catches {arms[small]}'s share falling {reliable:.1%} short of its "
-                   f"{theta[small]:.1%} (to {theta[small] * (1 - reliable):.2%}) 99% of the time, and a "
-                   f"{half:.1%} shortfall half the time; a smaller mismatch can pass unnoticed.")
+                   f"{theta[small]:.1%} weight (to {theta[small] * (1 - reliable):.2%}) 99% of the time, and half the "
+                   f"time at {half:.1%} short; a smaller mismatch can pass unnoticed.")
     table = Table(title="Units per arm", columns=["arm", "units", "share", "expected share", "expected units"],
                   rows=[[a, int(c), round(float(s), 6), round(float(t), 6), round(float(t * n), 1)]
                         for a, c, s, t in zip(arms, counts, shares, theta)])
@@ -259,8 +258,7 @@ def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Che
     if not tests:
         return Check(id="srm_segments", title="Sample ratio by day and segment", status="warn",
                      summary=(f"Cannot judge: no day or segment value has {th.min_expected:g} or more expected units "
-                              "in every arm yet."),
-                     reason=f"every value has fewer than {th.min_expected:g} expected units in some arm")
+                              "in every arm yet."))
     adj = holm([t[4] for t in tests])
     order = np.argsort(adj, kind="stable")
     fails = [i for i in order if adj[i] < th.srm_p]
