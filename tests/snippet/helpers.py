@@ -61,13 +61,19 @@ def run_node(request: dict[str, Any]) -> dict[str, Any]:
     return json.loads(proc.stdout)
 
 
-def acorn_parse(source: str) -> str:
-    """Parse with acorn at ecmaVersion 5; returns '' when it parses, else acorn's message."""
-    node = need("node")
+def need_acorn() -> Path:
+    """The acorn package; skip without it, except under CI=true where it must exist."""
     if not ACORN.exists():
         if os.environ.get("CI") == "true":
             pytest.fail("node_modules/acorn is missing under CI=true: .ci/run runs `npm ci`")
         pytest.skip("acorn is not installed (run `npm ci` at the repo root)")
+    return ACORN
+
+
+def acorn_parse(source: str) -> str:
+    """Parse with acorn at ecmaVersion 5; returns '' when it parses, else acorn's message."""
+    node = need("node")
+    need_acorn()
     script = (
         "const acorn = require(process.argv[1]); let src = '';"
         "process.stdin.on('data', c => src += c);"

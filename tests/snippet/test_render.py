@@ -237,10 +237,9 @@ process.stdin.on('data', c => inp += c); process.stdin.on('end', () => {
 def test_minified_template_has_the_same_syntax_tree_as_the_template() -> None:
     # Reference: acorn's ES5 parse of the hand-written template and of the shrunk one must be the
     # same tree: same statements, operators, literals and property names; locals renamed 1:1.
-    from .helpers import ACORN, need
+    from .helpers import ACORN, need, need_acorn
 
-    if not ACORN.exists():
-        pytest.skip("acorn is not installed (run `npm ci` at the repo root)")
+    need_acorn()
     src = _template(TEMPLATE)
     proc = subprocess.run([need("node"), "-e", AST_SAME, str(ACORN)],
                           input=json.dumps([src, minify(src)]), capture_output=True, text=True,
@@ -252,10 +251,9 @@ def test_minified_template_has_the_same_syntax_tree_as_the_template() -> None:
 
 
 def test_syntax_tree_check_catches_a_changed_property_name() -> None:
-    from .helpers import ACORN, need
+    from .helpers import ACORN, need, need_acorn
 
-    if not ACORN.exists():
-        pytest.skip("acorn is not installed (run `npm ci` at the repo root)")
+    need_acorn()
     proc = subprocess.run([need("node"), "-e", AST_SAME, str(ACORN)],
                           input=json.dumps(["var a = {arm: 1}; a.arm;", "var b = {arm: 1}; b.arn;"]),
                           capture_output=True, text=True, check=False, timeout=60)
