@@ -10,7 +10,6 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
-from scipy import stats
 
 from armlock.assign import Spec, assign_many
 
@@ -122,10 +121,11 @@ def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, ob
     use = ok & fin
     vals, arms_used = x[use], arm[use]
     binary = bool(len(vals)) and bool(np.isin(vals, (0.0, 1.0)).all())
-    ranks = stats.rankdata(vals, method="average") if len(vals) else vals
-    _, tie_counts = np.unique(vals, return_counts=True)
+    # one sort: average rank of each distinct value = values below it + (its count + 1) / 2
+    _, inverse, tie_counts = np.unique(vals, return_inverse=True, return_counts=True)
     t = tie_counts.astype(np.float64)
     ties = float(np.sum(t * t * t - t))
+    ranks = (np.cumsum(t) - (t - 1.0) / 2.0)[inverse] if len(vals) else vals
     rows = []
     for i in range(k):
         m = arms_used == i

@@ -25,8 +25,9 @@ same way), or by merging per-partition (n, mean, m2) triples with `merge_moments
 Rank sums from a value -> count-per-arm table: sort the distinct pooled values; with ``below`` the
 number of pooled values smaller than v and ``c`` the pooled count of v, every unit with value v has
 the average rank ``below + (c + 1) / 2``; ``rank_sum[arm] = sum_v count[arm, v] * avg_rank(v)`` and
-``ties = sum_v (c^3 - c)``. (pandas: `scipy.stats.rankdata(method="average")`; Spark: a group-by on
-the value, then a running sum of counts over the sorted values.)
+``ties = sum_v (c^3 - c)``. (pandas: the same from one `numpy.unique` sort, equal to
+`scipy.stats.rankdata(method="average")`; Spark: a group-by on the value, then a running sum of
+counts over the sorted values.)
 """
 
 from __future__ import annotations
