@@ -177,3 +177,14 @@ def test_extra_variance_is_the_variance_of_a_zero_inflated_basket() -> None:
     var = lambda q: q * (s ** 2 + v ** 2) - (q * v) ** 2  # noqa: E731
     mean, sd = p * v, math.sqrt(var(p))
     assert var(p) + extra_variance(dp * v, mean, sd) == pytest.approx(var(p + dp), rel=1e-12)
+
+
+def test_public_names() -> None:
+    import armlock.plan as plan
+
+    assert sorted(plan.__all__) == plan.__all__
+    for name in plan.__all__:
+        assert getattr(plan, name) is not None
+    # what the readout uses to state the power it had: the detectable effect and the power at its SE
+    assert plan.mde(1.0) == pytest.approx(2.8015852, abs=1e-7)
+    assert plan.power_at(plan.mde(0.5), 0.5) == pytest.approx(0.8, abs=1e-6)
