@@ -39,7 +39,9 @@ def parse_weeks(text: str) -> list[int]:
             nums = list(range(int(lo), int(hi) + 1)) if dash else [int(part)]
         except ValueError:
             raise InputError(f"--weeks: {part!r} is not a whole number of weeks or a range like 2-26") from None
-        if not nums or min(nums) < 1:
+        if dash and not nums:
+            raise InputError(f"--weeks: {part!r} runs from high to low; write it as {hi.strip()}-{lo.strip()}")
+        if min(nums) < 1:
             raise InputError(f"--weeks: {part!r} must give whole weeks of at least 1")
         out += nums
     if not out:

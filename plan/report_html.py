@@ -184,6 +184,8 @@ def render_html(p: Plan) -> str:
 <div><span class="word">{esc(_WORDS[rec.status])}</span><p class="lead">{esc(rec.sentence)}</p></div></div>
 {est}{"".join(sections)}
 <footer>Written by armlock {esc(__version__)} at {esc(stamp)} · schema armlock.plan/1. A plan is only as good as its
-inputs: check the traffic and revenue figures against the shop's own reports before committing a budget.</footer>
+inputs: check the traffic and revenue figures against the shop's own reports before committing a budget. The page holds
+only aggregates; the pre-period files it may come from hold visitor ids, which can be personal data: keep them as your
+consent records and local privacy law allow, and ask the site's own counsel when unsure.</footer>
 </main></body></html>
 """

@@ -99,6 +99,7 @@ def test_from_files(tmp_path: Path) -> None:
     (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--holdout-shares", "100%"],
      "outside (0, 1)"),
     (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--weeks", "0-3"], "--weeks"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--weeks", "26-2"], "write it as 2-26"),
     (["--weekly-units", "1000", "--revenue-mean", "7"], "give revenue per unit"),
     (["--revenue-mean", "7", "--revenue-sd", "5"], "--weekly-units"),
     (["--weekly-units", "1000", "--conversion", "0.02"], "go together"),
