@@ -7,10 +7,10 @@ from pathlib import Path
 
 import typer
 
-from armlock.assign import InputError, buckets_and_arms
+from armlock.assign import InputError, Spec, buckets_and_arms
 from armlock.assign.sql import DIALECTS, spark_arm_expr, spark_bucket_expr
 
-from .common import SPEC_HELP, open_spec, progress
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, progress
 from .io_ids import ArmWriter, read_ids
 
 
@@ -22,18 +22,24 @@ def assign_cmd(
     sql: str = typer.Option(None, "--sql", help=f"Print the SQL expression for the arm instead ({', '.join(DIALECTS)})."),
     id_column: str = typer.Option(None, "--id-column", help="With --sql: the column holding the unit id."),
     bucket_only: bool = typer.Option(False, "--bucket", help="With --sql: print the bucket expression, not the arm."),
+    only: list[str] = typer.Option(None, "--only", metavar="ARM|ROLE", help="Keep only the ids of this arm, or of every arm with this role (holdout or exposed); repeat to keep several. E.g. --only holdout for the vendor's exclusion list."),
+    ids_only: bool = typer.Option(False, "--ids-only", help="Write only the ids, one per line, no header (the form an exclusion-list upload takes); empty ids are left out."),
+    accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
     """Assign ids to arms: writes unit_id,bucket,arm rows, streaming in chunks.
 
-    Empty ids get no arm (empty bucket and arm). CSV output quotes ids with commas, quotes or
-    newlines so they round-trip.
+    Input: one id per line (stdin or a text file), a CSV file (.csv, .csv.gz, with a header; say
+    --column when it has several columns) or Parquet. Empty ids get no arm (empty bucket and arm).
+    CSV output keeps ids byte-exact and quotes ids with commas, quotes or newlines so they
+    round-trip. The output file appears only when every id was read.
 
     Examples:
       armlock assign --spec test.toml ids.txt
       armlock assign --spec test.toml visits.parquet --column visitor_id --out arms.parquet
+      armlock assign --spec test.toml visits.csv --column visitor_id --only holdout --ids-only --out holdout.txt
       armlock assign --spec test.toml --sql spark --id-column visitor_id
     """
-    spec = open_spec(spec_path)
+    spec = open_spec(spec_path, accept_changed_split=accept)
     if sql is not None:
         if sql not in DIALECTS:
             raise typer.BadParameter(f"unknown dialect {sql!r}; choose one of: {', '.join(DIALECTS)}", param_hint="--sql")
@@ -45,25 +51,56 @@ def assign_cmd(
         return
     if id_column or bucket_only:
         raise typer.BadParameter("--id-column and --bucket only go with --sql; use --column for the id column of a file")
+    keep = arms_to_keep(spec, only or [])
     src = source or "-"
     if src == "-" and sys.stdin.isatty():
         raise InputError("no ids: give a FILE, or pipe ids on stdin (one per line)")
     size = None if src == "-" else (Path(src).stat().st_size if Path(src).is_file() else None)
-    writer = ArmWriter(out)
-    rows = missing = 0
+    writer = ArmWriter(out, ids_only=ids_only)
+    rows = missing = kept = 0
+    ok = False
     try:
         with progress(size, "assigning") as advance:
-            for chunk in read_ids(src, column, advance):
+            for chunk in read_ids(src, column, advance, note=err):
                 buckets, arms = buckets_and_arms(spec, chunk)
-                writer.write(chunk, buckets, arms)
                 rows += len(chunk)
                 missing += arms.count(None)
+                if keep is not None:
+                    pick = [i for i, a in enumerate(arms) if a in keep]
+                    chunk, buckets, arms = [chunk[i] for i in pick], [buckets[i] for i in pick], [arms[i] for i in pick]
+                kept += len(chunk)
+                writer.write(chunk, buckets, arms)
+        ok = True
     finally:
-        writer.close()
-    if out:
-        typer.echo(f"Wrote {rows:,} rows to {out}" + (f" ({missing:,} empty ids got no arm)" if missing else ""), err=True)
+        writer.close(ok)
+    empty = f"{missing:,} of {rows:,} ids were empty and got no arm"
+    if keep is not None:
+        err(f"Kept {kept:,} of {rows:,} ids (arms {', '.join(sorted(keep, key=spec.arm_names.index))})"
+            + (f" in {out}" if out else "") + (f"; {empty}" if missing else ""))
+    elif out:
+        err(f"Wrote {rows:,} rows to {out}" + (f"; {empty}" if missing else ""))
     elif missing:
-        typer.echo(f"{missing:,} of {rows:,} ids were empty and got no arm", err=True)
+        err(empty)
+    if writer.unwritable:
+        err(f"{writer.unwritable:,} id(s) contain a line break, which a one-per-line list cannot hold; they were "
+            "left out (write the full CSV without --ids-only to keep them)")
+
+
+def arms_to_keep(spec: Spec, only: list[str]) -> set[str] | None:
+    """The arm names that --only selects (an arm name, or a role naming every arm with it); None = all."""
+    if not only:
+        return None
+    keep: set[str] = set()
+    roles = {"holdout": spec.holdout_arms, "exposed": spec.exposed_arms}
+    for value in only:
+        if value in spec.arm_names:
+            keep.add(value)
+        elif value in roles:
+            keep.update(roles[value])
+        else:
+            raise typer.BadParameter(f"{value!r} is neither an arm of the spec ({', '.join(spec.arm_names)}) "
+                                     "nor a role (holdout, exposed)", param_hint="--only")
+    return keep
 
 
 def register(app: typer.Typer) -> None:

@@ -13,7 +13,7 @@ from armlock.assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
 from armlock.audit.model import AuditReport
 from armlock.audit.render import RENDERERS
 
-from .common import SPEC_HELP, err, open_spec, progress
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec_and_lock, progress
 
 # The report formats: one renderer per name (add a format with one line here).
 FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
@@ -59,6 +59,7 @@ def audit_cmd(
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is warn (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
+    accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
     """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
     identity churn and covariate balance. Column names come from the spec's [audit] tables.
@@ -74,17 +75,21 @@ def audit_cmd(
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
                                  param_hint="--format")
     day = _as_of(as_of)
-    spec = open_spec(spec_path, record=False)
+    spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
+    from armlock.assign.lock import changes_after_start
     from armlock.audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
 
     with progress(input_bytes(visits, exposures, identities) or None, "reading logs") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
-                           as_of=day, advance=advance)
+                           as_of=day, advance=advance, split_changes=changes_after_start(lock))
     from armlock.audit import history
 
     hist = history_path or history.default_history_path(spec_path)
     if record:
         history.record(hist, report)
+        if report.data_through:
+            err(f"Recorded under {report.as_of}, but the visits end on {report.data_through}: "
+                "this row of the history holds data through that day only")
     text = (_html(report, history.load(hist, report.fingerprint), spec.audit.thresholds) if fmt == "html"
             else FORMATS[fmt](report))
     if out is not None:

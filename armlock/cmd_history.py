@@ -8,10 +8,9 @@ from typing import Any
 
 import typer
 
-from armlock.assign import load_spec
 from armlock.audit.history import changes, default_history_path, format_value, load, load_readouts, trend_keys
 
-from .common import SPEC_HELP, err
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
 
 FORMATS = ("text", "json")
 _UNIT_ORDER = {"share": 0, "p": 1, "ratio": 2, "number": 3, "count": 4}
@@ -67,6 +66,7 @@ def history_cmd(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
     history_path: Path = typer.Option(None, "--history", help="The history file (default: beside the spec, SPEC.history.sqlite)."),
     fmt: str = typer.Option("text", "--format", "-f", metavar="<text|json>", help="text (a table and sentences) or json."),
+    accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
     """Show the recorded audits of a spec week by week, and what changed since the previous run.
 
@@ -77,7 +77,7 @@ def history_cmd(
     if fmt not in FORMATS:
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
                                  param_hint="--format")
-    spec = load_spec(spec_path)
+    spec = open_spec(spec_path, accept_changed_split=accept)
     path = history_path or default_history_path(spec_path)
     runs = load(path, spec.fingerprint)
     readouts = load_readouts(path, spec.fingerprint)

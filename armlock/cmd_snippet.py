@@ -9,7 +9,7 @@ import typer
 from armlock.assign import SpecError
 from armlock.assign.snippet import render_snippet
 
-from .common import SPEC_HELP, err, open_spec
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
 
 
 FORMS = ("html", "js")
@@ -27,6 +27,7 @@ def snippet(
     out: Path = typer.Option(
         None, "--out", "-o", help="Write the snippet to this file instead of stdout."
     ),
+    accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
     """Render the tag-manager snippet that enforces the split in the browser.
 
@@ -38,7 +39,7 @@ def snippet(
     """
     if form not in FORMS:
         raise typer.BadParameter(f"unknown form {form!r}; choose html or js", param_hint="--form")
-    spec = open_spec(spec_path)
+    spec = open_spec(spec_path, accept_changed_split=accept)
     text = render_snippet(spec, form)
     if out is None:
         typer.echo(text, nl=False)

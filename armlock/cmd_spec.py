@@ -7,12 +7,12 @@ from pathlib import Path
 
 import typer
 
-from armlock.assign import Spec, SpecError, check_lock, load_spec
+from armlock.assign import Spec, SpecError, SplitChangedError, check_lock, load_spec
 from armlock.assign.errors import EXIT_BAD_INPUT
 from armlock.assign.init import parse_arms, render_spec_toml
 from armlock.assign.spec import EXPERIMENT_PATTERN
 
-from .common import SPEC_HELP, warn_box
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, warn_box
 
 
 def write_new_spec(name: str, *, holdout_share: float = 0.5, arms: str | None = None, out: Path | None = None,
@@ -77,13 +77,15 @@ def init(
 def check(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON (an invalid spec gives valid: false and its errors, exit code 4)."),
+    accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
     """Validate a spec and print its fingerprint and lock status (does not record the lock).
 
     Example: armlock check --spec spring-retargeting.toml
     """
+    notes: list[str] = []
     try:
-        spec = load_spec(spec_path)
+        spec = load_spec(spec_path, notes=notes)
     except SpecError as exc:
         if not as_json:
             raise
@@ -91,6 +93,10 @@ def check(
         errors = [line.strip() for line in rest.splitlines() if line.strip()] or [head]
         typer.echo(json.dumps({"spec": str(spec_path), "valid": False, "errors": errors}, indent=2, ensure_ascii=False))
         raise typer.Exit(EXIT_BAD_INPUT) from None
+    for note in notes:
+        err(note)
+    if accept:
+        open_spec(spec_path, accept_changed_split=True, record=False)
     lock = check_lock(spec, spec_path, write=False)
     info = {
         "spec": str(spec_path), "valid": True, "experiment": spec.name, "fingerprint": spec.fingerprint,
@@ -105,6 +111,8 @@ def check(
         for a in spec.arms:
             typer.echo(f"  {a.name:<20} {a.weight:>5} bp  {a.weight / 100:>6g}%  {a.role}")
         typer.echo(f"  lock {lock.path.name}: {info['lock']['status']}")
+    if lock.status == "changed":
+        raise SplitChangedError(lock.warning or "the split changed")
     if lock.warning:
         warn_box(lock.warning)
 

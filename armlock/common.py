@@ -10,9 +10,16 @@ from typing import Any
 
 import typer
 
-from armlock.assign import Spec, check_lock, load_spec
+from armlock.assign import Spec, SplitChangedError, check_lock, load_spec
+from armlock.assign.lock import LockCheck, accept_change
 
 SPEC_HELP = "The experiment spec file (TOML), as written by `armlock init`."
+# Every command that reads a spec takes this option and passes it to `open_spec`.
+ACCEPT_CHANGED_SPLIT: Any = typer.Option(
+    False, "--accept-changed-split",
+    help="Confirm that the spec's salt or weights were changed on purpose: record the new split in the "
+         "lock file and go on (without it, a changed split stops with exit code 6; once the test has "
+         "started, its audits then fail naming the change).")
 
 
 def err(text: str) -> None:
@@ -29,13 +36,34 @@ def warn_box(text: str) -> None:
     typer.echo(typer.style(msg, fg="red", bold=True) if colour else msg, err=True)
 
 
-def open_spec(path: Path, *, record: bool = True) -> Spec:
-    """Load and validate a spec, then compare it with the lock recorded at first use."""
-    spec = load_spec(path)
+def open_spec(path: Path, *, accept_changed_split: bool = False, record: bool = True) -> Spec:
+    """Load and validate a spec, then check it against the lock recorded at first use.
+
+    The one entry point every command that uses a spec goes through: the first use records the
+    fingerprint (unless `record` is False); a changed split raises SplitChangedError (exit 6)
+    unless `accept_changed_split`, which records the change. A leading byte-order mark in the
+    spec file is removed and noted on stderr.
+    """
+    return open_spec_and_lock(path, accept_changed_split=accept_changed_split, record=record)[0]
+
+
+def open_spec_and_lock(path: Path, *, accept_changed_split: bool = False,
+                       record: bool = True) -> tuple[Spec, LockCheck]:
+    """`open_spec`, also returning what the lock says (the audit reads its recorded changes)."""
+    notes: list[str] = []
+    spec = load_spec(path, notes=notes)
+    for note in notes:
+        err(note)
     lock = check_lock(spec, path, write=record)
+    if lock.status == "changed":
+        if not accept_changed_split:
+            raise SplitChangedError(lock.warning or "the split changed")
+        warn_box(lock.warning or "the split changed")
+        lock = accept_change(spec, lock)
+        err(f"Recorded the new split (fingerprint {spec.fingerprint}) in {lock.path}.")
     if lock.warning:
         warn_box(lock.warning)
-    return spec
+    return spec, lock
 
 
 @contextmanager

@@ -5,7 +5,9 @@ from __future__ import annotations
 import csv
 import gzip
 import io
+import os
 import sys
+import zlib
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import IO
@@ -38,21 +40,42 @@ def _open_text(path: str) -> tuple[IO[str], IO[bytes] | None, int | None]:
     return io.TextIOWrapper(stream, encoding="utf-8", newline=""), raw, size
 
 
+BOM = "\ufeff"
+NOTE_BOM = "a leading UTF-8 byte-order mark was removed (it is not part of any id)"
+_READ_ERRORS = (OSError, EOFError, zlib.error)
+
+
+def _is_csv(name: str) -> bool:
+    return name.lower().endswith((".csv", ".csv.gz"))
+
+
 def read_ids(
-    path: str, column: str | None, advance: Callable[[int], None] = lambda n: None
+    path: str, column: str | None, advance: Callable[[int], None] = lambda n: None,
+    note: Callable[[str], None] = lambda text: None,
 ) -> Iterator[list[str | None]]:
-    """Yield chunks of ids. Lines: one id per line ('\\r\\n' or '\\n' endings are not part of it);
-    CSV with a header when `column` is given; Parquet by extension (`column` required)."""
+    """Yield chunks of ids.
+
+    - `.parquet`/`.pq`: the `column` (optional when the file has one column);
+    - `.csv`/`.csv.gz`: CSV with a header; `column` names the id column (optional when there is
+      only one column, which is then said through `note`);
+    - anything else, and stdin: one id per line ('\\r\\n' or '\\n' endings are not part of it),
+      or CSV with a header when `column` is given.
+    A leading UTF-8 byte-order mark is never part of an id or a column name: it is removed and noted.
+    """
     if _is_parquet(path):
         yield from _read_parquet(path, column, advance)
         return
+    as_csv = column is not None or _is_csv(path)
     text, raw, _ = _open_text(path)
     pos = 0
+    reader = None
     try:
-        if column is None:
+        if not as_csv:
             chunk: list[str | None] = []
-            lineno = 0
-            for lineno, line in enumerate(text, 1):  # noqa: B007
+            for lineno, line in enumerate(text, 1):
+                if lineno == 1 and line.startswith(BOM):
+                    line = line[1:]
+                    note(f"{path}: {NOTE_BOM}")
                 if line.endswith("\n"):
                     line = line[:-1]
                 if line.endswith("\r"):
@@ -71,11 +94,28 @@ def read_ids(
             try:
                 header = next(reader)
             except StopIteration:
-                raise InputError(f"{path}: the file is empty; expected a header row with column '{column}'") from None
-            if column not in header:
-                shown = ", ".join(repr(h) for h in header[:30])
-                raise InputError(f"{path}: no column '{column}'; the columns are: {shown}")
-            idx = header.index(column)
+                want = f"with column '{column}'" if column else "naming the id column"
+                raise InputError(f"{path}: the file is empty; expected a header row {want}") from None
+            if header and header[0].startswith(BOM):
+                header[0] = header[0][1:]
+                note(f"{path}: {NOTE_BOM}")
+            shown = ", ".join(repr(h) for h in header[:30]) + (f" (and {len(header) - 30} more)" if len(header) > 30 else "")
+            if column is None:
+                if len(header) != 1:
+                    raise InputError(f"{path}: a CSV file with {len(header)} columns; say which one holds the ids "
+                                     f"with --column; the columns are: {shown}")
+                column = header[0]
+                note(f"{path}: read as CSV with a header; ids from its one column '{column}'")
+            where = [i for i, h in enumerate(header) if h == column]
+            if not where:
+                hint = ""
+                if len(header) == 1 and any(sep in header[0] for sep in ";\t|"):
+                    hint = " (the header looks separated by ';', tab or '|', not ','; re-export it with commas)"
+                raise InputError(f"{path}: no column '{column}'; the columns are: {shown}{hint}")
+            if len(where) > 1:
+                raise InputError(f"{path}: column '{column}' appears {len(where)} times in the header (columns "
+                                 f"{', '.join(str(i + 1) for i in where)}); which one holds the ids is ambiguous")
+            idx = where[0]
             chunk = []
             for row in reader:
                 if len(row) <= idx:
@@ -98,9 +138,12 @@ def read_ids(
         raise InputError(f"{path}: not UTF-8 text (bad byte 0x{exc.object[exc.start]:02x}); "
                          "re-export the ids as UTF-8") from None
     except csv.Error as exc:
-        raise InputError(f"{path}: malformed CSV near line {reader.line_num}: {exc}") from None  # type: ignore[possibly-undefined]
-    except (OSError, EOFError) as exc:
-        raise InputError(f"{path}: cannot read: {exc}") from None
+        line = reader.line_num if reader is not None else "?"
+        raise InputError(f"{path}: malformed CSV near line {line}: {exc}") from None
+    except _READ_ERRORS as exc:
+        gz = isinstance(exc, (zlib.error, EOFError, gzip.BadGzipFile))
+        why = f"the gzip data is damaged or cut short ({exc})" if gz else str(exc)
+        raise InputError(f"{path}: cannot read: {why}") from None
     finally:
         if raw is not None:
             advance(max(0, (raw.tell() if not raw.closed else pos) - pos))
@@ -116,6 +159,8 @@ def _read_parquet(path: str, column: str | None, advance: Callable[[int], None])
         pf = pq.ParquetFile(path)
     except FileNotFoundError:
         raise InputError(f"{path}: file not found") from None
+    except IsADirectoryError:
+        raise InputError(f"{path}: is a directory, not a file of ids") from None
     except (OSError, pa.ArrowException) as exc:
         raise InputError(f"{path}: not a readable Parquet file: {exc}") from None
     names = pf.schema_arrow.names
@@ -125,11 +170,23 @@ def _read_parquet(path: str, column: str | None, advance: Callable[[int], None])
         column = names[0]
     if column not in names:
         raise InputError(f"{path}: no column '{column}'; the columns are: {', '.join(names)}")
+    if names.count(column) > 1:
+        raise InputError(f"{path}: column '{column}' appears {names.count(column)} times in the file; which one "
+                         "holds the ids is ambiguous")
     typ = pf.schema_arrow.field(column).type
+    if pa.types.is_dictionary(typ):
+        typ = typ.value_type
     if not (pa.types.is_string(typ) or pa.types.is_large_string(typ) or pa.types.is_integer(typ)):
         raise InputError(f"{path}: column '{column}' is {typ}; ids must be text (or integers)")
     per_row = max(1, Path(path).stat().st_size // max(1, pf.metadata.num_rows))
-    for batch in pf.iter_batches(batch_size=CHUNK, columns=[column]):
+    batches = pf.iter_batches(batch_size=CHUNK, columns=[column])
+    while True:
+        try:
+            batch = next(batches)
+        except StopIteration:
+            return
+        except (OSError, pa.ArrowException, EOFError, ValueError) as exc:
+            raise InputError(f"{path}: cannot read column '{column}': the file is damaged ({exc})") from None
         col = batch.column(0)
         if not pa.types.is_string(col.type):
             col = pc.cast(col, pa.string())
@@ -138,28 +195,50 @@ def _read_parquet(path: str, column: str | None, advance: Callable[[int], None])
 
 
 class ArmWriter:
-    """Writes `unit_id,bucket,arm` rows as CSV (RFC 4180 quoting) or Parquet."""
+    """Writes `unit_id,bucket,arm` rows as CSV (RFC 4180 quoting) or Parquet; or only the ids.
 
-    def __init__(self, out: str | None) -> None:
+    Nothing is written until the first rows are ready: a file goes to a temporary name in the
+    target's folder and is moved into place by `close()` (so a failed run leaves no partial
+    file and never replaces a good one); on stdout the header waits for the first rows.
+    `ids_only` writes one id per line, no header (the form an exclusion-list upload takes).
+    """
+
+    def __init__(self, out: str | None, *, ids_only: bool = False) -> None:
         self.out = out
+        self.ids_only = ids_only
+        self.parquet = bool(out) and _is_parquet(out or "") and not ids_only
         self._pq = None
-        if out and _is_parquet(out):
-            self._fh = None
-            parent = Path(out).parent
-            if not parent.is_dir():
-                raise InputError(f"{out}: cannot write: folder {parent} does not exist")
-        else:
-            try:
-                self._fh = open(out, "w", encoding="utf-8", newline="") if out else None  # noqa: SIM115
-            except OSError as exc:
-                raise InputError(f"{out}: cannot write: {exc.strerror}") from None
-            stream = self._fh or io.TextIOWrapper(sys.stdout.buffer, encoding="utf-8", newline="", write_through=True)
-            self._stream = stream
-            self._csv = csv.writer(stream, lineterminator="\n")
+        self._fh: IO[str] | None = None
+        self._csv = None
+        self._stream: IO[str] | None = None
+        self._tmp: Path | None = None
+        self.unwritable = 0  # ids_only: ids with a line break, which one-per-line cannot hold
+        if out:
+            target = Path(out)
+            if not target.parent.is_dir():
+                raise InputError(f"{out}: cannot write: folder {target.parent} does not exist")
+            if target.is_dir():
+                raise InputError(f"{out}: cannot write: it is a directory")
+            self._tmp = target.with_name(f".{target.name}.tmp{os.getpid()}")
+
+    def _start(self) -> None:
+        """Open the output on the first write (the input has been read successfully by then)."""
+        if self._stream is not None or self._pq is not None:
+            return
+        if self.parquet:
+            return
+        try:
+            if self._tmp is not None:
+                self._fh = open(self._tmp, "w", encoding="utf-8", newline="")  # noqa: SIM115
+        except OSError as exc:
+            raise InputError(f"{self.out}: cannot write: {exc.strerror}") from None
+        self._stream = self._fh or io.TextIOWrapper(sys.stdout.buffer, encoding="utf-8", newline="", write_through=True)
+        self._csv = csv.writer(self._stream, lineterminator="\n")
+        if not self.ids_only:
             self._csv.writerow(["unit_id", "bucket", "arm"])
 
     def write(self, ids: list[str | None], buckets: list[int | None], arms: list[str | None]) -> None:
-        if self.out and _is_parquet(self.out):
+        if self.parquet:
             import pyarrow as pa
             import pyarrow.parquet as pq
 
@@ -167,29 +246,47 @@ class ArmWriter:
                               "arm": pa.array(arms, pa.string())})
             if self._pq is None:
                 try:
-                    self._pq = pq.ParquetWriter(self.out, table.schema)
+                    self._pq = pq.ParquetWriter(str(self._tmp), table.schema)
                 except OSError as exc:
                     raise InputError(f"{self.out}: cannot write: {exc}") from None
             self._pq.write_table(table)
+            return
+        self._start()
+        assert self._stream is not None and self._csv is not None
+        if self.ids_only:
+            lines = [i for i in ids if i]
+            ok = [i for i in lines if "\n" not in i and "\r" not in i]
+            self.unwritable += len(lines) - len(ok)
+            self._stream.writelines(f"{i}\n" for i in ok)
         else:
             self._csv.writerows(zip(["" if i is None else i for i in ids],
                                     ["" if b is None else b for b in buckets],
                                     ["" if a is None else a for a in arms]))
 
-    def close(self) -> None:
-        if self._pq is not None:
-            self._pq.close()
-        elif self.out and _is_parquet(self.out):  # no rows at all: still write a valid, empty file
-            import pyarrow as pa
-            import pyarrow.parquet as pq
+    def close(self, ok: bool = True) -> None:
+        """Finish the output: move the file into place when `ok`, else remove what was written."""
+        try:
+            if self.parquet and ok and self._pq is None:  # no rows at all: still a valid, empty file
+                import pyarrow as pa
+                import pyarrow.parquet as pq
 
-            try:
                 pq.write_table(pa.table({"unit_id": pa.array([], pa.string()), "bucket": pa.array([], pa.int16()),
-                                         "arm": pa.array([], pa.string())}), self.out)
-            except OSError as exc:
-                raise InputError(f"{self.out}: cannot write: {exc}") from None
-        elif self._fh is not None:
-            self._fh.close()
-        else:
-            self._stream.flush()
-            self._stream.detach()
+                                         "arm": pa.array([], pa.string())}), str(self._tmp))
+            if self._pq is not None:
+                self._pq.close()
+            if ok and not self.parquet:
+                self._start()  # an empty input still gets its header
+            if self._fh is not None:
+                self._fh.close()
+            elif self._stream is not None:
+                self._stream.flush()
+                self._stream.detach()  # type: ignore[attr-defined]
+            if self._tmp is not None and self.out:
+                if ok:
+                    os.replace(self._tmp, self.out)
+                else:
+                    self._tmp.unlink(missing_ok=True)
+        except OSError as exc:
+            if self._tmp is not None:
+                self._tmp.unlink(missing_ok=True)
+            raise InputError(f"{self.out}: cannot write: {exc.strerror or exc}") from None

@@ -2,7 +2,7 @@
 
 from .batch import arm_for, assign_many, buckets_and_arms
 from .contract import bucket, hash64, key_bytes
-from .errors import ArmlockError, InputError, SpecError
+from .errors import ArmlockError, InputError, SpecError, SplitChangedError
 from .lock import check_lock, lock_path
 from .spec import Arm, Spec, fingerprint, load_spec, spec_from_dict
 
@@ -12,6 +12,7 @@ __all__ = [
     "InputError",
     "Spec",
     "SpecError",
+    "SplitChangedError",
     "arm_for",
     "assign_many",
     "bucket",

@@ -2,7 +2,8 @@
 
     ArmlockError            base: catch this once at the edge (the CLI does)
     ├── SpecError           the experiment spec file is missing, not TOML, or invalid  -> exit 4
-    └── InputError          a data file (ids, visits, exposures...) is missing or bad  -> exit 4
+    ├── InputError          a data file (ids, visits, exposures...) is missing or bad  -> exit 4
+    └── SplitChangedError   the spec's salt or weights differ from its lock file       -> exit 6
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ EXIT_USAGE = 2  # bad command line (click's own code)
 EXIT_FAIL = 3  # audit found a failing check
 EXIT_BAD_INPUT = 4  # spec or data file is wrong: nothing was judged
 EXIT_INTERNAL = 5  # a bug in armlock: please report it
+EXIT_SPLIT_CHANGED = 6  # the spec's split differs from the one its lock file recorded, unconfirmed
 
 
 class ArmlockError(Exception):
@@ -28,3 +30,9 @@ class SpecError(ArmlockError):
 
 class InputError(ArmlockError):
     """A data file cannot be read as asked: the message names file, column and rows."""
+
+
+class SplitChangedError(ArmlockError):
+    """The spec's fingerprint differs from its lock file and the change was not confirmed."""
+
+    exit_code = EXIT_SPLIT_CHANGED

@@ -1,16 +1,19 @@
-"""The fingerprint lock beside a spec: records the split at first use, warns when it changes."""
+"""The fingerprint lock beside a spec: records the split at first use, refuses an unconfirmed change."""
 
 from __future__ import annotations
 
 import json
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
+from typing import Any
 
+from .errors import SpecError
 from .spec import Spec
 
 LOCK_SUFFIX = ".lock"
+MAX_LOCK_BYTES = 1 << 20  # a lock file is a few hundred bytes; anything huge is not one
 
 
 def lock_path(spec_path: str | Path) -> Path:
@@ -27,6 +30,7 @@ class LockCheck:
     status: str  # "recorded" (first use, lock written), "same", "changed", "unwritable"
     recorded: dict | None = None
     warning: str | None = None
+    changes: list[dict[str, Any]] = field(default_factory=list)  # confirmed changes, oldest first
 
 
 def _describe_change(old: dict, spec: Spec) -> str:
@@ -41,38 +45,86 @@ def _describe_change(old: dict, spec: Spec) -> str:
     return " and ".join(parts) or "the assignment fields changed"
 
 
-def check_lock(spec: Spec, spec_path: str | Path, *, write: bool = True) -> LockCheck:
-    """Compare the spec's fingerprint with the one recorded at first use; record it if absent."""
+def _valid_shape(data: Any) -> bool:
+    """A lock is an object with a text fingerprint, a text salt and arms as [name, weight] pairs."""
+    if not isinstance(data, dict) or not isinstance(data.get("fingerprint"), str):
+        return False
+    if not isinstance(data.get("salt", ""), str):
+        return False
+    arms = data.get("arms", [])
+    if not isinstance(arms, list) or not all(
+            isinstance(a, list) and len(a) == 2 and isinstance(a[0], str) and isinstance(a[1], int) for a in arms):
+        return False
+    changes = data.get("changes", [])
+    return isinstance(changes, list) and all(isinstance(c, dict) for c in changes)
+
+
+def read_lock(spec_path: str | Path) -> dict | None:
+    """The lock recorded beside a spec (None when there is none); SpecError when it is not a lock."""
     lp = lock_path(spec_path)
+    advice = "restore it from version control, or delete it to record the current split"
     try:
-        old = json.loads(lp.read_text(encoding="utf-8"))
+        raw = lp.read_bytes()
     except FileNotFoundError:
-        old = None
-    except (OSError, ValueError):
-        return LockCheck(lp, "changed", None, f"{lp}: the lock file is unreadable or corrupt; "
-                         "restore it from version control, or delete it to record the current split")
+        return None
+    except IsADirectoryError:
+        raise SpecError(f"{lp}: the lock file is a directory; {advice}") from None
+    except OSError as exc:
+        raise SpecError(f"{lp}: cannot read the lock file ({exc.strerror}); {advice}") from None
+    try:
+        if len(raw) > MAX_LOCK_BYTES:
+            raise ValueError("too large")
+        data = json.loads(raw.decode("utf-8"))
+    except (ValueError, RecursionError):
+        raise SpecError(f"{lp}: the lock file is unreadable or corrupt; {advice}") from None
+    if not _valid_shape(data):
+        raise SpecError(f"{lp}: the lock file does not hold a recorded fingerprint (wrong shape); {advice}")
+    return data
+
+
+def _record(spec: Spec, changes: list[dict[str, Any]]) -> dict[str, Any]:
+    return {
+        "experiment": spec.name,
+        "fingerprint": spec.fingerprint,
+        "salt": spec.salt,
+        "arms": [[a.name, a.weight] for a in spec.arms],
+        "recorded_at": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "note": "Written by armlock at first use of the spec. Commit it with the spec; "
+        "if the fingerprint of the spec ever differs, armlock refuses to go on until the change is confirmed.",
+        "changes": changes,
+    }
+
+
+def _write(lp: Path, record: dict[str, Any]) -> str | None:
+    """Write the lock atomically; returns a warning when it cannot be written."""
+    tmp = lp.with_name(lp.name + f".tmp{os.getpid()}")
+    try:
+        tmp.write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+        os.replace(tmp, lp)
+    except OSError as exc:
+        tmp.unlink(missing_ok=True)
+        return f"{lp}: could not record the spec fingerprint ({exc.strerror}); changes to the split will go unnoticed"
+    return None
+
+
+def check_lock(spec: Spec, spec_path: str | Path, *, write: bool = True) -> LockCheck:
+    """Compare the spec's fingerprint with the one recorded at first use; record it if absent.
+
+    Raises SpecError when the lock file exists but is not a lock (corrupt or the wrong shape).
+    """
+    lp = lock_path(spec_path)
+    old = read_lock(spec_path)
     if old is None:
         if not write:
             return LockCheck(lp, "recorded", None)
-        record = {
-            "experiment": spec.name,
-            "fingerprint": spec.fingerprint,
-            "salt": spec.salt,
-            "arms": [[a.name, a.weight] for a in spec.arms],
-            "recorded_at": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-            "note": "Written by armlock at first use of the spec. Commit it with the spec; "
-            "if the fingerprint of the spec ever differs, armlock warns that visitors were reshuffled.",
-        }
-        try:
-            tmp = lp.with_name(lp.name + f".tmp{os.getpid()}")
-            tmp.write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
-            os.replace(tmp, lp)
-        except OSError as exc:
-            return LockCheck(lp, "unwritable", None, f"{lp}: could not record the spec fingerprint "
-                             f"({exc.strerror}); changes to the split will go unnoticed")
+        record = _record(spec, [])
+        problem = _write(lp, record)
+        if problem:
+            return LockCheck(lp, "unwritable", None, problem)
         return LockCheck(lp, "recorded", record)
+    changes = list(old.get("changes", []))
     if old.get("fingerprint") == spec.fingerprint:
-        return LockCheck(lp, "same", old)
+        return LockCheck(lp, "same", old, changes=changes)
     started = spec.start <= datetime.now(timezone.utc)
     warning = (
         f"THE SPLIT HAS CHANGED. {_describe_change(old, spec)} since the spec was first used "
@@ -81,6 +133,25 @@ def check_lock(spec: Spec, spec_path: str | Path, *, write: bool = True) -> Lock
         + ("the test has started, so people already counted in one arm move to another and "
            "the arms are no longer comparable. "
            if started else "the test has not started yet, so this is harmless if deliberate. ")
-        + f"Undo the edit, or, if you mean it, delete {lp.name} to record the new split."
+        + "Undo the edit, or, if you mean it, rerun with --accept-changed-split to record the new split"
+        + (" (audits of this test will then fail, naming the change)." if started else ".")
     )
-    return LockCheck(lp, "changed", old, warning)
+    return LockCheck(lp, "changed", old, warning, changes=changes)
+
+
+def accept_change(spec: Spec, check: LockCheck) -> LockCheck:
+    """Record a confirmed change of split: the new fingerprint, and the change in the lock's history."""
+    old = check.recorded or {}
+    now = datetime.now(timezone.utc)
+    change = {"from": old.get("fingerprint"), "to": spec.fingerprint, "what": _describe_change(old, spec),
+              "at": now.strftime("%Y-%m-%dT%H:%M:%SZ"), "after_start": spec.start <= now}
+    record = _record(spec, [*check.changes, change])
+    problem = _write(check.path, record)
+    return LockCheck(check.path, "unwritable" if problem else "same", record, problem, changes=record["changes"])
+
+
+def changes_after_start(check: LockCheck) -> list[str]:
+    """Sentences for each confirmed change of split made after the test had started."""
+    return [f"the split was changed on {c.get('at', '?')}, after the test started ({c.get('what', 'salt or weights')}; "
+            f"fingerprint {c.get('from')} -> {c.get('to')})"
+            for c in check.changes if c.get("after_start")]

@@ -106,12 +106,19 @@ class Spec(BaseModel):
     @field_validator("start", "end")
     @classmethod
     def _aware(cls, v: datetime | None) -> datetime | None:
-        if v is not None and v.tzinfo is None:
+        if v is None:
+            return None
+        if v.tzinfo is None:
             raise ValueError(
                 "the time needs a UTC offset, e.g. 2026-12-01T00:00:00Z (a time without a zone "
                 "is ambiguous)"
             )
-        return v.astimezone(timezone.utc) if v is not None else None
+        if not 1970 <= v.year <= 2200:
+            raise ValueError("the time must fall between the years 1970 and 2200")
+        try:
+            return v.astimezone(timezone.utc)
+        except OverflowError:
+            raise ValueError("the time must fall between the years 1970 and 2200") from None
 
     @field_validator("arms")
     @classmethod
@@ -260,19 +267,27 @@ def spec_from_dict(data: dict[str, Any], source: str = "<spec>") -> Spec:
         raise SpecError("invalid experiment spec\n  " + "\n  ".join(lines)) from None
 
 
-def load_spec(path: str | Path) -> Spec:
-    """Read and validate a spec TOML file."""
+def load_spec(path: str | Path, notes: list[str] | None = None) -> Spec:
+    """Read and validate a spec TOML file (a leading UTF-8 byte-order mark is removed, noted in `notes`)."""
     p = Path(path)
     try:
         raw = p.read_bytes()
     except FileNotFoundError:
         raise SpecError(f"{p}: spec file not found (create one with `armlock init NAME`)") from None
+    except IsADirectoryError:
+        raise SpecError(f"{p}: is a directory, not a spec file") from None
     except OSError as exc:
         raise SpecError(f"{p}: cannot read spec file: {exc.strerror}") from None
+    if raw.startswith(b"\xef\xbb\xbf"):
+        raw = raw[3:]
+        if notes is not None:
+            notes.append(f"{p}: a leading UTF-8 byte-order mark was removed (it is not part of the spec)")
     try:
         data = tomllib.loads(raw.decode("utf-8"))
     except UnicodeDecodeError as exc:
         raise SpecError(f"{p}: spec file is not UTF-8 text (byte {exc.start})") from None
     except tomllib.TOMLDecodeError as exc:
         raise SpecError(f"{p}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise SpecError(f"{p}: not a spec: its tables or arrays are nested too deeply to read") from None
     return spec_from_dict(data, str(p))

@@ -2,32 +2,71 @@
 
 from __future__ import annotations
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 COLUMN = r"^[^\x00-\x1f]{1,200}$"  # a column name: any printable text
+OPTIONAL_COLUMN = r"^[^\x00-\x1f]{0,200}$"  # "" = the file has no such column
+TIME_FORMATS = ("iso8601", "epoch_seconds", "epoch_milliseconds")
+TIME_FORMAT_HELP = ('"iso8601" (default), "epoch_seconds", "epoch_milliseconds", or a strftime pattern '
+                    'such as "%d/%m/%Y %H:%M"')
 
 
-class VisitColumns(BaseModel):
-    """Column names of the visits / first-seen file (one row per unit; repeated rows keep the earliest)."""
+def check_time_format(value: str) -> str:
+    """A time format is one of TIME_FORMATS or a strftime pattern (it contains '%')."""
+    if value in TIME_FORMATS or ("%" in value and len(value) <= 100):
+        return value
+    raise ValueError(f"unknown time format {value!r}; use {TIME_FORMAT_HELP}")
+
+
+def check_delimiter(value: str) -> str:
+    """The CSV field separator: one character that is not a quote, a line break or a space."""
+    if value == "\\t":  # written as the two characters \t
+        value = "\t"
+    if len(value) != 1 or value in "\"\r\n ":
+        raise ValueError(f'delimiter must be one character such as "," ";" "|" or "\\t", got {value!r}')
+    return value
+
+
+class FileColumns(BaseModel):
+    """What every mapped file shares: the CSV delimiter (ignored for Parquet)."""
 
     model_config = ConfigDict(extra="forbid")
+
+    # The CSV field separator; many spreadsheet exports use ";" and some tools a tab ("\t").
+    delimiter: str = ","
+
+    @field_validator("delimiter")
+    @classmethod
+    def _delimiter_ok(cls, v: str) -> str:
+        return check_delimiter(v)
+
+
+class VisitColumns(FileColumns):
+    """Column names of the visits / first-seen file (one row per unit; repeated rows keep the earliest)."""
 
     unit_id: str = Field("unit_id", pattern=COLUMN)
     first_seen: str = Field("first_seen", pattern=COLUMN)
+    # How `first_seen` is written when it is text or a number (see TIME_FORMAT_HELP).
+    first_seen_format: str = "iso8601"
     arm: str = Field("arm", pattern=COLUMN)
     # Optional: the spec fingerprint the site stamped on the row; "" = the file has none.
-    fingerprint: str = Field("spec_fingerprint", pattern=r"^[^\x00-\x1f]{0,200}$")
+    fingerprint: str = Field("spec_fingerprint", pattern=OPTIONAL_COLUMN)
     # Optional: the browser family, used by the identity-churn check per browser; "" = none.
-    browser: str = Field("browser_family", pattern=r"^[^\x00-\x1f]{0,200}$")
+    browser: str = Field("browser_family", pattern=OPTIONAL_COLUMN)
+
+    @field_validator("first_seen_format")
+    @classmethod
+    def _format_ok(cls, v: str) -> str:
+        return check_time_format(v)
 
 
-class ExposureColumns(BaseModel):
+class ExposureColumns(FileColumns):
     """Column names of the ad vendor's exposure log (one row per impression or click)."""
-
-    model_config = ConfigDict(extra="forbid")
 
     unit_id: str = Field("unit_id", pattern=COLUMN)
     time: str = Field("event_time", pattern=COLUMN)
+    # How `time` is written when it is text or a number (vendors often export epoch seconds/ms).
+    time_format: str = "iso8601"
     campaign: str = Field("campaign", pattern=COLUMN)
     kind: str = Field("event_kind", pattern=COLUMN)
     impression_values: list[str] = Field(default_factory=lambda: ["impression"], min_length=1)
@@ -40,14 +79,26 @@ class ExposureColumns(BaseModel):
             raise ValueError(f"a kind cannot be both impression and click: {', '.join(both)}")
         return self
 
+    @field_validator("time_format")
+    @classmethod
+    def _format_ok(cls, v: str) -> str:
+        return check_time_format(v)
 
-class IdentityColumns(BaseModel):
+
+class IdentityColumns(FileColumns):
     """Column names of the identity-link file (unit id -> logged-in customer key)."""
-
-    model_config = ConfigDict(extra="forbid")
 
     unit_id: str = Field("unit_id", pattern=COLUMN)
     customer: str = Field("customer_key", pattern=COLUMN)
+    # Optional: when the link was first made. With it, an audit as of a date uses only links made
+    # by then; without it ("" or absent), only links of units first seen by then (noted).
+    time: str = Field("linked_at", pattern=OPTIONAL_COLUMN)
+    time_format: str = "iso8601"
+
+    @field_validator("time_format")
+    @classmethod
+    def _format_ok(cls, v: str) -> str:
+        return check_time_format(v)
 
 
 class AuditThresholds(BaseModel):
@@ -84,6 +135,9 @@ class AuditThresholds(BaseModel):
     pre_exposure_fail: float = Field(0.01, ge=0, lt=1)
     # Share of exposed ids never seen in the visits that warns.
     unseen_warn: float = Field(0.01, ge=0, lt=1)
+    # ... above this share the exposure log is judged not to match the visits (another id, a prefix,
+    # hashed ids): leakage fails, since its figures would be meaningless (common practice).
+    unseen_fail: float = Field(0.5, ge=0, le=1)
     # Share of customers whose ids fall in several arms: warn / fail above (overall or per browser).
     churn_warn: float = Field(0.02, ge=0, lt=1)
     churn_fail: float = Field(0.05, ge=0, lt=1)
@@ -96,7 +150,7 @@ class AuditThresholds(BaseModel):
     def _ordered(self) -> AuditThresholds:
         pairs = [("smd_warn", "smd_fail"), ("mismatch_warn", "mismatch_fail"),
                  ("leak_warn", "leak_fail"), ("pre_exposure_warn", "pre_exposure_fail"),
-                 ("churn_warn", "churn_fail")]
+                 ("churn_warn", "churn_fail"), ("unseen_warn", "unseen_fail")]
         for lo, hi in pairs:
             if getattr(self, lo) > getattr(self, hi):
                 raise ValueError(f"{lo} ({getattr(self, lo)}) must not exceed {hi} ({getattr(self, hi)})")
@@ -148,23 +202,31 @@ categorical_covariates = ["device", "landing_channel"]  # categorical covariates
 # The visits / first-seen file: one row per unit (repeated rows: the earliest is kept).
 unit_id = "unit_id"                 # the visitor id the split hashed
 first_seen = "first_seen"           # first-seen time; a time without a zone is read as UTC
+first_seen_format = "iso8601"       # or "epoch_seconds", "epoch_milliseconds", or a pattern like "%d/%m/%Y %H:%M"
 arm = "arm"                         # the arm the site recorded
 fingerprint = "spec_fingerprint"    # optional: spec fingerprint stamped by the site ("" = none)
 browser = "browser_family"          # optional: browser family, for identity churn ("" = none)
+delimiter = ","                     # CSV field separator (";" or "\\t" for many spreadsheet exports)
 
 [audit.exposures]
 # The ad vendor's exposure log: one row per impression or click.
 unit_id = "unit_id"                 # the same visitor id as in the visits file
 time = "event_time"                 # when the ad was served or clicked
+time_format = "iso8601"             # or "epoch_seconds", "epoch_milliseconds", or a pattern like "%d/%m/%Y %H:%M:%S"
 campaign = "campaign"               # campaign or line item
 kind = "event_kind"                 # impression or click
 impression_values = ["impression"]  # values of `kind` that mean an impression
 click_values = ["click"]            # values of `kind` that mean a click
+delimiter = ","                     # CSV field separator
 
 [audit.identities]
 # Optional identity links: unit id -> logged-in customer key (to measure identity churn).
 unit_id = "unit_id"                 # the same visitor id as in the visits file
 customer = "customer_key"           # the logged-in customer key (pseudonymous is enough)
+time = "linked_at"                  # optional: when the link was made; an audit as of a date uses only
+                                    # links made by then (without it: links of units first seen by then)
+time_format = "iso8601"             # how `time` is written (as for the other files)
+delimiter = ","                     # CSV field separator
 
 [audit.thresholds]
 # Where the weekly audit turns a check from pass to warn/fail. Shares are fractions (0.01 = 1%).
@@ -182,6 +244,7 @@ leak_fail = 0.005       # ... above this fails
 pre_exposure_warn = 0.0   # leakage: share of units exposed before assignment or start; above warns
 pre_exposure_fail = 0.01  # ... above this fails
 unseen_warn = 0.01      # leakage: share of exposed ids never seen in the visits; above warns
+unseen_fail = 0.5       # ... above this the log does not match the visits (another id, a prefix, hashing): fails
 churn_warn = 0.02       # identity churn: share of customers in several arms; above warns
 churn_fail = 0.05       # ... above this fails (overall or in one browser family)
 min_expected = 5.0      # SRM by segment: values with fewer expected units per arm are not tested

@@ -38,9 +38,21 @@ def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
                              + COOKIE_NOTE,
                      reason="no identity-link table given")
     if ct.customers == 0:
-        return Check(id="churn", title=title, status="skipped", summary="The identity-link table names no customers.",
-                     reason="no customers in the identity links")
+        return Check(id="churn", title=title, status="warn",
+                     summary="Cannot judge: the identity links name no customer with a usable link "
+                             f"({ct.links:,} link(s) used), so identity churn was not measured. Check the input "
+                             "notes and that [audit.identities] maps the unit id and customer columns.",
+                     figures={"customers": Figure(label="customers with identity links", value=0, unit="count")})
     th = spec.audit.thresholds
+    if ct.link_ids and ct.ids_not_in_visits / ct.link_ids > th.unseen_fail:
+        found = 1 - ct.ids_not_in_visits / ct.link_ids
+        return Check(id="churn", title=title, status="fail",
+                     summary=f"The identity links do not match the visits: only {found:.1%} of their {ct.link_ids:,} "
+                             "unit ids appear in the visits, so identity churn cannot be measured. Likely causes: the "
+                             "links hold another id than the one the snippet sets, a prefix, or hashed ids; map the "
+                             "right column in [audit.identities] unit_id.",
+                     figures={"link_id_match_rate": Figure(label="link unit ids found in the visits", value=found,
+                                                           unit="share")})
     theta = np.array(spec.weights, dtype=np.float64) / 10_000
     share = ct.multi_arm / ct.customers
     exp_share = expected_multi_arm(list(ct.ids_hist), theta, list(ct.ids_hist.values())) / ct.customers

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import os
+from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -243,6 +244,7 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
     uniq = pd.Series(pd.unique(unseen), dtype="str") if len(unseen) else pd.Series([], dtype="str")
     ua = hash_arms(spec, uniq) if len(uniq) else np.zeros(0, np.int16)
     n_seen_ids = int(np.count_nonzero(exposed_u | pre_u))
+    diag = _unseen_diagnostics(uniq, v[UNIT], vset)
     return LeakageTables(
         rows=len(e), by_arm=by_arm, holdout_by_campaign=by_campaign, holdout_by_week=by_week,
         holdout_first=first,
@@ -251,7 +253,57 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
         pre_rows=int(pre.sum()), unseen_ids=len(uniq), unseen_rows=int((~seen).sum()),
         unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
         exposed_ids=n_seen_ids + len(uniq), exposed_rows=exposed_u,
+        rows_read=fr.counts.get("exposure_rows", len(e)), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
+        **diag,
     )
+
+
+HASH_LIKE = r"^(?:[0-9a-fA-F]{32}|[0-9a-fA-F]{40}|[0-9a-fA-F]{64})$"
+PREFIX_MAX = 40
+
+
+def common_prefix(ids: pd.Series) -> str:
+    """The longest prefix all ids share (at most PREFIX_MAX characters; '' for fewer than two ids)."""
+    if len(ids) < 2:
+        return ""
+    lo, hi = str(ids.min()), str(ids.max())  # the common prefix of a set is that of its extremes
+    n = 0
+    while n < min(len(lo), len(hi), PREFIX_MAX) and lo[n] == hi[n]:
+        n += 1
+    return lo[:n]
+
+
+def _cuts(prefix: str) -> list[str]:
+    """Candidate prefixes: the whole common prefix and each part of it ending in a separator."""
+    return list(dict.fromkeys([prefix[:i + 1] for i, ch in enumerate(prefix) if not ch.isalnum()] + [prefix]))
+
+
+def _unseen_diagnostics(unseen: pd.Series, visit_ids: pd.Series, vset: pa.Array) -> dict[str, object]:
+    """Counts that tell why exposed ids miss the visits: hashed ids, a prefix added or dropped.
+
+    Rule (engine-neutral): P = the longest prefix all distinct unseen ids share; for P and each part
+    of P that ends in a non-alphanumeric character, count the unseen ids that are a visit id once
+    that part is removed; keep the part with the most matches (the longest on ties). Likewise for
+    the visits' common prefix, added to the unseen ids.
+    """
+    out: dict[str, object] = {"unseen_hash_like": 0, "unseen_prefix": "", "unseen_match_without_prefix": 0,
+                              "visits_prefix": "", "unseen_match_with_visits_prefix": 0}
+    if not len(unseen):
+        return out
+    out["unseen_hash_like"] = int(unseen.str.match(HASH_LIKE).sum())
+
+    def best(prefix: str, make: Callable[[str], pd.Series]) -> tuple[str, int]:
+        found = [(int((_positions(make(p), vset) >= 0).sum()), len(p), p) for p in _cuts(prefix)]
+        n, _, p = max(found)
+        return (p, n) if n else (prefix, 0)
+
+    pre = common_prefix(unseen)
+    if pre:
+        out["unseen_prefix"], out["unseen_match_without_prefix"] = best(pre, lambda p: unseen.str.slice(len(p)))
+    vpre = common_prefix(visit_ids)
+    if vpre:
+        out["visits_prefix"], out["unseen_match_with_visits_prefix"] = best(vpre, lambda p: p + unseen)
+    return out
 
 
 def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> ChurnTables:
@@ -295,6 +347,7 @@ def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> Chu
         links=len(ident), customers=len(nids), multi_arm=int((narms > 1).sum()),
         ids_hist={int(x): int(n) for x, n in zip(ks, kc)}, by_browser=g, browser_hist=bhist,
         ids_not_in_visits=len(np.unique(ident.loc[missing, UNIT].to_numpy(dtype=object))) if missing.any() else 0,
+        link_ids=int(ident[UNIT].nunique()),
     )
 
 

@@ -8,7 +8,8 @@ from .model import Check, Figure, Table
 from .tables import IntegrityTables
 
 
-def check_integrity(spec: Spec, it: IntegrityTables, counts: dict[str, int]) -> Check:
+def check_integrity(spec: Spec, it: IntegrityTables, counts: dict[str, int],
+                    split_changes: list[str] | None = None) -> Check:
     """Is the split the spec's split? Mismatches and unknown arms mean the site did not apply it."""
     th = spec.audit.thresholds
     n = max(it.units, 1)
@@ -18,6 +19,8 @@ def check_integrity(spec: Spec, it: IntegrityTables, counts: dict[str, int]) -> 
     other_fps = {f: c for f, c in (it.fingerprints or {}).items() if f not in (spec.fingerprint, "(missing)")}
     missing_fp = (it.fingerprints or {}).get("(missing)", 0)
     problems: list[tuple[str, str]] = []  # (status, sentence)
+    for change in split_changes or []:  # a confirmed change of salt or weights after the start
+        problems.append(("fail", change + ": units counted before it were re-hashed, so the arms mix two splits"))
     if unknown:
         names = ", ".join(f"{a} ({c:,})" for a, c in sorted(it.recorded_unknown.items(), key=lambda x: -x[1])[:5])
         problems.append(("fail", f"{unknown:,} units carry arm names the spec does not know: {names}"))

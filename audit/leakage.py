@@ -21,13 +21,49 @@ def itt_dilution(rate_exposed: float, rate_holdout: float) -> float:
     return rate_exposed - rate_holdout
 
 
+TITLE = "Leakage (holdout reached by the vendor)"
+
+
+def _cannot_judge(lt: LeakageTables) -> Check:
+    """An exposure log with no usable row measures nothing: say so, never pass."""
+    why = ("the file has no data rows" if lt.rows_read == 0 else
+           f"none of its {lt.rows_read:,} rows has both an id and a time on or before the as-of date")
+    return Check(id="leakage", title=TITLE, status="warn",
+                 summary=f"Cannot judge: the exposure log has no usable rows ({why}), so leakage was not "
+                         "measured. Check that the vendor's export is complete and that [audit.exposures] maps "
+                         "its id and time columns.",
+                 figures={"exposure_rows": Figure(label="exposure rows in the file", value=lt.rows_read, unit="count")})
+
+
+def _mismatch_summary(lt: LeakageTables, limit: float) -> str:
+    """Why the exposure log's ids do not match the visits, with the match rate and the likely causes."""
+    u, n = lt.unseen_ids, lt.exposed_ids
+    causes = []
+    if lt.unseen_match_without_prefix:
+        causes.append(f"the vendor's ids carry the prefix '{lt.unseen_prefix}' (without it, "
+                      f"{lt.unseen_match_without_prefix:,} of the {u:,} unmatched ids are visit ids)")
+    if lt.unseen_match_with_visits_prefix:
+        causes.append(f"the vendor's ids lack the prefix '{lt.visits_prefix}' the site writes (with it, "
+                      f"{lt.unseen_match_with_visits_prefix:,} of the {u:,} unmatched ids are visit ids)")
+    if lt.unseen_hash_like * 2 > u:
+        causes.append(f"{lt.unseen_hash_like:,} of them look like hex hashes (MD5, SHA-1 or SHA-256): the log "
+                      "holds hashed ids, which cannot be matched to the visitor ids the split hashed")
+    causes.append("the log holds another id than the one the snippet sets (the vendor's own cookie or "
+                  "device id, or a customer key): map the right column in [audit.exposures] unit_id")
+    return (f"The exposure log does not match the visits: only {1 - u / n:.1%} of its {n:,} distinct ids appear "
+            f"in the visits ({u:,} do not; more than {limit:.0%} unmatched fails), so leakage cannot be measured. "
+            "Likely causes: " + "; ".join(causes) + ".")
+
+
 def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
     """Holdout exposure (count, share, by campaign and week), pre-assignment exposure, unseen ids."""
     if lt is None:
-        return Check(id="leakage", title="Leakage (holdout reached by the vendor)", status="skipped",
+        return Check(id="leakage", title=TITLE, status="skipped",
                      summary="No exposure log was given (--exposures), so leakage was not checked.",
                      reason="no exposure log given")
     th = spec.audit.thresholds
+    if lt.rows == 0:
+        return _cannot_judge(lt)
     ba = lt.by_arm
     hold = list(spec.holdout_arms)
     expo = list(spec.exposed_arms)
@@ -63,7 +99,10 @@ def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
                 f"person the ads reach, because the ads reached {rate_e:.1%} of the exposed arm and {rate_h:.2%} of the "
                 "holdout (assuming the arm changes sales only through the ads, and the ads work alike on everyone "
                 "they reach)")
-    if parts:
+    if unseen_share > th.unseen_fail:
+        status = "fail"
+        summary = _mismatch_summary(lt, th.unseen_fail)
+    elif parts:
         summary = ("; ".join(p for _, p in parts) + f". So {dilution}. Have the vendor suppress the holdout list "
                    "and drop audiences built before the test.")
     else:
@@ -80,6 +119,9 @@ def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
         "pre_exposed_units": Figure(label="units exposed before assignment or start", value=pre_units, unit="count"),
         "unseen_ids": Figure(label="exposed ids never seen in the visits", value=lt.unseen_ids, unit="count"),
         "holdout_first_exposure": Figure(label="first holdout exposure", value=lt.holdout_first, unit="date"),
+        "id_match_rate": Figure(label="exposed ids found in the visits", value=1 - unseen_share, unit="share"),
+        "duplicate_rows": Figure(label="exact duplicate exposure rows (counted once)", value=lt.duplicate_rows,
+                                 unit="count"),
     }
     leak_imp = int(ba.loc[hold, "impressions"].sum())
     leak_clk = int(ba.loc[hold, "clicks"].sum())
@@ -107,5 +149,5 @@ def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
                               ["all exposure rows before assignment or start", None, lt.pre_rows],
                               ["exposed ids never seen in the visits", lt.unseen_ids, lt.unseen_rows],
                               *[[f"  of which the spec puts in {a}", n, None] for a, n in lt.unseen_by_arm.items()]]))
-    return Check(id="leakage", title="Leakage (holdout reached by the vendor)", status=status, summary=summary,
+    return Check(id="leakage", title=TITLE, status=status, summary=summary,
                  figures=figs, tables=tables, series={"weekly": weekly})

@@ -1,4 +1,13 @@
-"""Load the three logs by the spec's column map: set aside empty ids, keep each unit's earliest row, cut at as-of."""
+"""Load the three logs by the spec's column map: set aside empty ids, keep each unit's earliest row, cut at as-of.
+
+Row-level rules (any engine reproduces them; the counts go to `Frames.counts` and the notes):
+- visits: rows without an id or a first-seen time are set aside; of several rows of one id the
+  earliest is kept; units first seen after the as-of day are ignored;
+- exposures: rows without an id or a time, and rows after the as-of day, are set aside; exact
+  duplicate rows (same id, time, campaign and kind) are counted once;
+- identity links: with a link-time column, links made after the as-of day (or without a time)
+  are set aside; without one, only links of units in the visits as of that day are used.
+"""
 
 from __future__ import annotations
 
@@ -21,10 +30,8 @@ from .read import (
     UNIT,
     Frames,
     Source,
-    _header,
-    _need,
-    _read_table,
     read_ids,
+    read_mapped,
     read_labels,
     read_numbers,
     read_times,
@@ -49,35 +56,31 @@ def _note_empty(src: Source, col: str, empty: np.ndarray, what: str, notes: list
 def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> date:
     """Fill `fr.visits` (one row per unit, earliest first-seen kept); returns the as-of date used."""
     cfg = spec.audit
-    src = Source(Path(path), "visits")
-    present = _header(src)
     cv = cfg.visits
-    _need(src, present, {"unit_id": cv.unit_id, "first_seen": cv.first_seen, "arm": cv.arm}, "[audit.visits]")
+    wanted = {"unit_id": cv.unit_id, "first_seen": cv.first_seen, "arm": cv.arm}
     for key in ("segments", "covariates", "categorical_covariates"):
-        _need(src, present, {f"{key}[{i}]": c for i, c in enumerate(getattr(cfg, key))}, "[audit]")
-    optional: dict[str, str] = {}
+        wanted.update({f"[audit] {key}[{i}]": c for i, c in enumerate(getattr(cfg, key))})
+    m = read_mapped(path, "visits", "[audit.visits]", wanted, fr.notes,
+                    optional={"fingerprint": cv.fingerprint, "browser": cv.browser}, delimiter=cv.delimiter)
+    src, table = m.src, m.table
     for key, col in (("fingerprint", cv.fingerprint), ("browser", cv.browser)):
-        if col and col in present:
-            optional[key] = col
-        elif col:
+        if col and key not in m.columns:
             fr.notes.append(f"{src.path.name}: no '{col}' column ([audit.visits] {key}); "
                             + ("the spec fingerprint in the data is not checked" if key == "fingerprint"
                                else "identity churn is not split by browser"))
-    extra = list(dict.fromkeys([*cfg.segments, *cfg.categorical_covariates, *cfg.covariates]))
-    cols = list(dict.fromkeys([cv.unit_id, cv.first_seen, cv.arm, *optional.values(), *extra]))
-    table = _read_table(src, cols)
     ids, empty = read_ids(src, table, cv.unit_id, fr.notes)
-    frame = pd.DataFrame({UNIT: ids, TIME: read_times(src, table, cv.first_seen, fr.notes),
+    frame = pd.DataFrame({UNIT: ids, TIME: read_times(src, table, cv.first_seen, fr.notes, cv.first_seen_format,
+                                                      "[audit.visits] first_seen_format"),
                           ARM: read_labels(table, cv.arm)})
-    if "fingerprint" in optional:
-        frame[FP] = read_labels(table, optional["fingerprint"])
-    if "browser" in optional:
-        frame[BROWSER] = read_labels(table, optional["browser"])
+    if "fingerprint" in m.columns:
+        frame[FP] = read_labels(table, cv.fingerprint)
+    if "browser" in m.columns:
+        frame[BROWSER] = read_labels(table, cv.browser)
     for col in dict.fromkeys([*cfg.segments, *cfg.categorical_covariates]):
         frame[col] = read_labels(table, col)
     for col in cfg.covariates:
         frame[col] = read_numbers(src, table, col)
-    del table
+    del table, m
     fr.counts["visit_rows"] = len(frame)
     fr.counts["empty_ids"] = _note_empty(src, cv.unit_id, empty, "they have no arm", fr.notes)
     no_time = frame[TIME].isna().to_numpy() & ~empty
@@ -102,6 +105,11 @@ def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> d
     if as_of is None:
         as_of = last
         fr.notes.append(f"as-of date not given: using the last first-seen date in the visits, {as_of}")
+    elif as_of > last:
+        fr.counts["days_after_data"] = (as_of - last).days
+        fr.notes.append(f"the as-of date {as_of} is {(as_of - last).days:,} day(s) after the last first-seen day "
+                        f"in the visits ({last}): the report covers data through {last} only")
+    fr.data_through = min(as_of, last)
     cut = cutoff_of(as_of)
     late = (frame[TIME] >= cut).to_numpy()
     fr.counts["visits_after_as_of"] = int(late.sum())
@@ -127,16 +135,15 @@ def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> d
 def load_exposures(spec: Spec, path: PathLike, as_of: date, fr: Frames) -> None:
     """Fill `fr.exposures`: unit, time, campaign and kind ("impression" | "click" | "other")."""
     ce = spec.audit.exposures
-    src = Source(Path(path), "exposures")
-    present = _header(src)
-    _need(src, present, {"unit_id": ce.unit_id, "time": ce.time, "campaign": ce.campaign,
-                         "kind": ce.kind}, "[audit.exposures]")
-    table = _read_table(src, list(dict.fromkeys([ce.unit_id, ce.time, ce.campaign, ce.kind])))
+    m = read_mapped(path, "exposures", "[audit.exposures]",
+                    {"unit_id": ce.unit_id, "time": ce.time, "campaign": ce.campaign, "kind": ce.kind},
+                    fr.notes, delimiter=ce.delimiter)
+    src, table = m.src, m.table
     ids, empty = read_ids(src, table, ce.unit_id, fr.notes)
-    times = read_times(src, table, ce.time, fr.notes)
+    times = read_times(src, table, ce.time, fr.notes, ce.time_format, "[audit.exposures] time_format")
     campaign = read_labels(table, ce.campaign)
     raw_kind = read_labels(table, ce.kind)
-    del table
+    del table, m
     levels = [str(c) for c in raw_kind.cat.categories]
     mapped = ["impression" if v in ce.impression_values else "click" if v in ce.click_values
               else "other" for v in levels]
@@ -155,29 +162,63 @@ def load_exposures(spec: Spec, path: PathLike, as_of: date, fr: Frames) -> None:
     fr.counts["exposure_empty_ids"] = _note_empty(src, ce.unit_id, empty, "they name no unit", fr.notes)
     no_time = frame[TIME].isna().to_numpy() & ~empty
     fr.counts["exposure_missing_time"] = _note_empty(src, ce.time, no_time, "an exposure needs a time", fr.notes)
-    late = (frame[TIME] >= cutoff_of(as_of)).to_numpy()
+    late = (frame[TIME] >= cutoff_of(as_of)).to_numpy() & ~(empty | no_time)
     fr.counts["exposures_after_as_of"] = int(late.sum())
     if late.any():
         fr.notes.append(f"{src.path.name}: {int(late.sum()):,} exposure row(s) after the as-of date {as_of} are ignored")
     keep = ~(empty | no_time | late)
-    fr.exposures = frame[keep].reset_index(drop=True) if not keep.all() else frame
+    frame = frame[keep].reset_index(drop=True) if not keep.all() else frame
+    # Exact duplicates (the same id, time, campaign and raw kind) are one event logged twice: an
+    # export appended twice, or a retried upload. They would multiply impressions, so each is
+    # counted once and the extra copies are counted here.
+    dup = pd.DataFrame({"u": frame[UNIT], "t": frame[TIME], "c": frame[CAMPAIGN],
+                        "k": raw_kind[keep].reset_index(drop=True) if not keep.all() else raw_kind}).duplicated().to_numpy()
+    fr.counts["exposure_duplicate_rows"] = int(dup.sum())
+    if dup.any():
+        fr.notes.append(f"{src.path.name}: {int(dup.sum()):,} exposure row(s) repeat another row exactly (same id, "
+                        "time, campaign and kind) and were counted once; if the vendor logs whole seconds, two real "
+                        "impressions in one second look alike")
+        frame = frame[~dup].reset_index(drop=True)
+    fr.exposures = frame
 
 
-def load_identities(spec: Spec, path: PathLike, fr: Frames) -> None:
-    """Fill `fr.identities`: distinct (unit, customer) links."""
+def load_identities(spec: Spec, path: PathLike, as_of: date, fr: Frames) -> None:
+    """Fill `fr.identities`: distinct (unit, customer) links known by the end of the as-of day."""
     ci = spec.audit.identities
-    src = Source(Path(path), "identities")
-    present = _header(src)
-    _need(src, present, {"unit_id": ci.unit_id, "customer": ci.customer}, "[audit.identities]")
-    table = _read_table(src, list(dict.fromkeys([ci.unit_id, ci.customer])))
+    m = read_mapped(path, "identities", "[audit.identities]", {"unit_id": ci.unit_id, "customer": ci.customer},
+                    fr.notes, optional={"time": ci.time}, delimiter=ci.delimiter)
+    src, table = m.src, m.table
     ids, empty = read_ids(src, table, ci.unit_id, fr.notes)
     cust, no_cust = read_ids(src, table, ci.customer, [])
-    del table
+    times = (read_times(src, table, ci.time, fr.notes, ci.time_format, "[audit.identities] time_format")
+             if "time" in m.columns else None)
+    del table, m
     fr.counts["identity_rows"] = len(ids)
     fr.counts["identity_empty_ids"] = _note_empty(src, ci.unit_id, empty, "they name no unit", fr.notes)
     fr.counts["identity_empty_customers"] = _note_empty(src, ci.customer, no_cust & ~empty,
                                                         "they name no customer", fr.notes)
-    frame = pd.DataFrame({UNIT: ids, CUSTOMER: cust})[~(empty | no_cust)]
+    usable = ~(empty | no_cust)
+    if times is not None:
+        no_time = times.isna().to_numpy() & usable
+        fr.counts["identity_missing_time"] = _note_empty(src, ci.time, no_time,
+                                                         f"a link needs a time to be placed before or after {as_of}",
+                                                         fr.notes)
+        late = (times >= cutoff_of(as_of)).to_numpy() & usable & ~no_time
+        fr.counts["identity_links_after_as_of"] = int(late.sum())
+        if late.any():
+            fr.notes.append(f"{src.path.name}: {int(late.sum()):,} identity link(s) made after the as-of date "
+                            f"{as_of} are ignored")
+        usable &= ~(no_time | late)
+    else:
+        known = ids.isin(fr.visits[UNIT]).to_numpy()
+        unknown = usable & ~known
+        fr.counts["identity_links_unseen_units"] = int(unknown.sum())
+        what = f"no '{ci.time}' column" if ci.time else "no link-time column"
+        fr.notes.append(f"{src.path.name}: {what} ([audit.identities] time), so churn as of {as_of} uses only links "
+                        f"of units first seen by then" + (f"; {int(unknown.sum()):,} link(s) of other units were "
+                                                          "set aside" if unknown.any() else ""))
+        usable &= known
+    frame = pd.DataFrame({UNIT: ids, CUSTOMER: cust})[usable]
     before = len(frame)
     frame = frame.drop_duplicates()
     if len(frame) < before:

@@ -83,6 +83,7 @@ class AuditReport(BaseModel):
     experiment: str
     fingerprint: str
     as_of: str  # YYYY-MM-DD
+    data_through: str | None = None  # YYYY-MM-DD: the last day with visits, when before as_of
     generated_at: str  # ISO 8601 UTC
     armlock_version: str
     arms: list[ArmInfo]

@@ -10,7 +10,10 @@ from __future__ import annotations
 import csv
 import gzip
 import io
+import re
+import zlib
 from dataclasses import dataclass, field
+from datetime import date
 from pathlib import Path
 
 import numpy as np
@@ -25,6 +28,8 @@ from armlock.assign import InputError
 MISSING_LEVEL = "(missing)"  # the level an empty categorical value is counted under
 SHOW_ROWS = 5  # how many row numbers an error message lists
 _ZONE = r"(?:[Zz]|[+-]\d\d(?::?\d\d)?)$"
+BOM = b"\xef\xbb\xbf"
+PathLike = str | Path
 
 # Internal column names of the tidy frames (segments and covariates keep their own names).
 UNIT, TIME, ARM, FP, BROWSER = "_unit", "_time", "_arm", "_fp", "_browser"
@@ -62,6 +67,7 @@ class Frames:
     identities: pd.DataFrame | None = None
     notes: list[str] = field(default_factory=list)
     counts: dict[str, int] = field(default_factory=dict)
+    data_through: date | None = None  # the last day the visits have data for, up to the as-of date
 
 
 def _format(path: Path, role: str) -> str:
@@ -76,40 +82,118 @@ def _format(path: Path, role: str) -> str:
     )
 
 
-def _header(src: Source) -> list[str]:
+# What a corrupt file can raise while it is read: Arrow's own errors, OS errors (a Parquet page
+# that fails to decompress), zlib / EOF errors from a damaged gzip body, and decoding errors.
+_READ_ERRORS = (pa.ArrowException, OSError, EOFError, zlib.error, UnicodeDecodeError, ValueError)
+_SEPARATORS = {";": "semicolon", "\t": "tab", "|": "pipe", ",": "comma"}
+
+
+@dataclass
+class Mapped:
+    """A mapped file, read: its source, the table of the wanted columns, and which optional keys it has."""
+
+    src: Source
+    table: pa.Table
+    columns: dict[str, str]  # key -> column name, for every column read (optional ones only if present)
+
+
+def _first_line(src: Source) -> tuple[bytes, bool]:
+    """The raw header line (without a leading BOM) and whether a BOM was there."""
+    path = src.path
+    opener = gzip.open if path.name.lower().endswith(".gz") else open
+    with opener(path, "rb") as fh:  # type: ignore[operator]
+        first = fh.readline(1 << 20)
+    bom = first.startswith(BOM)
+    return (first[len(BOM):] if bom else first), bom
+
+
+def _header(src: Source, delimiter: str = ",", notes: list[str] | None = None) -> list[str]:
+    """The file's column names (CSV header line or Parquet schema); a leading BOM is removed and noted."""
     path = src.path
     if not path.is_file():
         what = "is a directory, not a file" if path.is_dir() else "not found"
         raise InputError(f"{path}: {src.role} file {what}")
     try:
         if src.is_csv:
-            opener = gzip.open if path.name.lower().endswith(".gz") else open
-            with opener(path, "rt", encoding="utf-8-sig", newline="") as fh:  # type: ignore[operator]
-                first = fh.readline()
-            if not first.strip():
+            first, bom = _first_line(src)
+            text = first.decode("utf-8")
+            if not text.strip():
                 raise InputError(f"{path}: the {src.role} file is empty (no header line)")
-            return next(csv.reader(io.StringIO(first)))
+            if bom and notes is not None:
+                notes.append(f"{path.name}: a leading UTF-8 byte-order mark was removed (it is not data)")
+            return next(csv.reader(io.StringIO(text), delimiter=delimiter))
         return list(pq.read_schema(path).names)
     except InputError:
         raise
     except UnicodeDecodeError as exc:
         raise InputError(f"{path}: the {src.role} file is not UTF-8 text (byte {exc.start})") from None
-    except (OSError, pa.ArrowException, EOFError) as exc:
+    except (*_READ_ERRORS, csv.Error) as exc:
         kind = "CSV" if src.is_csv else "Parquet"
-        raise InputError(f"{path}: cannot read the {src.role} file as {kind}: {exc}") from None
+        raise InputError(f"{path}: cannot read the {src.role} file as {kind}: {_why(exc)}") from None
 
 
-def _need(src: Source, present: list[str], wanted: dict[str, str], table: str) -> None:
+def _why(exc: BaseException) -> str:
+    """A read error in words (a damaged gzip body says so rather than quoting zlib)."""
+    text = str(exc) or type(exc).__name__
+    if isinstance(exc, (zlib.error, EOFError, gzip.BadGzipFile)) or "zlib" in text or "gzip" in text.lower():
+        return f"the gzip data is damaged or cut short ({text}); re-export or re-copy the file"
+    return text
+
+
+def _looks_separated(present: list[str], delimiter: str) -> str:
+    """' (the header looks ;-separated: set delimiter = ";" in ...)' when a single column hides others."""
+    if len(present) != 1:
+        return ""
+    counts = {sep: present[0].count(sep) for sep in _SEPARATORS if sep != delimiter}
+    sep, n = max(counts.items(), key=lambda kv: kv[1])
+    if n == 0:
+        return ""
+    shown = "\\t" if sep == "\t" else sep
+    return f"; the header looks {shown}-separated ({_SEPARATORS[sep]}): set delimiter = \"{shown}\""
+
+
+def _setting(table: str, key: str) -> str:
+    """'[audit.visits] arm' - or the key itself when it names its own table ('[audit] segments[0]')."""
+    return key if key.startswith("[") else f"{table} {key}"
+
+
+def _need(src: Source, present: list[str], wanted: dict[str, str], table: str, delimiter: str = ",") -> None:
     """Raise if a mapped column is missing, listing the columns the file does have."""
     for key, col in wanted.items():
         if col not in present:
+            hint = _looks_separated(present, delimiter) if src.is_csv else ""
+            if hint:
+                hint += f" in {table}"
             raise InputError(
-                f"{src.path}: column '{col}' not found in the {src.role} file (spec: {table} "
-                f"{key} = \"{col}\"); the file has columns: {', '.join(present) or '(none)'}"
+                f"{src.path}: column '{col}' not found in the {src.role} file (spec: "
+                f"{_setting(table, key)} = \"{col}\"); the file has columns: {', '.join(present) or '(none)'}{hint}"
             )
 
 
-def _read_table(src: Source, columns: list[str]) -> pa.Table:
+def _no_duplicates(src: Source, present: list[str], wanted: dict[str, str], table: str) -> None:
+    """A mapped column whose name appears twice is ambiguous: refuse rather than pick one."""
+    for key, col in wanted.items():
+        where = [i + 1 for i, c in enumerate(present) if c == col]
+        if len(where) > 1:
+            raise InputError(
+                f"{src.path}: column '{col}' ({_setting(table, key)}) appears {len(where)} times in the {src.role} "
+                f"file (columns {', '.join(map(str, where))}); which one holds the data is ambiguous: "
+                "rename or drop the extra column(s)"
+            )
+
+
+def _scalar_only(src: Source, table: pa.Table, wanted: dict[str, str], spec_table: str) -> None:
+    """Nested columns (lists, structs, maps) cannot be ids, times or labels."""
+    for key, col in wanted.items():
+        typ = table.schema.field(col).type
+        if pa.types.is_nested(typ) or pa.types.is_union(typ):
+            raise InputError(
+                f"{src.path}: column '{col}' ({_setting(spec_table, key)}) holds {typ}, not one value per row; "
+                "flatten it in the export or map another column"
+            )
+
+
+def _read_table(src: Source, columns: list[str], delimiter: str = ",") -> pa.Table:
     try:
         if src.is_csv:
             opts = pacsv.ConvertOptions(
@@ -118,10 +202,38 @@ def _read_table(src: Source, columns: list[str]) -> pa.Table:
                 strings_can_be_null=False,
             )
             return pacsv.read_csv(src.path, read_options=pacsv.ReadOptions(block_size=1 << 24),
+                                  parse_options=pacsv.ParseOptions(delimiter=delimiter),
                                   convert_options=opts)
         return pq.read_table(src.path, columns=columns)
-    except (pa.ArrowException, OSError) as exc:
-        raise InputError(f"{src.path}: cannot read the {src.role} file: {exc}") from None
+    except _READ_ERRORS as exc:
+        raise InputError(f"{src.path}: cannot read the {src.role} file: {_why(exc)}") from None
+
+
+def read_mapped(path: PathLike, role: str, spec_table: str, columns: dict[str, str], notes: list[str], *,
+                optional: dict[str, str] | None = None, delimiter: str = ",") -> Mapped:
+    """Read the mapped columns of one file (CSV, CSV.gz or Parquet) with clear errors.
+
+    The one reader of every mapped input (visits, exposures, identity links, and any later file
+    with a column map). `columns` maps setting keys to required column names, `optional` to
+    columns read when present ("" = not mapped). Rules, which any engine must follow:
+
+    - the format comes from the file name (.csv, .csv.gz, .parquet/.pq); `delimiter` applies to CSV;
+    - a leading UTF-8 byte-order mark is not data: it is removed (and noted);
+    - a required column that is missing is an error listing the file's columns (and, when the
+      header is one field holding separators, which `delimiter` would read it);
+    - a mapped column whose name appears more than once is an error (ambiguous);
+    - a nested column (list, struct, map) mapped as a value is an error;
+    - damaged files (gzip bodies, Parquet pages) are input errors naming the file.
+    """
+    src = Source(Path(path), role)
+    present = _header(src, delimiter, notes)
+    _need(src, present, columns, spec_table, delimiter)
+    found = {k: c for k, c in (optional or {}).items() if c and c in present}
+    wanted = {**columns, **found}
+    _no_duplicates(src, present, wanted, spec_table)
+    table = _read_table(src, list(dict.fromkeys(wanted.values())), delimiter)
+    _scalar_only(src, table, wanted, spec_table)
+    return Mapped(src=src, table=table, columns=wanted)
 
 
 def _arrow(table: pa.Table, col: str) -> pa.ChunkedArray:
@@ -148,50 +260,142 @@ def read_ids(src: Source, table: pa.Table, col: str, notes: list[str]) -> tuple[
     return ids.reset_index(drop=True), np.asarray(empty, dtype=bool)
 
 
-def read_times(src: Source, table: pa.Table, col: str, notes: list[str]) -> pd.Series:
-    """Times as UTC timestamps (NaT for empty cells); zone-less times are read as UTC and noted."""
-    arr = _arrow(table, col)
-    if pa.types.is_timestamp(arr.type):
-        out = pd.Series(arr.to_pandas())
-        if out.dt.tz is None:
-            notes.append(f"{src.path.name}: times in '{col}' have no zone; read as UTC")
-            return out.dt.tz_localize("UTC")
-        return out.dt.tz_convert("UTC")
-    if pa.types.is_date(arr.type):
-        notes.append(f"{src.path.name}: '{col}' holds dates without a time; read as midnight UTC")
-        return pd.to_datetime(pd.Series(arr.to_pandas())).dt.tz_localize("UTC")
-    if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
-        raise InputError(f"{src.path}: column '{col}' holds {arr.type}, not times (use ISO 8601 text or timestamps)")
-    text = pd.Series(pc.utf8_trim_whitespace(pc.fill_null(arr, "")).to_pandas(), dtype="str")
-    parsed = pd.to_datetime(text, utc=True, format="ISO8601", errors="coerce")
-    blank = (text == "").to_numpy()
-    bad = np.flatnonzero(parsed.isna().to_numpy() & ~blank)
-    if len(bad):
-        sample = text.iloc[bad[0]]
+# Times the engine can hold (nanoseconds since 1970 in an int64); anything outside is an input error.
+_T_MIN = pd.Timestamp("1678-01-01", tz="UTC")
+_T_MAX = pd.Timestamp("2262-01-01", tz="UTC")
+_FORMAT_WORDS = {"iso8601": "ISO 8601", "epoch_seconds": "epoch seconds", "epoch_milliseconds": "epoch milliseconds"}
+
+
+def looks_like(sample: str) -> str:
+    """What a time value that did not parse looks like, and the format setting that reads it."""
+    t = sample.strip()
+    if re.fullmatch(r"-?\d{9,10}(\.\d+)?", t):
+        return 'looks like epoch seconds: set "epoch_seconds"'
+    if re.fullmatch(r"-?\d{12,13}(\.\d+)?", t):
+        return 'looks like epoch milliseconds: set "epoch_milliseconds"'
+    m = re.fullmatch(r"(\d{1,2})([./-])(\d{1,2})\2(\d{4})(.*)", t)
+    if m:
+        sep, rest = m.group(2), m.group(5)
+        tail = " %H:%M:%S" if re.fullmatch(r"[ T]\d\d:\d\d:\d\d", rest) else (" %H:%M" if re.fullmatch(r"[ T]\d\d:\d\d", rest) else "")
+        if int(m.group(1)) > 12:
+            return f'looks like day/month/year: set "%d{sep}%m{sep}%Y{tail}"'
+        if int(m.group(3)) > 12:
+            return f'looks like month/day/year: set "%m{sep}%d{sep}%Y{tail}"'
+        return (f'looks like day/month/year or month/day/year: set "%d{sep}%m{sep}%Y{tail}" or '
+                f'"%m{sep}%d{sep}%Y{tail}" (check which one your export writes)')
+    return "is not a time in the set format"
+
+
+def _range_checked(src: Source, col: str, parsed: pd.Series) -> pd.Series:
+    """Times as datetime64[ns, UTC]; a time outside 1678-2261 is an input error naming rows."""
+    far = np.flatnonzero(((parsed < _T_MIN) | (parsed >= _T_MAX)).fillna(False).to_numpy(dtype=bool))
+    if len(far):
         raise InputError(
-            f"{src.path}: column '{col}' has {len(bad):,} time(s) that are not ISO 8601 "
-            f"(first: {src.rows(bad)}; e.g. {sample!r}); write times like 2026-12-01T10:00:00Z"
+            f"{src.path}: column '{col}' has {len(far):,} time(s) outside the years 1678-2261 "
+            f"(first: {src.rows(far)}; e.g. {parsed.iloc[far[0]]}); check the export or the time format"
         )
-    zoned = text.str.contains(_ZONE, regex=True)
-    naive = int((~zoned & ~pd.Series(blank)).sum())
-    if naive:
-        notes.append(f"{src.path.name}: {naive:,} time(s) in '{col}' have no zone; read as UTC")
-    return parsed
+    return parsed.dt.as_unit("ns")
+
+
+def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: str = "iso8601",
+               setting: str = "") -> pd.Series:
+    """Times as UTC timestamps (NaT for empty cells); zone-less times are read as UTC and noted.
+
+    `fmt` is the column's time format ("iso8601", "epoch_seconds", "epoch_milliseconds" or a
+    strftime pattern); it applies to text and numbers, while Parquet timestamps are read as
+    they are. `setting` names the spec key that sets it, for the messages.
+    """
+    arr = _arrow(table, col)
+    where = setting or "the column's time format"
+    if pa.types.is_timestamp(arr.type) or pa.types.is_date(arr.type):
+        try:
+            values = arr.cast(pa.timestamp("us", arr.type.tz if pa.types.is_timestamp(arr.type) else None))
+        except pa.ArrowException as exc:
+            raise InputError(f"{src.path}: column '{col}' has times that cannot be read: {exc}") from None
+        out = pd.Series(values.to_pandas())
+        if pa.types.is_date(arr.type):
+            notes.append(f"{src.path.name}: '{col}' holds dates without a time; read as midnight UTC")
+            out = out.dt.tz_localize("UTC")
+        elif out.dt.tz is None:
+            notes.append(f"{src.path.name}: times in '{col}' have no zone; read as UTC")
+            out = out.dt.tz_localize("UTC")
+        else:
+            out = out.dt.tz_convert("UTC")
+        return _range_checked(src, col, out)
+    numeric = pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type)
+    if numeric and fmt not in ("epoch_seconds", "epoch_milliseconds"):
+        sample = pc.drop_null(arr)
+        hint = looks_like(str(sample[0].as_py())) if len(sample) else "holds numbers"
+        raise InputError(f"{src.path}: column '{col}' holds numbers ({arr.type}), not {_FORMAT_WORDS.get(fmt, fmt)} "
+                         f"times; it {hint} in {where}")
+    if not (numeric or pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+        raise InputError(f"{src.path}: column '{col}' holds {arr.type}, not times (use ISO 8601 text or timestamps)")
+    if numeric:
+        text = pd.Series(arr.cast(pa.float64()).to_numpy(zero_copy_only=False))
+        blank = text.isna().to_numpy()
+        shown = text.astype("str")
+    else:
+        shown = pd.Series(pc.utf8_trim_whitespace(pc.fill_null(arr, "")).to_pandas(), dtype="str")
+        blank = (shown == "").to_numpy()
+        text = shown
+    if fmt in ("epoch_seconds", "epoch_milliseconds"):
+        nums = pd.to_numeric(text.where(~blank, None), errors="coerce").astype("float64")
+        scale = 1.0 if fmt == "epoch_seconds" else 1e-3
+        secs = nums * scale
+        ok = secs.abs() < 9.2e9  # inside the int64-nanosecond range, so the conversion cannot overflow
+        parsed = pd.to_datetime(secs.where(ok), unit="s", utc=True, errors="coerce")
+        bad = np.flatnonzero((nums.isna() | ~ok).to_numpy() & ~blank)
+    elif fmt == "iso8601":
+        parsed = pd.to_datetime(text, utc=True, format="ISO8601", errors="coerce")
+        bad = np.flatnonzero(parsed.isna().to_numpy() & ~blank)
+    else:
+        parsed = pd.to_datetime(text, utc=True, format=fmt, errors="coerce")
+        bad = np.flatnonzero(parsed.isna().to_numpy() & ~blank)
+    if len(bad):
+        sample = str(shown.iloc[bad[0]])
+        if fmt == "iso8601":
+            known = [t for t in (str(shown.iloc[i]) for i in bad[:100]) if not looks_like(t).startswith("is not")]
+            if known:
+                hint = f"e.g. {sample!r}; {known[0]!r} {looks_like(known[0])} in {where}"
+            else:
+                hint = f"e.g. {sample!r}; write times like 2026-12-01T10:00:00Z, or set the format in {where}"
+        else:
+            hint = f"e.g. {sample!r}, which does not match {where} = {fmt!r}"
+        raise InputError(
+            f"{src.path}: column '{col}' has {len(bad):,} time(s) that are not "
+            f"{_FORMAT_WORDS.get(fmt, repr(fmt))} (first: {src.rows(bad)}; {hint})"
+        )
+    if fmt == "iso8601":
+        zoned = text.str.contains(_ZONE, regex=True)
+        naive = int((~zoned & ~pd.Series(blank)).sum())
+        if naive:
+            notes.append(f"{src.path.name}: {naive:,} time(s) in '{col}' have no zone; read as UTC")
+    elif fmt not in ("epoch_seconds", "epoch_milliseconds") and "%z" not in fmt and "%Z" not in fmt:
+        if int((~blank).sum()):
+            notes.append(f"{src.path.name}: times in '{col}' ({fmt!r}) have no zone; read as UTC")
+    return _range_checked(src, col, parsed)
 
 
 def read_numbers(src: Source, table: pa.Table, col: str) -> pd.Series:
-    """A numeric covariate as float64 (NaN for empty cells); text that is not a number raises."""
+    """A numeric covariate as float64 (NaN for empty cells); text that is not a finite number raises.
+
+    Integers beyond 2^53 (even beyond int64) become the nearest float; "inf" and "nan" are refused.
+    """
     arr = _arrow(table, col)
     if pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type) or pa.types.is_boolean(arr.type):
-        return pd.Series(arr.cast(pa.float64()).to_numpy(zero_copy_only=False))
-    if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+        nums = pd.Series(arr.cast(pa.float64(), safe=False).to_numpy(zero_copy_only=False))
+        text = nums.astype("str")
+        given = nums.notna().to_numpy()
+    elif pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type):
+        text = pd.Series(pc.utf8_trim_whitespace(pc.fill_null(arr, "")).to_pandas(), dtype="str")
+        given = (text != "").to_numpy()
+        nums = pd.to_numeric(text.where(given, None), errors="coerce").astype("float64")
+    else:
         raise InputError(f"{src.path}: column '{col}' holds {arr.type}, not numbers")
-    text = pd.Series(pc.utf8_trim_whitespace(pc.fill_null(arr, "")).to_pandas(), dtype="str")
-    nums = pd.to_numeric(text.where(text != "", None), errors="coerce").astype("float64")
-    bad = np.flatnonzero(nums.isna().to_numpy() & (text != "").to_numpy())
+    bad = np.flatnonzero(~np.isfinite(nums.to_numpy()) & given)
     if len(bad):
         raise InputError(
-            f"{src.path}: column '{col}' has {len(bad):,} value(s) that are not numbers "
+            f"{src.path}: column '{col}' has {len(bad):,} value(s) that are not finite numbers "
             f"(first: {src.rows(bad)}; e.g. {text.iloc[bad[0]]!r})"
         )
     return nums

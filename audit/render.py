@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 import textwrap
 from collections.abc import Callable
 from typing import Any
@@ -13,6 +14,15 @@ from .model import AuditReport, Check, Figure, Table
 
 MARK = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIP"}
 MAX_ROWS = 15  # rows of a table shown in text and markdown (the JSON has them all)
+# Terminal control characters (C0 but the line feed, DEL, C1) and bidirectional overrides: data
+# (ids, campaign names, column names) must not move the cursor, recolour or reorder the terminal.
+_CONTROL = re.compile("[\x00-\x09\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
+
+
+def strip_controls(text: str) -> str:
+    """Control characters as visible escapes (\\x1b, \\u202e) so a terminal shows, never obeys, them."""
+    return _CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}" if ord(m.group()) < 256
+                        else f"\\u{ord(m.group()):04x}", text)
 
 
 def fmt_value(v: Any, unit: str = "number") -> str:
@@ -71,7 +81,8 @@ def _numeric(s: str) -> bool:
 
 def render_text(r: AuditReport) -> str:
     arms = ", ".join(f"{a.name} {a.weight / 100:g}% ({a.role})" for a in r.arms)
-    out = [f"armlock audit: {r.experiment}   as of {r.as_of}   spec {r.fingerprint}",
+    through = f" (data through {r.data_through} only)" if r.data_through else ""
+    out = [f"armlock audit: {r.experiment}   as of {r.as_of}{through}   spec {r.fingerprint}",
            f"arms: {arms}",
            f"verdict: {MARK[r.verdict]}  {r.verdict_text}", ""]
     if r.input_notes:
@@ -93,11 +104,13 @@ def render_text(r: AuditReport) -> str:
         for line in explanations(c):
             out.append(textwrap.fill(line, width=100, initial_indent="    * ", subsequent_indent="      "))
         out.append("")
-    return "\n".join(out).rstrip() + "\n"
+    return strip_controls("\n".join(out).rstrip()) + "\n"
 
 
 def _md_escape(s: str) -> str:
-    return s.replace("|", "\\|").replace("\n", " ")
+    """Text from data made inert in markdown: HTML escaped (no raw tags), table pipes escaped, one line."""
+    s = s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+    return strip_controls(s.replace("|", "\\|").replace("\r", " ").replace("\n", " "))
 
 
 def md_table(t: Table) -> str:
@@ -112,7 +125,7 @@ def md_table(t: Table) -> str:
 
 def render_markdown(r: AuditReport) -> str:
     out = [f"## armlock audit: {r.experiment} — **{MARK[r.verdict]}**", "",
-           f"As of **{r.as_of}** (UTC), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
+           f"As of **{r.as_of}** (UTC{', data through ' + r.data_through + ' only' if r.data_through else ''}), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
            f"> {r.verdict_text}", "",
            "| check | status | what it means |", "|---|---|---|"]
     out += [f"| {_md_escape(c.title)} | **{MARK[c.status]}** | {_md_escape(c.summary)} |" for c in r.checks]
@@ -121,7 +134,7 @@ def render_markdown(r: AuditReport) -> str:
     for c in r.checks:
         if c.status == "skipped":
             continue
-        out += ["", f"### {c.title} — {MARK[c.status]}", ""]
+        out += ["", f"### {_md_escape(c.title)} — {MARK[c.status]}", ""]
         if c.figures:
             out += ["| figure | value |", "|---|---|"]
             out += [f"| {_md_escape(f.label)} | {_md_escape(_fig(f))} |" for f in c.figures.values()]

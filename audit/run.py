@@ -32,12 +32,13 @@ VERDICT_TEXT = {
 }
 
 
-def checks_from_tables(spec: Spec, tables: engine_pandas.AuditTables, counts: dict[str, int]) -> list[Check]:
+def checks_from_tables(spec: Spec, tables: engine_pandas.AuditTables, counts: dict[str, int],
+                       split_changes: list[str] | None = None) -> list[Check]:
     """The statistics and verdicts, from sufficient statistics only (engine-independent)."""
     return [
         check_srm(spec, tables.split),
         check_srm_segments(spec, tables.split),
-        check_integrity(spec, tables.integrity, counts),
+        check_integrity(spec, tables.integrity, counts, split_changes or []),
         check_leakage(spec, tables.leakage),
         check_churn(spec, tables.churn),
         check_balance(spec, tables.balance),
@@ -52,10 +53,13 @@ def run_audit(
     identities: PathLike | None = None,
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
+    split_changes: list[str] | None = None,
 ) -> AuditReport:
     """Audit a test's logs as of the end of `as_of` (UTC; default: the last first-seen day).
 
     Raises `assign.InputError` for unusable files (message names file, column and rows).
+    `split_changes` are sentences about confirmed changes of the split made after the start
+    (from the lock file): each makes the integrity check fail.
     `advance(n)` is called with each file's size in bytes once it is read (for a progress bar
     whose total is `input_bytes(visits, exposures, identities)`).
     """
@@ -67,15 +71,16 @@ def run_audit(
         load_exposures(spec, exposures, used, fr)
         step(input_bytes(exposures))
     if identities is not None:
-        load_identities(spec, identities, fr)
+        load_identities(spec, identities, used, fr)
         step(input_bytes(identities))
     tables = engine_pandas.compute(spec, fr)
-    checks = checks_from_tables(spec, tables, fr.counts)
+    checks = checks_from_tables(spec, tables, fr.counts, split_changes or [])
     verdict = worst([c.status for c in checks])
     return AuditReport(
         experiment=spec.name,
         fingerprint=spec.fingerprint,
         as_of=used.isoformat(),
+        data_through=fr.data_through.isoformat() if fr.data_through and fr.data_through < used else None,
         generated_at=datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
         armlock_version=__version__,
         arms=[ArmInfo(name=a.name, weight=a.weight, role=a.role) for a in spec.arms],

@@ -227,6 +227,8 @@ def generate(
         ci.unit_id: pd.array(v["ids"][has], dtype="str"),
         ci.customer: pd.array(_ids(v["customer"][has], "c-"), dtype="str"),
     })
+    if ci.time:  # the link is made when the unit is first seen logged in
+        identities[ci.time] = first_seen[has]
 
     # -- the vendor's exposure log -------------------------------------------------------
     nv = len(v["ids"])

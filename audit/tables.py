@@ -107,6 +107,15 @@ class LeakageTables:
     # Per visits row (the engine's row order): exposed during the test. The readout's exposure
     # flag; an engine that keeps no row order (Spark) leaves it None and the readout joins instead.
     exposed_rows: Any = field(default=None, repr=False)
+    # Row-level counts (rules in audit/load.py): rows in the file, and exact duplicates counted once.
+    rows_read: int = 0  # exposure rows in the file, before any row was set aside
+    duplicate_rows: int = 0  # rows identical to an earlier one in id, time, campaign and kind
+    # Why exposed ids may not match the visits (each over the DISTINCT unseen ids):
+    unseen_hash_like: int = 0  # ids of 32, 40 or 64 hex digits (MD5 / SHA-1 / SHA-256 written in hex)
+    unseen_prefix: str = ""  # the longest prefix every unseen id shares (at most 40 characters)
+    unseen_match_without_prefix: int = 0  # unseen ids that are a visit id once that prefix is removed
+    visits_prefix: str = ""  # the longest prefix every visit id shares (at most 40 characters)
+    unseen_match_with_visits_prefix: int = 0  # unseen ids that are a visit id once that prefix is added
 
 
 @dataclass
@@ -120,6 +129,7 @@ class ChurnTables:
     by_browser: pd.DataFrame  # index: browser; columns: customers, multi_arm (a customer counts per browser)
     browser_hist: pd.DataFrame  # columns: browser, ids (the customer's ids on it), customers
     ids_not_in_visits: int
+    link_ids: int = 0  # distinct unit ids in the links used
 
 
 @dataclass

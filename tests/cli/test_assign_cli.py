@@ -82,7 +82,9 @@ def test_assign_lines_from_stdin(spec: Path, tmp_path: Path) -> None:
 
 
 def test_assign_csv_round_trips_hostile_ids(spec: Path, tmp_path: Path) -> None:
-    ids = ['a,b', 'say "hi"', "two\nlines", "crlf\r\ninside", " padded ", "é😀", "NA", ""]
+    # ids a spreadsheet would read as formulas stay byte-exact: armlock never rewrites an id
+    ids = ['a,b', 'say "hi"', "two\nlines", "crlf\r\ninside", " padded ", "é😀", "NA", "", "=1+1", "+41",
+           "-cmd", "@SUM(A1)", "\t=x"]
     with open(tmp_path / "in.csv", "w", encoding="utf-8", newline="") as fh:
         w = csv.writer(fh)
         w.writerow(["visitor_id", "other"])
@@ -108,7 +110,8 @@ def test_assign_parquet_in_and_out(spec: Path, tmp_path: Path) -> None:
     s = load_spec(spec)
     assert out["unit_id"] == ids
     assert out["arm"] == [arm_for(s, i) if i else None for i in ids]
-    assert r.stderr.decode() == "Wrote 1,002 rows to arms.parquet (2 empty ids got no arm)\n"
+    assert r.stderr.decode() == "Wrote 1,002 rows to arms.parquet; 2 of 1,002 ids were empty and got no arm\n"
+    assert pq.read_schema(tmp_path / "arms.parquet").field("bucket").type == pa.int16()  # nullable integer, not float
 
 
 def test_assign_bad_files(spec: Path, tmp_path: Path) -> None:
@@ -141,12 +144,18 @@ def test_assign_sql_spark(spec: Path, tmp_path: Path) -> None:
     assert r.returncode == 2 and b"unknown dialect 'oracle'; choose one of: spark" in r.stderr
 
 
-def test_changed_split_warns_loudly(spec: Path, tmp_path: Path) -> None:
+def test_changed_split_stops_every_command_until_confirmed(spec: Path, tmp_path: Path) -> None:
+    # The user's mistake: editing the weights of a running test; a scheduler must see it (exit 6).
     assert run(tmp_path, "assign", "--spec", spec.name, stdin="a\n").returncode == 0  # records lock
     text = spec.read_text(encoding="utf-8").replace("weight = 2000", "weight = 3000").replace("weight = 8000", "weight = 7000")
     spec.write_text(text, encoding="utf-8")
-    r = run(tmp_path, "assign", "--spec", spec.name, stdin="a\n")
-    err = r.stderr.decode()
-    assert r.returncode == 0
-    assert "THE SPLIT HAS CHANGED. the arms changed from [holdout 2000, exposed 8000] to [holdout 3000, exposed 7000]" in err
-    assert "delete spring-test.toml.lock to record the new split" in err
+    for cmd in (["assign"], ["snippet"], ["check"], ["history"]):
+        r = run(tmp_path, *cmd, "--spec", spec.name, stdin="a\n")
+        err = r.stderr.decode()
+        assert r.returncode == 6, (cmd, err)
+        assert "THE SPLIT HAS CHANGED. the arms changed from [holdout 2000, exposed 8000] to [holdout 3000, exposed 7000]" in err
+        assert "rerun with --accept-changed-split to record the new split" in err
+        assert r.stdout == b"" or cmd == ["check"]  # check still shows the lock status
+    r = run(tmp_path, "assign", "--spec", spec.name, "--accept-changed-split", stdin="a\n")
+    assert r.returncode == 0 and b"Recorded the new split" in r.stderr
+    assert run(tmp_path, "snippet", "--spec", spec.name).returncode == 0  # confirmed once, for every command

@@ -107,7 +107,9 @@ def test_unparseable_timestamps_name_first_lines(tmp_path: Path, spec: Path) -> 
     r = run(tmp_path, "--spec", spec.name, "--visits", "visits.csv")
     assert r.returncode == 4
     assert r.stderr == ("Error: visits.csv: column 'first_seen' has 2 time(s) that are not ISO 8601 (first: "
-                        "lines 3, 5; e.g. 'yesterday'); write times like 2026-12-01T10:00:00Z\n")
+                        "lines 3, 5; e.g. 'yesterday'; '06/01/2026 10:00' looks like day/month/year or month/day/year: "
+                        "set \"%d/%m/%Y %H:%M\" or \"%m/%d/%Y %H:%M\" (check which one your export writes) in "
+                        "[audit.visits] first_seen_format)\n")
 
 
 def test_non_numeric_covariate_names_rows(tmp_path: Path, spec: Path) -> None:
@@ -116,7 +118,7 @@ def test_non_numeric_covariate_names_rows(tmp_path: Path, spec: Path) -> None:
     _visits(tmp_path, rows)
     r = run(tmp_path, "--spec", spec.name, "--visits", "visits.csv")
     assert r.returncode == 4
-    assert r.stderr == ("Error: visits.csv: column 'pre_orders' has 1 value(s) that are not numbers "
+    assert r.stderr == ("Error: visits.csv: column 'pre_orders' has 1 value(s) that are not finite numbers "
                         "(first: line 4; e.g. 'many')\n")
 
 
