@@ -65,7 +65,8 @@ def audit_cmd(
     identity churn and covariate balance. Column names come from the spec's [audit] tables.
 
     Exit codes: 0 pass (or warn without --strict), 1 warn with --strict, 3 fail, 4 bad input
-    (a file, column or row is wrong: nothing was judged).
+    (a file, column or row is wrong: nothing was judged), 6 the spec's split changed since its
+    lock was recorded (confirm with --accept-changed-split).
 
     Example:
       armlock audit --spec spring.toml --visits visits.parquet --exposures exposures.csv.gz \\

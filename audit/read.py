@@ -377,25 +377,22 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
 
 
 def read_numbers(src: Source, table: pa.Table, col: str) -> pd.Series:
-    """A numeric covariate as float64 (NaN for empty cells); text that is not a finite number raises.
+    """A numeric covariate as float64 (NaN for empty cells); text that is not a number raises.
 
-    Integers beyond 2^53 (even beyond int64) become the nearest float; "inf" and "nan" are refused.
+    Integers beyond 2^53 (even beyond int64) become the nearest float; +/-infinity passes through
+    (the balance tables count it as invalid and note it).
     """
     arr = _arrow(table, col)
     if pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type) or pa.types.is_boolean(arr.type):
-        nums = pd.Series(arr.cast(pa.float64(), safe=False).to_numpy(zero_copy_only=False))
-        text = nums.astype("str")
-        given = nums.notna().to_numpy()
-    elif pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type):
-        text = pd.Series(pc.utf8_trim_whitespace(pc.fill_null(arr, "")).to_pandas(), dtype="str")
-        given = (text != "").to_numpy()
-        nums = pd.to_numeric(text.where(given, None), errors="coerce").astype("float64")
-    else:
+        return pd.Series(arr.cast(pa.float64(), safe=False).to_numpy(zero_copy_only=False))
+    if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
         raise InputError(f"{src.path}: column '{col}' holds {arr.type}, not numbers")
-    bad = np.flatnonzero(~np.isfinite(nums.to_numpy()) & given)
+    text = pd.Series(pc.utf8_trim_whitespace(pc.fill_null(arr, "")).to_pandas(), dtype="str")
+    nums = pd.to_numeric(text.where(text != "", None), errors="coerce").astype("float64")
+    bad = np.flatnonzero(nums.isna().to_numpy() & (text != "").to_numpy())
     if len(bad):
         raise InputError(
-            f"{src.path}: column '{col}' has {len(bad):,} value(s) that are not finite numbers "
+            f"{src.path}: column '{col}' has {len(bad):,} value(s) that are not numbers "
             f"(first: {src.rows(bad)}; e.g. {text.iloc[bad[0]]!r})"
         )
     return nums

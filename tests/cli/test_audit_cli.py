@@ -118,7 +118,7 @@ def test_non_numeric_covariate_names_rows(tmp_path: Path, spec: Path) -> None:
     _visits(tmp_path, rows)
     r = run(tmp_path, "--spec", spec.name, "--visits", "visits.csv")
     assert r.returncode == 4
-    assert r.stderr == ("Error: visits.csv: column 'pre_orders' has 1 value(s) that are not finite numbers "
+    assert r.stderr == ("Error: visits.csv: column 'pre_orders' has 1 value(s) that are not numbers "
                         "(first: line 4; e.g. 'many')\n")
 
 
