@@ -47,6 +47,9 @@ def assign_cmd(
             raise typer.BadParameter("--sql needs --id-column NAME (the column holding the unit id)", param_hint="--id-column")
         if source is not None:
             raise typer.BadParameter("--sql prints an expression; it takes no input file", param_hint="--sql")
+        if only or ids_only:
+            raise typer.BadParameter("--only and --ids-only filter a file of ids; with --sql, filter on the arm "
+                                     "expression in a WHERE clause instead", param_hint="--sql")
         typer.echo((spark_bucket_expr if bucket_only else spark_arm_expr)(spec, id_column))
         return
     if id_column or bucket_only:

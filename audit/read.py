@@ -308,8 +308,9 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
     arr = _arrow(table, col)
     where = setting or "the column's time format"
     if pa.types.is_timestamp(arr.type) or pa.types.is_date(arr.type):
-        try:
-            values = arr.cast(pa.timestamp("us", arr.type.tz if pa.types.is_timestamp(arr.type) else None))
+        try:  # nanoseconds stay as they are; coarser units widen to microseconds (exact, wider range)
+            nano = pa.types.is_timestamp(arr.type) and arr.type.unit == "ns"
+            values = arr if nano else arr.cast(pa.timestamp("us", arr.type.tz if pa.types.is_timestamp(arr.type) else None))
         except pa.ArrowException as exc:
             raise InputError(f"{src.path}: column '{col}' has times that cannot be read: {exc}") from None
         out = pd.Series(values.to_pandas())

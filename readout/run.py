@@ -57,7 +57,7 @@ def run_readout(
         load_exposures(spec, exposures, used, fr)
         step(input_bytes(exposures))
     if identities is not None:
-        load_identities(spec, identities, fr)
+        load_identities(spec, identities, used, fr)
         step(input_bytes(identities))
     counts: dict[str, float] = {}
     order_frame = load_orders(spec, orders, used, fr.notes, counts)

@@ -264,3 +264,28 @@ def test_9_a_semicolon_csv_says_which_delimiter_reads_it(logs: tuple[Path, dict[
     gz = tmp_path / "v.csv.gz"
     gz.write_bytes(gzip.compress((tmp_path / "v.csv").read_bytes()))
     assert run_audit(_spec(tmp_path, '\n[audit.visits]\ndelimiter = ";"\n'), visits=gz).verdict == ok.verdict
+
+
+# issue 14, item 8 ---------------------------------------------------------------------------
+def test_the_holdout_list_for_a_vendor_exclusion_upload(tmp_path: Path) -> None:
+    # Mistake avoided: uploading the whole visitor list (or the exposed arm) as the exclusion list.
+    spec = write_spec(tmp_path)
+    s = load_spec(spec)
+    ids = [f"visitor-{i}" for i in range(400)] + ["", "line\nbreak"]
+    pd.DataFrame({"visitor_id": ids, "x": 1}).to_csv(tmp_path / "visits.csv", index=False)
+    r = cli(tmp_path, "assign", "--spec", spec.name, "visits.csv", "--column", "visitor_id", "--only", "holdout",
+            "--ids-only", "--out", "holdout.txt")
+    assert r.returncode == 0, r.stderr
+    held = (tmp_path / "holdout.txt").read_text(encoding="utf-8").splitlines()
+    assert held == [i for i in ids if i and "\n" not in i and arm_for(s, i) == "holdout"]
+    assert 40 < len(held) < 120  # a 20% arm of 400
+    err = r.stderr.decode()
+    broken = int(arm_for(s, "line\nbreak") == "holdout")
+    assert err.startswith(f"Kept {len(held) + broken:,} of {len(ids):,} ids (arms holdout) in holdout.txt")
+    assert ("1 id(s) contain a line break" in err) == bool(broken)
+    # by arm name, full CSV rows
+    r = cli(tmp_path, "assign", "--spec", spec.name, "visits.csv", "--column", "visitor_id", "--only", "exposed")
+    rows = r.stdout.decode().splitlines()
+    assert rows[0] == "unit_id,bucket,arm" and all(row.endswith(",exposed") for row in rows[1:] if "," in row)
+    r = cli(tmp_path, "assign", "--spec", spec.name, "visits.csv", "--column", "visitor_id", "--only", "control")
+    assert r.returncode == 2 and b"'control' is neither an arm of the spec (holdout, exposed) nor a role" in r.stderr
