@@ -66,7 +66,8 @@ def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | N
                 raise InputError(f"{spec_path}: [readout.orders] keys orders by customer, not by visitor id; the "
                                  "planner needs the visitor id of each order: give --orders-unit-column")
             kw.update(orders_unit_id=getattr(orders, "unit_id", None) or "unit_id",
-                      orders_revenue=getattr(orders, "revenue", "revenue"))
+                      orders_revenue=getattr(orders, "revenue", "revenue"),
+                      orders_order_id=getattr(orders, "order_id", "") or "")
         if getattr(ro, "covariates", None):
             kw["covariates"] = tuple(dict.fromkeys([*ro.covariates, *spec.audit.covariates]))
     if covariate:
@@ -97,9 +98,14 @@ def carry_plan_into_spec_text(text: str, *, planned_units: int, margin: float | 
     values = {"planned_units": f"{planned_units}", "alpha": f"{alpha:g}", "power": f"{power:g}"}
     if margin is not None:
         values["margin"] = f"{margin:g}"
+    def put(m: re.Match[str], v: str) -> str:  # keep the comment in its column when the value fits
+        old_width = len(m.group(2)) + len(m.group(3))
+        pad = max(old_width - len(v), 1) if m.group(4) else 0
+        return f"{m.group(1)}{v}{' ' * pad}{m.group(4) or ''}"
+
     for key, value in values.items():
-        section = re.sub(rf"(?m)^({key}[ \t]*=[ \t]*)[^#\n]*?([ \t]*(#.*)?)$",
-                         lambda m, v=value: f"{m.group(1)}{v}{m.group(2)}", section, count=1)
+        section = re.sub(rf"(?m)^({key}[ \t]*=[ \t]*)([^#\n]*?)([ \t]*)(#.*)?$",
+                         lambda m, v=value: put(m, v), section, count=1)
     return text[:start] + section + text[end:]
 
 

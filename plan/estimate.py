@@ -31,6 +31,7 @@ class PrePeriodColumns:
     first_seen: str = "first_seen"
     orders_unit_id: str = "unit_id"
     orders_revenue: str = "revenue"
+    orders_order_id: str = ""  # optional: an order id repeated in the file is counted once (as the readout does)
     covariates: Sequence[str] = ("pre_orders", "pre_revenue")  # tried in turn; the best correlated is used
     covariate_explicit: bool = False  # True when the user named the covariate: then it must exist
 
@@ -83,7 +84,9 @@ def _orders(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Se
     src = Source(path, "orders")
     present = _header(src)
     _need(src, present, {"unit_id": cols.orders_unit_id, "revenue": cols.orders_revenue}, "orders columns")
-    table = _read_table(src, list(dict.fromkeys([cols.orders_unit_id, cols.orders_revenue])))
+    with_id = bool(cols.orders_order_id) and cols.orders_order_id in present
+    table = _read_table(src, list(dict.fromkeys([cols.orders_unit_id, cols.orders_revenue]
+                                                + ([cols.orders_order_id] if with_id else []))))
     if table.num_rows == 0:
         raise InputError(f"{path}: the orders file has no orders (a header but no rows); the planner needs the "
                          "pre-period's orders to estimate revenue per unit")
@@ -93,6 +96,13 @@ def _orders(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Se
     no_rev = revenue.isna().to_numpy() & ~empty
     _set_aside(src, no_rev, f"without a '{cols.orders_revenue}' value", notes)
     keep = ~(empty | no_rev)
+    if with_id:
+        oid, _ = read_ids(src, table, cols.orders_order_id, notes)
+        rep = (oid.duplicated(keep="first") & (oid != "")).to_numpy() & keep
+        if rep.any():
+            notes.append(f"{src.path.name}: {int(rep.sum()):,} repeated order id(s) in '{cols.orders_order_id}' "
+                         f"were counted once ({src.rows(np.flatnonzero(rep), int(rep.sum()))})")
+            keep &= ~rep
     neg = int((revenue[keep] < 0).sum())
     if neg:
         notes.append(f"{src.path.name}: {neg:,} order(s) with negative revenue (refunds) were kept and count "

@@ -142,9 +142,28 @@ def test_plan_carries_into_the_readout_section() -> None:
     from armlock.cmd_plan import carry_plan_into_spec_text
 
     out = carry_plan_into_spec_text(READOUT_SECTION, planned_units=1_260_000, margin=0.35, alpha=0.1, power=0.9)
-    assert "planned_units = 1260000             # units the test plans; 0 = as of now" in out
-    assert "margin = 0.35                  # gross margin" in out
-    assert "alpha = 0.1                  # two-sided level" in out and "power = 0.9" in out
+    assert "planned_units = 1260000       # units the test plans; 0 = as of now" in out  # comment keeps its column
+    assert "margin = 0.35                 # gross margin" in out
+    assert "alpha = 0.1                   # two-sided level" in out and "power = 0.9" in out
     assert "[audit]\nx = 1" in out and 'unit_id = "unit_id"' in out  # other sections untouched
     assert carry_plan_into_spec_text("[audit]\nplanned_units = 0\n", planned_units=5, margin=None, alpha=0.05,
                                      power=0.8) == "[audit]\nplanned_units = 0\n"  # no [readout]: unchanged
+
+
+def test_from_files_with_the_specs_column_maps(tmp_path: Path) -> None:
+    assert run_cli(tmp_path, "init", "colmap", "--holdout-share", "0.1").returncode == 0
+    spec = (tmp_path / "colmap.toml").read_text()
+    if "[readout.orders]" not in spec:
+        pytest.fail("armlock init writes no [readout.orders] table")
+    spec = spec.replace('[readout.orders]\n', '[readout.orders]\nrevenue = "amount"\n', 1)
+    lines = [ln for ln in spec.splitlines() if not ln.startswith("revenue = \"revenue\"")]
+    (tmp_path / "colmap.toml").write_text("\n".join(lines) + "\n")
+    (tmp_path / "v.csv").write_text("unit_id,first_seen,pre_revenue\n" + "".join(
+        f"u{i},2026-10-{1 + i % 14:02d}T10:00:00Z,{(i * 7) % 30}\n" for i in range(600)))
+    (tmp_path / "o.csv").write_text("unit_id,amount\n" + "".join(f"u{i},{10 + (i * 7) % 30}\n" for i in range(0, 600, 5)))
+    r = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv", "--spec", "colmap.toml", "--lift", "0.2",
+                "--format", "json")
+    assert r.returncode == 0, r.stderr
+    d = json.loads(r.stdout)
+    assert d["inputs"]["weekly_units"] == pytest.approx(300.0)
+    assert any("pre_revenue" in e["how"] for e in d["estimated"])

@@ -138,3 +138,14 @@ def test_a_weak_correlation_is_not_planned_on(tmp_path: Path) -> None:
     r = max(abs(np.corrcoef(v[c], t["y"])[0, 1]) for c in ("pre_revenue", "pre_orders"))
     assert r < 0.05 and "rho" not in pre.values
     assert any("too weak to plan on" in n for n in pre.notes)
+
+
+def test_repeated_order_ids_count_once(tmp_path: Path) -> None:
+    vp, op, t = _files(tmp_path)
+    o = pd.read_csv(op)
+    o["order_id"] = [f"o{i}" for i in range(len(o))]
+    o = pd.concat([o, o.iloc[:3]])  # three orders exported twice
+    o.to_csv(op, index=False)
+    pre = estimate_pre_period(vp, op, PrePeriodColumns(orders_order_id="order_id"))
+    assert pre.values["revenue_mean"] == pytest.approx(t["y"].mean())
+    assert any("3 repeated order id(s) in 'order_id' were counted once" in n for n in pre.notes)
