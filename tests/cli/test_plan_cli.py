@@ -167,3 +167,20 @@ def test_from_files_with_the_specs_column_maps(tmp_path: Path) -> None:
     d = json.loads(r.stdout)
     assert d["inputs"]["weekly_units"] == pytest.approx(300.0)
     assert any("pre_revenue" in e["how"] for e in d["estimated"])
+
+
+def test_readme_example_is_the_live_output(tmp_path: Path) -> None:
+    # the README's planner session, re-run: every line it shows (elisions aside) is in the real output, in order
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    start = readme.index("```console\n$ armlock plan")
+    block = readme[start:readme.index("```\n", start + 10)].splitlines()[1:]
+    cmd_lines = []
+    while block and (block[0].startswith("$ ") or block[0].startswith("    ")):
+        cmd_lines.append(block.pop(0).removeprefix("$ ").rstrip("\\").strip())
+    args = " ".join(cmd_lines).split()[1:]
+    out = run_cli(tmp_path, *args).stdout.splitlines()
+    i = 0
+    for line in (ln for ln in block if ln.strip() and ln.strip() != "..."):
+        while i < len(out) and out[i] != line:
+            i += 1
+        assert i < len(out), f"README line not in the live output (or out of order): {line!r}"

@@ -188,3 +188,14 @@ def test_public_names() -> None:
     # what the readout uses to state the power it had: the detectable effect and the power at its SE
     assert plan.mde(1.0) == pytest.approx(2.8015852, abs=1e-7)
     assert plan.power_at(plan.mde(0.5), 0.5) == pytest.approx(0.8, abs=1e-6)
+
+
+def test_docstring_examples() -> None:
+    import doctest
+
+    import armlock.plan.compute
+    import armlock.plan.power
+
+    for mod in (armlock.plan.compute, armlock.plan.power):
+        result = doctest.testmod(mod)
+        assert result.attempted > 0 and result.failed == 0, mod.__name__
