@@ -128,7 +128,7 @@ def plan_cmd(
     rho: float = typer.Option(None, "--rho", help="Correlation of revenue with its pre-period covariate, for CUPED (default 0, or estimated from --visits)."),
     visits: Path = typer.Option(None, "--visits", help="Pre-period visits file (CSV, CSV.gz, Parquet): one row per unit, first-seen time, pre-period columns."),
     orders: Path = typer.Option(None, "--orders", help="Pre-period orders file: unit id and revenue per order."),
-    spec_path: Path = typer.Option(None, "--spec", "-s", help="A spec whose column map names the visits columns (default names otherwise)."),
+    spec_path: Path = typer.Option(None, "--spec", "-s", help="A spec whose column maps ([audit.visits], [readout.orders]) name the files' columns (default names otherwise)."),
     covariate: str = typer.Option(None, "--covariate", help="Visits column to use for CUPED (default: the spec's covariates, best correlated)."),
     orders_unit: str = typer.Option(None, "--orders-unit-column", help="Orders column with the unit id (default unit_id)."),
     orders_revenue: str = typer.Option(None, "--orders-revenue-column", help="Orders column with the revenue (default revenue)."),
@@ -148,7 +148,8 @@ def plan_cmd(
     Give the shop as numbers, or as pre-period files (--visits and --orders) from which traffic, revenue
     per unit, conversion and rho are estimated; numbers given as options override the estimates.
 
-    Exit codes: 0 ok, 4 bad input (a number out of range, a file or column missing).
+    Exit codes: 0 ok, 2 usage (an option that is not a number), 4 bad input (a number out of range,
+    a file or column missing, --write-spec without a recommendation).
 
     Example:
       armlock plan --weekly-units 40000 --revenue-mean 7 --revenue-sd 75 --exposure-rate 0.6 \\
