@@ -12,6 +12,7 @@ from armlock.assign.spec_audit import AuditThresholds
 from armlock.assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
 from armlock.audit.model import AuditReport
 from armlock.audit.render import RENDERERS
+from armlock.audit.words import status_word
 
 from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec_and_lock, progress
 
@@ -98,7 +99,7 @@ def audit_cmd(
             out.write_text(text, encoding="utf-8")
         except OSError as exc:
             raise InputError(f"{out}: cannot write the report: {exc.strerror}") from None
-        err(f"Wrote the {fmt} report to {out}: verdict {report.verdict} ({report.verdict_text})")
+        err(f"Wrote the {fmt} report to {out}: verdict {status_word(report.verdict)} ({report.verdict_text})")
     else:
         typer.echo(text, nl=False)
     code = exit_code(report.verdict, strict)

@@ -15,6 +15,8 @@ from armlock.assign import InputError, check_lock, load_spec
 from armlock.assign.init import render_spec_toml
 from armlock.assign.snippet import render_snippet
 
+from armlock.audit.words import status_word
+
 from .common import err, progress
 
 SHOP = "Quillmoss Homewares (invented)"
@@ -161,7 +163,7 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
                  "snippet (js)": folder / "snippet" / "armlock.js", "report (html)": folder / "report.html",
                  "report (json)": folder / "report.json"}
     res.verdict, res.verdict_text, res.weeks = report.verdict, report.verdict_text, len(dates)
-    res.findings = [f"{c.status.upper()} {c.title}: {_headline(c.summary)}"
+    res.findings = [f"{status_word(c.status)} {c.title}: {_headline(c.summary)}"
                     for c in report.checks if c.status in ("fail", "warn")]
     res.seconds = time.perf_counter() - t0
     return res
@@ -194,7 +196,7 @@ def demo(
     res = build_demo(folder, clean=clean)
     typer.echo(f"armlock demo: {SHOP}, a made-up shop at {SITE}, 10% held out from a retargeting vendor.")
     typer.echo(f"Audited {res.weeks} weeks ({'no faults injected' if clean else 'faults injected'}); "
-               f"last week's verdict: {res.verdict.upper()}. {res.verdict_text}")
+               f"last week's verdict: {status_word(res.verdict)}. {res.verdict_text}")
     for line in res.findings:
         typer.echo(textwrap.fill(line, width=100, initial_indent="  - ", subsequent_indent="    "))
     typer.echo("")

@@ -8,15 +8,15 @@ from typing import Any
 
 import typer
 
-from armlock.audit.history import changes, default_history_path, format_value, load, load_readouts, trend_keys
+from armlock.audit.history import changes, default_history_path, load, load_readouts, trend_keys
+from armlock.audit.words import NOTHING_CHANGED, format_value, status_word
 
 from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
 
 FORMATS = ("text", "json")
 _UNIT_ORDER = {"share": 0, "p": 1, "ratio": 2, "number": 3, "count": 4}
-_MARK = {"pass": "ok  ", "warn": "WARN", "fail": "FAIL", "skipped": "skip"}
 MAX_COLUMNS = 4
-MAX_HEADER = 26
+HEADER_WIDTH = 18  # a long figure label wraps onto several header lines; it is never cut
 
 
 def trend_columns(runs: list[dict[str, Any]], limit: int = MAX_COLUMNS) -> list[str]:
@@ -28,22 +28,32 @@ def trend_columns(runs: list[dict[str, Any]], limit: int = MAX_COLUMNS) -> list[
     return (keys + rest)[:limit]
 
 
-def _short(label: str) -> str:
-    return label if len(label) <= MAX_HEADER else label[:MAX_HEADER - 1] + "…"
+def _header_lines(label: str) -> list[str]:
+    import textwrap
+
+    return textwrap.wrap(label, width=max(HEADER_WIDTH, *(len(w) for w in label.split()))) or [""]
 
 
 def trend_table(runs: list[dict[str, Any]]) -> str:
-    """A plain terminal table: one row per as-of date, the verdict and the headline figures."""
+    """A plain terminal table: one row per as-of date, the verdict and the headline figures.
+
+    Headers are the figures' full labels, wrapped onto as many lines as they need.
+    """
     keys = trend_columns(runs)
     latest = runs[-1]["figures"]
-    head = ["as of", "verdict"] + [_short(latest[k]["label"]) for k in keys]
-    rows = [[r["as_of"], _MARK.get(r["verdict"], r["verdict"])]
+    heads = [["as of"], ["verdict"]] + [_header_lines(latest[k]["label"]) for k in keys]
+    rows = [[r["as_of"], status_word(r["verdict"])]
             + [format_value(r["figures"].get(k, {}).get("value"), latest[k]["unit"])
                if k in r["figures"] else "-" for k in keys] for r in runs]
-    width = [max(len(str(c)) for c in col) for col in zip(head, *rows)]
-    line = lambda cells: "  ".join(
-        str(c).ljust(w) if i < 2 else str(c).rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
-    return "\n".join([line(head), line(["-" * w for w in width])] + [line(r) for r in rows])
+    depth = max(len(h) for h in heads)
+    heads = [[""] * (depth - len(h)) + h for h in heads]  # labels sit on the rule, like the data
+    width = [max(len(c) for c in [*h, *(r[i] for r in rows)]) for i, h in enumerate(heads)]
+
+    def line(cells: list[str]) -> str:
+        return "  ".join(c.ljust(w) if i < 2 else c.rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
+
+    head_lines = [line([h[j] for h in heads]) for j in range(depth)]
+    return "\n".join(head_lines + [line(["-" * w for w in width])] + [line(r) for r in rows])
 
 
 def readout_table(readouts: list[dict[str, Any]]) -> str:
@@ -52,7 +62,7 @@ def readout_table(readouts: list[dict[str, Any]]) -> str:
         return r["figures"].get(key, {}).get("value")
 
     head = ["as of", "gate", "incremental revenue", "interval", "iROAS", "p"]
-    rows = [[r["as_of"], _MARK.get(r["status"], r["status"]), format_value(fig(r, "incremental_revenue"), "count"),
+    rows = [[r["as_of"], status_word(r["status"]), format_value(fig(r, "incremental_revenue"), "count"),
              f"{format_value(fig(r, 'incremental_revenue_lo'), 'count')} to "
              f"{format_value(fig(r, 'incremental_revenue_hi'), 'count')}",
              format_value(fig(r, "iroas"), "ratio"), format_value(fig(r, "p"), "p")] for r in readouts]
@@ -81,7 +91,7 @@ def history_cmd(
     path = history_path or default_history_path(spec_path)
     runs = load(path, spec.fingerprint)
     readouts = load_readouts(path, spec.fingerprint)
-    said = changes(runs[-2], runs[-1]) if len(runs) >= 2 else []
+    said = changes(runs[-2], runs[-1], spec.audit.thresholds) if len(runs) >= 2 else []
     if fmt == "json":
         typer.echo(json.dumps({"history": str(path), "experiment": spec.name,
                                "fingerprint": spec.fingerprint, "runs": runs,
@@ -107,9 +117,9 @@ def history_cmd(
     elif said:
         typer.echo(f"Since {runs[-2]['as_of']} (as of {runs[-1]['as_of']}):")
         for s in said:
-            typer.echo(f"  - {s}")
+            typer.echo(f"  - {s[:1].upper() + s[1:]}")
     else:
-        typer.echo(f"Nothing meaningful changed since {runs[-2]['as_of']}.")
+        typer.echo(f"Since {runs[-2]['as_of']}: {NOTHING_CHANGED[:1].lower() + NOTHING_CHANGED[1:]}")
 
 
 def register(app: typer.Typer) -> None:

@@ -2,7 +2,7 @@
 
 Why this module never changes: a visitor's arm must be the same in Python, the browser, Node and
 Spark SQL, and must never change once a test runs. Every constant here is pinned by the checked-in
-vectors file (tests/vectors/assignment_vectors.json); a change that moves any row is a new
+vectors file (shared/vectors/assignment_vectors.json, described in shared/CONTRACT.md); a change that moves any row is a new
 contract, not a fix.
 """
 

@@ -20,7 +20,7 @@ from .spec_readout import ReadoutSettings
 from .spec_snippet import SnippetSettings
 
 SPEC_FORMAT = 1
-CONTRACT = "armlock-assign-1"  # name of the frozen contract in DESIGN.md; part of the fingerprint
+CONTRACT = "armlock-assign-1"  # name of the frozen contract (shared/CONTRACT.md); part of the fingerprint
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_]{0,63}$"
 EXPERIMENT_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.\-]{0,99}$"
 

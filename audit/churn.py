@@ -91,7 +91,8 @@ def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
     figs = {
         "customers": Figure(label="customers with identity links", value=ct.customers, unit="count"),
         "multi_arm_customers": Figure(label="customers in several arms", value=ct.multi_arm, unit="count"),
-        "multi_arm_share": Figure(label="customers in several arms", value=share, unit="share"),
+        "multi_arm_share": Figure(label="customers in several arms", value=share, unit="share",
+                                  numerator=int(ct.multi_arm), denominator=int(ct.customers)),
         "expected_share": Figure(label="expected if extra ids were re-randomized", value=exp_share, unit="share"),
         "multi_id_customers": Figure(label="customers with several ids", value=multi_ids, unit="count"),
     }

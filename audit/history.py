@@ -17,6 +17,10 @@ from typing import Any
 from armlock.assign.errors import InputError
 
 from .model import AuditReport
+from .words import format_value, status_word
+
+__all__ = ["changes", "default_history_path", "format_value", "load", "load_readouts", "record", "record_readout",
+           "row_from_report", "trend_keys"]
 
 SCHEMA_VERSION = 1
 SUFFIX = ".history.sqlite"
@@ -182,28 +186,6 @@ def load(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
 
 # --- what changed --------------------------------------------------------------------------------
 
-def format_value(value: Any, unit: str) -> str:
-    """A figure's value as a person reads it: shares in %, counts with separators, p in 2 digits."""
-    if value is None:
-        return "n/a"
-    if unit == "date" and isinstance(value, str) and len(value) > 10 and value[10] == "T":
-        return value[:16].replace("T", " ") + (" UTC" if value.endswith(("Z", "+00:00")) else "")
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        return str(value)
-    if isinstance(value, float) and not math.isfinite(value):
-        return str(value)
-    if unit == "share":
-        pct = value * 100
-        return f"{pct:.2g}%" if 0 < abs(pct) < 1 else f"{pct:.1f}%"
-    if unit == "count":
-        return f"{value:,.0f}"
-    if unit == "p":
-        return f"{value:.2g}" if value >= 0.001 else f"{value:.1e}"
-    if unit == "ratio":
-        return f"{value:.3f}"
-    return f"{value:.3g}" if isinstance(value, float) else f"{value:,}"
-
-
 def trend_keys(runs: list[dict[str, Any]], limit: int = 4) -> list[str]:
     """The figures worth following week by week: each check's headline (its first share or
     p-value figure), failing checks first, then warning ones, then the rest in report order."""
@@ -222,54 +204,102 @@ def trend_keys(runs: list[dict[str, Any]], limit: int = 4) -> list[str]:
     return keys[:limit]
 
 
-def _meaningful(old: Any, new: Any, unit: str) -> bool:
-    """Whether a move from `old` to `new` deserves a sentence (thresholds: common practice)."""
-    if old is None or new is None or unit in ("date", "text"):
-        return old != new
-    if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (old, new)):
-        return old != new
-    if unit == "p":  # p-values: an order of magnitude, or crossing into/out of tiny values
+# Figures with a threshold in `[audit.thresholds]`: (warn key, fail key, "above"|"below").
+# "above": the check warns/fails when the figure exceeds the threshold; "below": when p falls under it.
+# A new check (or the readout) adds its own headline figures here to have their crossings named.
+THRESHOLDS: dict[str, tuple[str | None, str | None, str]] = {
+    "srm.p_fixed": (None, "srm_p", "below"),
+    "srm.p_anytime": (None, "srm_anytime_p", "below"),
+    "srm_segments.min_p_holm": (None, "srm_p", "below"),
+    "integrity.mismatch_rate": ("mismatch_warn", "mismatch_fail", "above"),
+    "leakage.holdout_leak_share": ("leak_warn", "leak_fail", "above"),
+    "leakage.pre_exposed_share": ("pre_exposure_warn", "pre_exposure_fail", "above"),
+    "churn.multi_arm_share": ("churn_warn", "churn_fail", "above"),
+    "balance.max_abs_smd": ("smd_warn", "smd_fail", "above"),
+    "balance.min_p_holm": (None, "balance_p", "below"),
+}
+# Units whose moves are worth a sentence: rates and p-values. Counts always grow week by week,
+# so a count that grew says nothing; a count that matters has a share or a threshold beside it.
+SHIFT_UNITS = ("share", "p", "ratio")
+
+
+def _number(v: Any) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+
+def _crossing(key: str, label: str, old: Any, new: Any, unit: str, th: Any) -> str | None:
+    """A sentence when a figure moved across its warn or fail threshold (either way), else None."""
+    rule = THRESHOLDS.get(key)
+    if rule is None or th is None or not (_number(old) and _number(new)):
+        return None
+    warn_key, fail_key, side = rule
+    for level, attr in (("fail", fail_key), ("warn", warn_key)):
+        if attr is None:
+            continue
+        limit = float(getattr(th, attr))
+        bad = (lambda v: v > limit) if side == "above" else (lambda v: v < limit)
+        if bad(old) != bad(new):
+            word = "above" if side == "above" else "below"
+            went = "rose" if new > old else "fell"
+            where = "crossed" if bad(new) else "is back within"
+            return (f"{label} {went} from {format_value(old, unit)} to {format_value(new, unit)} and "
+                    f"{where} the {level} threshold ({format_value(limit, unit)}; {level} when {word} it)")
+    return None
+
+
+def _shifted(old: Any, new: Any, unit: str) -> bool:
+    """Whether a rate or p-value moved for real (cut-offs: common practice, not a standard).
+
+    Shares: at least 0.1 percentage point and a fifth of the old value. p-values: an order of
+    magnitude. Ratios: a fifth. Other units (counts, numbers, dates, text) are never "shifts".
+    """
+    if unit not in SHIFT_UNITS or not (_number(old) and _number(new)):
+        return False
+    if unit == "p":
         lo, hi = max(min(old, new), 1e-300), max(old, new, 1e-300)
         return math.log10(hi) - math.log10(lo) >= 1
-    if unit == "share":  # at least 0.1 percentage point and a fifth of the old value
+    if unit == "share":
         return abs(new - old) >= 0.001 and abs(new - old) >= 0.2 * abs(old)
-    if old == 0 or new == 0:
-        return old != new
-    return abs(new - old) >= 0.2 * abs(old)  # counts, ratios, numbers: a fifth or more
+    return abs(new - old) >= 0.2 * abs(old) if old else new != old
 
 
 def _as_row(run: AuditReport | dict[str, Any]) -> dict[str, Any]:
     return row_from_report(run) if isinstance(run, AuditReport) else run
 
 
-def changes(previous: dict[str, Any], current: AuditReport | dict[str, Any]) -> list[str]:
-    """Plain sentences for what changed between two runs: verdict, check statuses, then figures."""
+def changes(previous: dict[str, Any], current: AuditReport | dict[str, Any], thresholds: Any = None) -> list[str]:
+    """What matters since the previous run, as sentences, most important first.
+
+    1. the verdict, if it changed; 2. each check whose status changed; 3. each headline figure
+    that crossed its threshold (`thresholds` is the spec's `AuditThresholds`); 4. rates and
+    p-values that shifted for real. Counts that merely grew are not news and are not said.
+    """
     prev, cur = _as_row(previous), _as_row(current)
     out: list[str] = []
     if prev.get("verdict") != cur.get("verdict"):
-        out.append(f"the verdict went from {prev.get('verdict')} to {cur.get('verdict')}")
+        out.append(f"the verdict went from {status_word(str(prev.get('verdict')))} to "
+                   f"{status_word(str(cur.get('verdict')))}")
     pchecks, cchecks = prev.get("checks", {}), cur.get("checks", {})
     for cid, info in cchecks.items():
         old = pchecks.get(cid)
         if old is not None and old.get("status") != info.get("status"):
-            out.append(f"check “{info.get('title', cid)}” went from {old.get('status')} "
-                       f"to {info.get('status')}")
+            out.append(f"check “{info.get('title', cid)}” went from {status_word(str(old.get('status')))} "
+                       f"to {status_word(str(info.get('status')))}")
     pfig = prev.get("figures", {})
+    crossed, shifted = [], []
     for key, fig in cur.get("figures", {}).items():
-        old = pfig.get(key)
-        if old is None:
+        old_fig = pfig.get(key)
+        if old_fig is None:
             continue
         unit = fig.get("unit", "number")
-        a, b = old.get("value"), fig.get("value")
-        if not _meaningful(a, b, unit):
-            continue
+        a, b = old_fig.get("value"), fig.get("value")
         label = fig.get("label", key)
-        if isinstance(a, (int, float)) and isinstance(b, (int, float)) and unit not in ("date", "text"):
-            verb = "rose" if b > a else "fell"
-        else:
-            verb = "changed"
-        out.append(f"{label} {verb} from {format_value(a, unit)} to {format_value(b, unit)}")
-    return out
+        said = _crossing(key, label, a, b, unit, thresholds)
+        if said:
+            crossed.append(said)
+        elif _shifted(a, b, unit):
+            shifted.append(f"{label} {'rose' if b > a else 'fell'} from {format_value(a, unit)} to {format_value(b, unit)}")
+    return out + crossed + shifted
 
 
 # --- readouts (armlock readout --record) ----------------------------------------------------------

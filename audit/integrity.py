@@ -53,7 +53,8 @@ def check_integrity(spec: Spec, it: IntegrityTables, counts: dict[str, int],
         summary = "Every unit is recorded in the arm the spec gives it; nothing to do."
     figs = {
         "units": Figure(label="units checked", value=it.units, unit="count"),
-        "mismatch_rate": Figure(label="recorded-arm mismatch", value=mis_rate, unit="share"),
+        "mismatch_rate": Figure(label="recorded-arm mismatch", value=mis_rate, unit="share",
+                                numerator=int(it.mismatches), denominator=int(it.units)),
         "mismatches": Figure(label="units in the wrong arm", value=it.mismatches, unit="count"),
         "unknown_arm_units": Figure(label="units with an unknown arm", value=unknown, unit="count"),
         "pre_start_units": Figure(label="units first seen before the start", value=it.pre_start, unit="count"),

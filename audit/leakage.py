@@ -6,6 +6,7 @@ from armlock.assign import Spec
 
 from .model import Check, Figure, Table, worst
 from .tables import LeakageTables
+from .words import sentence
 
 
 def itt_dilution(rate_exposed: float, rate_holdout: float) -> float:
@@ -103,19 +104,23 @@ def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
         status = "fail"
         summary = _mismatch_summary(lt, th.unseen_fail)
     elif parts:
-        summary = ("; ".join(p for _, p in parts) + f". So {dilution}. Have the vendor suppress the holdout list "
-                   "and drop audiences built before the test.")
+        summary = (sentence("; ".join(p for _, p in parts)) + f". So {dilution}. Have the vendor suppress the "
+                   "holdout list and drop audiences built before the test.")
     else:
         summary = (f"No holdout unit was reached and nobody was exposed before assignment. The ads reached {rate_e:.1%} "
                    f"of the exposed arm, so {dilution}.")
     figs = {
-        "holdout_leak_share": Figure(label="holdout leakage", value=leak_share, unit="share"),
+        "holdout_leak_share": Figure(label="holdout leakage", value=leak_share, unit="share",
+                                     numerator=h_leak, denominator=h_units),
         "holdout_leak_units": Figure(label="holdout units reached", value=h_leak, unit="count"),
-        "exposure_rate_exposed": Figure(label="exposure rate, exposed arm(s)", value=rate_e, unit="share"),
-        "exposure_rate_holdout": Figure(label="exposure rate, holdout", value=rate_h, unit="share"),
+        "exposure_rate_exposed": Figure(label="exposure rate, exposed arm(s)", value=rate_e, unit="share",
+                                        numerator=e_reach, denominator=e_units),
+        "exposure_rate_holdout": Figure(label="exposure rate, holdout", value=rate_h, unit="share",
+                                        numerator=h_leak, denominator=h_units),
         "itt_dilution": Figure(label="ITT difference as a share of the per-exposed effect", value=dil, unit="share"),
         "effect_lost_to_leakage": Figure(label="share of the contrast lost to leakage", value=lost, unit="share"),
-        "pre_exposed_share": Figure(label="units exposed before assignment or start", value=pre_share, unit="share"),
+        "pre_exposed_share": Figure(label="units exposed before assignment or start", value=pre_share, unit="share",
+                                    numerator=pre_units, denominator=all_units),
         "pre_exposed_units": Figure(label="units exposed before assignment or start", value=pre_units, unit="count"),
         "unseen_ids": Figure(label="exposed ids never seen in the visits", value=lt.unseen_ids, unit="count"),
         "holdout_first_exposure": Figure(label="first holdout exposure", value=lt.holdout_first, unit="date"),

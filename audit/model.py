@@ -32,13 +32,20 @@ Unit = Literal["count", "share", "p", "ratio", "number", "date", "text"]
 
 
 class Figure(BaseModel):
-    """One headline number: `label` reads in a sentence ("holdout leakage"), `unit` formats it."""
+    """One headline number: `label` reads in a sentence ("holdout leakage"), `unit` formats it.
+
+    A share of counted things also carries `numerator` and `denominator` (170 of 7,995 holdout
+    units), so every human output can show what the share is of.
+    """
 
     model_config = ConfigDict(extra="forbid")
 
     label: str
     value: float | int | str | None
     unit: Unit = "number"
+    # for a share of counted things: the counts it is made of, so a reader sees its denominator
+    numerator: int | None = None
+    denominator: int | None = None
 
 
 class Table(BaseModel):
@@ -96,6 +103,18 @@ class AuditReport(BaseModel):
 
     def to_json_dict(self) -> dict[str, Any]:
         return self.model_dump(mode="json", by_alias=True)
+
+
+def json_schema() -> dict[str, Any]:
+    """The JSON Schema of the report (`SCHEMA`), as checked in under shared/schemas/.
+
+    Generated from the model itself, so the published schema cannot drift from what armlock
+    writes (a test compares the checked-in file with this).
+    """
+    schema = AuditReport.model_json_schema(by_alias=True, mode="serialization")
+    return {"$schema": "https://json-schema.org/draft/2020-12/schema",
+            "$id": f"https://armlock.invalid/schemas/{SCHEMA.replace('/', '-')}.schema.json",
+            "title": f"armlock audit report, schema {SCHEMA}", **{k: v for k, v in schema.items() if k != "title"}}
 
 
 def worst(statuses: list[str]) -> Status:

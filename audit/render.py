@@ -11,8 +11,8 @@ from typing import Any
 
 from .explain import explanations
 from .model import AuditReport, Check, Figure, Table
+from .words import STATUS_WORD, column_unit, format_figure, format_value, shown_figures
 
-MARK = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIP"}
 MAX_ROWS = 15  # rows of a table shown in text and markdown (the JSON has them all)
 # Terminal control characters (C0 but the line feed, DEL, C1) and bidirectional overrides: data
 # (ids, campaign names, column names) must not move the cursor, recolour or reorder the terminal.
@@ -25,38 +25,17 @@ def strip_controls(text: str) -> str:
                         else f"\\u{ord(m.group()):04x}", text)
 
 
-def fmt_value(v: Any, unit: str = "number") -> str:
-    """A figure or cell as text: counts with separators, shares as %, p-values in 2 significant digits."""
-    if v is None:
-        return "-"
-    if isinstance(v, bool):
-        return "yes" if v else "no"
-    if isinstance(v, int):
-        return f"{v:,}"
-    if isinstance(v, float):
-        if math.isnan(v):
-            return "-"
-        if math.isinf(v):
-            return "inf"
-        if unit == "share":
-            return f"{v:.2%}" if abs(v) >= 0.001 or v == 0 else f"{v:.4%}"
-        if unit == "p":
-            return f"{v:.2g}" if v < 0.001 else f"{v:.4f}"
-        if unit == "count":
-            return f"{v:,.0f}"
-        if v != 0 and (abs(v) < 0.001 or abs(v) >= 1e6):
-            return f"{v:.3g}"
-        return f"{v:.4f}".rstrip("0").rstrip(".") or "0"
-    return str(v)
+MARK = STATUS_WORD  # the one word per status (audit/words.py)
+fmt_value = format_value
 
 
 def _fig(f: Figure) -> str:
-    return fmt_value(f.value, f.unit)
+    return format_figure(f)
 
 
 def _cells(t: Table) -> tuple[list[str], list[list[str]], int]:
-    rows = [[fmt_value(c, "p" if "p" in t.columns[i].split() or t.columns[i] in ("p", "p (Holm)") else "number")
-             for i, c in enumerate(r)] for r in t.rows[:MAX_ROWS]]
+    units = [column_unit(str(c)) for c in t.columns]
+    rows = [[format_value(c, units[i]) for i, c in enumerate(r)] for r in t.rows[:MAX_ROWS]]
     return [str(c) for c in t.columns], rows, max(len(t.rows) - MAX_ROWS, 0)
 
 
@@ -96,8 +75,9 @@ def render_text(r: AuditReport) -> str:
             out.append("")
             continue
         if c.figures:
-            w = max(len(f.label) for f in c.figures.values())
-            out += [f"    {f.label.ljust(w)}  {_fig(f)}" for f in c.figures.values()]
+            figs = [f for _, f in shown_figures(c.figures)]
+            w = max(len(f.label) for f in figs)
+            out += [f"    {f.label.ljust(w)}  {_fig(f)}" for f in figs]
         for t in c.tables:
             out.append("")
             out.append(text_table(t))
@@ -137,7 +117,7 @@ def render_markdown(r: AuditReport) -> str:
         out += ["", f"### {_md_escape(c.title)} — {MARK[c.status]}", ""]
         if c.figures:
             out += ["| figure | value |", "|---|---|"]
-            out += [f"| {_md_escape(f.label)} | {_md_escape(_fig(f))} |" for f in c.figures.values()]
+            out += [f"| {_md_escape(f.label)} | {_md_escape(_fig(f))} |" for _, f in shown_figures(c.figures)]
         for t in c.tables:
             out += ["", md_table(t)]
         expl = explanations(c)

@@ -23,20 +23,24 @@ from matplotlib.figure import Figure as MplFigure
 from armlock.assign.spec_audit import AuditThresholds
 
 from .explain import explanations
-from .history import changes, format_value, row_from_report, trend_keys
+from .history import changes, row_from_report, trend_keys
 from .model import AuditReport, Check
+from .words import NOTHING_CHANGED, STATUS_MEANING, column_unit, format_figure, format_value, sentence, shown_figures, status_word
 
 # Our palette. Text colours reach WCAG AA (>= 4.5:1) on their backgrounds.
 INK, PAPER, CARD, RULE, MUTED = "#1d2528", "#f6f3ee", "#ffffff", "#d8d2c8", "#4f5a5e"
 ACCENT = "#0c5c66"
 ARM_COLOURS = ["#b4471f", "#1f5f8b", "#5b7a1a", "#7a3e86", "#8a6d00", "#2f6f5e"]
 BAND = "#e6dccd"
-STATUS_STYLE: dict[str, tuple[str, str, str]] = {  # word, text colour, background
-    "pass": ("Healthy", "#17603a", "#e3f2e8"),
-    "warn": ("Needs a look", "#7a4d00", "#fdf0d5"),
-    "fail": ("Broken", "#9e1f24", "#fbe4e3"),
-    "skipped": ("Not checked", "#4a4a4a", "#ececec"),
+STATUS_STYLE: dict[str, tuple[str, str, str]] = {  # word (audit/words.py), text colour, background
+    "pass": (status_word("pass"), "#17603a", "#e3f2e8"),
+    "warn": (status_word("warn"), "#7a4d00", "#fdf0d5"),
+    "fail": (status_word("fail"), "#9e1f24", "#fbe4e3"),
+    "skipped": (status_word("skipped"), "#4a4a4a", "#ececec"),
 }
+# Chart widths in inches: the wide drawing for screens and print, the narrow one for phones
+# (redrawn with legends above the plot, so its 8 pt text stays readable without scrolling).
+WIDE, NARROW = 7.2, 4.4
 _ICON = {  # shape differs by status too, never colour alone
     "pass": '<circle cx="8" cy="8" r="7"/><path d="M4.5 8.3l2.3 2.3 4.7-5" fill="none" stroke="#fff" stroke-width="2"/>',
     "warn": '<path d="M8 1l7.5 13.5h-15z"/><path d="M8 5.5v4.5M8 11.6v1.4" stroke="#fff" stroke-width="1.8"/>',
@@ -94,7 +98,7 @@ def _svg(fig: MplFigure, chart_id: str, caption: str) -> str:
     # never drawn below 95% of its natural size, so its smallest (8 pt) text stays readable on a
     # phone; a narrow screen scrolls the chart inside its figure instead
     box = re.search(r'viewBox="[\d.]+ [\d.]+ ([\d.]+) [\d.]+"', text)
-    least = float(box.group(1)) * 0.95 if box else 448.0
+    least = min(float(box.group(1)) * 0.95, 340.0) if box else 340.0
     text = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
                   rf'<svg\1 role="img" aria-label="{esc(caption)}" data-chart="{esc(chart_id)}" '
                   rf'class="chart" style="min-width:{least:.0f}px"', text, count=1)
@@ -129,11 +133,24 @@ def share_band(theta: float, n: int, k: float = 3.0) -> tuple[float, float]:
     return theta - half, theta + half
 
 
-def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], chart_id: str) -> str:
+def _legend(ax: Any, narrow: bool, *, wide_loc: str = "upper right", ncol: int = 3, outside: bool = False) -> None:
+    """The legend: above the plot on a narrow drawing (never on the data), else where it fits."""
+    if narrow:
+        ax.legend(loc="lower left", bbox_to_anchor=(0, 1.0), fontsize=8, ncol=1, borderaxespad=0.3)
+    elif outside:
+        ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
+    else:
+        ax.legend(loc=wide_loc, fontsize=8, ncol=ncol)
+
+
+def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], chart_id: str,
+                    narrow: bool = False) -> str:
     """Cumulative share of each arm by day against its expected share, with a ±3 SE band."""
     days = _dates([r["date"] for r in rows])
     totals = [max(sum(r["counts"].values()), 1) for r in rows]
-    fig, axes = plt.subplots(len(arms), 1, figsize=(7.2, 1.9 * len(arms) + 0.4), sharex=True, squeeze=False)
+    per_arm = 2.6 if narrow else 1.9
+    fig, axes = plt.subplots(len(arms), 1, figsize=(NARROW if narrow else WIDE, per_arm * len(arms) + 0.4),
+                             sharex=True, squeeze=False)
     for i, ((name, theta), ax) in enumerate(zip(arms, axes[:, 0])):
         colour = ARM_COLOURS[i % len(ARM_COLOURS)]
         share = [r["counts"].get(name, 0) / n * 100 for r, n in zip(rows, totals)]
@@ -145,20 +162,25 @@ def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], c
         ax.plot(days, share, color=colour, lw=2, marker="o", ms=2.5, label=f"observed: {name}")
         lo = min(min(share), theta * 100 - se[-1] * 4)
         hi = max(max(share), theta * 100 + se[-1] * 4)
-        ax.set_ylim(lo - 0.05 * (hi - lo), hi + 0.3 * (hi - lo))  # headroom for the legend
-        ax.set_ylabel("share %")
-        ax.set_title(f"arm {name}", loc="left")
-        ax.legend(loc="upper right", fontsize=8, ncol=3)
+        ax.set_ylim(lo - 0.05 * (hi - lo), hi + (0.05 if narrow else 0.3) * (hi - lo))  # room for the legend
+        ax.set_ylabel(f"% of all units (last day: {totals[-1]:,})" if narrow else f"share % of all units (last day: {totals[-1]:,})",
+                      fontsize=8)
+        if narrow:
+            ax.set_title(f"arm {name}", loc="right", fontsize=9)
+        else:
+            ax.set_title(f"arm {name}", loc="left")
+        _legend(ax, narrow)
     _date_axis(axes[-1, 0])
     fig.tight_layout()
     return _svg(fig, chart_id, "Cumulative arm share by day against the expected share")
 
 
-def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, chart_id: str) -> str:
+def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, chart_id: str,
+                narrow: bool = False) -> str:
     """The fixed-horizon and anytime-valid SRM p-value paths on a log scale with their thresholds."""
     days = _dates([r["date"] for r in rows])
     floor = 1e-300
-    fig, ax = plt.subplots(figsize=(7.2, 3.0))
+    fig, ax = plt.subplots(figsize=(NARROW if narrow else WIDE, 3.4 if narrow else 3.0))
     fixed = [max(float(r["p_fixed"]), floor) for r in rows]
     anytime = [max(float(r["p_anytime"]), floor) for r in rows]
     ax.plot(days, fixed, color=ARM_COLOURS[1], lw=2, marker="s", ms=2.5, label="fixed-horizon p (chi-square)")
@@ -170,37 +192,40 @@ def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, ch
     low = min(min(fixed), min(anytime), p_fixed) / 10
     ax.set_ylim(max(low, floor), 1.5)
     ax.set_ylabel("p-value (log scale)")
-    ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=2)
+    ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=1 if narrow else 2)
     _date_axis(ax)
     fig.tight_layout()
     return _svg(fig, chart_id, "SRM p-value paths, fixed-horizon and anytime-valid, on a log scale")
 
 
-def chart_leakage(rows: list[dict[str, Any]], chart_id: str) -> str:
-    """Share of holdout units reached by the vendor, week by week."""
+def chart_leakage(rows: list[dict[str, Any]], chart_id: str, narrow: bool = False) -> str:
+    """Share of holdout units reached by the vendor, week by week (bars labelled with the units)."""
     weeks = [str(r["week"])[:10] for r in rows]
     share = [float(r.get("holdout_share") or 0) * 100 for r in rows]
-    fig, ax = plt.subplots(figsize=(7.2, 2.8))
+    sizes = [round(r["holdout_units"] / r["holdout_share"]) for r in rows
+             if r.get("holdout_share") and r.get("holdout_units")]
+    fig, ax = plt.subplots(figsize=(NARROW if narrow else WIDE, 3.0 if narrow else 2.8))
     bars = ax.bar(range(len(weeks)), share, color=ARM_COLOURS[0], width=0.7, label="holdout units reached")
     for b, r in zip(bars, rows):
         if r.get("holdout_units"):
             ax.annotate(f"{int(r['holdout_units']):,}", (b.get_x() + b.get_width() / 2, b.get_height()),
                         ha="center", va="bottom", fontsize=8, color=MUTED, xytext=(0, 2),
                         textcoords="offset points")
-    ax.set_xticks(range(len(weeks)), [w[5:] for w in weeks], rotation=0, fontsize=8)
+    ax.set_xticks(range(len(weeks)), [w[5:] for w in weeks], rotation=90 if narrow else 0, fontsize=8)
     ax.set_xlabel("week starting (month-day)")
-    ax.set_ylabel("% of holdout reached")
+    ax.set_ylabel("% of holdout reached" + (f"\n(of {max(sizes):,} holdout units)" if sizes else ""), fontsize=8)
     ax.set_ylim(0, max(max(share, default=0) * 1.25, 0.5))
     ax.grid(axis="x", visible=False)
     fig.tight_layout()
     return _svg(fig, chart_id, "Holdout leakage by week: share of holdout units the vendor reached")
 
 
-def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str) -> str:
+def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str, narrow: bool = False) -> str:
     """Love plot: each covariate's standardized mean difference, with the ±line limits."""
-    labels = [f"{r['covariate']}" + (f" = {r['level']}" if r.get("level") not in (None, "") else "") for r in rows]
+    sep = "\n= " if narrow else " = "
+    labels = [f"{r['covariate']}" + (f"{sep}{r['level']}" if r.get("level") not in (None, "") else "") for r in rows]
     smd = [float(r["smd"]) for r in rows]
-    fig, ax = plt.subplots(figsize=(7.2, 0.8 + 0.32 * max(len(rows), 2)))
+    fig, ax = plt.subplots(figsize=(NARROW if narrow else WIDE, 1.2 + (0.42 if narrow else 0.32) * max(len(rows), 2)))
     y = list(range(len(rows)))[::-1]
     ok = [(yy, s) for yy, s in zip(y, smd) if abs(s) <= line]
     bad = [(yy, s) for yy, s in zip(y, smd) if abs(s) > line]
@@ -217,19 +242,22 @@ def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str) -> str:
     ax.set_yticks(y, labels, fontsize=8)
     reach = max([abs(s) for s in smd] + [line * 1.6])
     ax.set_xlim(-reach * 1.1, reach * 1.1)
-    ax.set_xlabel("standardized mean difference (exposed − holdout)")
+    ax.set_xlabel("SMD (exposed − holdout)" if narrow else "standardized mean difference (exposed − holdout)")
+    ax.tick_params(axis="x", labelsize=8)
     ax.grid(axis="y", visible=False)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
+    _legend(ax, narrow, outside=True)
     fig.tight_layout()
     return _svg(fig, chart_id, "Love plot of standardized mean differences with the ±0.1 lines")
 
 
-def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, chart_id: str) -> str:
+def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, chart_id: str,
+                narrow: bool = False) -> str:
     """Share of customers seen in more than one arm, by browser family, observed against expected."""
-    names = [str(r["browser"]) for r in rows]
+    names = [f"{r['browser']}\n({int(r['customers']):,} customers)" if r.get("customers") is not None
+             else str(r["browser"]) for r in rows]
     obs = [float(r.get("share") or 0) * 100 for r in rows]
     exp = [float(r.get("expected_share") or 0) * 100 for r in rows]
-    fig, ax = plt.subplots(figsize=(7.2, 0.9 + 0.45 * max(len(rows), 2)))
+    fig, ax = plt.subplots(figsize=(NARROW if narrow else WIDE, 0.9 + 0.55 * max(len(rows), 2)))
     y = list(range(len(rows)))[::-1]
     h = 0.38
     ax.barh([v + h / 2 for v in y], obs, height=h, color=ARM_COLOURS[0], label="observed")
@@ -238,9 +266,11 @@ def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, char
     ax.axvline(warn_at * 100, color=INK, lw=1, ls=":", label=f"warns above {warn_at * 100:g}%")
     ax.axvline(fail_at * 100, color=INK, lw=1, ls=(0, (4, 3)), label=f"fails above {fail_at * 100:g}%")
     ax.set_yticks(y, names, fontsize=8)
-    ax.set_xlabel("% of logged-in customers seen in more than one arm")
+    ax.set_xlabel("% of the browser's logged-in customers\nseen in more than one arm" if narrow
+                  else "% of the browser's logged-in customers seen in more than one arm", fontsize=8)
+    ax.tick_params(axis="x", labelsize=8)
     ax.grid(axis="y", visible=False)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
+    _legend(ax, narrow, outside=True)
     fig.tight_layout()
     return _svg(fig, chart_id, "Identity churn by browser family, observed against expected")
 
@@ -248,11 +278,11 @@ def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, char
 _STATUS_MARK = {"pass": ("o", "#17603a"), "warn": ("^", "#9a6200"), "fail": ("X", "#9e1f24"), "skipped": ("s", "#777")}
 
 
-def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
+def chart_history(runs: list[dict[str, Any]], chart_id: str, narrow: bool = False) -> str:
     """The verdict of each run as shaped marks, and the headline figures that moved, over time."""
     days = _dates([r["as_of"] for r in runs])
     keys = trend_keys(runs)
-    fig, axes = plt.subplots(1 + len(keys), 1, figsize=(7.2, 1.2 + 1.6 * len(keys)), sharex=True,
+    fig, axes = plt.subplots(1 + len(keys), 1, figsize=(NARROW if narrow else WIDE, 1.4 + 1.7 * len(keys)), sharex=True,
                              squeeze=False, gridspec_kw={"height_ratios": [0.6] + [1] * len(keys)})
     ax = axes[0, 0]
     for status, (marker, colour) in _STATUS_MARK.items():
@@ -261,8 +291,10 @@ def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
             ax.scatter(hits, [0] * len(hits), marker=marker, s=70, color=colour,
                        label=STATUS_STYLE[status][0], zorder=3)
     ax.set_yticks([])
-    ax.set_title("verdict of each run", loc="left")
-    ax.legend(loc="center left", bbox_to_anchor=(1.0, 0.5), fontsize=8)
+    ax.set_title("verdict of each run", loc="left", fontsize=9)
+    # the legend sits above the row of marks, right-aligned: never among the data
+    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), fontsize=8, ncol=4, borderaxespad=0.2,
+              handletextpad=0.3, columnspacing=0.8)
     for (key, ax) in zip(keys, axes[1:, 0]):
         unit = runs[-1]["figures"][key].get("unit")
         pts = [(d, r["figures"].get(key, {}).get("value")) for d, r in zip(days, runs)]
@@ -276,7 +308,7 @@ def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
         ax.set_title(runs[-1]["figures"][key].get("label", key) + (" (%)" if unit == "share" else ""),
                      loc="left", fontsize=9)
     if len(days) <= 13:
-        axes[-1, 0].set_xticks(days, [d.strftime("%m-%d") for d in days], fontsize=8)
+        axes[-1, 0].set_xticks(days, [d.strftime("%m-%d") for d in days], fontsize=8, rotation=90 if narrow else 0)
     else:
         _date_axis(axes[-1, 0])
     fig.tight_layout()
@@ -284,11 +316,6 @@ def chart_history(runs: list[dict[str, Any]], chart_id: str) -> str:
 
 
 # --- page ----------------------------------------------------------------------------------------
-
-def sentence(text: str) -> str:
-    """Text with its first letter capitalised (summaries may start with a lowercase figure)."""
-    return text[:1].upper() + text[1:]
-
 
 def first_clause(text: str) -> str:
     """The first clause of a summary (up to its first '; ' or '. '), as a sentence."""
@@ -303,7 +330,9 @@ def badge(status: str) -> str:
             f'{esc(word)}</span>')
 
 
-def _cell(v: Any) -> str:
+def _cell(v: Any, unit: str = "number") -> str:
+    if unit in ("share", "p") and isinstance(v, (int, float)) and not isinstance(v, bool):
+        return esc(format_value(v, unit))
     if isinstance(v, float):
         if not math.isfinite(v):
             return esc(v)
@@ -317,17 +346,32 @@ def _cell(v: Any) -> str:
 
 def _table(t: Any) -> str:
     head = "".join(f"<th scope=\"col\">{esc(c)}</th>" for c in t.columns)
-    body = "".join("<tr>" + "".join(f"<td>{_cell(v)}</td>" for v in row) + "</tr>" for row in t.rows)
+    units = [column_unit(str(c)) for c in t.columns]
+    body = "".join("<tr>" + "".join(f"<td>{_cell(v, u)}</td>" for v, u in zip(row, units)) + "</tr>" for row in t.rows)
     return (f'<div class="tablewrap"><table><caption>{esc(t.title)}</caption>'
             f"<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>")
+
+
+def breakable(text: str) -> str:
+    """Escaped text that may wrap only after '=', ',' or '/' (a segment value is never cut mid-word)."""
+    return re.sub(r"([=,/])", r"\1<wbr>", esc(text))
 
 
 def _figures(check: Check) -> str:
     if not check.figures:
         return ""
-    items = "".join(f"<div><dt>{esc(f.label)}</dt><dd>{esc(format_value(f.value, f.unit))}</dd></div>"
-                    for f in check.figures.values())
+    items = "".join(
+        f'<div{" class=wide" if f.unit == "text" or f.numerator is not None else ""}><dt>{esc(f.label)}</dt>'
+        f"<dd>{breakable(format_figure(f))}</dd></div>"
+        for _, f in shown_figures(check.figures))
     return f'<dl class="figures">{items}</dl>'
+
+
+def _both(draw: Any, *args: Any) -> str:
+    """A chart drawn twice: wide for screens and print, narrow (redrawn, not shrunk) for phones."""
+    *rest, chart_id = args
+    return (f'<div class="chart-wide">{draw(*rest, chart_id)}</div>'
+            f'<div class="chart-narrow">{draw(*rest, chart_id + "-narrow", narrow=True)}</div>')
 
 
 def _charts_for(check: Check, report: AuditReport, th: AuditThresholds) -> list[str]:
@@ -336,21 +380,21 @@ def _charts_for(check: Check, report: AuditReport, th: AuditThresholds) -> list[
     total_w = sum(a.weight for a in report.arms) or 1
     if cid == "srm" and s.get("daily"):
         arms = [(a.name, a.weight / total_w) for a in report.arms]
-        out.append(chart_arm_share(s["daily"], arms, "arm-share"))
+        out.append(_both(chart_arm_share, s["daily"], arms, "arm-share"))
         if all("p_fixed" in r and "p_anytime" in r for r in s["daily"]):
-            out.append(chart_srm_p(s["daily"], th.srm_p, th.srm_anytime_p, "srm-p"))
+            out.append(_both(chart_srm_p, s["daily"], th.srm_p, th.srm_anytime_p, "srm-p"))
     elif cid == "leakage" and s.get("weekly"):
-        out.append(chart_leakage(s["weekly"], "leakage"))
+        out.append(_both(chart_leakage, s["weekly"], "leakage"))
     elif cid == "balance" and s.get("smd"):
-        out.append(chart_love(s["smd"], th.smd_warn, "love"))
+        out.append(_both(chart_love, s["smd"], th.smd_warn, "love"))
     elif cid == "churn" and s.get("by_browser"):
-        out.append(chart_churn(s["by_browser"], th.churn_warn, th.churn_fail, "churn"))
+        out.append(_both(chart_churn, s["by_browser"], th.churn_warn, th.churn_fail, "churn"))
     return out
 
 
 def _section(check: Check, report: AuditReport, th: AuditThresholds) -> str:
     charts = "".join(f"<figure>{svg}</figure>" for svg in _charts_for(check, report, th))
-    reason = f'<p class="reason">Skipped: {esc(check.reason)}</p>' if check.reason else ""
+    reason = f'<p class="reason">{esc(status_word("skipped"))}: {esc(check.reason)}</p>' if check.reason else ""
     tables = "".join(_table(t) for t in check.tables)
     expl = explanations(check)
     tables += (f'<ul class="explain">{"".join(f"<li>{esc(e)}</li>" for e in expl)}</ul>' if expl else "")
@@ -359,7 +403,7 @@ def _section(check: Check, report: AuditReport, th: AuditThresholds) -> str:
             f'<p class="summary">{esc(sentence(check.summary))}</p>{reason}{_figures(check)}{charts}{tables}</section>')
 
 
-def _history_section(report: AuditReport, history: list[dict[str, Any]] | None) -> str:
+def _history_section(report: AuditReport, history: list[dict[str, Any]] | None, th: AuditThresholds) -> str:
     runs = [r for r in (history or []) if r.get("as_of") != report.as_of]
     runs = sorted(runs + [row_from_report(report)], key=lambda r: r["as_of"])
     earlier = [r for r in runs if r["as_of"] < report.as_of]
@@ -368,9 +412,9 @@ def _history_section(report: AuditReport, history: list[dict[str, Any]] | None) 
                '<code>armlock audit --record</code> to see the week-by-week trend here.</p>'
         return f'<section class="check" id="history" data-check="history"><header><h2>Change since the last run</h2></header>{body}</section>'
     prev = earlier[-1]
-    said = changes(prev, report)
-    items = "".join(f"<li>{esc(s[0].upper() + s[1:])}.</li>" for s in said) or "<li>Nothing meaningful changed.</li>"
-    chart = f"<figure>{chart_history(runs, 'history')}</figure>" if len(runs) >= 2 else ""
+    said = changes(prev, report, th)
+    items = "".join(f"<li>{esc(sentence(s))}.</li>" for s in said) or f"<li>{esc(NOTHING_CHANGED)}</li>"
+    chart = f"<figure>{_both(chart_history, runs, 'history')}</figure>" if len(runs) >= 2 else ""
     rows = "".join(f"<tr><td>{esc(r['as_of'])}</td><td>{badge(r['verdict'])}</td></tr>" for r in runs[::-1][:12])
     table = (f'<div class="tablewrap"><table><caption>Recorded runs (newest first)</caption>'
              f"<thead><tr><th scope=\"col\">as of</th><th scope=\"col\">verdict</th></tr></thead><tbody>{rows}</tbody></table></div>")
@@ -409,9 +453,13 @@ nav a:hover, nav a:focus {{ border-color: {ACCENT}; outline: 2px solid {ACCENT};
 .figures {{ display: grid; grid-template-columns: repeat(auto-fill, minmax(10rem, 1fr)); gap: .5rem; margin: .6rem 0; }}
 .figures div {{ background: {PAPER}; border-radius: 6px; padding: .4rem .6rem; }}
 .figures dt {{ font-size: .8rem; color: {MUTED}; overflow-wrap: anywhere; }}
-.figures dd {{ margin: 0; font-size: 1.1rem; font-weight: 600; font-variant-numeric: tabular-nums; overflow-wrap: anywhere; }}
+.figures dd {{ margin: 0; font-size: 1.1rem; font-weight: 600; font-variant-numeric: tabular-nums; overflow-wrap: normal; word-break: normal; hyphens: none; }}
+.figures div.wide {{ grid-column: span 2; }}
+@media (max-width: 34rem) {{ .figures div.wide {{ grid-column: 1 / -1; }} }}
 figure {{ margin: .8rem 0; overflow-x: auto; }}
 svg.chart {{ width: 100%; height: auto; display: block; }}
+.chart-narrow {{ display: none; }}
+@media (max-width: 34rem) {{ .chart-wide {{ display: none; }} .chart-narrow {{ display: block; }} }}
 .tablewrap {{ overflow-x: auto; margin: .6rem 0; }}
 table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
 caption {{ text-align: left; font-weight: 600; padding: .2rem 0; }}
@@ -426,7 +474,8 @@ code {{ background: #ebe6de; padding: 0 .25rem; border-radius: 4px; }}
 @media print {{
   body {{ background: #fff; font-size: 11pt; }} main {{ max-width: none; padding: 0; }}
   nav {{ display: none; }} .check {{ break-inside: avoid; border: 1px solid #999; border-top-width: 4px; }}
-  figure {{ break-inside: avoid; overflow: visible; }} svg.chart {{ min-width: 0 !important; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
+  figure {{ break-inside: avoid; overflow: visible; }} svg.chart {{ min-width: 0 !important; }}
+  .chart-wide {{ display: block !important; }} .chart-narrow {{ display: none !important; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
 }}
 """
 
@@ -444,13 +493,14 @@ def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None
     lead = _VERDICT_WORDS[report.verdict]
     with matplotlib.rc_context(_RC):  # type: ignore[arg-type]
         sections = "".join(_section(c, report, th) for c in report.checks)
-        hist = _history_section(report, history)
+        hist = _history_section(report, history, th)
     nav = "".join(f'<li><a href="#check-{esc(c.id)}"><span>{esc(c.title)}</span>{badge(c.status)}</a></li>'
                   for c in report.checks)
     worst_list = "".join(f'<li><a href="#check-{esc(c.id)}"><strong>{esc(c.title)}</strong></a>: '
                          f"{esc(first_clause(c.summary))}</li>" for c in bad)
     notes = "".join(f"<li>{esc(n)}</li>" for n in report.input_notes)
     arms = ", ".join(f"{esc(a.name)} {a.weight / 100:g}% ({esc(a.role)})" for a in report.arms)
+    legend = " · ".join(f"{badge(k)} {esc(v)}" for k, v in STATUS_MEANING.items())
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
@@ -467,7 +517,7 @@ def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None
 {f'<div class="notes"><strong>About the input:</strong><ul>{notes}</ul></div>' if notes else ''}
 <nav aria-label="Checks"><ol>{nav}<li><a href="#history"><span>Change since the last run</span></a></li></ol></nav>
 {sections}{hist}
-<footer>Written by armlock {esc(report.armlock_version)} at {esc(report.generated_at)} · schema {esc(report.schema_)}.
+<footer><p class="legend">{legend}</p>Written by armlock {esc(report.armlock_version)} at {esc(report.generated_at)} · schema {esc(report.schema_)}.
 Visitor ids and cookies can be personal data: share this report only as your consent records and local privacy law
 allow, and ask the site's own counsel when unsure.</footer>
 </main></body></html>

@@ -260,12 +260,13 @@ def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Che
                      summary=(f"Cannot judge: no day or segment value has {th.min_expected:g} or more expected units "
                               "in every arm yet."))
     adj = holm([t[4] for t in tests])
-    order = np.argsort(adj, kind="stable")
+    order = np.lexsort(([t[4] for t in tests], adj))  # by adjusted p, ties by raw p
     fails = [i for i in order if adj[i] < th.srm_p]
+    listed = [i for i in order if adj[i] < 1.0][:show]  # an adjusted p of 1 is no lead: not listed
     rows = [[tests[i][0], tests[i][1], tests[i][2], round(tests[i][3], 4), tests[i][4], float(adj[i])]
-            for i in order[:show]]
+            for i in listed]
     worst_rows = [{"segment": tests[i][0], "value": tests[i][1], "p": tests[i][4], "p_holm": float(adj[i])}
-                  for i in order[:show]]
+                  for i in listed]
     named = ", ".join(f"{tests[i][0]}={tests[i][1]}" for i in fails[:5])
     status: Status
     if fails:
@@ -280,7 +281,7 @@ def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Che
     by_segment = {}
     for seg, frame in split.segments.items():
         by_segment[seg] = [[str(v), *[int(c) for c in frame.loc[v, arms]]] for v in frame.index]
-    tables = [Table(title="Worst days and segment values (Holm-adjusted)",
+    tables = [Table(title="Worst days and segment values (Holm-adjusted p below 1, smallest first)",
                     columns=["segment", "value", "units", "max |share/expected - 1|", "p (exact)", "p (Holm)"], rows=rows)]
     for seg, rws in by_segment.items():
         tables.append(Table(title=f"Units per arm by {seg}", columns=[seg, *arms], rows=rws))

@@ -54,14 +54,16 @@ def test_history_table_and_changes(spec: Path, tmp_path: Path) -> None:
     table = [ln for ln in lines if ln[:4] == "2026"]
     assert [ln.split()[:2] for ln in table] == [["2026-03-02", "WARN"], ["2026-03-09", "WARN"],
                                                 ["2026-03-16", "WARN"], ["2026-03-23", "FAIL"]]
-    assert "holdout leakage" in lines[2]
-    # failing checks' headline figures come first: SRM p, then leakage (both fail in the last run)
-    header = [h.strip() for h in lines[2].split("  ") if h.strip()]
-    assert header[:4] == ["as of", "verdict", "SRM p-value", "holdout leakage"]
-    assert table[-1].split()[2:4] == ["1.0e-04", "1.4%"]
+    rule = next(i for i, ln in enumerate(lines) if ln.startswith("-----"))
+    # failing checks' headline figures come first: SRM p, then leakage (both fail in the last run);
+    # long labels wrap over header lines, never cut ("customers in" / "several arms")
+    header = [h.strip() for h in lines[rule - 1].split("  ") if h.strip()]
+    assert header[:5] == ["as of", "verdict", "SRM p-value", "holdout leakage", "several arms"]
+    assert lines[rule - 2].strip() == "customers in" and "…" not in r.stdout
+    assert table[-1].split()[2:4] == ["0.0001", "1.40%"]
     assert "Since 2026-03-16 (as of 2026-03-23):" in lines
-    assert "  - holdout leakage rose from 0.6% to 1.4%" in lines
-    assert "  - the verdict went from warn to fail" in lines
+    assert "  - Holdout leakage rose from 0.60% to 1.40%" in lines
+    assert "  - The verdict went from WARN to FAIL" in lines
 
 
 def test_history_json_and_custom_path(spec: Path, tmp_path: Path) -> None:
@@ -72,8 +74,9 @@ def test_history_json_and_custom_path(spec: Path, tmp_path: Path) -> None:
     doc = json.loads(r.stdout)
     assert [x["as_of"] for x in doc["runs"]] == ["2026-03-02", "2026-03-09"]
     assert doc["fingerprint"] == load_spec(spec).fingerprint
-    # leakage 0.2% -> 0.2% and SRM p 0.6 -> 0.5 are not worth a sentence; units doubling is
-    assert doc["changes_since_previous"] == ["units rose from 14,000 to 28,000"]
+    # leakage 0.2% -> 0.2% and SRM p 0.6 -> 0.5 are not worth a sentence, and neither are units
+    # doubling from 14,000 to 28,000: counts always grow
+    assert doc["changes_since_previous"] == []
 
 
 def test_history_corrupt_file_is_a_clear_error(spec: Path, tmp_path: Path) -> None:

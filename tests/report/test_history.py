@@ -151,10 +151,11 @@ def test_locked_file_gives_a_clear_error(tmp_path: Path, monkeypatch: pytest.Mon
 def test_changes_say_what_moved_in_plain_words(weekly_reports: list) -> None:
     prev = history.row_from_report(weekly_reports[2])
     said = changes(prev, weekly_reports[3])
-    assert "holdout leakage rose from 0.6% to 1.4%" in said
-    assert "the verdict went from warn to fail" in said
-    assert "check “Sample ratio” went from pass to fail" in said
-    assert "SRM p-value fell from 0.3 to 1.0e-04" in said
+    assert "holdout leakage rose from 0.60% to 1.40%" in said
+    assert "the verdict went from WARN to FAIL" in said
+    assert "check “Sample ratio” went from PASS to FAIL" in said
+    assert "SRM p-value fell from 0.3 to 0.0001" in said
+    assert said.index("the verdict went from WARN to FAIL") == 0  # most important first
 
 
 def test_changes_is_quiet_when_nothing_meaningful_moved() -> None:
@@ -166,7 +167,35 @@ def test_changes_is_quiet_when_nothing_meaningful_moved() -> None:
 
 def test_changes_example_from_the_issue() -> None:
     a, b = build_report(leak_share=0.002), build_report(leak_share=0.014)
-    assert "holdout leakage rose from 0.2% to 1.4%" in changes(history.row_from_report(a), b)
+    assert "holdout leakage rose from 0.20% to 1.40%" in changes(history.row_from_report(a), b)
+
+
+def test_changes_never_report_counts_that_merely_grew() -> None:
+    a, b = build_report(as_of="2026-03-09", days=7), build_report(as_of="2026-03-16", days=28)
+    prev = history.row_from_report(a)
+    assert prev["figures"]["srm.units"]["value"] * 3 < history.row_from_report(b)["figures"]["srm.units"]["value"]
+    assert changes(prev, b) == []
+
+
+def test_changes_name_a_crossed_threshold() -> None:
+    from armlock.assign.spec_audit import AuditThresholds
+
+    def leak(share: float):  # the leakage figure under its real key, which has a threshold
+        rep = build_report(leak_share=share)
+        check = next(c for c in rep.checks if c.id == "leakage")
+        check.figures = {"holdout_leak_share": check.figures["share"]}
+        return rep
+
+    th = AuditThresholds()  # leak_fail = 0.005
+    a, b = leak(0.004), leak(0.0055)
+    said = changes(history.row_from_report(a), b, th)
+    assert said == ["holdout leakage rose from 0.40% to 0.55% and crossed the fail threshold "
+                    "(0.50%; fail when above it)"]
+    back = changes(history.row_from_report(b), a, th)
+    assert back == ["holdout leakage fell from 0.55% to 0.40% and is back within the fail threshold "
+                    "(0.50%; fail when above it)"]
+    assert changes(history.row_from_report(a), leak(0.0045), th) == []  # no crossing, and under a fifth
+    assert changes(history.row_from_report(a), b) == ["holdout leakage rose from 0.40% to 0.55%"]  # no thresholds
 
 
 def test_record_into_a_missing_folder_is_a_clear_error(tmp_path: Path) -> None:
@@ -178,9 +207,10 @@ def test_record_into_a_missing_folder_is_a_clear_error(tmp_path: Path) -> None:
 def test_figures_are_formatted_for_people() -> None:
     from armlock.audit.history import format_value
 
-    assert format_value(0.014, "share") == "1.4%"
-    assert format_value(0.002, "share") == "0.2%"
+    assert format_value(0.014, "share") == "1.40%"
+    assert format_value(0.002, "share") == "0.20%"
+    assert format_value(0.00004, "share") == "<0.01%"
     assert format_value(12345, "count") == "12,345"
     assert format_value(0.00001234, "p") == "1.2e-05"
     assert format_value("2026-01-05T00:00:39.912000+00:00", "date") == "2026-01-05 00:00 UTC"
-    assert format_value(None, "share") == "n/a"
+    assert format_value(None, "share") == "-"

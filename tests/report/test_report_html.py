@@ -14,8 +14,10 @@ from armlock.audit.report_html import render_html, share_band
 
 from .fixtures import HOSTILE, build_report, weekly
 
-CHARTS = {"srm": ["arm-share", "srm-p"], "leakage": ["leakage"], "balance": ["love"],
-          "churn": ["churn"], "srm_segments": [], "history": ["history"]}
+# each chart is drawn wide and, for phones, redrawn narrow (shown by a CSS media query)
+CHARTS = {"srm": ["arm-share", "arm-share-narrow", "srm-p", "srm-p-narrow"], "leakage": ["leakage", "leakage-narrow"],
+          "balance": ["love", "love-narrow"], "churn": ["churn", "churn-narrow"], "srm_segments": [],
+          "history": ["history", "history-narrow"]}
 
 
 class Walk(HTMLParser):
@@ -121,11 +123,13 @@ def test_output_is_deterministic_and_ids_unique() -> None:
 
 def test_verdict_is_in_words_colour_and_shape() -> None:
     page = render_html(weekly()[-1])
-    assert 'data-verdict="fail"' in page and "Broken" in page
+    assert 'data-verdict="fail"' in page and ">FAIL<" in page
     w = walk(page)
     badges = [a.get("data-status") for t, a in w.tags if t == "span" and "badge" in (a.get("class") or "")]
     assert {"fail", "warn", "skipped"} <= set(badges)
-    assert "Needs a look" in page and "Not checked" in page
+    assert ">WARN<" in page and ">NOT RUN<" in page
+    for old_word in ("Healthy", "Needs a look", "Broken", "Not checked", "Skipped"):  # one word per state
+        assert old_word not in page, old_word
 
 
 def test_missing_series_gives_section_without_chart() -> None:

@@ -78,7 +78,7 @@ def test_template_hash_matches_python_xxhash_on_all_lengths() -> None:
 
 
 def test_template_seed_is_the_contract_seed() -> None:
-    # DESIGN.md: seed 42, the seed of Apache Spark's xxhash64 (Spark hash.scala, XxHash64).
+    # shared/CONTRACT.md: seed 42, the seed of Apache Spark's xxhash64 (Spark hash.scala, XxHash64).
     assert SEED == 42 and "SEED = [42, 0, 0, 0]" in _template(TEMPLATE)
 
 

@@ -1,0 +1,104 @@
+"""The words and number formats every human-readable output uses (text, markdown, HTML, history).
+
+JSON keeps the machine values (`pass`/`warn`/`fail`/`skipped`, shares as fractions); a person
+always reads the same word for a state and the same form for a number, whichever output it is.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from .model import Figure
+
+# One word per state, in every human output and in the exit-code documentation.
+STATUS_WORD: dict[str, str] = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "NOT RUN"}
+# What each word means, for legends and documentation.
+STATUS_MEANING: dict[str, str] = {
+    "pass": "the check ran and found nothing to act on",
+    "warn": "the check found something to look at, or could not judge (its summary says which)",
+    "fail": "the split is broken: do not read results until it is fixed",
+    "skipped": "the check did not run (its input was not given); it counts as PASS in the verdict",
+}
+NOTHING_CHANGED = "No status changed, no threshold was crossed and no rate or p-value moved much."
+SHARE_DECIMALS = 2  # shares are written as percent with this many decimals in every human output
+
+
+def status_word(status: str) -> str:
+    """The word a person reads for a status: PASS, WARN, FAIL or NOT RUN."""
+    return STATUS_WORD.get(status, status.upper())
+
+
+def format_share(value: float) -> str:
+    """A share (a fraction in JSON) as percent with fixed decimals: 0.0213 -> '2.13%'."""
+    pct = value * 100
+    if 0 < abs(pct) < 10 ** -SHARE_DECIMALS:
+        return f"<{10 ** -SHARE_DECIMALS:.{SHARE_DECIMALS}f}%" if pct > 0 else f">-{10 ** -SHARE_DECIMALS:.{SHARE_DECIMALS}f}%"
+    return f"{pct:.{SHARE_DECIMALS}f}%"
+
+
+def format_p(value: float) -> str:
+    """A p-value in two significant digits: 0.41, 0.0087, 8.1e-06."""
+    return f"{value:.2g}"
+
+
+def format_value(value: Any, unit: str = "number") -> str:
+    """A figure or table cell as a person reads it, by its unit (see `audit.model.Unit`)."""
+    if value is None:
+        return "-"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if unit == "date" and isinstance(value, str) and len(value) > 10 and value[10] == "T":
+        return value[:16].replace("T", " ") + (" UTC" if value.endswith(("Z", "+00:00")) else "")
+    if not isinstance(value, (int, float)):
+        return str(value)
+    if isinstance(value, float) and math.isnan(value):
+        return "-"
+    if isinstance(value, float) and math.isinf(value):
+        return "inf" if value > 0 else "-inf"
+    if unit == "share":
+        return format_share(value)
+    if unit == "p":
+        return format_p(value)
+    if unit == "count" or isinstance(value, int):
+        return f"{value:,.0f}"
+    if unit == "ratio":
+        return f"{value:.3f}"
+    if value != 0 and (abs(value) < 0.001 or abs(value) >= 1e6):
+        return f"{value:.3g}"
+    return f"{value:,.4f}".rstrip("0").rstrip(".") or "0"
+
+
+def format_figure(fig: Figure) -> str:
+    """A figure's value; a share with known counts also shows them: '2.13% (170 of 7,995)'."""
+    text = format_value(fig.value, fig.unit)
+    if fig.unit == "share" and fig.numerator is not None and fig.denominator is not None:
+        text += f" ({fig.numerator:,} of {fig.denominator:,})"
+    return text
+
+
+def shown_figures(figures: dict[str, Figure]) -> list[tuple[str, Figure]]:
+    """The figures a person reads, in order, without a count that its share already shows.
+
+    A count figure whose label equals a share figure's label and whose value is that share's
+    numerator is merged into the share ('5.00% (3,965 of 79,247)'); JSON keeps both keys.
+    """
+    merged = {(f.label, f.numerator) for f in figures.values() if f.unit == "share" and f.numerator is not None}
+    return [(k, f) for k, f in figures.items() if not (f.unit == "count" and (f.label, f.value) in merged)]
+
+
+def column_unit(name: str) -> str:
+    """How a table column is written, from its name: shares and rates as percent, p-values as p."""
+    low = name.lower().strip()
+    if low in ("p", "p (holm)") or low.startswith("p ") or low.endswith(" p") or "p-value" in low:
+        return "p"
+    if "mean" in low:  # "holdout mean/share": a mean or a share, by row
+        return "number"
+    if low.endswith(("share", "rate")) or low.startswith(("share of", "rate of")):
+        return "share"
+    return "number"
+
+
+def sentence(text: str) -> str:
+    """Text with its first letter capitalised (summaries and changes are read as sentences)."""
+    return text[:1].upper() + text[1:]
