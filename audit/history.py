@@ -208,14 +208,12 @@ def trend_keys(runs: list[dict[str, Any]], limit: int = 4) -> list[str]:
 # "above": the check warns/fails when the figure exceeds the threshold; "below": when p falls under it.
 # A new check (or the readout) adds its own headline figures here to have their crossings named.
 THRESHOLDS: dict[str, tuple[str | None, str | None, str]] = {
-    "srm.p_fixed": (None, "srm_p", "below"),
     "srm.p_anytime": (None, "srm_anytime_p", "below"),
     "srm_segments.min_p_holm": (None, "srm_p", "below"),
     "integrity.mismatch_rate": ("mismatch_warn", "mismatch_fail", "above"),
     "leakage.holdout_leak_share": ("leak_warn", "leak_fail", "above"),
     "leakage.pre_exposed_share": ("pre_exposure_warn", "pre_exposure_fail", "above"),
     "churn.multi_arm_share": ("churn_warn", "churn_fail", "above"),
-    "balance.max_abs_smd": ("smd_warn", "smd_fail", "above"),
     "balance.min_p_holm": (None, "balance_p", "below"),
 }
 # Units whose moves are worth a sentence: rates and p-values. Counts always grow week by week,
