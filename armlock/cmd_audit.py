@@ -57,7 +57,7 @@ def audit_cmd(
     as_of: str = typer.Option(None, "--as-of", help="Audit as of the end of this UTC day (YYYY-MM-DD); later rows are ignored. Default: the last first-seen day."),
     fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help="Report format: text for a terminal, markdown for a ticket, json (schema armlock.audit/1) for machines, html for a self-contained page."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
-    strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is warn (default: 0)."),
+    strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is WARN (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
@@ -65,9 +65,9 @@ def audit_cmd(
     """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
     identity churn and covariate balance. Column names come from the spec's [audit] tables.
 
-    Exit codes: 0 pass (or warn without --strict), 1 warn with --strict, 3 fail, 4 bad input
-    (a file, column or row is wrong: nothing was judged), 6 the spec's split changed since its
-    lock was recorded (confirm with --accept-changed-split).
+    Exit codes: 0 verdict PASS (or WARN without --strict), 1 WARN with --strict, 3 FAIL,
+    4 bad input (a file, column or row is wrong: nothing was judged), 6 the spec's split changed
+    since its lock was recorded (confirm with --accept-changed-split).
 
     Example:
       armlock audit --spec spring.toml --visits visits.parquet --exposures exposures.csv.gz \\

@@ -95,10 +95,10 @@ def _svg(fig: MplFigure, chart_id: str, caption: str) -> str:
     ids = set(re.findall(r'\sid="([^"]+)"', text))
     text = re.sub(r'(\sid="|#)([^")\s]+)(?=[")])',
                   lambda m: f"{m.group(1)}{chart_id}-{m.group(2)}" if m.group(2) in ids else m.group(0), text)
-    # never drawn below 95% of its natural size, so its smallest (8 pt) text stays readable on a
-    # phone; a narrow screen scrolls the chart inside its figure instead
+    # never drawn below 95% of its natural size, so its smallest (8 pt) text stays readable; the
+    # audit's charts have a narrow twin for phones (`_both`), a chart without one scrolls in its figure
     box = re.search(r'viewBox="[\d.]+ [\d.]+ ([\d.]+) [\d.]+"', text)
-    least = min(float(box.group(1)) * 0.95, 340.0) if box else 340.0
+    least = float(box.group(1)) * 0.95 if box else 448.0
     text = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
                   rf'<svg\1 role="img" aria-label="{esc(caption)}" data-chart="{esc(chart_id)}" '
                   rf'class="chart" style="min-width:{least:.0f}px"', text, count=1)

@@ -9,10 +9,11 @@ from typing import Any
 
 from armlock.audit.model import Table
 from armlock.audit.render import md_table, text_table
+from armlock.audit.words import STATUS_WORD
 
 from .model import Interval, ReadoutReport
 
-MARK = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIP"}
+MARK = STATUS_WORD  # one word per status in every output (audit/words.py)
 
 
 def num(v: float | None, digits: int = 2) -> str:

@@ -65,7 +65,7 @@ def _good_rows(spec: Path, n: int = 40) -> list[str]:
 def test_help_has_example_and_exit_codes(tmp_path: Path) -> None:
     r = run(tmp_path, "--help")
     assert r.returncode == 0
-    assert "Example" in r.stdout and "3 fail" in r.stdout and "--strict" in r.stdout
+    assert "Example" in r.stdout and "3 FAIL" in r.stdout and "--strict" in r.stdout
 
 
 def test_missing_visits_file(tmp_path: Path, spec: Path) -> None:

@@ -6,13 +6,11 @@ tests/cli/test_demo_cli.py (one demo run serves both).
 
 from __future__ import annotations
 
-import gzip
 import re
 from pathlib import Path
 
 import typer
 
-from armlock.assign import spec_from_dict
 from armlock.assign.init import render_spec_toml
 from armlock.assign.snippet import render_snippet
 from armlock.assign.spec import load_spec
@@ -101,19 +99,8 @@ def test_snippet_sizes_in_the_readme_are_the_rendered_sizes(tmp_path: Path) -> N
         quoted = re.search(pattern, README)
         assert quoted, pattern
         assert int(quoted.group(1).replace(",", "")) == size, (form, size)
-
-
-def test_snippet_size_table_is_the_golden_specs_sizes() -> None:
-    import tomllib
-
-    golden = ROOT / "tests" / "snippet" / "golden" / "invented-shop.toml"
-    spec = spec_from_dict(tomllib.loads(golden.read_text(encoding="utf-8")), str(golden))
-    js, page = render_snippet(spec, "js").encode(), render_snippet(spec, "html").encode()
-    now = {"js, raw": len(js), "js, gzipped": len(gzip.compress(js, 9)), "html, gzipped": len(gzip.compress(page, 9))}
-    for row, size in now.items():
-        cells = re.search(rf"^\| {re.escape(row)} \|.*\| ([\d,]+) bytes \|$", README, flags=re.M)
-        assert cells, row
-        assert int(cells.group(1).replace(",", "")) == size, (row, size)
+    js_kb = len(render_snippet(spec, "js").encode("utf-8")) / 1000
+    assert f"about {js_kb:.1f} KB raw" in README
 
 
 def test_demo_figures_in_the_readme_come_from_the_code() -> None:
