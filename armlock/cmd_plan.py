@@ -56,9 +56,10 @@ def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | N
     if spec_path is not None:
         from armlock.assign import load_spec
 
-        spec = load_spec(spec_path)
+        spec = load_spec(spec_path)  # the column maps only: planning does not use the split, so no lock check
         kw.update(unit_id=spec.audit.visits.unit_id, first_seen=spec.audit.visits.first_seen,
-                  covariates=tuple(spec.audit.covariates))
+                  covariates=tuple(spec.audit.covariates), visits_delimiter=spec.audit.visits.delimiter,
+                  first_seen_format=spec.audit.visits.first_seen_format)
         ro = getattr(spec, "readout", None)  # the readout's [readout] tables, in specs that carry them
         orders = getattr(ro, "orders", None)
         if orders is not None:
@@ -67,7 +68,8 @@ def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | N
                                  "planner needs the visitor id of each order: give --orders-unit-column")
             kw.update(orders_unit_id=getattr(orders, "unit_id", None) or "unit_id",
                       orders_revenue=getattr(orders, "revenue", "revenue"),
-                      orders_order_id=getattr(orders, "order_id", "") or "")
+                      orders_order_id=getattr(orders, "order_id", "") or "",
+                      orders_delimiter=getattr(orders, "delimiter", ",") or ",")
         if getattr(ro, "covariates", None):
             kw["covariates"] = tuple(dict.fromkeys([*ro.covariates, *spec.audit.covariates]))
     if covariate:

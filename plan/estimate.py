@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from armlock.assign import InputError
-from armlock.audit.read import Source, _header, _need, _read_table, read_ids, read_numbers, read_times
+from armlock.audit.read import Source, _header, read_ids, read_mapped, read_numbers, read_times
 
 from .model import Estimate
 
@@ -34,6 +34,9 @@ class PrePeriodColumns:
     orders_order_id: str = ""  # optional: an order id repeated in the file is counted once (as the readout does)
     covariates: Sequence[str] = ("pre_orders", "pre_revenue")  # tried in turn; the best correlated is used
     covariate_explicit: bool = False  # True when the user named the covariate: then it must exist
+    visits_delimiter: str = ","  # CSV delimiters and the first-seen time format, as in the spec's column maps
+    orders_delimiter: str = ","
+    first_seen_format: str = "iso8601"
 
 
 @dataclass
@@ -52,18 +55,21 @@ def _set_aside(src: Source, mask: np.ndarray, what: str, notes: list[str]) -> No
 
 
 def _visits(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.DataFrame, list[str], Source]:
-    src = Source(path, "visits")
-    present = _header(src)
-    _need(src, present, {"unit_id": cols.unit_id, "first_seen": cols.first_seen}, "[audit.visits]")
     if cols.covariate_explicit:
+        present = _header(Source(path, "visits"), cols.visits_delimiter, [])
         for c in cols.covariates:
             if c not in present:
                 raise InputError(f"{path}: column '{c}' (--covariate) not found in the visits file; the file has "
                                  f"columns: {', '.join(present) or '(none)'}")
-    covs = [c for c in dict.fromkeys(cols.covariates) if c in present and c not in (cols.unit_id, cols.first_seen)]
-    table = _read_table(src, list(dict.fromkeys([cols.unit_id, cols.first_seen, *covs])))
+    # the audit's one reader: BOM, delimiter, duplicate and nested columns, damaged files (audit/read.py)
+    optional = {f"covariate {c}": c for c in dict.fromkeys(cols.covariates) if c not in (cols.unit_id, cols.first_seen)}
+    mapped = read_mapped(path, "visits", "[audit.visits]", {"unit_id": cols.unit_id, "first_seen": cols.first_seen},
+                         notes, optional=optional, delimiter=cols.visits_delimiter)
+    src, table = mapped.src, mapped.table
+    covs = [c for k, c in mapped.columns.items() if k.startswith("covariate ")]
     ids, empty = read_ids(src, table, cols.unit_id, notes)
-    frame = pd.DataFrame({"unit": ids, "time": read_times(src, table, cols.first_seen, notes)})
+    frame = pd.DataFrame({"unit": ids, "time": read_times(src, table, cols.first_seen, notes, cols.first_seen_format,
+                                                          "[audit.visits] first_seen_format")})
     for c in covs:
         frame[c] = read_numbers(src, table, c).to_numpy()
     _set_aside(src, empty, f"with an empty '{cols.unit_id}'", notes)
@@ -81,12 +87,11 @@ def _visits(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Da
 
 
 def _orders(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Series, pd.Series, Source]:
-    src = Source(path, "orders")
-    present = _header(src)
-    _need(src, present, {"unit_id": cols.orders_unit_id, "revenue": cols.orders_revenue}, "orders columns")
-    with_id = bool(cols.orders_order_id) and cols.orders_order_id in present
-    table = _read_table(src, list(dict.fromkeys([cols.orders_unit_id, cols.orders_revenue]
-                                                + ([cols.orders_order_id] if with_id else []))))
+    mapped = read_mapped(path, "orders", "[readout.orders]",
+                         {"unit_id": cols.orders_unit_id, "revenue": cols.orders_revenue}, notes,
+                         optional={"order_id": cols.orders_order_id}, delimiter=cols.orders_delimiter)
+    src, table = mapped.src, mapped.table
+    with_id = "order_id" in mapped.columns
     if table.num_rows == 0:
         raise InputError(f"{path}: the orders file has no orders (a header but no rows); the planner needs the "
                          "pre-period's orders to estimate revenue per unit")
