@@ -28,6 +28,8 @@ WEEKS = 12
 UNITS = 60_000
 SEED = 20260105
 FAULTS = ("pre_exposure", "cookie_churn", "leakage")
+UPLIFT = 0.3  # the channel's true effect by construction: reached visitors buy 30% more often
+SPEND = 18_000.0  # what the invented vendor billed for the twelve weeks (invented)
 MARKER = "armlock demo folder: an INVENTED scenario"
 SPEC_FILE = f"{NAME}.toml"
 
@@ -52,6 +54,8 @@ Files
       the vendor's impressions and clicks
   logs/identities.parquet
       visitor id -> logged-in customer key
+  logs/orders.parquet
+      the shop's orders (refunds as negative revenue), with the channel attribution credited
   snippet/armlock-tag.html
       the browser snippet as a <script> block for a tag manager
   snippet/armlock.js
@@ -60,12 +64,18 @@ Files
       the split-health report of the last week: open it in a browser
   report.json
       the same audit as JSON
+  readout.html
+      the readout of the last week: did the channel cause sales, and did it pay?
+  readout.json
+      the same readout as JSON
 
 The logs are Parquet, as warehouses export them. To peek at one:
   python -c "import pandas as pd; print(pd.read_parquet('logs/visits.parquet').head())"
 
 Try next (in this folder)
   armlock history --spec {SPEC_FILE}
+  armlock readout --spec {SPEC_FILE} --visits logs/visits.parquet --orders logs/orders.parquet \\
+      --exposures logs/exposures.parquet --identities logs/identities.parquet --spend {SPEND:.0f}
   armlock audit --spec {SPEC_FILE} --visits logs/visits.parquet \\
       --exposures logs/exposures.parquet --identities logs/identities.parquet --format text
 
@@ -93,6 +103,10 @@ class DemoResult:
     verdict: str = ""
     verdict_text: str = ""
     findings: list[str] = field(default_factory=list)
+    readout_headline: str = ""
+    readout_status: str = ""
+    true_incremental_revenue: float = 0.0  # the channel's effect by construction (synth.generate_orders)
+    readout_interval: tuple[float | None, float | None] = (None, None)
     weeks: int = 0
     seconds: float = 0.0
 
@@ -122,9 +136,10 @@ def _prepare(folder: Path) -> None:
 def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> DemoResult:
     """Write the scenario into `folder`, audit it once per week with history, write the report."""
     from armlock.audit import synth
-    from armlock.audit.history import default_history_path, load, record
+    from armlock.audit.history import default_history_path, load, record, record_readout
     from armlock.audit.report_html import render_html
-    from armlock.audit.run import run_audit
+    from armlock.readout.report_html import render_html as render_readout_html
+    from armlock.readout.run import run_readout_and_audit
 
     t0 = time.perf_counter()
     _prepare(folder)
@@ -132,6 +147,9 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
     spec_path = folder / SPEC_FILE
     text = render_spec_toml(NAME, [("holdout", 1000), ("exposed", 9000)], salt=SALT, start=START,
                             description=f"INVENTED demo: {SHOP}, {SITE}; not a real shop")
+    # the shop's plan: about this many visitors over the twelve weeks; orders carry attribution
+    text = text.replace("planned_units = 0 ", f"planned_units = {units} ").replace(
+        'attributed = "" ', 'attributed = "attributed_channel"')
     spec_path.write_text(f"# INVENTED demo scenario: {SHOP} at {SITE} is made up (armlock demo).\n"
                          + text, encoding="utf-8")
     spec = load_spec(spec_path)
@@ -140,18 +158,28 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
     (folder / "README.txt").write_text(README.replace("{story}", story), encoding="utf-8")
     logs = synth.generate(spec, units=units, days=7 * WEEKS, seed=SEED, faults=() if clean else FAULTS)
     paths = synth.write_logs(logs, folder / "logs", fmt="parquet")  # audits read it twice as fast as CSV
+    orders = synth.generate_orders(spec, logs, days=7 * WEEKS, seed=SEED + 1, uplift=UPLIFT, duplicates=0.002)
+    paths["orders"] = synth.write_orders(orders, folder / "logs", fmt="parquet")
     (folder / "snippet" / "armlock-tag.html").write_text(render_snippet(spec, "html"), encoding="utf-8")
     (folder / "snippet" / "armlock.js").write_text(render_snippet(spec, "js"), encoding="utf-8")
     history = default_history_path(spec_path)
     dates = weekly_as_of()
-    report = None
-    with progress(len(dates), "weekly audits") as advance:
-        for as_of in dates:
-            report = run_audit(spec, visits=paths["visits"], exposures=paths["exposures"],
-                               identities=paths["identities"], as_of=as_of)
+    report = readout = None
+    with progress(len(dates), "weekly audits and readouts") as advance:
+        for as_of in dates:  # the readout runs the audit's checks on the same files: one pass for both
+            readout, report = run_readout_and_audit(
+                spec, visits=paths["visits"], orders=paths["orders"], exposures=paths["exposures"],
+                identities=paths["identities"], spend=SPEND * ((as_of - START.date()).days + 1) / (7 * WEEKS),
+                as_of=as_of)
             record(history, report)
+            record_readout(history, fingerprint=readout.fingerprint, as_of=readout.as_of,
+                           experiment=readout.experiment, status=readout.status,
+                           figures={k: f.model_dump() for k, f in readout.figures.items()})
             advance(1)
-    assert report is not None
+    assert report is not None and readout is not None
+    (folder / "readout.json").write_text(json.dumps(readout.to_json_dict(), indent=2, ensure_ascii=False),
+                                         encoding="utf-8")
+    (folder / "readout.html").write_text(render_readout_html(readout), encoding="utf-8")
     (folder / "report.json").write_text(json.dumps(report.to_json_dict(), indent=2, ensure_ascii=False),
                                         encoding="utf-8")
     (folder / "report.html").write_text(render_html(report, load(history, spec.fingerprint),
@@ -161,7 +189,12 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
                  "visits": paths["visits"], "exposures": paths["exposures"],
                  "identities": paths["identities"], "snippet (html)": folder / "snippet" / "armlock-tag.html",
                  "snippet (js)": folder / "snippet" / "armlock.js", "report (html)": folder / "report.html",
-                 "report (json)": folder / "report.json"}
+                 "report (json)": folder / "report.json", "orders": paths["orders"],
+                 "readout (html)": folder / "readout.html", "readout (json)": folder / "readout.json"}
+    res.readout_headline, res.readout_status = readout.headline, readout.status
+    res.true_incremental_revenue = float(orders.truth["incremental_revenue"])
+    inc = readout.money.incremental_revenue
+    res.readout_interval = (inc.lo, inc.hi)
     res.verdict, res.verdict_text, res.weeks = report.verdict, report.verdict_text, len(dates)
     res.findings = [f"{status_word(c.status)} {c.title}: {_headline(c.summary)}"
                     for c in report.checks if c.status in ("fail", "warn")]
@@ -200,6 +233,11 @@ def demo(
     for line in res.findings:
         typer.echo(textwrap.fill(line, width=100, initial_indent="  - ", subsequent_indent="    "))
     typer.echo("")
+    typer.echo(textwrap.fill(f"Readout of the last week (armlock readout): {res.readout_headline}", width=100,
+                             subsequent_indent="  "))
+    typer.echo(textwrap.fill(f"The true incremental revenue, known here by construction, is "
+                             f"USD {res.true_incremental_revenue:,.0f}.", width=100, subsequent_indent="  "))
+    typer.echo("")
     typer.echo("Files:")
     width = max(len(k) for k in res.files)
     for label, path in res.files.items():
@@ -207,6 +245,7 @@ def demo(
     typer.echo("")
     report = res.files["report (html)"]
     typer.echo(f"Open the report in a browser: xdg-open {report}  (macOS: open {report})")
+    typer.echo(f"The readout page:             xdg-open {res.files['readout (html)']}")
     typer.echo(f"Week-by-week trend:           armlock history --spec {res.files['spec']}")
     typer.echo(f"Done in {res.seconds:.1f} s. The demo's findings are expected: exit code 0.")
 

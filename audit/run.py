@@ -75,17 +75,22 @@ def run_audit(
         step(input_bytes(identities))
     tables = engine_pandas.compute(spec, fr)
     checks = checks_from_tables(spec, tables, fr.counts, split_changes or [])
+    return report_from_checks(spec, fr, used, checks)
+
+
+def report_from_checks(spec: Spec, fr: Frames, as_of: date, checks: list[Check]) -> AuditReport:
+    """The AuditReport of a set of checks (shared with the readout, which runs the same checks)."""
     verdict = worst([c.status for c in checks])
     return AuditReport(
         experiment=spec.name,
         fingerprint=spec.fingerprint,
-        as_of=used.isoformat(),
-        data_through=fr.data_through.isoformat() if fr.data_through and fr.data_through < used else None,
+        as_of=as_of.isoformat(),
+        data_through=fr.data_through.isoformat() if fr.data_through and fr.data_through < as_of else None,
         generated_at=datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
         armlock_version=__version__,
         arms=[ArmInfo(name=a.name, weight=a.weight, role=a.role) for a in spec.arms],
         verdict=verdict,
         verdict_text=VERDICT_TEXT[verdict],
-        input_notes=fr.notes,
+        input_notes=list(fr.notes),
         checks=checks,
     )
