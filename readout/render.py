@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import textwrap
 from collections.abc import Callable
 from typing import Any
 
@@ -14,6 +15,7 @@ from armlock.audit.words import STATUS_WORD
 from .model import Interval, ReadoutReport
 
 MARK = STATUS_WORD  # one word per status in every output (audit/words.py)
+WIDTH = 100  # the terminal report's sentences wrap here (tables keep their own width)
 
 
 def num(v: float | None, digits: int = 2) -> str:
@@ -125,16 +127,16 @@ def _adjust_line(r: ReadoutReport) -> str | None:
 
 def render_text(r: ReadoutReport) -> str:
     out = [f"armlock readout: {r.experiment}   as of {r.as_of}   spec {r.fingerprint}",
-           f"audit gate: {MARK[r.status]}", "", r.headline, ""]
+           f"audit gate: {MARK[r.status]}", "", textwrap.fill(r.headline, WIDTH), ""]
     bad = [g for g in r.gate if g.status in ("fail", "warn")]
     if bad:
         out.append("Audit checks that gate this readout:")
         out += [f"  [{MARK[g.status]}] {g.title}: {g.summary.split('; ')[0]}" for g in bad]
         out.append("")
-    out += [r.reading_advice, _adjust_line(r) or "", ""]
+    out += [textwrap.fill(r.reading_advice, WIDTH), textwrap.fill(_adjust_line(r) or "", WIDTH), ""]
     if r.cautions:
         out.append("Cautions:")
-        out += [f"  - {c}" for c in r.cautions]
+        out += [textwrap.fill(c, WIDTH, initial_indent="  - ", subsequent_indent="    ") for c in r.cautions]
         out.append("")
     if r.input_notes:
         out.append("Input notes:")

@@ -183,3 +183,25 @@ def test_readme_history_example_is_the_demos_history(demo: tuple[Path, subproces
     shown = [ln for ln in block[1:] if ln != "..."]
     assert all(ln in printed for ln in shown), [ln for ln in shown if ln not in printed]
     assert shown[-1] == printed[-1]
+
+
+def test_demo_prints_the_readout_headline_and_its_page_opens_clean(
+        demo: tuple[Path, subprocess.CompletedProcess[str]], tmp_path: Path) -> None:
+    cwd, r = demo
+    out = r.stdout
+    assert "Readout of the last week (armlock readout): NOT TRUSTWORTHY" in out
+    # another test may rerun the demo with --clean in this folder: read the page's own status
+    status = json.loads((cwd / "armlock-demo" / "readout.json").read_text(encoding="utf-8"))["status"]
+    word = {"fail": "Not trustworthy", "warn": "Read with caution", "pass": "Trustworthy split"}[status]
+    assert "The true incremental revenue, known here by construction" in out
+    assert "xdg-open armlock-demo/readout.html" in out
+    page_file = cwd / "armlock-demo" / "readout.html"
+    for width in (390, 1280):
+        with open_page(page_file, width) as (page, seen):
+            charts = page.evaluate("() => [...document.querySelectorAll('svg[data-chart]')].map(s => s.dataset.chart)")
+            assert charts == ["readout-roas", "readout-looks", "readout-arms"]
+            assert page.evaluate("() => document.documentElement.scrollWidth") <= width
+            assert page.inner_text(".verdict").startswith(word)
+            page.screenshot(path=str(tmp_path / f"readout-{width}.png"), full_page=True)
+        assert seen == {"console_errors": [], "page_errors": [], "dialogs": [], "non_file_requests": [],
+                        "failed_requests": []}
