@@ -9,7 +9,7 @@ import typer
 from armlock.assign.errors import InputError
 
 from .cmd_audit import _as_of, exit_code
-from .common import SPEC_HELP, err, open_spec, progress
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec_and_lock, progress
 
 FORMATS = ("text", "markdown", "json", "html")
 
@@ -29,6 +29,7 @@ def readout_cmd(
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the audit gate warns (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record (default: beside the spec, SPEC.history.sqlite)."),
+    accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
     """Read out the test: incremental revenue, profit, iROAS and ROI with honest intervals, the
     effect per exposed unit, and what attribution credited, arm against arm (intent to treat).
@@ -39,7 +40,8 @@ def readout_cmd(
     anytime interval beside it. Column names come from the spec's [readout] tables.
 
     Exit codes: 0 pass (or warn without --strict), 1 warn with --strict, 3 the audit fails,
-    4 bad input (a file, column or row is wrong: nothing was judged).
+    4 bad input (a file, column or row is wrong: nothing was judged), 6 the spec's split changed
+    since its lock was recorded (confirm with --accept-changed-split).
 
     Example:
       armlock readout --spec spring.toml --visits visits.parquet --orders orders.csv \\
@@ -53,7 +55,8 @@ def readout_cmd(
     if spend is not None and spend < 0:
         raise typer.BadParameter(f"spend must not be negative, got {spend:g}", param_hint="--spend")
     day = _as_of(as_of)
-    spec = open_spec(spec_path, record=False)
+    spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
+    from armlock.assign.lock import changes_after_start
     from armlock.audit.run import input_bytes  # pandas/scipy load only when a readout runs
     from armlock.readout.run import run_readout
 
@@ -61,7 +64,7 @@ def readout_cmd(
     with progress(total, "reading logs") as advance:
         report = run_readout(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,
                              spend=spend, spend_file=spend_file, attributed_revenue=attributed, as_of=day,
-                             advance=advance)
+                             advance=advance, split_changes=changes_after_start(lock))
     from armlock.audit import history
 
     hist = history_path or history.default_history_path(spec_path)

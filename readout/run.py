@@ -38,11 +38,12 @@ def run_readout(
     attributed_revenue: float | None = None,
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
+    split_changes: list[str] | None = None,
 ) -> ReadoutReport:
     """Read out a test as of the end of `as_of`; see `run_readout_and_audit`."""
     return run_readout_and_audit(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,
                                  spend=spend, spend_file=spend_file, attributed_revenue=attributed_revenue,
-                                 as_of=as_of, advance=advance)[0]
+                                 as_of=as_of, advance=advance, split_changes=split_changes)[0]
 
 
 def run_readout_and_audit(
@@ -57,13 +58,14 @@ def run_readout_and_audit(
     attributed_revenue: float | None = None,
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
+    split_changes: list[str] | None = None,
 ) -> tuple[ReadoutReport, AuditReport]:
     """Read out a test as of the end of `as_of` (UTC; default: the last first-seen day).
 
     `spend` (one amount for the exposed arms) or `spend_file` (per campaign and day, columns in
     `[readout.spend]`); `attributed_revenue` overrides the orders' attributed column. Raises
     `assign.InputError` for unusable files (file, column and rows named). Also returns the audit
-    of the same inputs (the gate), as `run_audit` would report it.
+    of the same inputs (the gate), as `run_audit` would report it; `split_changes` as in `run_audit`.
     """
     if spend is not None and spend_file is not None:
         raise InputError("give either --spend or --spend-file, not both")
@@ -81,7 +83,7 @@ def run_readout_and_audit(
         load_identities(spec, identities, used, fr)
         step(input_bytes(identities))
     audit_tables = audit_engine.compute(spec, fr)
-    checks = checks_from_tables(spec, audit_tables, fr.counts)
+    checks = checks_from_tables(spec, audit_tables, fr.counts, split_changes or [])
     audit = report_from_checks(spec, fr, used, checks)
     counts: dict[str, float] = {}
     order_frame = load_orders(spec, orders, used, fr.notes, counts)
