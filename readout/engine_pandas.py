@@ -50,6 +50,19 @@ def _customer_positions(spec: Spec, fr: Frames, arm: np.ndarray, vset: object,
     return pd.Index(first.index), first.to_numpy()
 
 
+def _exposed_during_test(spec: Spec, fr: Frames, fs: np.ndarray) -> np.ndarray:
+    """1.0 for each visits row with an exposure at or after both the start and its first-seen time."""
+    e = fr.exposures
+    assert e is not None
+    pos = _positions(e[UNIT], _arrow_ids(fr.visits[UNIT]).combine_chunks())
+    t = e[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
+    seen = pos >= 0
+    during = seen & (t >= pd.Timestamp(spec.start).value) & (t >= np.where(seen, fs[np.maximum(pos, 0)], 0))
+    out = np.zeros(len(fs), dtype=np.float64)
+    out[pos[during]] = 1.0
+    return out
+
+
 def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as_of: date,
             counts: dict[str, float], notes: list[str]) -> ReadoutTables:
     """All sufficient statistics of one readout."""
@@ -63,6 +76,8 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
     exposed = np.zeros(n, dtype=np.float64)
     if audit.leakage is not None and audit.leakage.exposed_rows is not None:
         exposed = np.asarray(audit.leakage.exposed_rows, dtype=np.float64)
+    elif fr.exposures is not None:  # an engine that kept no per-row flag: join the exposure log here
+        exposed = _exposed_during_test(spec, fr, fs)
 
     # covariates: an empty cell gets the pooled mean (counted)
     covs = list(cfg.covariates)

@@ -185,3 +185,28 @@ def test_covariate_missing_from_the_audit_is_read_and_blanks_get_the_pooled_mean
     rep = run_readout(spec, visits=write(tmp_path / "v.csv", v), orders=write(tmp_path / "o.csv", _orders(v)))
     assert rep.adjustment is not None and rep.adjustment.covariates == ["prior_orders"]
     assert any("covariate 'prior_orders'" in n and "pooled mean" in n for n in rep.input_notes)
+
+
+def test_exposure_flag_without_the_audit_engine_row_flag_matches(tmp_path: Path) -> None:
+    # An engine that keeps no per-row exposure flag (Spark) leaves it None: the readout joins the
+    # exposure log itself and must find the same exposed units.
+    from armlock.audit import engine_pandas as audit_engine
+    from armlock.audit.load import load_exposures, load_visits
+    from armlock.audit.read import Frames
+    from armlock.readout import engine_pandas
+
+    spec = small_spec(covariates=[])
+    v = visits_frame(spec)
+    expo = v[v["arm"] == "exposed"].iloc[::2]
+    e = pd.DataFrame({"unit_id": expo["unit_id"], "event_time": "2026-01-24T12:00:00Z", "campaign": "c",
+                      "event_kind": "impression"})
+    e.loc[len(e)] = {"unit_id": v["unit_id"][5], "event_time": "2026-01-01T00:00:00Z", "campaign": "c",
+                     "event_kind": "impression"}  # before the start: not an exposure of the test
+    fr = Frames(visits=None)  # type: ignore[arg-type]
+    used = load_visits(spec, write(tmp_path / "v.csv", v), None, fr)
+    load_exposures(spec, write(tmp_path / "e.csv", e), used, fr)
+    tables = audit_engine.compute(spec, fr)
+    fs = fr.visits["_time"].to_numpy(dtype="datetime64[ns]").view(np.int64)
+    joined = engine_pandas._exposed_during_test(spec, fr, fs)
+    assert joined.sum() > 0
+    assert np.array_equal(joined, np.asarray(tables.leakage.exposed_rows, dtype=float))
