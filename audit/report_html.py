@@ -348,7 +348,8 @@ def _table(t: Any) -> str:
     head = "".join(f"<th scope=\"col\">{esc(c)}</th>" for c in t.columns)
     units = [column_unit(str(c)) for c in t.columns]
     body = "".join("<tr>" + "".join(f"<td>{_cell(v, u)}</td>" for v, u in zip(row, units)) + "</tr>" for row in t.rows)
-    return (f'<div class="tablewrap"><table><caption>{esc(t.title)}</caption>'
+    # the title sits above the scrolling box, so a wide table never cuts it off on a phone
+    return (f'<p class="tabletitle">{esc(t.title)}</p><div class="tablewrap"><table aria-label="{esc(t.title)}">'
             f"<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>")
 
 
@@ -462,7 +463,7 @@ svg.chart {{ width: 100%; height: auto; display: block; }}
 @media (max-width: 34rem) {{ .chart-wide {{ display: none; }} .chart-narrow {{ display: block; }} }}
 .tablewrap {{ overflow-x: auto; margin: .6rem 0; }}
 table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
-caption {{ text-align: left; font-weight: 600; padding: .2rem 0; }}
+caption, .tabletitle {{ text-align: left; font-weight: 600; padding: .2rem 0; margin: .8rem 0 0; }}
 th, td {{ border-bottom: 1px solid {RULE}; padding: .3rem .7rem .3rem 0; text-align: left; vertical-align: top; overflow-wrap: break-word; }}
 td {{ white-space: nowrap; }} td:first-child {{ white-space: normal; }}
 th {{ color: {MUTED}; font-weight: 600; }}
