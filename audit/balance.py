@@ -324,7 +324,9 @@ def check_balance(spec: Spec, bt: BalanceTables) -> Check:
         rows=[[r.covariate, r.level, r.arm, fmt(r.ref), fmt(r.value), fmt(r.smd), fmt(r.chance), fmt(r.vr), r.test,
                fmt(r.p), fmt(r.p_holm), r.note or None] for r in rows],
     )
-    series = [{"covariate": r.covariate, "level": r.level, "smd": float(r.smd)}
+    series = [{"covariate": r.covariate, "level": r.level, "smd": float(r.smd),
+               "chance": float(r.chance) if r.chance is not None and math.isfinite(r.chance) else None,
+               "beyond_chance": bool(r.p_holm is not None and r.p_holm < th.balance_p)}
               for r in rows if r.smd is not None and math.isfinite(r.smd)]
     figs = {
         "max_abs_smd": Figure(label="largest |SMD|", value=round(max_smd, 6), unit="number"),

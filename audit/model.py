@@ -10,7 +10,9 @@ Chart series the HTML report draws (`Check.series[name]` is a list of row dicts)
                                         "p_fixed": float, "p_anytime": float}
 - check "leakage",   series "weekly":  {"week": "YYYY-MM-DD" (Monday), "holdout_units": int,
                                         "holdout_share": float, "impressions": int, "clicks": int}
-- check "balance",   series "smd":     {"covariate": str, "level": str | None, "smd": float}
+- check "balance",   series "smd":     {"covariate": str, "level": str | None, "smd": float,
+                                        "chance": float | None (the SMD's SE under randomization),
+                                        "beyond_chance": bool (its Holm p is below balance_p)}
 - check "churn",     series "by_browser": {"browser": str, "customers": int, "multi_arm": int,
                                         "share": float, "expected_share": float}
 - check "srm_segments", series "worst": {"segment": str, "value": str, "p": float, "p_holm": float}

@@ -183,13 +183,14 @@ def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, ch
     fig, ax = plt.subplots(figsize=(NARROW if narrow else WIDE, 3.4 if narrow else 3.0))
     fixed = [max(float(r["p_fixed"]), floor) for r in rows]
     anytime = [max(float(r["p_anytime"]), floor) for r in rows]
-    ax.plot(days, fixed, color=ARM_COLOURS[1], lw=2, marker="s", ms=2.5, label="fixed-horizon p (chi-square)")
+    ax.plot(days, fixed, color=ARM_COLOURS[1], lw=2, marker="s", ms=2.5, label="fixed-horizon p (information only)")
     ax.plot(days, anytime, color=ARM_COLOURS[0], lw=2, ls=(0, (6, 2)), marker="^", ms=3,
             label="anytime-valid p (sequential)")
-    ax.axhline(p_fixed, color=ARM_COLOURS[1], lw=1, ls=":", label=f"fixed threshold {p_fixed:g}")
-    ax.axhline(p_anytime, color=ARM_COLOURS[0], lw=1, ls="-.", label=f"anytime threshold {p_anytime:g}")
+    # Only the anytime-valid p sets the status (it stays valid at every weekly look); the fixed-horizon
+    # p is drawn for information, without a line of its own.
+    ax.axhline(p_anytime, color=ARM_COLOURS[0], lw=1, ls="-.", label=f"fails below {p_anytime:g} (anytime-valid p)")
     _log_axis(ax)
-    low = min(min(fixed), min(anytime), p_fixed) / 10
+    low = min(min(fixed), min(anytime), p_anytime) / 10
     ax.set_ylim(max(low, floor), 1.5)
     ax.set_ylabel("p-value (log scale)")
     ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=1 if narrow else 2)
@@ -221,33 +222,44 @@ def chart_leakage(rows: list[dict[str, Any]], chart_id: str, narrow: bool = Fals
 
 
 def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str, narrow: bool = False) -> str:
-    """Love plot: each covariate's standardized mean difference, with the ±line limits."""
+    """Love plot: each covariate's SMD with the range chance alone gives at this size (±1.96 SE).
+
+    The colour says what sets the status: a difference beyond chance (the Holm-adjusted test), not a
+    fixed line; the dashed ±line is the size (`smd_fail`) that fails when it is also beyond chance.
+    """
     sep = "\n= " if narrow else " = "
     labels = [f"{r['covariate']}" + (f"{sep}{r['level']}" if r.get("level") not in (None, "") else "") for r in rows]
     smd = [float(r["smd"]) for r in rows]
     fig, ax = plt.subplots(figsize=(NARROW if narrow else WIDE, 1.2 + (0.42 if narrow else 0.32) * max(len(rows), 2)))
     y = list(range(len(rows)))[::-1]
-    ok = [(yy, s) for yy, s in zip(y, smd) if abs(s) <= line]
-    bad = [(yy, s) for yy, s in zip(y, smd) if abs(s) > line]
-    ax.axvspan(-line, line, color=BAND, lw=0)
+    flagged = [bool(r.get("beyond_chance")) for r in rows]
+    chance = [r.get("chance") for r in rows]
+    for yy, c in zip(y, chance):
+        if c:
+            ax.plot([-1.96 * c, 1.96 * c], [yy, yy], color=BAND, lw=7, solid_capstyle="butt", zorder=1)
+    if any(chance):
+        ax.plot([], [], color=BAND, lw=7, label="range chance alone gives (±1.96 SE)")
     for v in (-line, line):
         ax.axvline(v, color=INK, lw=1, ls=(0, (4, 3)))
     ax.axvline(0, color=MUTED, lw=0.8)
+    ok = [(yy, s) for yy, s, f in zip(y, smd, flagged) if not f]
+    bad = [(yy, s) for yy, s, f in zip(y, smd, flagged) if f]
     if ok:
         ax.scatter([s for _, s in ok], [yy for yy, _ in ok], marker="o", s=30, color=ARM_COLOURS[1],
-                   label=f"|SMD| ≤ {line:g}", zorder=3)
+                   label="within chance", zorder=3)
     if bad:
         ax.scatter([s for _, s in bad], [yy for yy, _ in bad], marker="D", s=36, color=ARM_COLOURS[0],
-                   label=f"|SMD| > {line:g}", zorder=3)
+                   label="beyond chance (Holm)", zorder=3)
+    ax.plot([], [], color=INK, lw=1, ls=(0, (4, 3)), label=f"|SMD| {line:g}: fails if also beyond chance")
     ax.set_yticks(y, labels, fontsize=8)
-    reach = max([abs(s) for s in smd] + [line * 1.6])
+    reach = max([abs(s) for s in smd] + [line * 1.2] + [1.96 * c for c in chance if c])
     ax.set_xlim(-reach * 1.1, reach * 1.1)
     ax.set_xlabel("SMD (exposed − holdout)" if narrow else "standardized mean difference (exposed − holdout)")
     ax.tick_params(axis="x", labelsize=8)
     ax.grid(axis="y", visible=False)
     _legend(ax, narrow, outside=True)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Love plot of standardized mean differences with the ±0.1 lines")
+    return _svg(fig, chart_id, "Love plot: standardized mean differences against the range chance alone gives")
 
 
 def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, chart_id: str,
@@ -387,7 +399,7 @@ def _charts_for(check: Check, report: AuditReport, th: AuditThresholds) -> list[
     elif cid == "leakage" and s.get("weekly"):
         out.append(_both(chart_leakage, s["weekly"], "leakage"))
     elif cid == "balance" and s.get("smd"):
-        out.append(_both(chart_love, s["smd"], th.smd_warn, "love"))
+        out.append(_both(chart_love, s["smd"], th.smd_fail, "love"))
     elif cid == "churn" and s.get("by_browser"):
         out.append(_both(chart_churn, s["by_browser"], th.churn_warn, th.churn_fail, "churn"))
     return out

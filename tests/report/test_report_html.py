@@ -179,7 +179,9 @@ def test_charts_draw_the_specs_thresholds() -> None:
 
     rep = build_report()
     default = render_html(rep)
-    assert "fixed threshold 0.0005" in default and "warns above 2%" in default
-    custom = render_html(rep, thresholds=AuditThresholds(srm_p=0.0001, smd_warn=0.2, churn_warn=0.03))
-    assert "fixed threshold 0.0001" in custom and "fixed threshold 0.0005" not in custom
-    assert "|SMD| ≤ 0.2" in custom and "warns above 3%" in custom
+    assert "fails below 0.001 (anytime-valid p)" in default and "warns above 2%" in default
+    assert "fixed threshold" not in default  # the fixed-horizon p is information only: no line of its own
+    custom = render_html(rep, thresholds=AuditThresholds(srm_anytime_p=0.0002, smd_fail=0.3, churn_warn=0.03))
+    assert "fails below 0.0002 (anytime-valid p)" in custom and "fails below 0.001 " not in custom
+    assert "|SMD| 0.3: fails if also beyond chance" in custom and "warns above 3%" in custom
+    assert "range chance alone gives" in custom
