@@ -49,11 +49,22 @@ def _as_of(text: str | None) -> date | None:
                                  param_hint="--as-of") from None
 
 
+def _spark_conf(items: list[str]) -> dict[str, str]:
+    out = {}
+    for item in items:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip():
+            raise typer.BadParameter(f"{item!r} is not KEY=VALUE, e.g. spark.executor.memory=8g",
+                                     param_hint="--spark-conf")
+        out[key.strip()] = value
+    return out
+
+
 def audit_cmd(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    visits: Path = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet)."),
-    exposures: Path = typer.Option(None, "--exposures", help="The ad vendor's exposure log (impressions, clicks); enables the leakage check."),
-    identities: Path = typer.Option(None, "--identities", help="Identity links: unit id -> logged-in customer key; enables the churn check."),
+    visits: str = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet; with --engine spark also a Parquet or Delta directory, a cluster path, or table:db.name)."),
+    exposures: str = typer.Option(None, "--exposures", help="The ad vendor's exposure log (impressions, clicks); enables the leakage check."),
+    identities: str = typer.Option(None, "--identities", help="Identity links: unit id -> logged-in customer key; enables the churn check."),
     as_of: str = typer.Option(None, "--as-of", help="Audit as of the end of this UTC day (YYYY-MM-DD); later rows are ignored. Default: the last first-seen day."),
     fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help="Report format: text for a terminal, markdown for a ticket, json (schema armlock.audit/1) for machines, html for a self-contained page."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
@@ -61,6 +72,9 @@ def audit_cmd(
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
+    engine: str = typer.Option("pandas", "--engine", help="Where the rows are counted: pandas (this machine, default) or spark (needs pip install 'armlock[spark]' and Java 17; uses the active SparkSession, else starts one)."),
+    spark_master: str = typer.Option(None, "--spark-master", help="With --engine spark and no active session: the master to start one on (default local[*]; e.g. yarn, spark://host:7077)."),
+    spark_conf: list[str] = typer.Option(None, "--spark-conf", metavar="KEY=VALUE", help="With --engine spark: a Spark setting for the session it starts (repeatable), e.g. spark.executor.memory=8g. spark-defaults.conf and spark-submit --conf also apply."),
 ) -> None:
     """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
     identity churn and covariate balance. Column names come from the spec's [audit] tables.
@@ -72,18 +86,28 @@ def audit_cmd(
     Example:
       armlock audit --spec spring.toml --visits visits.parquet --exposures exposures.csv.gz \\
           --identities identities.csv --as-of 2026-12-07 --format markdown --out audit.md
+      armlock audit --spec spring.toml --engine spark --visits table:analytics.visits \\
+          --exposures s3a://logs/exposures/ --format json --out audit.json
     """
     if fmt not in FORMATS:
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
                                  param_hint="--format")
     day = _as_of(as_of)
+    conf = _spark_conf(spark_conf or [])
+    if engine not in ("pandas", "spark"):
+        raise typer.BadParameter(f"unknown engine {engine!r}; choose pandas or spark", param_hint="--engine")
+    if engine != "spark" and (spark_master or conf):
+        raise typer.BadParameter("--spark-master and --spark-conf need --engine spark", param_hint="--engine")
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
+    from armlock.audit.engine import select_engine
     from armlock.audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
 
+    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf)
     with progress(input_bytes(visits, exposures, identities) or None, "reading logs") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
-                           as_of=day, advance=advance, split_changes=changes_after_start(lock))
+                           as_of=day, advance=advance, split_changes=changes_after_start(lock),
+                           engine=eng)
     from armlock.audit import history
 
     hist = history_path or history.default_history_path(spec_path)

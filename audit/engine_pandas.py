@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 import os
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
@@ -14,6 +13,7 @@ import pyarrow.compute as pc
 
 from armlock.assign import Spec, assign_many
 
+from .exactsum import exact_sum, rounded_mean, rounded_sum
 from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
 from .tables import (
     NUMERIC_COLUMNS,
@@ -125,17 +125,17 @@ def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, ob
     # one sort: average rank of each distinct value = values below it + (its count + 1) / 2
     _, inverse, tie_counts = np.unique(vals, return_inverse=True, return_counts=True)
     t = tie_counts.astype(np.float64)
-    ties = float(np.sum(t * t * t - t))
+    ties = rounded_sum(t * t * t - t)  # exact sums (audit.exactsum): every engine gets the same bits
     ranks = (np.cumsum(t) - (t - 1.0) / 2.0)[inverse] if len(vals) else vals
     rows = []
     for i in range(k):
         m = arms_used == i
         xi = vals[m]
-        mean = float(np.mean(xi)) if len(xi) else math.nan
+        mean = rounded_mean(exact_sum(xi), len(xi))
         d = xi - mean
         rows.append({"arm_index": i, "n": len(xi), "missing": int((ok & nan & (arm == i)).sum()),
                      "invalid": int((ok & ~nan & ~fin & (arm == i)).sum()),
-                     "mean": mean, "m2": float(np.dot(d, d)), "rank_sum": float(ranks[m].sum()),
+                     "mean": mean, "m2": rounded_sum(d * d), "rank_sum": rounded_sum(ranks[m]),
                      "ties": ties, "binary": binary})
     return rows
 

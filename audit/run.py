@@ -8,22 +8,22 @@ from pathlib import Path
 
 from armlock.assign import Spec, __version__
 
-from . import engine_pandas
 from .balance import check_balance
 from .churn import check_churn
+from .engine import Engine, EngineResult, Inputs, canonical, file_bytes, select_engine
 from .integrity import check_integrity
 from .leakage import check_leakage
-from .load import load_exposures, load_identities, load_visits
 from .model import ArmInfo, AuditReport, Check, worst
 from .read import Frames
 from .srm import check_srm, check_srm_segments
+from .tables import AuditTables
 
 PathLike = str | Path
 
 
 def input_bytes(*paths: PathLike | None) -> int:
-    """Total size of the input files that exist (the progress bar's total)."""
-    return sum(Path(p).stat().st_size for p in paths if p is not None and Path(p).is_file())
+    """Total size of the input files that exist (the progress bar's total); catalog tables count 0."""
+    return file_bytes(*paths)
 
 VERDICT_TEXT = {
     "pass": "The split looks healthy: no check found a problem.",
@@ -32,7 +32,7 @@ VERDICT_TEXT = {
 }
 
 
-def checks_from_tables(spec: Spec, tables: engine_pandas.AuditTables, counts: dict[str, int],
+def checks_from_tables(spec: Spec, tables: AuditTables, counts: dict[str, int],
                        split_changes: list[str] | None = None) -> list[Check]:
     """The statistics and verdicts, from sufficient statistics only (engine-independent)."""
     return [
@@ -54,6 +54,7 @@ def run_audit(
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
+    engine: Engine | str = "pandas",
 ) -> AuditReport:
     """Audit a test's logs as of the end of `as_of` (UTC; default: the last first-seen day).
 
@@ -61,24 +62,21 @@ def run_audit(
     `split_changes` are sentences about confirmed changes of the split made after the start
     (from the lock file): each makes the integrity check fail.
     `advance(n)` is called with each file's size in bytes once it is read (for a progress bar
-    whose total is `input_bytes(visits, exposures, identities)`).
+    whose total is `input_bytes(visits, exposures, identities)`). `engine` is "pandas" (embedded),
+    "spark" (a SparkSession: the active one, else a local one) or an `audit.engine.Engine`.
     """
-    step = advance or (lambda n: None)
-    fr = Frames(visits=None)  # type: ignore[arg-type]
-    used = load_visits(spec, visits, as_of, fr)
-    step(input_bytes(visits))
-    if exposures is not None:
-        load_exposures(spec, exposures, used, fr)
-        step(input_bytes(exposures))
-    if identities is not None:
-        load_identities(spec, identities, used, fr)
-        step(input_bytes(identities))
-    tables = engine_pandas.compute(spec, fr)
-    checks = checks_from_tables(spec, tables, fr.counts, split_changes or [])
-    return report_from_checks(spec, fr, used, checks)
+    eng = select_engine(engine) if isinstance(engine, str) else engine
+    res = eng.compute(spec, Inputs(visits, exposures, identities), as_of, advance or (lambda n: None))
+    return build_report(spec, res, split_changes)
 
 
-def report_from_checks(spec: Spec, fr: Frames, as_of: date, checks: list[Check]) -> AuditReport:
+def build_report(spec: Spec, res: EngineResult, split_changes: list[str] | None = None) -> AuditReport:
+    """The report from an engine's result: statistics and verdicts on the canonical tables."""
+    checks = checks_from_tables(spec, canonical(res.tables), res.counts, split_changes or [])
+    return report_from_checks(spec, res, res.as_of, checks)
+
+
+def report_from_checks(spec: Spec, fr: Frames | EngineResult, as_of: date, checks: list[Check]) -> AuditReport:
     """The AuditReport of a set of checks (shared with the readout, which runs the same checks)."""
     verdict = worst([c.status for c in checks])
     return AuditReport(

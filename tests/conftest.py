@@ -1,8 +1,12 @@
-"""Shared fixtures: the frozen vectors file and small specs."""
+"""Shared fixtures: the frozen vectors file, small specs, and the one local SparkSession of a test run."""
 
 from __future__ import annotations
 
 import json
+import os
+import shutil
+import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
@@ -10,6 +14,7 @@ import pytest
 
 from armlock.assign import Spec
 
+IN_CI = os.environ.get("CI") == "true"
 ROOT = Path(__file__).resolve().parents[1]
 VECTORS = ROOT / "shared" / "vectors" / "assignment_vectors.json"
 
@@ -31,3 +36,35 @@ def layout_spec(layout: dict[str, Any]) -> Spec:
 def spec_50() -> Spec:
     return Spec(name="t", salt="test-salt", start="2026-01-01T00:00:00Z",
                 arms=[{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}])
+
+
+@pytest.fixture(scope="session")
+def spark() -> Iterator[Any]:
+    """One small local SparkSession for the whole run (local[2], 2 shuffle partitions, no UI).
+
+    Skips when PySpark or Java is missing, except under CI=true, where the Spark tests must run.
+    """
+    try:
+        from pyspark.sql import SparkSession
+    except ImportError:
+        if IN_CI:
+            pytest.fail("pyspark is not installed but CI=true requires the Spark tests")
+        pytest.skip("pyspark not installed (pip install -e '.[test]')")
+    if shutil.which("java") is None and not os.environ.get("JAVA_HOME"):
+        if IN_CI:
+            pytest.fail("no Java found; the Spark tests need Java 17")
+        pytest.skip("no Java on this machine")
+    session = (
+        SparkSession.builder.master("local[2]")
+        .appName("armlock-tests")
+        .config("spark.ui.enabled", "false")
+        .config("spark.ui.showConsoleProgress", "false")
+        .config("spark.sql.shuffle.partitions", "2")
+        .config("spark.default.parallelism", "2")
+        .config("spark.driver.bindAddress", "127.0.0.1")
+        .config("spark.sql.warehouse.dir", tempfile.mkdtemp(prefix="armlock-warehouse-"))
+        .getOrCreate()
+    )
+    session.sparkContext.setLogLevel("ERROR")
+    yield session
+    session.stop()

@@ -5,9 +5,7 @@ The reference here is Apache Spark's own built-in xxhash64 (seed 42), not our co
 
 from __future__ import annotations
 
-import os
 import random
-import shutil
 
 import pytest
 
@@ -15,32 +13,7 @@ from armlock.assign import Spec, buckets_and_arms
 from armlock.assign.sql import spark_arm_expr, spark_bucket_expr
 from tests.conftest import layout_spec, load_vectors
 
-IN_CI = os.environ.get("CI") == "true"
-
-
-@pytest.fixture(scope="module")
-def spark():  # type: ignore[no-untyped-def]
-    try:
-        from pyspark.sql import SparkSession
-    except ImportError:
-        if IN_CI:
-            pytest.fail("pyspark is not installed but CI=true requires the Spark parity test")
-        pytest.skip("pyspark not installed (pip install -e '.[test]')")
-    if shutil.which("java") is None and not os.environ.get("JAVA_HOME"):
-        if IN_CI:
-            pytest.fail("no Java found; the Spark parity test needs Java 17")
-        pytest.skip("no Java on this machine")
-    session = (
-        SparkSession.builder.master("local[2]")
-        .appName("armlock-parity")
-        .config("spark.ui.enabled", "false")
-        .config("spark.sql.shuffle.partitions", "2")
-        .config("spark.driver.bindAddress", "127.0.0.1")
-        .getOrCreate()
-    )
-    session.sparkContext.setLogLevel("ERROR")
-    yield session
-    session.stop()
+# the `spark` fixture (one local session per run) is in tests/conftest.py
 
 
 def _spark_eval(spark, spec: Spec, ids: list[str | None]) -> tuple[list, list]:  # type: ignore[no-untyped-def]

@@ -1,0 +1,456 @@
+"""The Spark engine: every row-level step in Spark, only the small tables of `audit.tables` come back.
+
+De-duplication, the as-of cut and the set-aside rows follow `audit.load` (see engine_spark_load);
+each unit's arm is recomputed with Spark's native xxhash64 through the very expression that
+`armlock assign --sql spark` prints (`assign.sql.spark_arm_expr`); exposures and identity links
+are joined to the units in Spark; every count, distinct count and exact sum is a Spark aggregate.
+The driver receives tables whose size depends on days, levels, campaigns and weeks, never on
+units or rows, and hands them to the same statistics as the pandas engine.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections import defaultdict
+from collections.abc import Callable, Iterable
+from datetime import date
+
+import pandas as pd
+from pyspark.sql import Column, DataFrame, SparkSession
+from pyspark.sql import functions as F
+
+from armlock.assign import Spec
+from armlock.assign.sql import spark_arm_expr, spark_string_literal
+
+from .engine import EngineResult, Inputs, file_bytes
+from .engine_spark_load import US_DAY, SparkFrames, day_of, load_exposures, load_identities, load_visits
+from .exactsum import exact_total, rounded_mean
+from .tables import (
+    NUMERIC_COLUMNS,
+    AuditTables,
+    BalanceTables,
+    ChurnTables,
+    IntegrityTables,
+    LeakageTables,
+    SplitTables,
+)
+
+# PySpark warns about a pandas newer than it was tested with; the engine never converts frames.
+warnings.filterwarnings("ignore", message="PySpark does not yet fully support pandas", category=FutureWarning)
+
+_TZ = "spark.sql.session.timeZone"
+_NANOS = "spark.sql.legacy.parquet.nanosAsLong"
+
+
+class SparkEngine:
+    """Runs on the active SparkSession (a notebook, a `spark-submit` job), else starts one."""
+
+    name = "spark"
+
+    def __init__(self, master: str | None = None, conf: dict[str, str] | None = None,
+                 session: SparkSession | None = None) -> None:
+        self.master, self.conf, self.session = master, dict(conf or {}), session
+
+    def spark(self) -> SparkSession:
+        if self.session is not None:
+            return self.session
+        active = SparkSession.getActiveSession()
+        if active is not None:
+            return active
+        builder = SparkSession.builder.master(self.master or "local[*]").appName("armlock-audit")
+        for key, value in self.conf.items():
+            builder = builder.config(key, value)
+        return builder.getOrCreate()
+
+    def compute(self, spec: Spec, inputs: Inputs, as_of: date | None,
+                advance: Callable[[int], None]) -> EngineResult:
+        spark = self.spark()
+        saved = {k: spark.conf.get(k, None) for k in (_TZ, _NANOS)}
+        spark.conf.set(_TZ, "UTC")  # days, weeks and zone-less text times are UTC, as in the pandas engine
+        spark.conf.set(_NANOS, "true")  # pandas' nanosecond Parquet timestamps: read as longs, converted exactly
+        fr = SparkFrames()
+        try:
+            used = load_visits(spark, spec, str(inputs.visits), as_of, fr)
+            advance(file_bytes(inputs.visits))
+            if inputs.exposures is not None:
+                load_exposures(spark, spec, str(inputs.exposures), used, fr)
+                advance(file_bytes(inputs.exposures))
+            if inputs.identities is not None:
+                load_identities(spark, spec, str(inputs.identities), used, fr)
+                advance(file_bytes(inputs.identities))
+            tables = compute_tables(spec, fr)
+        finally:
+            for key, value in saved.items():
+                if value is None:
+                    spark.conf.unset(key)
+                else:
+                    spark.conf.set(key, value)
+            for frame in fr.cached:
+                frame.unpersist()
+        return EngineResult(tables=tables, as_of=used, notes=fr.notes, counts=fr.counts,
+                            data_through=fr.data_through)
+
+
+# -- the arm, natively -------------------------------------------------------------------------------
+
+def _names(spec: Spec) -> str:
+    return "array(" + ", ".join(spark_string_literal(a) for a in spec.arm_names) + ")"
+
+
+def hashed_index(spec: Spec, id_column: str = "_unit") -> Column:
+    """The arm index (spec order) the contract gives an id: `assign --sql spark`'s expression, natively."""
+    return F.expr(f"array_position({_names(spec)}, {spark_arm_expr(spec, id_column)}) - 1").cast("int")
+
+
+def recorded_index(spec: Spec) -> Column:
+    """Recorded arm -> spec index; -1 for an unknown name, -2 for an empty one."""
+    pos = F.expr(f"array_position({_names(spec)}, _arm)")
+    return (F.when(pos > 0, pos - 1).when(F.col("_arm") == "(missing)", -2).otherwise(-1)).cast("int")
+
+
+def _floor_div(c: Column, d: int) -> Column:
+    return ((c - F.pmod(c, F.lit(d))) / F.lit(d)).cast("long")  # exact: the division is by a divisor
+
+
+def _label(d: int) -> str:
+    return day_of(d * US_DAY).isoformat()
+
+
+# -- exact sums in Spark (see audit.exactsum) --------------------------------------------------------
+
+def _scale(v: Column, s: Column) -> Column:
+    """v * 2**s, exactly, in two steps so that no power of two overflows."""
+    h = F.floor(s / 2)
+    return v * F.pow(F.lit(2.0), h) * F.pow(F.lit(2.0), s - h)
+
+
+def exact_parts_cols(x: Column) -> tuple[Column, Column]:
+    """(e, m) with x = m * 2**e and m an integer below 2**53 (x finite and non-zero)."""
+    a = F.abs(x)
+    e0 = F.floor(F.log2(a)).cast("int")
+    r = _scale(a, -e0)
+    e = e0 + F.when(r >= 2, 1).when(r < 1, -1).otherwise(0)
+    m = _scale(x, F.lit(52) - e).cast("long").cast("decimal(38,0)")
+    return (e - 52).cast("int"), m
+
+
+def exact_sums(frame: DataFrame, keys: list[str], value: str) -> dict[tuple, float]:
+    """{keys: exact sum of `value`} as Fractions (finite, non-zero values only)."""
+    e, m = exact_parts_cols(F.col(value))
+    x = F.col(value)
+    parts = (frame.where(x.isNotNull() & ~F.isnan(x) & (F.abs(x) != float("inf")) & (x != 0))
+             .select(*keys, e.alias("_e"), m.alias("_m")).groupBy(*keys, "_e").agg(F.sum("_m").alias("_s"))
+             .collect())
+    acc: dict[tuple, list[tuple[int, int]]] = defaultdict(list)
+    for r in parts:
+        acc[tuple(r[k] for k in keys)].append((int(r["_e"]), int(r["_s"])))
+    return {k: exact_total(v) for k, v in acc.items()}  # type: ignore[misc]
+
+
+# -- the tables ----------------------------------------------------------------------------------------
+
+def compute_tables(spec: Spec, fr: SparkFrames) -> AuditTables:
+    """All sufficient statistics of one audit, from the loaded Spark frames."""
+    assert fr.visits is not None
+    v = (fr.visits.withColumn("_rec", recorded_index(spec)).withColumn("_hashed", hashed_index(spec))
+         .withColumn("_eff", F.when(F.col("_rec") >= 0, F.col("_rec")).otherwise(F.col("_hashed")))
+         .withColumn("_mis", (F.col("_rec") >= 0) & (F.col("_rec") != F.col("_hashed")))
+         .withColumn("_day", _floor_div(F.col("_t"), US_DAY))).cache()
+    fr.cached.append(v)
+    lab = _label_counts(fr, v)
+    split, integ = split_and_integrity(spec, fr, v, lab)
+    tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, v, lab))
+    if fr.exposures is not None:
+        tables.leakage = leakage_tables(spec, fr, v)
+    if fr.identities is not None:
+        tables.churn = churn_tables(spec, fr, v)
+    return tables
+
+
+def _label_counts(fr: SparkFrames, v: DataFrame) -> dict[str, dict[tuple[str, int, int], int]]:
+    """{label column: {(level, recorded, recomputed): units}} for every label column, in one pass."""
+    cols = list(fr.labels.values()) + (["_fp"] if fr.has_fp else [])
+    out: dict[str, dict[tuple[str, int, int], int]] = {c: {} for c in cols}
+    if not cols:
+        return out
+    pairs = F.explode(F.array(*[F.struct(F.lit(c).alias("c"), F.col(c).alias("v")) for c in cols]))
+    rows = (v.select("_rec", "_hashed", pairs.alias("p")).groupBy("p.c", "p.v", "_rec", "_hashed").count()
+            .collect())
+    for r in rows:
+        out[r["c"]][(r["v"], r["_rec"], r["_hashed"])] = int(r["count"])
+    return out
+
+
+def _crosstab(counts: dict[tuple[str, int, int], int], levels: list[str], arms: list[str]) -> pd.DataFrame:
+    grid = {lv: [0] * len(arms) for lv in levels}
+    for (lv, rec, _), n in counts.items():
+        if rec >= 0:
+            grid[lv][rec] += n
+    return pd.DataFrame([grid[lv] for lv in levels], index=pd.Index(levels, name="level"), columns=arms,
+                        dtype="int64")
+
+
+def _units_mis(counts: dict[tuple[str, int, int], int], levels: list[str]) -> pd.DataFrame:
+    units = dict.fromkeys(levels, 0)
+    mis = dict.fromkeys(levels, 0)
+    for (lv, rec, hashed), n in counts.items():
+        units[lv] += n
+        if rec >= 0 and rec != hashed:
+            mis[lv] += n
+    return pd.DataFrame({"units": [units[x] for x in levels], "mismatches": [mis[x] for x in levels]},
+                        index=pd.Index(levels, name="level"), dtype="int64")
+
+
+def _iso(us: int) -> str:
+    return pd.Timestamp(int(us), unit="us", tz="UTC").isoformat()
+
+
+def split_and_integrity(spec: Spec, fr: SparkFrames, v: DataFrame,
+                        lab: dict[str, dict[tuple[str, int, int], int]]) -> tuple[SplitTables, IntegrityTables]:
+    arms, k = list(spec.arm_names), len(spec.arms)
+    start_us = int(pd.Timestamp(spec.start).value // 1000)
+    g = v.groupBy("_arm", "_rec", "_hashed", "_day").agg(
+        F.count(F.lit(1)).alias("count"), F.sum((F.col("_t") < start_us).cast("long")).alias("pre"),
+        F.min("_t").alias("lo"), F.max("_t").alias("hi")).collect()
+    days = sorted({int(r["_day"]) for r in g})
+    dpos = {d: i for i, d in enumerate(days)}
+    daily = [[0] * k for _ in days]
+    by_day = [[0, 0] for _ in days]
+    units, pairs = [0] * k, [0] * (k * k)
+    unknown: dict[str, int] = {}
+    missing = 0
+    fr.arm_pairs = {}
+    for r in g:
+        rec, hashed, n, i = r["_rec"], r["_hashed"], int(r["count"]), dpos[int(r["_day"])]
+        fr.arm_pairs[(rec, hashed)] = fr.arm_pairs.get((rec, hashed), 0) + n
+        by_day[i][0] += n
+        if rec >= 0:
+            units[rec] += n
+            daily[i][rec] += n
+            if rec != hashed:
+                by_day[i][1] += n
+                pairs[rec * k + hashed] += n
+        elif rec == -1:
+            unknown[r["_arm"]] = unknown.get(r["_arm"], 0) + n
+        else:
+            missing += n
+    labels = [_label(d) for d in days]
+    daily_df = pd.DataFrame(daily, index=pd.Index(labels, name="date"), columns=arms, dtype="int64")
+    by_day_df = pd.DataFrame(by_day, index=pd.Index(labels, name="date"), columns=["units", "mismatches"],
+                             dtype="int64")
+    pairs_df = pd.DataFrame([{"recorded": arms[i // k], "recomputed": arms[i % k], "units": n}
+                             for i, n in enumerate(pairs) if n > 0], columns=["recorded", "recomputed", "units"])
+    segs, by_seg = {}, {}
+    for name in spec.audit.segments:
+        c = fr.labels[name]
+        segs[name] = _crosstab(lab[c], fr.levels[c], arms)
+        by_seg[name] = _units_mis(lab[c], fr.levels[c])
+    fps = None
+    if fr.has_fp:
+        acc: dict[str, int] = {}
+        for (lv, _, _), n in lab["_fp"].items():
+            acc[lv] = acc.get(lv, 0) + n
+        fps = {a: n for a, n in acc.items() if n > 0}
+    integ = IntegrityTables(
+        units=sum(int(r["count"]) for r in g), recorded_unknown=unknown, recorded_missing=missing,
+        mismatches=sum(pairs), pairs=pairs_df, by_day=by_day_df, by_segment=by_seg,
+        pre_start=sum(int(r["pre"]) for r in g), first_seen_min=_iso(min(r["lo"] for r in g)),
+        first_seen_max=_iso(max(r["hi"] for r in g)), fingerprints=fps)
+    split = SplitTables(arms=arms, units=dict(zip(arms, units)), daily=daily_df, segments=segs)
+    return split, integ
+
+
+def balance_tables(spec: Spec, fr: SparkFrames, v: DataFrame,
+                   lab: dict[str, dict[tuple[str, int, int], int]]) -> BalanceTables:
+    arms, k = list(spec.arm_names), len(spec.arms)
+    cats = {name: _crosstab(lab[fr.labels[name]], fr.levels[fr.labels[name]], arms)
+            for name in spec.audit.categorical_covariates}
+    rows: list[dict[str, object]] = []
+    if fr.numbers:
+        rows = _numeric(spec, fr, v.where(F.col("_rec") >= 0), k)
+    numeric = pd.DataFrame(rows, columns=NUMERIC_COLUMNS)
+    return BalanceTables(numeric=numeric, categorical=cats)
+
+
+def _finite(x: Column) -> Column:
+    return x.isNotNull() & ~F.isnan(x) & (F.abs(x) != float("inf"))
+
+
+def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame, k: int) -> list[dict[str, object]]:
+    """n, missing, invalid, mean, m2, rank_sum, ties, binary per covariate and arm (see audit.tables)."""
+    arms = list(spec.arm_names)
+    covs = list(fr.numbers.items())
+    aggs = []
+    for i, (_, c) in enumerate(covs):
+        x = F.col(c)
+        nan = x.isNull() | F.isnan(x)
+        aggs += [F.sum(_finite(x).cast("long")).alias(f"n{i}"), F.sum(nan.cast("long")).alias(f"miss{i}"),
+                 F.sum((~nan & ~_finite(x)).cast("long")).alias(f"inv{i}"),
+                 F.sum((_finite(x) & ~x.isin(0.0, 1.0)).cast("long")).alias(f"nb{i}")]
+    per_arm = {r["_rec"]: r for r in ok.groupBy("_rec").agg(*aggs).collect()}
+    long = ok.select("_rec", F.explode(F.array(*[F.struct(F.lit(i).alias("cov"), F.col(c).alias("x"))
+                                                 for i, (_, c) in enumerate(covs)])).alias("p")
+                     ).select("_rec", "p.cov", "p.x")
+    long = long.where(_finite(F.col("x")))
+    sums = exact_sums(long, ["cov", "_rec"], "x")
+
+    def n_of(i: int, a: int) -> int:
+        r = per_arm.get(a)
+        return int(r[f"n{i}"] or 0) if r is not None else 0
+
+    means = {(i, a): rounded_mean(sums.get((i, a), 0), n_of(i, a)) for i in range(len(covs)) for a in range(k)}  # type: ignore[arg-type]
+    mean_col = F.lit(None).cast("double")
+    for (i, a), m in means.items():
+        if m == m:  # not NaN
+            mean_col = F.when((F.col("cov") == i) & (F.col("_rec") == a), F.lit(m)).otherwise(mean_col)
+    dev = long.select("cov", "_rec", ((F.col("x") - mean_col) * (F.col("x") - mean_col)).alias("d2"))
+    m2 = exact_sums(dev, ["cov", "_rec"], "d2")
+    ranks, ties = _rank_sums(long, k)
+    out = []
+    for i, (name, _) in enumerate(covs):
+        n_all = sum(n_of(i, a) for a in range(k))
+        nb = sum(int((per_arm[a][f"nb{i}"] or 0)) for a in per_arm)
+        binary = bool(n_all) and nb == 0
+        bad = sum(int(per_arm[a][f"inv{i}"] or 0) for a in per_arm)
+        if bad:
+            fr.notes.append(f"covariate {name}: {bad} value(s) were +/-infinity; counted as invalid input and "
+                            "left out of the balance check")
+        for a in range(k):
+            r = per_arm.get(a)
+            out.append({"covariate": name, "arm": arms[a], "n": n_of(i, a),
+                        "missing": int(r[f"miss{i}"] or 0) if r is not None else 0,
+                        "invalid": int(r[f"inv{i}"] or 0) if r is not None else 0,
+                        "mean": means[(i, a)], "m2": float(m2.get((i, a), 0)),
+                        "rank_sum": float(ranks.get((i, a), 0)), "ties": float(ties.get((i,), 0)),
+                        "binary": binary})
+    return out
+
+
+def _rank_sums(long: DataFrame, k: int) -> tuple[dict[tuple, object], dict[tuple, object]]:
+    """Pooled average ranks per covariate (ties share their mean rank): rank sums per arm, and sum(c^3 - c)."""
+    from pyspark.sql.window import Window
+
+    per_value = long.groupBy("cov", "x").pivot("_rec", list(range(k))).count().na.fill(0)
+    c = sum((F.col(str(a)) for a in range(k)), F.lit(0))
+    w = Window.partitionBy("cov").orderBy("x").rowsBetween(Window.unboundedPreceding, -1)
+    ranked = per_value.select("cov", *[str(a) for a in range(k)], c.alias("c"),
+                              F.coalesce(F.sum(c).over(w), F.lit(0)).alias("below"))
+    twice = (2 * F.col("below") + F.col("c") + 1).cast("decimal(38,0)")  # twice the average rank: an integer
+    sums = ranked.groupBy("cov").agg(*[F.sum(F.col(str(a)).cast("decimal(38,0)") * twice).alias(f"r{a}")
+                                       for a in range(k)]).collect()
+    ranks: dict[tuple, object] = {}
+    for r in sums:
+        for a in range(k):
+            ranks[(r["cov"], a)] = exact_total([(-1, int(r[f"r{a}"] or 0))])
+    cube = ranked.select("cov", (F.col("c").cast("double") * F.col("c") * F.col("c") - F.col("c")).alias("t"))
+    return ranks, exact_sums(cube, ["cov"], "t")  # type: ignore[return-value]
+
+
+def _count_by(rows: Iterable, key: str) -> dict:
+    return {r[key]: int(r["count"]) for r in rows}
+
+
+def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
+    assert fr.exposures is not None
+    arms, k = list(spec.arm_names), len(spec.arms)
+    hold = [arms.index(a) for a in spec.holdout_arms]
+    start_us = int(pd.Timestamp(spec.start).value // 1000)
+    j = fr.exposures.join(v.select("_unit", F.col("_t").alias("_fs"), "_eff"), "_unit", "left")
+    seen = F.col("_fs").isNotNull()
+    bs = seen & (F.col("_t") < start_us)
+    ba = seen & (F.col("_t") < F.col("_fs")) & ~bs
+    during = seen & ~(bs | ba)
+    j = j.select("_unit", "_t", "_camp", "_kind", "_eff", seen.alias("_seen"), bs.alias("_bs"), ba.alias("_ba"),
+                 during.alias("_dur"), (during & F.col("_eff").isin(hold)).alias("_leak")).cache()
+    fr.cached.append(j)
+    rows = j.groupBy("_seen", "_dur", "_eff", "_kind").count().collect()
+    n_rows = sum(int(r["count"]) for r in rows)
+    imp, clk = [0] * k, [0] * k
+    pre_rows = unseen_rows = 0
+    for r in rows:
+        n = int(r["count"])
+        if not r["_seen"]:
+            unseen_rows += n
+        elif not r["_dur"]:
+            pre_rows += n
+        elif r["_kind"] == 0:
+            imp[r["_eff"]] += n
+        elif r["_kind"] == 1:
+            clk[r["_eff"]] += n
+    per_unit = (j.where("_seen").groupBy("_unit")
+                .agg(F.max(F.col("_dur").cast("int")).alias("d"), F.max((~F.col("_dur")).cast("int")).alias("p"),
+                     F.max(F.col("_bs").cast("int")).alias("bs"), F.max(F.col("_ba").cast("int")).alias("ba"),
+                     F.first("_eff").alias("_eff")))
+    pu = per_unit.groupBy("_eff").agg(F.count(F.lit(1)).alias("n"), F.sum("d").alias("d"), F.sum("p").alias("p"),
+                                      F.sum("bs").alias("bs"),
+                                      F.sum(((F.col("ba") == 1) & (F.col("bs") == 0)).cast("long")).alias("ba")
+                                      ).collect()
+    exposed_u, pre_u = [0] * k, [0] * k
+    for r in pu:
+        exposed_u[r["_eff"]] = int(r["d"])
+        pre_u[r["_eff"]] = int(r["p"])
+    units = {a: 0 for a in range(k)}
+    for (rec, hashed), n in fr.arm_pairs.items():
+        units[rec if rec >= 0 else hashed] += n
+    by_arm = pd.DataFrame({"units": [units.get(a, 0) for a in range(k)], "exposed_units": exposed_u,
+                           "pre_exposed_units": pre_u, "impressions": imp, "clicks": clk},
+                          index=pd.Index(arms, name="arm"), dtype="int64")
+    leak = j.where("_leak")
+    kinds = [F.sum((F.col("_kind") == 0).cast("long")).alias("impressions"),
+             F.sum((F.col("_kind") == 1).cast("long")).alias("clicks")]
+    camp = leak.groupBy("_camp").agg(F.countDistinct("_unit").alias("units"), *kinds).collect()
+    by_campaign = pd.DataFrame([[int(r["units"]), int(r["impressions"]), int(r["clicks"])] for r in camp],
+                               index=pd.Index([r["_camp"] for r in camp], name="campaign"),
+                               columns=["units", "impressions", "clicks"], dtype="int64")
+    week = _floor_div(_floor_div(F.col("_t"), US_DAY) + 3, 7)
+    wk = sorted(leak.groupBy(week.alias("w")).agg(F.countDistinct("_unit").alias("units"), *kinds,
+                                                  F.min("_t").alias("first")).collect(), key=lambda r: r["w"])
+    by_week = pd.DataFrame([[int(r["units"]), int(r["impressions"]), int(r["clicks"])] for r in wk],
+                           index=pd.Index([_label(int(r["w"]) * 7 - 3) for r in wk], name="week"),
+                           columns=["units", "impressions", "clicks"], dtype="int64")
+    first = min((r["first"] for r in wk), default=None)
+    unseen = (j.where(~F.col("_seen")).select("_unit").distinct().select(hashed_index(spec).alias("a"))
+              .groupBy("a").count().collect())
+    unseen_by = _count_by(unseen, "a")
+    n_unseen = sum(unseen_by.values())
+    n_seen_ids = sum(int(r["n"]) for r in pu)
+    return LeakageTables(
+        rows=n_rows, by_arm=by_arm, holdout_by_campaign=by_campaign, holdout_by_week=by_week,
+        holdout_first=day_of(int(first)).isoformat() if first is not None else None,
+        pre_before_start=sum(int(r["bs"] or 0) for r in pu), pre_before_assignment=sum(int(r["ba"] or 0) for r in pu),
+        pre_rows=pre_rows, unseen_ids=n_unseen, unseen_rows=unseen_rows,
+        unseen_by_arm={a: unseen_by.get(i, 0) for i, a in enumerate(arms)}, exposed_ids=n_seen_ids + n_unseen)
+
+
+def churn_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> ChurnTables:
+    assert fr.identities is not None
+    cols = ["_unit", "_eff"] + (["_browser"] if fr.has_browser else [])
+    kj = fr.identities.join(v.select(*cols), "_unit", "left")
+    arm = F.coalesce(F.col("_eff"), hashed_index(spec))
+    browser = (F.coalesce(F.col("_browser"), F.lit("(not in visits)")) if fr.has_browser
+               else F.lit("(no browser column)"))
+    kj = kj.select("_unit", "_customer", arm.alias("_a"), browser.alias("_b"), F.col("_eff").isNull().alias("_out"))
+    kj = kj.cache()
+    fr.cached.append(kj)
+    per_c = kj.groupBy("_customer").agg(F.count(F.lit(1)).alias("n"), F.countDistinct("_a").alias("arms"))
+    hist = per_c.groupBy("n").agg(F.count(F.lit(1)).alias("customers"),
+                                  F.sum((F.col("arms") > 1).cast("long")).alias("multi")).collect()
+    per_b = kj.groupBy("_b", "_customer").agg(F.count(F.lit(1)).alias("n"), F.countDistinct("_a").alias("arms"))
+    bh = per_b.groupBy("_b", "n").agg(F.count(F.lit(1)).alias("customers"),
+                                       F.sum((F.col("arms") > 1).cast("long")).alias("multi")).collect()
+    by_b: dict[str, list[int]] = {}
+    for r in bh:
+        acc = by_b.setdefault(r["_b"], [0, 0])
+        acc[0] += int(r["customers"])
+        acc[1] += int(r["multi"])
+    by_browser = pd.DataFrame([by_b[b] for b in by_b], index=pd.Index(list(by_b), name="browser"),
+                              columns=["customers", "multi_arm"], dtype="int64")
+    browser_hist = pd.DataFrame({"browser": [r["_b"] for r in bh], "ids": [int(r["n"]) for r in bh],
+                                 "customers": [int(r["customers"]) for r in bh]})
+    browser_hist = browser_hist.astype({"ids": "int64", "customers": "int64"})
+    return ChurnTables(
+        links=sum(int(r["n"]) * int(r["customers"]) for r in hist), customers=sum(int(r["customers"]) for r in hist),
+        multi_arm=sum(int(r["multi"] or 0) for r in hist),
+        ids_hist={int(r["n"]): int(r["customers"]) for r in sorted(hist, key=lambda r: r["n"])},
+        by_browser=by_browser, browser_hist=browser_hist,
+        ids_not_in_visits=int(kj.where("_out").select("_unit").distinct().count()))
