@@ -23,6 +23,7 @@ from armlock.assign import Spec
 from armlock.assign.sql import spark_arm_expr, spark_string_literal
 
 from .engine import EngineResult, Inputs, file_bytes
+from .engine_pandas import HASH_LIKE, PREFIX_MAX, _cuts
 from .engine_spark_load import US_DAY, SparkFrames, day_of, load_exposures, load_identities, load_visits
 from .exactsum import exact_total, rounded_mean
 from .tables import (
@@ -409,8 +410,9 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
                            index=pd.Index([_label(int(r["w"]) * 7 - 3) for r in wk], name="week"),
                            columns=["units", "impressions", "clicks"], dtype="int64")
     first = min((r["first"] for r in wk), default=None)
-    unseen = (j.where(~F.col("_seen")).select("_unit").distinct().select(hashed_index(spec).alias("a"))
-              .groupBy("a").count().collect())
+    uns = j.where(~F.col("_seen")).select("_unit").distinct().cache()
+    fr.cached.append(uns)
+    unseen = uns.select(hashed_index(spec).alias("a")).groupBy("a").count().collect()
     unseen_by = _count_by(unseen, "a")
     n_unseen = sum(unseen_by.values())
     n_seen_ids = sum(int(r["n"]) for r in pu)
@@ -419,7 +421,48 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
         holdout_first=day_of(int(first)).isoformat() if first is not None else None,
         pre_before_start=sum(int(r["bs"] or 0) for r in pu), pre_before_assignment=sum(int(r["ba"] or 0) for r in pu),
         pre_rows=pre_rows, unseen_ids=n_unseen, unseen_rows=unseen_rows,
-        unseen_by_arm={a: unseen_by.get(i, 0) for i, a in enumerate(arms)}, exposed_ids=n_seen_ids + n_unseen)
+        unseen_by_arm={a: unseen_by.get(i, 0) for i, a in enumerate(arms)}, exposed_ids=n_seen_ids + n_unseen,
+        rows_read=fr.counts.get("exposure_rows", n_rows), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
+        **_unseen_diagnostics(uns, n_unseen, v))  # type: ignore[arg-type]
+
+
+def _prefix(lo: str | None, hi: str | None, n: int) -> str:
+    """The common prefix of a set of n strings from its extremes (as engine_pandas.common_prefix)."""
+    if n < 2 or lo is None or hi is None:
+        return ""
+    k = 0
+    while k < min(len(lo), len(hi), PREFIX_MAX) and lo[k] == hi[k]:
+        k += 1
+    return lo[:k]
+
+
+def _unseen_diagnostics(uns: DataFrame, n_unseen: int, v: DataFrame) -> dict[str, object]:
+    """Why exposed ids miss the visits (hashed ids, a prefix added or dropped): the pandas engine's rule."""
+    out: dict[str, object] = {"unseen_hash_like": 0, "unseen_prefix": "", "unseen_match_without_prefix": 0,
+                              "visits_prefix": "", "unseen_match_with_visits_prefix": 0}
+    if not n_unseen:
+        return out
+    r = uns.agg(F.sum(F.col("_unit").rlike(HASH_LIKE).cast("long")).alias("h"), F.min("_unit").alias("lo"),
+                F.max("_unit").alias("hi")).collect()[0]
+    out["unseen_hash_like"] = int(r["h"] or 0)
+    units = v.select("_unit")
+
+    def best(prefix: str, make: Callable[[str], Column]) -> tuple[str, int]:
+        found = [(int(uns.select(make(p).alias("_unit")).join(units, "_unit", "left_semi").count()), len(p), p)
+                 for p in _cuts(prefix)]
+        n, _, p = max(found)
+        return (p, n) if n else (prefix, 0)
+
+    pre = _prefix(r["lo"], r["hi"], n_unseen)
+    if pre:
+        out["unseen_prefix"], out["unseen_match_without_prefix"] = best(
+            pre, lambda p: F.expr(f"substring(_unit, {len(p) + 1})"))
+    vr = v.agg(F.count(F.lit(1)).alias("n"), F.min("_unit").alias("lo"), F.max("_unit").alias("hi")).collect()[0]
+    vpre = _prefix(vr["lo"], vr["hi"], int(vr["n"]))
+    if vpre:
+        out["visits_prefix"], out["unseen_match_with_visits_prefix"] = best(
+            vpre, lambda p: F.concat(F.lit(p), F.col("_unit")))
+    return out
 
 
 def churn_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> ChurnTables:
@@ -453,4 +496,5 @@ def churn_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> ChurnTables:
         multi_arm=sum(int(r["multi"] or 0) for r in hist),
         ids_hist={int(r["n"]): int(r["customers"]) for r in sorted(hist, key=lambda r: r["n"])},
         by_browser=by_browser, browser_hist=browser_hist,
-        ids_not_in_visits=int(kj.where("_out").select("_unit").distinct().count()))
+        ids_not_in_visits=int(kj.where("_out").select("_unit").distinct().count()),
+        link_ids=int(kj.select("_unit").distinct().count()))
