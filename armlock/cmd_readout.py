@@ -39,7 +39,7 @@ def readout_cmd(
     Intervals: the fixed-horizon one is valid for one planned look; reading weekly, use the
     anytime interval beside it. Column names come from the spec's [readout] tables.
 
-    Exit codes: 0 pass (or warn without --strict), 1 warn with --strict, 3 the audit fails,
+    Exit codes: 0 PASS (or WARN without --strict), 1 WARN with --strict, 3 the audit gate is FAIL,
     4 bad input (a file, column or row is wrong: nothing was judged), 6 the spec's split changed
     since its lock was recorded (confirm with --accept-changed-split).
 

@@ -15,14 +15,12 @@ import pandas as pd
 from armlock.assign import InputError, Spec
 from armlock.audit.load import cutoff_of
 from armlock.audit.read import (
+    Source,
     TIME,
     UNIT,
-    Source,
-    _header,
-    _need,
-    _read_table,
     read_ids,
     read_labels,
+    read_mapped,
     read_numbers,
     read_times,
 )
@@ -46,20 +44,18 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
     (refunds) is kept and counted. Sorted by time.
     """
     co = spec.readout.orders
-    src = Source(Path(path), "orders")
-    present = _header(src)
     key = co.unit_id or co.customer
     which = "unit_id" if co.unit_id else "customer"
-    _need(src, present, {which: key, "time": co.time, "revenue": co.revenue}, "[readout.orders]")
-    optional = {}
+    # the audit's one reader (audit/read.py): BOM noted, duplicate and nested columns refused, damaged files
+    mapped = read_mapped(path, "orders", "[readout.orders]", {which: key, "time": co.time, "revenue": co.revenue},
+                         notes, optional={"order_id": co.order_id, "attributed": co.attributed})
+    src, table = mapped.src, mapped.table
+    optional = {name: mapped.columns[name] for name in ("order_id", "attributed") if name in mapped.columns}
     for name, col in (("order_id", co.order_id), ("attributed", co.attributed)):
-        if col and col in present:
-            optional[name] = col
-        elif col:
+        if col and name not in optional:
             notes.append(f"{src.path.name}: no '{col}' column ([readout.orders] {name}); "
                          + ("orders are not de-duplicated" if name == "order_id"
                             else "attributed revenue comes only from --attributed-revenue"))
-    table = _read_table(src, list(dict.fromkeys([key, co.time, co.revenue, *optional.values()])))
     ids, empty = read_ids(src, table, key, notes)
     frame = pd.DataFrame({KEY: ids, TIME: read_times(src, table, co.time, notes),
                           REV: read_numbers(src, table, co.revenue)})
@@ -102,10 +98,8 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
 def load_spend(spec: Spec, path: PathLike, as_of: date, notes: list[str]) -> float:
     """Total spend in the spend file on the test's days (start to as-of, UTC); other days noted."""
     cs = spec.readout.spend
-    src = Source(Path(path), "spend")
-    present = _header(src)
-    _need(src, present, {"day": cs.day, "amount": cs.amount}, "[readout.spend]")
-    table = _read_table(src, list(dict.fromkeys([cs.day, cs.amount])))
+    mapped = read_mapped(path, "spend", "[readout.spend]", {"day": cs.day, "amount": cs.amount}, notes)
+    src, table = mapped.src, mapped.table
     day = read_times(src, table, cs.day, [])
     amount = read_numbers(src, table, cs.amount)
     del table
@@ -133,12 +127,13 @@ def attach_covariates(spec: Spec, path: PathLike, visits: pd.DataFrame, notes: l
     if not missing:
         return
     cv = spec.audit.visits
-    src = Source(Path(path), "visits")
-    present = _header(src)
-    _need(src, present, {f"covariates[{i}]": c for i, c in enumerate(missing)}, "[readout]")
-    table = _read_table(src, list(dict.fromkeys([cv.unit_id, cv.first_seen, *missing])))
+    cols = {"unit_id": cv.unit_id, "first_seen": cv.first_seen}
+    cols.update({f"covariates[{i}]": c for i, c in enumerate(missing)})
+    mapped = read_mapped(path, "visits", "[readout]", cols, [], delimiter=cv.delimiter)
+    src, table = mapped.src, mapped.table
     ids, _ = read_ids(src, table, cv.unit_id, [])
-    extra = pd.DataFrame({UNIT: ids, TIME: read_times(src, table, cv.first_seen, [])})
+    extra = pd.DataFrame({UNIT: ids, TIME: read_times(src, table, cv.first_seen, [], cv.first_seen_format,
+                                                      "[audit.visits] first_seen_format")})
     for c in missing:
         extra[c] = read_numbers(src, table, c)
     del table

@@ -35,9 +35,9 @@ from .render import MARK, _adjust_line, tables
 
 ANYTIME_BAND = "#dce9ef"  # pale blue: the wider, anytime band; the fixed band is the audit's sand
 _GATE_WORDS = {  # status -> word on the banner, text colour, background
-    "pass": ("Trustworthy split", "#17603a", "#e3f2e8"),
-    "warn": ("Read with caution", "#7a4d00", "#fdf0d5"),
-    "fail": ("Not trustworthy", "#9e1f24", "#fbe4e3"),
+    "pass": ("PASS: trustworthy split", "#17603a", "#e3f2e8"),
+    "warn": ("WARN: read with caution", "#7a4d00", "#fdf0d5"),
+    "fail": ("FAIL: not trustworthy", "#9e1f24", "#fbe4e3"),
 }
 
 

@@ -192,7 +192,7 @@ def test_demo_prints_the_readout_headline_and_its_page_opens_clean(
     assert "Readout of the last week (armlock readout): NOT TRUSTWORTHY" in out
     # another test may rerun the demo with --clean in this folder: read the page's own status
     status = json.loads((cwd / "armlock-demo" / "readout.json").read_text(encoding="utf-8"))["status"]
-    word = {"fail": "Not trustworthy", "warn": "Read with caution", "pass": "Trustworthy split"}[status]
+    word = {"fail": "FAIL: not trustworthy", "warn": "WARN: read with caution", "pass": "PASS: trustworthy split"}[status]
     assert "The true incremental revenue, known here by construction" in out
     assert "xdg-open armlock-demo/readout.html" in out
     page_file = cwd / "armlock-demo" / "readout.html"

@@ -90,8 +90,11 @@ def test_synopsis_of_every_command_lists_all_its_options() -> None:
 def test_snippet_sizes_in_the_readme_are_the_rendered_sizes(tmp_path: Path) -> None:
     # the README's example spec: `armlock init spring-retargeting`, whose salt is always 24 hex digits
     spec_path = tmp_path / "spring-retargeting.toml"
-    spec_path.write_text(render_spec_toml("spring-retargeting", [("holdout", 1000), ("exposed", 9000)]),
-                         encoding="utf-8")
+    # A fixed salt: the snippet carries the experiment name's bucket under this salt (its load-time
+    # self-test), whose digit count varies by salt, so a random salt moves the size by a few bytes.
+    text = render_spec_toml("spring-retargeting", [("holdout", 1000), ("exposed", 9000)])
+    text = re.sub(r'^salt = "[0-9a-f]{24}"', 'salt = "000000000000000000000000"', text, count=1, flags=re.M)
+    spec_path.write_text(text, encoding="utf-8")
     spec = load_spec(spec_path)
     for form in ("html", "js"):
         size = len(render_snippet(spec, form).encode("utf-8"))
