@@ -115,15 +115,16 @@ def _db_error(exc: sqlite3.Error, path: Path) -> InputError:
     return InputError(f"history file {path}: {exc}")
 
 
-def record(path: str | Path, report: AuditReport) -> None:
-    """Keep one run's verdict, check statuses and figures; replaces the row of the same as-of date."""
-    path = Path(path)
+def _upsert(path: Path, ddls: tuple[str, ...], sql: str, params: tuple[Any, ...]) -> None:
+    """One write to the history file: create what is missing, check the version, upsert one row.
+
+    Refuses a file that is not an armlock history (header, meta table) and turns SQLite's errors
+    (locked, corrupt) into input errors naming the file; the write is one IMMEDIATE transaction.
+    """
     if path.exists():
         _check_header(path)
     elif not path.parent.is_dir():
         raise InputError(f"history file {path}: folder {path.parent} does not exist")
-    row = row_from_report(report)
-    now = datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
     try:
         conn = _connect(path, read_only=False)
     except sqlite3.Error as exc:
@@ -134,14 +135,12 @@ def record(path: str | Path, report: AuditReport) -> None:
             tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
             if tables and "meta" not in tables:
                 raise _corrupt(path, "an SQLite database of something else: it has no meta table")
-            for ddl in _DDL:
+            for ddl in ddls:
                 conn.execute(ddl)
             conn.execute("INSERT OR IGNORE INTO meta (key, value) VALUES ('schema_version', ?)",
                          (str(SCHEMA_VERSION),))
             _check_version(conn, path)
-            conn.execute(_UPSERT, (report.fingerprint, row["as_of"], row["experiment"],
-                                   row["verdict"], now, json.dumps(row["checks"]),
-                                   json.dumps(row["figures"])))
+            conn.execute(sql, params)
         except BaseException:
             conn.execute("ROLLBACK")
             raise
@@ -152,9 +151,9 @@ def record(path: str | Path, report: AuditReport) -> None:
         conn.close()
 
 
-def load(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
-    """Every recorded run of one spec, oldest as-of first; `[]` when the file does not exist."""
-    path = Path(path)
+def _select(path: Path, optional_table: str | None, sql: str, params: tuple[Any, ...]) -> list[tuple[Any, ...]]:
+    """Rows of one query on the history file, read-only; `[]` when the file does not exist, or when
+    `optional_table` (a table added after the file's format, created on first use) is not there yet."""
     if not path.exists():
         return []
     _check_header(path)
@@ -166,13 +165,32 @@ def load(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
         raise _db_error(exc, path) from None
     try:
         _check_version(conn, path)
-        rows = conn.execute(
-            "SELECT as_of, experiment, verdict, recorded_at, checks, figures FROM runs"
-            " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,)).fetchall()
+        if optional_table and not conn.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?",
+                                               (optional_table,)).fetchone():
+            return []
+        return list(conn.execute(sql, params).fetchall())
     except sqlite3.Error as exc:
         raise _db_error(exc, path) from None
     finally:
         conn.close()
+
+
+def _now() -> str:
+    return datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+
+
+def record(path: str | Path, report: AuditReport) -> None:
+    """Keep one run's verdict, check statuses and figures; replaces the row of the same as-of date."""
+    row = row_from_report(report)
+    _upsert(Path(path), _DDL, _UPSERT, (report.fingerprint, row["as_of"], row["experiment"], row["verdict"],
+                                        _now(), json.dumps(row["checks"]), json.dumps(row["figures"])))
+
+
+def load(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
+    """Every recorded run of one spec, oldest as-of first; `[]` when the file does not exist."""
+    path = Path(path)
+    rows = _select(path, None, "SELECT as_of, experiment, verdict, recorded_at, checks, figures FROM runs"
+                                 " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,))
     out = []
     for as_of, experiment, verdict, recorded_at, checks, figures in rows:
         try:
@@ -322,60 +340,15 @@ def record_readout(path: str | Path, *, fingerprint: str, as_of: str, experiment
                    figures: dict[str, dict[str, Any]]) -> None:
     """Keep one readout's gate status and headline figures ({key: {label, value, unit}}); a rerun
     for the same as-of date replaces its row. Same file, locking and refusals as `record`."""
-    path = Path(path)
-    if path.exists():
-        _check_header(path)
-    elif not path.parent.is_dir():
-        raise InputError(f"history file {path}: folder {path.parent} does not exist")
-    now = datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
-    try:
-        conn = _connect(path, read_only=False)
-    except sqlite3.Error as exc:
-        raise _db_error(exc, path) from None
-    try:
-        conn.execute("BEGIN IMMEDIATE")
-        try:
-            tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-            if tables and "meta" not in tables:
-                raise _corrupt(path, "an SQLite database of something else: it has no meta table")
-            for ddl in (*_DDL, _READOUT_DDL):
-                conn.execute(ddl)
-            conn.execute("INSERT OR IGNORE INTO meta (key, value) VALUES ('schema_version', ?)",
-                         (str(SCHEMA_VERSION),))
-            _check_version(conn, path)
-            conn.execute(_READOUT_UPSERT, (fingerprint, as_of, experiment, status, now, json.dumps(figures)))
-        except BaseException:
-            conn.execute("ROLLBACK")
-            raise
-        conn.execute("COMMIT")
-    except sqlite3.Error as exc:
-        raise _db_error(exc, path) from None
-    finally:
-        conn.close()
+    _upsert(Path(path), (*_DDL, _READOUT_DDL), _READOUT_UPSERT,
+            (fingerprint, as_of, experiment, status, _now(), json.dumps(figures)))
 
 
 def load_readouts(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
     """Every recorded readout of one spec, oldest as-of first; `[]` when there is none."""
     path = Path(path)
-    if not path.exists():
-        return []
-    _check_header(path)
-    if path.stat().st_size == 0:
-        return []
-    try:
-        conn = _connect(path, read_only=True)
-    except sqlite3.Error as exc:
-        raise _db_error(exc, path) from None
-    try:
-        _check_version(conn, path)
-        if not conn.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'readouts'").fetchone():
-            return []
-        rows = conn.execute("SELECT as_of, experiment, status, recorded_at, figures FROM readouts"
-                            " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,)).fetchall()
-    except sqlite3.Error as exc:
-        raise _db_error(exc, path) from None
-    finally:
-        conn.close()
+    rows = _select(path, "readouts", "SELECT as_of, experiment, status, recorded_at, figures FROM readouts"
+                                     " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,))
     out = []
     for as_of, experiment, status, recorded_at, figures in rows:
         try:
