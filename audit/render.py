@@ -126,7 +126,8 @@ def render_markdown(r: AuditReport) -> str:
     return "\n".join(out) + "\n"
 
 
-def render_json(r: AuditReport) -> str:
+def json_text(data: dict[str, Any]) -> str:
+    """A report's JSON dict as text, non-finite floats written as null (JSON has no inf or NaN)."""
     def clean(o: Any) -> Any:
         if isinstance(o, float) and not math.isfinite(o):
             return None
@@ -136,7 +137,11 @@ def render_json(r: AuditReport) -> str:
             return [clean(v) for v in o]
         return o
 
-    return json.dumps(clean(r.to_json_dict()), indent=2, ensure_ascii=False) + "\n"
+    return json.dumps(clean(data), indent=2, ensure_ascii=False) + "\n"
+
+
+def render_json(r: AuditReport) -> str:
+    return json_text(r.to_json_dict())
 
 
 RENDERERS: dict[str, Callable[[AuditReport], str]] = {

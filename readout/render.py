@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import json
 import math
 import textwrap
 from collections.abc import Callable
 from typing import Any
 
 from armlock.audit.model import Table
-from armlock.audit.render import md_table, text_table
+from armlock.audit.render import json_text, md_table, text_table
 from armlock.audit.words import STATUS_WORD
 
 from .model import Interval, ReadoutReport
@@ -177,16 +176,7 @@ def render_markdown(r: ReadoutReport) -> str:
 
 
 def render_json(r: ReadoutReport) -> str:
-    def clean(o: Any) -> Any:
-        if isinstance(o, float) and not math.isfinite(o):
-            return None
-        if isinstance(o, dict):
-            return {k: clean(v) for k, v in o.items()}
-        if isinstance(o, list):
-            return [clean(v) for v in o]
-        return o
-
-    return json.dumps(clean(r.to_json_dict()), indent=2, ensure_ascii=False) + "\n"
+    return json_text(r.to_json_dict())
 
 
 RENDERERS: dict[str, Callable[[ReadoutReport], str]] = {
