@@ -22,6 +22,7 @@ from .engine_spark_read import (
     present_columns,
     times_column,
 )
+from .load import settle_as_of
 
 EPOCH = date(1970, 1, 1)
 US_DAY = 86_400 * 10**6
@@ -112,14 +113,7 @@ def load_visits(spark: SparkSession, spec: Spec, ref: str, as_of: date | None, f
         why = "it has no data rows" if not total else "every row lacked an id or a time"
         raise InputError(f"{src.path}: no usable rows in the visits file ({why})")
     last = day_of(int(d["last"]))
-    if as_of is None:
-        as_of = last
-        fr.notes.append(f"as-of date not given: using the last first-seen date in the visits, {as_of}")
-    elif as_of > last:
-        fr.counts["days_after_data"] = (as_of - last).days
-        fr.notes.append(f"the as-of date {as_of} is {(as_of - last).days:,} day(s) after the last first-seen day "
-                        f"in the visits ({last}): the report covers data through {last} only")
-    fr.data_through = min(as_of, last)
+    as_of = settle_as_of(fr, as_of, last)
     cut = as_of_cut(as_of)
     per_arm = units.groupBy("_arm").agg(F.sum((F.col("_t") < cut).cast("long")).alias("count"),
                                         F.sum((F.col("_t") >= cut).cast("long")).alias("late")).collect()

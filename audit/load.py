@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from datetime import date, datetime, time, timedelta, UTC
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -51,6 +52,23 @@ def _note_empty(src: Source, col: str, empty: np.ndarray, what: str, notes: list
         notes.append(f"{src.path.name}: {n:,} row(s) with an empty or null '{col}' ({src.rows(np.flatnonzero(empty), n)}) "
                      f"were set aside: {what}")
     return n
+
+
+def settle_as_of(fr: Any, as_of: date | None, last: date) -> date:
+    """The as-of rule every engine follows, given the last first-seen day `last` of the visits.
+
+    No date given: the last first-seen day (noted). A date after it: noted and counted
+    (`days_after_data`), and the report covers data through `last` only. Sets `fr.data_through`.
+    """
+    if as_of is None:
+        as_of = last
+        fr.notes.append(f"as-of date not given: using the last first-seen date in the visits, {as_of}")
+    elif as_of > last:
+        fr.counts["days_after_data"] = (as_of - last).days
+        fr.notes.append(f"the as-of date {as_of} is {(as_of - last).days:,} day(s) after the last first-seen day "
+                        f"in the visits ({last}): the report covers data through {last} only")
+    fr.data_through = min(as_of, last)
+    return as_of
 
 
 def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> date:
@@ -102,14 +120,7 @@ def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> d
         why = "it has no data rows" if not fr.counts["visit_rows"] else "every row lacked an id or a time"
         raise InputError(f"{src.path}: no usable rows in the visits file ({why})")
     last = frame[TIME].iloc[-1].date()
-    if as_of is None:
-        as_of = last
-        fr.notes.append(f"as-of date not given: using the last first-seen date in the visits, {as_of}")
-    elif as_of > last:
-        fr.counts["days_after_data"] = (as_of - last).days
-        fr.notes.append(f"the as-of date {as_of} is {(as_of - last).days:,} day(s) after the last first-seen day "
-                        f"in the visits ({last}): the report covers data through {last} only")
-    fr.data_through = min(as_of, last)
+    as_of = settle_as_of(fr, as_of, last)
     cut = cutoff_of(as_of)
     late = (frame[TIME] >= cut).to_numpy()
     fr.counts["visits_after_as_of"] = int(late.sum())
