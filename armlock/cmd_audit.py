@@ -9,12 +9,12 @@ from pathlib import Path
 import typer
 
 from armlock.assign.spec_audit import AuditThresholds
-from armlock.assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN, InputError
+from armlock.assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN
 from armlock.audit.model import AuditReport
 from armlock.audit.render import RENDERERS
 from armlock.audit.words import status_word
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec_and_lock, progress
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, emit, err, open_spec_and_lock, progress
 
 # The report formats: one renderer per name (add a format with one line here).
 FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
@@ -118,14 +118,8 @@ def audit_cmd(
                 "this row of the history holds data through that day only")
     text = (_html(report, history.load(hist, report.fingerprint), spec.audit.thresholds) if fmt == "html"
             else FORMATS[fmt](report))
-    if out is not None:
-        try:
-            out.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            raise InputError(f"{out}: cannot write the report: {exc.strerror}") from None
-        err(f"Wrote the {fmt} report to {out}: verdict {status_word(report.verdict)} ({report.verdict_text})")
-    else:
-        typer.echo(text, nl=False)
+    emit(text, out, what="the report",
+         done=f"Wrote the {fmt} report to {out}: verdict {status_word(report.verdict)} ({report.verdict_text})")
     code = exit_code(report.verdict, strict)
     if code:
         raise typer.Exit(code)

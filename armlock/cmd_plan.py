@@ -9,7 +9,7 @@ import typer
 
 from armlock.assign import InputError, SpecError
 
-from .common import err
+from .common import emit, err
 
 FORMATS = ("text", "markdown", "json", "html")
 
@@ -229,14 +229,7 @@ def plan_cmd(
         text = render_html(plan)
     else:
         text = RENDERERS[fmt](plan)
-    if out is not None:
-        try:
-            out.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            raise InputError(f"{out}: cannot write the plan: {exc.strerror}") from None
-        err(f"Wrote {out} ({fmt}). {plan.recommendation.sentence}")
-    else:
-        typer.echo(text, nl=False)
+    emit(text, out, what="the plan", done=f"Wrote {out} ({fmt}). {plan.recommendation.sentence}")
     if write_spec is not None:
         from .cmd_spec import write_new_spec
 

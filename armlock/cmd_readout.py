@@ -6,10 +6,8 @@ from pathlib import Path
 
 import typer
 
-from armlock.assign.errors import InputError
-
 from .cmd_audit import _as_of, exit_code
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec_and_lock, progress
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, emit, open_spec_and_lock, progress
 
 FORMATS = ("text", "markdown", "json", "html")
 
@@ -80,14 +78,7 @@ def readout_cmd(
         from armlock.readout.render import RENDERERS
 
         text = RENDERERS[fmt](report)
-    if out is not None:
-        try:
-            out.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            raise InputError(f"{out}: cannot write the report: {exc.strerror}") from None
-        err(f"Wrote the {fmt} readout to {out}: {report.headline}")
-    else:
-        typer.echo(text, nl=False)
+    emit(text, out, what="the report", done=f"Wrote the {fmt} readout to {out}: {report.headline}")
     code = exit_code(report.status, strict)
     if code:
         raise typer.Exit(code)

@@ -10,7 +10,7 @@ from typing import Any
 
 import typer
 
-from armlock.assign import Spec, SplitChangedError, check_lock, load_spec
+from armlock.assign import InputError, Spec, SplitChangedError, check_lock, load_spec
 from armlock.assign.lock import LockCheck, accept_change
 
 SPEC_HELP = "The experiment spec file (TOML), as written by `armlock init`."
@@ -25,6 +25,19 @@ ACCEPT_CHANGED_SPLIT: Any = typer.Option(
 def err(text: str) -> None:
     """One message on stderr."""
     typer.echo(text, err=True)
+
+
+def emit(text: str, out: Path | None, *, what: str, done: str) -> None:
+    """A report to `out` (then `done` on stderr) or to stdout; a file that cannot be written is an
+    input error naming it and `what` was being written."""
+    if out is None:
+        typer.echo(text, nl=False)
+        return
+    try:
+        out.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise InputError(f"{out}: cannot write {what}: {exc.strerror}") from None
+    err(done)
 
 
 def warn_box(text: str) -> None:
