@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import pandas as pd
@@ -13,6 +11,9 @@ import pyarrow.compute as pc
 
 from armlock.assign import Spec, assign_many
 
+from .keys import arrow_ids as _arrow_ids
+from .keys import ns_of
+from .keys import positions as _positions
 from .exactsum import exact_sum, rounded_mean, rounded_sum
 from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
 from .tables import (
@@ -26,11 +27,6 @@ from .tables import (
 )
 
 NS_DAY = 86_400 * 10**9
-
-
-def _arrow_ids(s: pd.Series) -> pa.ChunkedArray:
-    arr = pa.chunked_array([pa.array(s.array)]) if not hasattr(s.array, "__arrow_array__") else pa.chunked_array(s.array.__arrow_array__())
-    return arr
 
 
 def hash_arms(spec: Spec, ids: pd.Series) -> np.ndarray:
@@ -160,64 +156,56 @@ def balance_tables(spec: Spec, fr: Frames, rec: np.ndarray) -> BalanceTables:
     return BalanceTables(numeric=numeric, categorical=cats)
 
 
-def _positions(ids: pd.Series, value_set: pa.Array) -> np.ndarray:
-    """Row of each id in the visits (by unit id), -1 when the id is not there (parallel over slices)."""
-    arr = _arrow_ids(ids)
-    n = len(arr)
-    parts = max(1, min(os.cpu_count() or 1, 8)) if n > 1_000_000 else 1
-    edges = np.linspace(0, n, parts + 1).astype(np.int64)
-
-    def one(i: int) -> np.ndarray:
-        piece = arr.slice(int(edges[i]), int(edges[i + 1] - edges[i]))
-        return pc.fill_null(pc.index_in(piece, value_set=value_set), -1).to_numpy().astype(np.int64)
-
-    if parts == 1:
-        return one(0)
-    with ThreadPoolExecutor(max_workers=parts) as pool:
-        return np.concatenate(list(pool.map(one, range(parts))))
-
-
 def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> LeakageTables:
     e, v = fr.exposures, fr.visits
     assert e is not None
     arms, k = list(spec.arm_names), len(spec.arms)
     hold = np.isin(np.arange(k), [arms.index(a) for a in spec.holdout_arms])
-    pos = _positions(e[UNIT], vset)
+    pos = fr.exposure_pos if fr.exposure_pos is not None else _positions(e[UNIT], vset)
     seen = pos >= 0
-    t = e[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
+    all_seen = bool(seen.all())
+    idx = None if all_seen else np.flatnonzero(seen)
+    t = ns_of(e[TIME])
     start = pd.Timestamp(spec.start).value
-    fs = v[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
+    fs = ns_of(v[TIME])
     kind = e[KIND].cat.codes.to_numpy()  # 0 impression, 1 click, 2 other
-    sp, st, sk = pos[seen], t[seen], kind[seen]
-    fs_row = fs[sp]
+    sp, st, sk = (pos, t, kind) if idx is None else (pos[idx], t[idx], kind[idx])
     before_start = st < start
-    before_assign = (st < fs_row) & ~before_start
-    pre = before_start | before_assign
+    pre = st < fs[sp]
+    before_assign = pre & ~before_start
+    pre |= before_start
+    any_pre = bool(pre.any())
     during = ~pre
-    arm_row = eff[sp]
+    arm_row = eff.astype(np.int8 if k < 127 else np.int16)[sp]  # a small table gathers fast; eff >= 0
     nv = len(v)
 
-    def mark(mask: np.ndarray) -> np.ndarray:
+    def units_of(mask: np.ndarray | None) -> np.ndarray:
+        """Units (visits rows) with at least one of the rows in `mask` (None: all rows)."""
         out = np.zeros(nv, dtype=bool)
-        out[sp[mask]] = True
+        out[sp if mask is None else sp[mask]] = True
         return out
 
-    exposed_u = mark(during)
-    pre_u = mark(pre)
+    exposed_u = units_of(during if any_pre else None)
+    pre_u = units_of(pre) if any_pre else np.zeros(nv, dtype=bool)
     ok = eff >= 0
     units = np.bincount(eff[ok], minlength=k)
+    cell = arm_row.astype(np.int16) * 3 + sk
+    by_kind = np.bincount(cell[during] if any_pre else cell, minlength=3 * k).reshape(k, 3)
     by_arm = pd.DataFrame({
         "units": units,
         "exposed_units": np.bincount(eff[ok & exposed_u], minlength=k),
         "pre_exposed_units": np.bincount(eff[ok & pre_u], minlength=k),
-        "impressions": np.bincount(arm_row[during & (sk == 0) & (arm_row >= 0)], minlength=k),
-        "clicks": np.bincount(arm_row[during & (sk == 1) & (arm_row >= 0)], minlength=k),
+        "impressions": by_kind[:, 0],
+        "clicks": by_kind[:, 1],
     }, index=pd.Index(arms, name="arm"))
-    leak = during & (arm_row >= 0) & hold[np.maximum(arm_row, 0)]
+    leak = hold[arm_row]
+    leak &= during
+    li = np.flatnonzero(leak)
     camp_all = e[CAMPAIGN]
     cnames = [str(c) for c in camp_all.cat.categories]
-    lc = camp_all.cat.codes.to_numpy()[seen][leak].astype(np.int64)
-    lp, lt, lk = sp[leak], st[leak], sk[leak]
+    lrow = li if idx is None else idx[li]
+    lc = camp_all.cat.codes.to_numpy()[lrow].astype(np.int64)
+    lp, lt, lk = sp[li], st[li], sk[li]
     nc = max(len(cnames), 1)
     ucamp = np.unique(lp * nc + lc) % nc if len(lp) else np.zeros(0, np.int64)
     by_campaign = pd.DataFrame({
@@ -240,7 +228,7 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
     }, index=pd.Index([str(np.datetime64(int(w) * 7 - 3, "D")) for w in weeks], name="week"))
     first = str(np.datetime64(int(lt.min()) // NS_DAY, "D")) if len(lt) else None
     # exposed ids the visits never saw: the arm the spec would give them, each hashed once
-    unseen = e.loc[~seen, UNIT]
+    unseen = e[UNIT].iloc[np.flatnonzero(~seen)] if not all_seen else e[UNIT].iloc[:0]
     uniq = pd.Series(pd.unique(unseen), dtype="str") if len(unseen) else pd.Series([], dtype="str")
     ua = hash_arms(spec, uniq) if len(uniq) else np.zeros(0, np.int16)
     n_seen_ids = int(np.count_nonzero(exposed_u | pre_u))
@@ -248,8 +236,8 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
     return LeakageTables(
         rows=len(e), by_arm=by_arm, holdout_by_campaign=by_campaign, holdout_by_week=by_week,
         holdout_first=first,
-        pre_before_start=int(np.count_nonzero(mark(before_start))),
-        pre_before_assignment=int(np.count_nonzero(mark(before_assign) & ~mark(before_start))),
+        pre_before_start=len(np.unique(sp[before_start])),
+        pre_before_assignment=len(np.setdiff1d(sp[before_assign], sp[before_start])),
         pre_rows=int(pre.sum()), unseen_ids=len(uniq), unseen_rows=int((~seen).sum()),
         unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
         exposed_ids=n_seen_ids + len(uniq), exposed_rows=exposed_u,
@@ -355,11 +343,11 @@ def _ids_and_arms(group: np.ndarray, arm: np.ndarray, k: int) -> tuple[np.ndarra
     """Per group (0..G-1, only groups present): number of rows and of distinct arms."""
     if not len(group):
         return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    present, dense = np.unique(group, return_inverse=True)
-    n = np.bincount(dense)
-    pairs = np.unique(dense.astype(np.int64) * k + arm)
-    distinct = np.bincount(pairs // k, minlength=len(present))
-    return n, distinct
+    width = int(group.max()) + 1
+    n = np.bincount(group, minlength=width)
+    distinct = sum((np.bincount(group[arm == j], minlength=width) > 0).astype(np.int64) for j in range(k))
+    present = n > 0
+    return n[present], np.asarray(distinct)[present]
 
 
 def compute(spec: Spec, fr: Frames) -> AuditTables:

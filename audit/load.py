@@ -20,6 +20,7 @@ import pandas as pd
 
 from armlock.assign import InputError, Spec
 
+from .keys import arrow_ids, duplicate_rows, ns_of, positions, unit_codes
 from .read import (
     ARM,
     BROWSER,
@@ -181,15 +182,21 @@ def load_exposures(spec: Spec, path: PathLike, as_of: date, fr: Frames) -> None:
     frame = frame[keep].reset_index(drop=True) if not keep.all() else frame
     # Exact duplicates (the same id, time, campaign and raw kind) are one event logged twice: an
     # export appended twice, or a retried upload. They would multiply impressions, so each is
-    # counted once and the extra copies are counted here.
-    dup = pd.DataFrame({"u": frame[UNIT], "t": frame[TIME], "c": frame[CAMPAIGN],
-                        "k": raw_kind[keep].reset_index(drop=True) if not keep.all() else raw_kind}).duplicated().to_numpy()
+    # counted once and the extra copies are counted here. Ids are matched to the visits once, and
+    # the rows compared on integer keys (audit.keys).
+    pos = positions(frame[UNIT], arrow_ids(fr.visits[UNIT]).combine_chunks())
+    kind_raw = raw_kind[keep].reset_index(drop=True) if not keep.all() else raw_kind
+    dup = duplicate_rows(unit_codes(frame[UNIT], pos, len(fr.visits)),
+                         ns_of(frame[TIME]),
+                         frame[CAMPAIGN].cat.codes.to_numpy(), kind_raw.cat.codes.to_numpy())
     fr.counts["exposure_duplicate_rows"] = int(dup.sum())
     if dup.any():
         fr.notes.append(f"{src.path.name}: {int(dup.sum()):,} exposure row(s) repeat another row exactly (same id, "
                         "time, campaign and kind) and were counted once; if the vendor logs whole seconds, two real "
                         "impressions in one second look alike")
         frame = frame[~dup].reset_index(drop=True)
+        pos = pos[~dup]
+    fr.exposure_pos = pos
     fr.exposures = frame
 
 

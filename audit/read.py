@@ -65,6 +65,7 @@ class Frames:
     visits: pd.DataFrame
     exposures: pd.DataFrame | None = None
     identities: pd.DataFrame | None = None
+    exposure_pos: np.ndarray | None = None  # each exposure row's row in `visits`, -1 if not there (audit.keys)
     notes: list[str] = field(default_factory=list)
     counts: dict[str, int] = field(default_factory=dict)
     data_through: date | None = None  # the last day the visits have data for, up to the as-of date
@@ -297,6 +298,16 @@ def _range_checked(src: Source, col: str, parsed: pd.Series) -> pd.Series:
     return parsed.dt.as_unit("ns")
 
 
+def _inside(values: pa.ChunkedArray) -> bool:
+    """True when every time lies in the years the engine holds (checked on Arrow's min and max)."""
+    mm = pc.min_max(values)
+    lo, hi = mm["min"].value, mm["max"].value
+    if lo is None:
+        return True
+    bounds = pa.array([_T_MIN, _T_MAX], type=pa.timestamp("us", "UTC")).cast(values.type)
+    return bool(lo >= bounds[0].value and hi < bounds[1].value)
+
+
 def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: str = "iso8601",
                setting: str = "") -> pd.Series:
     """Times as UTC timestamps (NaT for empty cells); zone-less times are read as UTC and noted.
@@ -313,6 +324,9 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
             values = arr if nano else arr.cast(pa.timestamp("us", arr.type.tz if pa.types.is_timestamp(arr.type) else None))
         except pa.ArrowException as exc:
             raise InputError(f"{src.path}: column '{col}' has times that cannot be read: {exc}") from None
+        if pa.types.is_timestamp(arr.type) and arr.type.tz is not None and _inside(values):
+            # the common case, zoned times within the engine's range: one cast to nanoseconds in Arrow
+            return pd.Series(values.cast(pa.timestamp("ns", "UTC")).to_pandas())
         out = pd.Series(values.to_pandas())
         if pa.types.is_date(arr.type):
             notes.append(f"{src.path.name}: '{col}' holds dates without a time; read as midnight UTC")

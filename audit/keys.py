@@ -1,0 +1,99 @@
+"""Integer keys for text ids (the pandas engine): each id's row in the visits, and rows that repeat exactly.
+
+Hashing an id string is the costly step of a pass over tens of millions of exposure rows, so it
+happens once: every exposure id is looked up in the visits' ids (Arrow's `index_in`, a hash set
+built over the visits), and from then on a row's unit is an integer. Exact duplicate rows are
+found on integer keys too (`duplicate_rows`), by sorting one 64-bit mix of the keys (numpy's sort
+of 64-bit integers is vectorized) and confirming the few rows whose mixes collide exactly.
+"""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+
+# Odd 64-bit multipliers (the golden-ratio constant and the two of splitmix64's finalizer): any odd
+# constants do; they only spread the keys so that different rows rarely share a mix.
+_MULTIPLIERS = (0x9E3779B97F4A7C15, 0xBF58476D1CE4E5B9, 0x94D049BB133111EB)
+
+
+def arrow_ids(s: pd.Series) -> pa.ChunkedArray:
+    """A text column as Arrow (no copy when pandas already holds it in Arrow)."""
+    if hasattr(s.array, "__arrow_array__"):
+        return pa.chunked_array(s.array.__arrow_array__())
+    return pa.chunked_array([pa.array(s.array)])
+
+
+def ns_of(times: pd.Series) -> np.ndarray:
+    """Nanoseconds since 1970 of a UTC time column, as int64 (a view when it is already in nanoseconds)."""
+    arr = times.array
+    if getattr(arr, "unit", "ns") != "ns":
+        arr = arr.as_unit("ns")
+    return np.asarray(arr.asi8)
+
+
+def positions(ids: pd.Series | pa.ChunkedArray, value_set: pa.Array) -> np.ndarray:
+    """Row of each id in `value_set` (the visits' unit ids), -1 when the id is not there.
+
+    Above a million ids the lookup runs in slices on threads (Arrow releases the GIL).
+    """
+    arr = ids if isinstance(ids, pa.ChunkedArray) else arrow_ids(ids)
+    n = len(arr)
+    parts = max(1, min(os.cpu_count() or 1, 8)) if n > 1_000_000 else 1
+    edges = np.linspace(0, n, parts + 1).astype(np.int64)
+
+    def one(i: int) -> np.ndarray:
+        piece = arr.slice(int(edges[i]), int(edges[i + 1] - edges[i]))
+        return pc.fill_null(pc.index_in(piece, value_set=value_set), -1).to_numpy().astype(np.int64)
+
+    if parts == 1:
+        return one(0)
+    with ThreadPoolExecutor(max_workers=parts) as pool:
+        return np.concatenate(list(pool.map(one, range(parts))))
+
+
+def unit_codes(ids: pd.Series, pos: np.ndarray, n_visits: int) -> np.ndarray:
+    """An integer per id, equal exactly when the ids are equal: its visits row, else n_visits + a code
+    among the ids that are not in the visits."""
+    codes = pos.copy()
+    unseen = np.flatnonzero(pos < 0)
+    if len(unseen):
+        enc = pc.dictionary_encode(arrow_ids(ids).take(pa.array(unseen))).combine_chunks()
+        codes[unseen] = n_visits + enc.indices.to_numpy(zero_copy_only=False).astype(np.int64)
+    return codes
+
+
+def duplicate_rows(*keys: np.ndarray) -> np.ndarray:
+    """True for each row whose integer keys all equal those of an earlier row (the first copy is False).
+
+    Equal rows have equal mixes; the rows whose mix occurs more than once (few, unless the data
+    really repeats) are then compared key by key (pandas' `duplicated`), so a collision of mixes
+    between different rows never marks one of them.
+    """
+    n = len(keys[0])
+    out = np.zeros(n, dtype=bool)
+    if n < 2:
+        return out
+    mix = np.zeros(n, dtype=np.uint64)
+    term = np.empty(n, dtype=np.uint64)
+    for i, k in enumerate(keys):
+        np.copyto(term, k, casting="unsafe")  # integers wrap modulo 2**64: a mix, not a number
+        term *= np.uint64(_MULTIPLIERS[i % len(_MULTIPLIERS)] + 2 * (i // len(_MULTIPLIERS)))
+        mix ^= term
+    del term
+    mix ^= mix >> np.uint64(31)  # fold the high bits into the low ones
+    ordered = np.sort(mix)
+    same = ordered[1:] == ordered[:-1]
+    if not same.any():
+        return out
+    repeated = np.unique(ordered[1:][same])
+    del ordered, same
+    cand = np.flatnonzero(np.isin(mix, repeated))
+    sub = pd.DataFrame({str(i): k[cand] for i, k in enumerate(keys)})
+    out[cand[sub.duplicated().to_numpy()]] = True
+    return out

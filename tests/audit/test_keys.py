@@ -1,0 +1,98 @@
+"""audit.keys: integer keys of text ids and exact duplicate rows, checked against pandas and plain Python."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from armlock.assign import InputError
+from armlock.audit import keys
+from armlock.audit.read import Source, read_times
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.tuples(st.integers(0, 6), st.integers(-3, 3), st.integers(-(2**63), 2**63 - 1)), max_size=60),
+       st.integers(0, 2))
+def test_duplicate_rows_equal_pandas_duplicated(rows: list[tuple[int, int, int]], repeat: int) -> None:
+    # Reference: pandas.DataFrame.duplicated (keep="first"), a general-purpose library's definition.
+    rows = rows + rows[: repeat * len(rows) // 3]
+    a = np.array([r[0] for r in rows], dtype=np.int64)
+    b = np.array([r[1] for r in rows], dtype=np.int8)
+    c = np.array([r[2] for r in rows], dtype=np.int64)
+    ref = pd.DataFrame({"a": a, "b": b, "c": c}).duplicated().to_numpy()
+    assert (keys.duplicate_rows(a, b, c) == ref).all()
+
+
+def test_duplicate_rows_when_mixes_collide(monkeypatch: pytest.MonkeyPatch) -> None:
+    # With every multiplier 0 all rows share one mix: the exact comparison alone must decide.
+    monkeypatch.setattr(keys, "_MULTIPLIERS", (0,))
+    rng = np.random.default_rng(3)
+    a, t = rng.integers(0, 5, 2_000), rng.integers(0, 5, 2_000)
+    ref = pd.DataFrame({"a": a, "t": t}).duplicated().to_numpy()
+    assert ref.sum() > 0 and (~ref).sum() > 0
+    assert (keys.duplicate_rows(a, t) == ref).all()
+
+
+def test_duplicate_rows_of_a_log_appended_twice() -> None:
+    rng = np.random.default_rng(4)
+    a, t = rng.integers(0, 10**6, 50_000), rng.integers(0, 2**60, 50_000)
+    dup = keys.duplicate_rows(np.concatenate([a, a]), np.concatenate([t, t]))
+    assert not dup[:50_000].any() and dup[50_000:].all()
+
+
+def test_positions_and_unit_codes_match_a_dictionary() -> None:
+    visits = pd.Series(["u1", "", "naïve", "𝔘2", "a,b", "x\ny"], dtype="str")
+    ids = pd.Series(["𝔘2", "zz", "u1", "zz", "", "q", "x\ny", "U1"], dtype="str")
+    where = {v: i for i, v in enumerate(visits)}
+    pos = keys.positions(ids, keys.arrow_ids(visits).combine_chunks())
+    assert pos.tolist() == [where.get(i, -1) for i in ids]
+    codes = keys.unit_codes(ids, pos, len(visits))
+    for i in range(len(ids)):
+        for j in range(len(ids)):
+            assert (codes[i] == codes[j]) == (ids[i] == ids[j])
+    assert (codes[pos < 0] >= len(visits)).all()
+
+
+def test_positions_in_slices_equal_one_lookup() -> None:
+    visits = pd.Series([f"v{i}" for i in range(5_000)], dtype="str")
+    ids = pd.Series([f"v{i}" for i in np.random.default_rng(5).integers(0, 6_000, 1_200_000)], dtype="str")
+    vset = keys.arrow_ids(visits).combine_chunks()
+    sliced = keys.positions(ids, vset)  # above a million ids: in slices on threads
+    expected = np.array([int(s[1:]) if int(s[1:]) < 5_000 else -1 for s in ids[:2_000]])
+    assert (sliced[:2_000] == expected).all()
+    assert ((sliced >= 0) == ids.map(lambda s: int(s[1:]) < 5_000).to_numpy()).all()
+
+
+def test_ns_of_reads_any_unit() -> None:
+    s = pd.Series(pd.to_datetime(["2026-01-05T00:00:00.000001Z", "1970-01-01T00:00:01Z"], utc=True, format="ISO8601"))
+    assert keys.ns_of(s).tolist() == [pd.Timestamp("2026-01-05T00:00:00.000001Z").value, 10**9]
+    assert keys.ns_of(s.dt.as_unit("us")).tolist() == keys.ns_of(s).tolist()
+
+
+@pytest.mark.parametrize("unit", ["s", "ms", "us", "ns"])
+def test_zoned_parquet_times_in_every_unit(tmp_path: Path, unit: str) -> None:
+    # Parquet timestamps with a zone take Arrow's direct cast; the instant is kept whatever the zone.
+    when = pd.Timestamp("2026-01-05T10:00:00+01:00")
+    table = pa.table({"t": pa.array([when, None], type=pa.timestamp(unit, "Europe/Berlin"))})
+    pq.write_table(table, tmp_path / "t.parquet")
+    out = read_times(Source(tmp_path / "t.parquet", "visits"), pq.read_table(tmp_path / "t.parquet"), "t", [])
+    assert str(out.dtype) == "datetime64[ns, UTC]"
+    assert out.iloc[0] == pd.Timestamp("2026-01-05T09:00:00Z") and pd.isna(out.iloc[1])
+
+
+def test_zoned_parquet_times_out_of_range_name_the_row(tmp_path: Path) -> None:
+    import datetime as dt
+
+    far = dt.datetime(2300, 1, 1, tzinfo=dt.UTC)
+    table = pa.table({"t": pa.array([dt.datetime(2026, 1, 1, tzinfo=dt.UTC), far], type=pa.timestamp("us", "UTC"))})
+    pq.write_table(table, tmp_path / "t.parquet")
+    with pytest.raises(InputError, match=r"t.parquet: column 't' has 1 time\(s\) outside the years 1678-2261 "
+                                         r"\(first: row 2"):
+        read_times(Source(tmp_path / "t.parquet", "visits"), pq.read_table(tmp_path / "t.parquet"), "t", [])
