@@ -71,14 +71,26 @@ def unit_codes(ids: pd.Series, pos: np.ndarray, n_visits: int) -> np.ndarray:
 def duplicate_rows(*keys: np.ndarray) -> np.ndarray:
     """True for each row whose integer keys all equal those of an earlier row (the first copy is False).
 
-    Equal rows have equal mixes; the rows whose mix occurs more than once (few, unless the data
-    really repeats) are then compared key by key (pandas' `duplicated`), so a collision of mixes
-    between different rows never marks one of them.
+    When the first key never decreases (a log sorted by time, the usual export), a row can only
+    repeat one that shares its first key and sits next to it, so only such runs are examined.
+    The rows left to examine are mixed into one 64-bit number each and sorted; equal rows have
+    equal mixes, and the rows whose mix occurs more than once (few, unless the data really
+    repeats) are compared key by key (pandas' `duplicated`), so a collision of mixes between
+    different rows never marks one of them.
     """
     n = len(keys[0])
     out = np.zeros(n, dtype=bool)
     if n < 2:
         return out
+    first = keys[0]
+    if bool((first[1:] >= first[:-1]).all()):
+        tie = first[1:] == first[:-1]
+        if not tie.any():
+            return out
+        rows = np.flatnonzero(np.concatenate([tie, [False]]) | np.concatenate([[False], tie]))
+        if len(rows) < n:
+            out[rows[duplicate_rows(*(np.asarray(k)[rows] for k in keys[1:]), first[rows])]] = True
+            return out
     mix = np.zeros(n, dtype=np.uint64)
     term = np.empty(n, dtype=np.uint64)
     for i, k in enumerate(keys):

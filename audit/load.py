@@ -108,7 +108,8 @@ def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> d
     keep = ~(empty | no_time)
     if not keep.all():
         frame = frame[keep]
-    frame = frame.sort_values(TIME, kind="stable")
+    if not frame[TIME].is_monotonic_increasing:  # exports are often sorted already: then no copy
+        frame = frame.sort_values(TIME, kind="stable")
     dup = frame[UNIT].duplicated(keep="first").to_numpy()
     n_dup = int(dup.sum())
     fr.counts["duplicate_rows"] = n_dup
@@ -186,8 +187,7 @@ def load_exposures(spec: Spec, path: PathLike, as_of: date, fr: Frames) -> None:
     # the rows compared on integer keys (audit.keys).
     pos = positions(frame[UNIT], arrow_ids(fr.visits[UNIT]).combine_chunks())
     kind_raw = raw_kind[keep].reset_index(drop=True) if not keep.all() else raw_kind
-    dup = duplicate_rows(unit_codes(frame[UNIT], pos, len(fr.visits)),
-                         ns_of(frame[TIME]),
+    dup = duplicate_rows(ns_of(frame[TIME]), unit_codes(frame[UNIT], pos, len(fr.visits)),
                          frame[CAMPAIGN].cat.codes.to_numpy(), kind_raw.cat.codes.to_numpy())
     fr.counts["exposure_duplicate_rows"] = int(dup.sum())
     if dup.any():

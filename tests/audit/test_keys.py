@@ -30,6 +30,17 @@ def test_duplicate_rows_equal_pandas_duplicated(rows: list[tuple[int, int, int]]
     assert (keys.duplicate_rows(a, b, c) == ref).all()
 
 
+@settings(max_examples=100, deadline=None)
+@given(st.lists(st.tuples(st.integers(0, 5), st.integers(0, 3), st.integers(0, 2)), max_size=80))
+def test_duplicate_rows_of_a_time_sorted_log(rows: list[tuple[int, int, int]]) -> None:
+    # A first key that never decreases (a log sorted by time) takes the path that looks only at
+    # runs of equal times; the answer must still be pandas' (keep="first").
+    rows = sorted(rows, key=lambda r: r[0])
+    t, u, c = (np.array([r[i] for r in rows], dtype=np.int64) for i in range(3))
+    ref = pd.DataFrame({"t": t, "u": u, "c": c}).duplicated().to_numpy()
+    assert (keys.duplicate_rows(t, u, c) == ref).all()
+
+
 def test_duplicate_rows_when_mixes_collide(monkeypatch: pytest.MonkeyPatch) -> None:
     # With every multiplier 0 all rows share one mix: the exact comparison alone must decide.
     monkeypatch.setattr(keys, "_MULTIPLIERS", (0,))
