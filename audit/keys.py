@@ -57,6 +57,21 @@ def positions(ids: pd.Series | pa.ChunkedArray, value_set: pa.Array) -> np.ndarr
         return np.concatenate(list(pool.map(one, range(parts))))
 
 
+def repeated_ids(ids: pd.Series) -> np.ndarray:
+    """True for each id that an earlier row already has (pandas' `duplicated`, keep="first").
+
+    Arrow's dictionary encoding numbers the distinct ids in order of first appearance, so a row
+    is a first appearance exactly when its number exceeds every number before it.
+    """
+    enc = pc.dictionary_encode(arrow_ids(ids))
+    codes = np.concatenate([c.indices.to_numpy(zero_copy_only=False) for c in enc.chunks]
+                           or [np.zeros(0, np.int32)]).astype(np.int64)
+    if not len(codes):
+        return np.zeros(0, dtype=bool)
+    before = np.maximum.accumulate(np.concatenate([[-1], codes[:-1]]))
+    return codes <= before
+
+
 def unit_codes(ids: pd.Series, pos: np.ndarray, n_visits: int) -> np.ndarray:
     """An integer per id, equal exactly when the ids are equal: its visits row, else n_visits + a code
     among the ids that are not in the visits."""

@@ -20,7 +20,7 @@ import pandas as pd
 
 from armlock.assign import InputError, Spec
 
-from .keys import arrow_ids, duplicate_rows, ns_of, positions, unit_codes
+from .keys import arrow_ids, duplicate_rows, ns_of, positions, repeated_ids, unit_codes
 from .read import (
     ARM,
     BROWSER,
@@ -110,7 +110,7 @@ def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> d
         frame = frame[keep]
     if not frame[TIME].is_monotonic_increasing:  # exports are often sorted already: then no copy
         frame = frame.sort_values(TIME, kind="stable")
-    dup = frame[UNIT].duplicated(keep="first").to_numpy()
+    dup = repeated_ids(frame[UNIT])
     n_dup = int(dup.sum())
     fr.counts["duplicate_rows"] = n_dup
     if n_dup:

@@ -326,8 +326,9 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
             raise InputError(f"{src.path}: column '{col}' has times that cannot be read: {exc}") from None
         if pa.types.is_timestamp(arr.type) and arr.type.tz is not None and _inside(values):
             # the common case, zoned times within the engine's range: one cast to nanoseconds in Arrow
-            return pd.Series(values.cast(pa.timestamp("ns", "UTC")).to_pandas())
-        out = pd.Series(values.to_pandas())
+            # (one combined chunk converts to pandas without a copy; many chunks take a slow path)
+            return pd.Series(values.cast(pa.timestamp("ns", "UTC")).combine_chunks().to_pandas())
+        out = pd.Series(values.combine_chunks().to_pandas())
         if pa.types.is_date(arr.type):
             notes.append(f"{src.path.name}: '{col}' holds dates without a time; read as midnight UTC")
             out = out.dt.tz_localize("UTC")
@@ -425,11 +426,15 @@ def read_labels(table: pa.Table, col: str) -> pd.Series:
             arr = arr.cast(pa.string())
         enc = pc.fill_null(arr, "").dictionary_encode().combine_chunks()
     raw = [MISSING_LEVEL if v is None or v == "" else str(v) for v in enc.dictionary.to_pylist()] + [MISSING_LEVEL]
-    codes = pc.fill_null(enc.indices, len(raw) - 1).to_numpy(zero_copy_only=False).astype(np.int32)
-    levels = list(dict.fromkeys(raw))
-    lut = np.array([levels.index(v) for v in raw], dtype=np.int32)
-    codes = lut[codes]
-    used = np.bincount(codes, minlength=len(levels)) > 0
+    levels = list(dict.fromkeys(raw))  # "" and null both become MISSING_LEVEL
+    lut = np.array([levels.index(v) for v in raw], dtype=np.int64)
+    idx = enc.indices if not enc.indices.null_count else pc.fill_null(enc.indices, len(raw) - 1)
+    used = np.zeros(len(levels), dtype=bool)
+    used[lut[pc.unique(idx).to_numpy(zero_copy_only=False).astype(np.int64)]] = True
     keep = [v for v, u in zip(levels, used) if u]
-    remap = np.cumsum(used) - 1
-    return pd.Series(pd.Categorical.from_codes(remap[codes].astype(np.int32), categories=keep))
+    to_kept = (np.cumsum(used) - 1)[lut]  # raw index -> index among the levels in use
+    small = np.int8 if len(keep) < 2**7 else np.int16 if len(keep) < 2**15 else np.int32
+    codes = idx.to_numpy(zero_copy_only=False)
+    if not np.array_equal(to_kept, np.arange(len(raw))) or codes.dtype.itemsize > np.dtype(small).itemsize:
+        codes = to_kept.astype(small)[codes]  # a small table: the gather is cheap
+    return pd.Series(pd.Categorical.from_codes(codes, categories=keep))

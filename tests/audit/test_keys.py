@@ -81,6 +81,19 @@ def test_positions_in_slices_equal_one_lookup() -> None:
     assert ((sliced >= 0) == ids.map(lambda s: int(s[1:]) < 5_000).to_numpy()).all()
 
 
+@settings(max_examples=100, deadline=None)
+@given(st.lists(st.sampled_from(["a", "b", "", "𝔘", "a,b", "x\ny", "NA"]), max_size=40))
+def test_repeated_ids_equal_pandas_duplicated(ids: list[str]) -> None:
+    # Reference: pandas.Series.duplicated (keep="first").
+    s = pd.Series(ids, dtype="str")
+    assert keys.repeated_ids(s).tolist() == s.astype(object).duplicated().tolist()
+
+
+def test_repeated_ids_across_chunks() -> None:
+    s = pd.Series(pd.arrays.ArrowStringArray(pa.chunked_array([["a", "b"], ["b", "c", "a"], []])))
+    assert keys.repeated_ids(s).tolist() == [False, False, True, False, True]
+
+
 def test_ns_of_reads_any_unit() -> None:
     s = pd.Series(pd.to_datetime(["2026-01-05T00:00:00.000001Z", "1970-01-01T00:00:01Z"], utc=True, format="ISO8601"))
     assert keys.ns_of(s).tolist() == [pd.Timestamp("2026-01-05T00:00:00.000001Z").value, 10**9]
