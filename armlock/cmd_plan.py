@@ -137,7 +137,7 @@ def plan_cmd(
     holdout_shares: str = typer.Option("5%,10%,20%,30%,50%", "--holdout-shares", help="Holdout shares to compare, e.g. 5%,10%,20% or 0.05,0.1."),
     weeks: str = typer.Option("2-26", "--weeks", help="Durations in weeks: a range 2-26 or a list 2,4,8."),
     max_weeks: int = typer.Option(12, "--max-weeks", help="The longest test you would run; the advice picks the smallest share that fits."),
-    fmt: str = typer.Option("text", "--format", "-f", help=f"Output format: {', '.join(FORMATS)}."),
+    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Output format: {', '.join(FORMATS)}."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the plan to this file instead of stdout."),
     write_spec: str = typer.Option(None, "--write-spec", help="Also write a spec NAME.toml with the recommended holdout share (as `armlock init` does)."),
     spec_out: Path = typer.Option(None, "--spec-out", help="Where --write-spec writes (default NAME.toml here)."),

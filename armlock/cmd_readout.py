@@ -22,7 +22,7 @@ def readout_cmd(
     spend_file: Path = typer.Option(None, "--spend-file", help="Spend per campaign and day (columns: [readout.spend]); days outside the test are left out."),
     attributed: float = typer.Option(None, "--attributed-revenue", help="Revenue the attribution report credited to the channel over the test (overrides the orders' attributed column)."),
     as_of: str = typer.Option(None, "--as-of", help="Read out as of the end of this UTC day (YYYY-MM-DD). Default: the last first-seen day."),
-    fmt: str = typer.Option("text", "--format", "-f", help=f"Report format: {', '.join(FORMATS)}."),
+    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Report format: {', '.join(FORMATS)}."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the audit gate warns (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
