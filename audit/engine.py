@@ -85,6 +85,7 @@ class PandasEngine:
         identities = _local(inputs.identities, "--identities")
         fr = Frames(visits=None)  # type: ignore[arg-type]
         used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
+        early = engine_pandas.start_visit_arms(spec, fr.visits)  # overlaps the loading below
         advance(file_bytes(visits))
         if exposures is not None:
             load_exposures(spec, exposures, used, fr)
@@ -92,7 +93,7 @@ class PandasEngine:
         if identities is not None:
             load_identities(spec, identities, used, fr)
             advance(file_bytes(identities))
-        tables = engine_pandas.compute(spec, fr)
+        tables = engine_pandas.compute(spec, fr, early)
         return EngineResult(tables=tables, as_of=used, notes=fr.notes, counts=fr.counts,
                             data_through=fr.data_through)
 

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -136,12 +138,12 @@ def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, ob
     return rows
 
 
-def balance_tables(spec: Spec, fr: Frames, rec: np.ndarray) -> BalanceTables:
+def balance_tables(spec: Spec, fr: Frames, rec: np.ndarray, moments: dict[str, list[dict[str, object]]]) -> BalanceTables:
     v = fr.visits
     arms, k = list(spec.arm_names), len(spec.arms)
     rows = []
     for col in spec.audit.covariates:
-        per_arm = numeric_moments(v[col].to_numpy(dtype=np.float64), rec, k)
+        per_arm = [dict(r) for r in moments[col]]
         bad = sum(int(r["invalid"]) for r in per_arm)  # type: ignore[call-overload]
         if bad:
             fr.notes.append(f"covariate {col}: {bad} value(s) were +/-infinity; counted as invalid input and "
@@ -350,16 +352,51 @@ def _ids_and_arms(group: np.ndarray, arm: np.ndarray, k: int) -> tuple[np.ndarra
     return n[present], np.asarray(distinct)[present]
 
 
-def compute(spec: Spec, fr: Frames) -> AuditTables:
-    """All sufficient statistics of one audit."""
-    v = fr.visits
-    hashed = hash_arms(spec, v[UNIT])
-    rec, unknown, missing = _recorded_codes(spec, v[ARM])
-    eff = np.where(rec >= 0, rec, hashed).astype(np.int64)
+@dataclass
+class VisitArms:
+    """The part of the counting that reads only the visits: each unit's arm (hashed and recorded)
+    and each numeric covariate's moments per recorded arm."""
+
+    hashed: np.ndarray  # per visits row: the arm index the spec's hash gives
+    rec: np.ndarray  # per visits row: the recorded arm index (-1 unknown name, -2 empty)
+    unknown: dict[str, int]
+    missing: int
+    moments: dict[str, list[dict[str, object]]]  # covariate -> numeric_moments rows
+
+
+def visit_arms(spec: Spec, ids: pd.Series, recorded: pd.Series, covariates: dict[str, np.ndarray]) -> VisitArms:
+    """`VisitArms` of the given visits columns (pure: it reads only its arguments)."""
+    hashed = hash_arms(spec, ids).astype(np.int64)
+    rec, unknown, missing = _recorded_codes(spec, recorded)
     rec = rec.astype(np.int64)
-    hashed = hashed.astype(np.int64)
-    split, integ = split_and_integrity(spec, fr, eff, rec, hashed, unknown, missing)
-    tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, rec))
+    k = len(spec.arms)
+    return VisitArms(hashed, rec, unknown, missing, {c: numeric_moments(x, rec, k) for c, x in covariates.items()})
+
+
+def start_visit_arms(spec: Spec, visits: pd.DataFrame) -> Future[VisitArms]:
+    """`visit_arms` on a worker thread, over its own copy of the columns it needs.
+
+    The engine starts it as soon as the visits are loaded, so it runs while the exposures and
+    the identity links are read and matched: hashing ids holds Python's lock, while Arrow's
+    reading and matching release it, so on two cores the two overlap.
+    """
+    covs = {c: visits[c].to_numpy(dtype=np.float64, copy=True) for c in spec.audit.covariates}
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="armlock-visits")
+    try:
+        return pool.submit(visit_arms, spec, visits[UNIT].copy(), visits[ARM].copy(), covs)
+    finally:
+        pool.shutdown(wait=False)  # the task runs to its end; the pool takes no more
+
+
+def compute(spec: Spec, fr: Frames, early: Future[VisitArms] | None = None) -> AuditTables:
+    """All sufficient statistics of one audit (`early`: `start_visit_arms` of these visits, if started)."""
+    v = fr.visits
+    va = early.result() if early is not None else visit_arms(
+        spec, v[UNIT], v[ARM], {c: v[c].to_numpy(dtype=np.float64) for c in spec.audit.covariates})
+    hashed, rec = va.hashed, va.rec
+    eff = np.where(rec >= 0, rec, hashed).astype(np.int64)
+    split, integ = split_and_integrity(spec, fr, eff, rec, hashed, va.unknown, va.missing)
+    tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, rec, va.moments))
     tables.extra["hashed_arm"] = hashed  # per visits row, spec order: the readout's intent-to-treat arm
     if fr.exposures is not None or fr.identities is not None:
         vset = _arrow_ids(v[UNIT]).combine_chunks()

@@ -7,7 +7,9 @@ process's own: `VmHWM` of /proc/self/status, reported by the child. (`ru_maxrss`
 wrong here: Linux carries the forking parent's peak across exec into it, so every child would
 report the size of this pytest process.) The figures
 are recorded in `benchmark.extra_info`; tests/benchmarks/ratios.py prints the ratio. Set
-ARMLOCK_BENCH_UNITS to run smaller (the exposure rows scale with it).
+ARMLOCK_BENCH_UNITS to run smaller (the exposure rows scale with it), ARMLOCK_BENCH_ROUNDS to run
+each figure in several fresh processes (the fastest counts: the bare read alone varies by a third
+from run to run on a 2-core machine).
 
 Group "audit-spark": the Spark engine on local[2] against the pandas engine (the baseline) on
 the same files, ARMLOCK_BENCH_SPARK_UNITS units (default 100,000: a local Spark needs minutes
@@ -32,6 +34,7 @@ pytestmark = pytest.mark.bench
 
 UNITS = int(os.environ.get("ARMLOCK_BENCH_UNITS", "2000000"))
 SPARK_UNITS = int(os.environ.get("ARMLOCK_BENCH_SPARK_UNITS", "100000"))
+ROUNDS = int(os.environ.get("ARMLOCK_BENCH_ROUNDS", "1"))  # fresh processes per figure; the fastest counts
 EVENTS_PER_UNIT = 10.0  # ~20,000,000 exposure rows at 2,000,000 units
 SPEC = {"name": "bench-audit", "salt": "bench-audit-salt", "start": "2026-01-05T00:00:00Z",
         "arms": [{"name": "holdout", "weight": 1000}, {"name": "exposed", "weight": 9000}]}
@@ -106,7 +109,7 @@ def _child(code: str, d: Path) -> dict[str, object]:
 @pytest.mark.benchmark(group="audit-2M")
 def test_baseline_bare_read_parquet(benchmark, logs_dir) -> None:  # type: ignore[no-untyped-def]
     d, truth = logs_dir
-    out = benchmark.pedantic(_child, args=(_CHILD_READ, d), rounds=1, iterations=1)
+    out = benchmark.pedantic(_child, args=(_CHILD_READ, d), rounds=ROUNDS, iterations=1)
     benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
                                  "rows": out["rows"], "exposure_rows": truth["exposure_rows"]})
     assert out["rows"] > truth["exposure_rows"]  # type: ignore[operator]
@@ -115,7 +118,7 @@ def test_baseline_bare_read_parquet(benchmark, logs_dir) -> None:  # type: ignor
 @pytest.mark.benchmark(group="audit-2M")
 def test_full_audit(benchmark, logs_dir) -> None:  # type: ignore[no-untyped-def]
     d, truth = logs_dir
-    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=1, iterations=1)
+    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=ROUNDS, iterations=1)
     benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
                                  "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
     assert out["units"] == truth["units"]
