@@ -2,8 +2,10 @@
 
 An engine turns the raw logs into the small sufficient-statistics tables; the statistics, verdicts
 and reports downstream read only those. Two engines implement it: pandas (embedded, the default)
-and Apache Spark (where the data lives). A third one, a warehouse's SQL for instance, implements
-`Engine.compute` and is added to `select_engine`; nothing downstream changes.
+and Apache Spark (where the data lives). `Engine.compute` gives the audit's tables
+(`audit.tables`); `Engine.readout` gives, from the same logs plus the orders, the audit's tables
+and the readout's moment tables (`readout.tables`). A third engine, a warehouse's SQL for
+instance, implements both and is added to `select_engine`; nothing downstream changes.
 
 Every engine's tables go through `canonical` before the statistics see them, so that the order of
 levels, campaigns and dictionary keys never depends on how a file happened to be encoded or how an
@@ -17,13 +19,21 @@ from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from datetime import date
 from pathlib import Path
-from typing import Protocol
+from typing import TYPE_CHECKING, Protocol
 
 import pandas as pd
 
 from armlock.assign import InputError, Spec
 
 from .tables import AuditTables, BalanceTables, ChurnTables, IntegrityTables, LeakageTables, SplitTables
+
+if TYPE_CHECKING:
+    from concurrent.futures import Future
+
+    from armlock.readout.tables import ReadoutTables
+
+    from .engine_pandas import VisitArms
+    from .read import Frames
 
 ENGINES = ("pandas", "spark")
 SPARK_INSTALL = "pip install 'armlock[spark]'"
@@ -34,11 +44,13 @@ Source = str | Path
 
 @dataclass
 class Inputs:
-    """Where the logs are: paths (or, for Spark, `table:db.name`); exposures and identities optional."""
+    """Where the logs are: paths (or, for Spark, `table:db.name`); all but the visits optional
+    (the readout needs the orders)."""
 
     visits: Source
     exposures: Source | None = None
     identities: Source | None = None
+    orders: Source | None = None
 
 
 @dataclass
@@ -52,16 +64,30 @@ class EngineResult:
     data_through: date | None = None  # the last day with data, when the as-of date lies beyond it
 
 
+@dataclass
+class ReadoutResult:
+    """An engine's readout: the audit of the same logs (the gate), the readout's tables, and the
+    readout's own input notes (orders, joins, window, cap), which follow the audit's."""
+
+    audit: EngineResult
+    tables: ReadoutTables
+    notes: list[str] = field(default_factory=list)
+
+
 class Engine(Protocol):
-    """Raw logs -> `EngineResult`. Raises `InputError` (file or table, column, sample rows) for bad input."""
+    """Raw logs -> tables. Raises `InputError` (file or table, column, sample rows) for bad input."""
 
     name: str
 
     def compute(self, spec: Spec, inputs: Inputs, as_of: date | None,
                 advance: Callable[[int], None]) -> EngineResult: ...
 
+    def readout(self, spec: Spec, inputs: Inputs, as_of: date | None,
+                advance: Callable[[int], None]) -> ReadoutResult: ...
 
-def _local(src: Source | None, what: str) -> Path | None:
+
+def local_path(src: Source | None, what: str) -> Path | None:
+    """A local input's path; a catalog table is an input error outside the Spark engine."""
     if src is None:
         return None
     if str(src).startswith(TABLE_PREFIX):
@@ -69,33 +95,50 @@ def _local(src: Source | None, what: str) -> Path | None:
     return Path(src)
 
 
+def load_frames(spec: Spec, inputs: Inputs, as_of: date | None,
+                advance: Callable[[int], None]) -> tuple[Frames, date, Future[VisitArms]]:
+    """The embedded engine's loading (`audit.load`): the frames, the as-of date used, and the
+    visits' own counting (`engine_pandas.start_visit_arms`), started as soon as the visits are in."""
+    from . import engine_pandas
+    from .load import load_exposures, load_identities, load_visits
+    from .read import Frames
+
+    visits = local_path(inputs.visits, "--visits")
+    exposures = local_path(inputs.exposures, "--exposures")
+    identities = local_path(inputs.identities, "--identities")
+    fr = Frames(visits=None)  # type: ignore[arg-type]
+    used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
+    early = engine_pandas.start_visit_arms(spec, fr.visits)  # overlaps the loading below
+    advance(file_bytes(visits))
+    if exposures is not None:
+        load_exposures(spec, exposures, used, fr)
+        advance(file_bytes(exposures))
+    if identities is not None:
+        load_identities(spec, identities, used, fr)
+        advance(file_bytes(identities))
+    return fr, used, early
+
+
 class PandasEngine:
-    """The embedded engine: `audit.load` reads the files into frames, `audit.engine_pandas` counts."""
+    """The embedded engine: `audit.load` reads the files into frames, `audit.engine_pandas` counts
+    (and `readout.engine_pandas` for a readout)."""
 
     name = "pandas"
 
     def compute(self, spec: Spec, inputs: Inputs, as_of: date | None,
                 advance: Callable[[int], None]) -> EngineResult:
         from . import engine_pandas
-        from .load import load_exposures, load_identities, load_visits
-        from .read import Frames
 
-        visits = _local(inputs.visits, "--visits")
-        exposures = _local(inputs.exposures, "--exposures")
-        identities = _local(inputs.identities, "--identities")
-        fr = Frames(visits=None)  # type: ignore[arg-type]
-        used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
-        early = engine_pandas.start_visit_arms(spec, fr.visits)  # overlaps the loading below
-        advance(file_bytes(visits))
-        if exposures is not None:
-            load_exposures(spec, exposures, used, fr)
-            advance(file_bytes(exposures))
-        if identities is not None:
-            load_identities(spec, identities, used, fr)
-            advance(file_bytes(identities))
+        fr, used, early = load_frames(spec, inputs, as_of, advance)
         tables = engine_pandas.compute(spec, fr, early)
         return EngineResult(tables=tables, as_of=used, notes=fr.notes, counts=fr.counts,
                             data_through=fr.data_through)
+
+    def readout(self, spec: Spec, inputs: Inputs, as_of: date | None,
+                advance: Callable[[int], None]) -> ReadoutResult:
+        from armlock.readout import engine_pandas as readout_engine
+
+        return readout_engine.readout(spec, inputs, as_of, advance)
 
 
 def file_bytes(*paths: Source | None) -> int:

@@ -207,7 +207,8 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
 
     looks = []
     for day, arms_m in tables.looks:
-        e_m, h_m = pooled(arms_m, exposed, names), pooled(arms_m, holdouts, names)
+        look_vars = next(iter(arms_m.values())).names  # a look holds only what its estimate reads
+        e_m, h_m = pooled(arms_m, exposed, look_vars), pooled(arms_m, holdouts, look_vars)
         if e_m.n < 2 or h_m.n < 2:
             continue
         est = _primary(e_m, h_m, covs, alpha)

@@ -3,35 +3,64 @@
 Joins each order to its unit (by unit id, or by customer key through the identity links with
 the first-unit rule), applies the outcome window and the revenue cap, and sums per arm and per
 look. The arm is the one the spec's hash gives (intent to treat), taken from the audit's engine.
+Every sum is exact or taken in a fixed order (`readout.rules`), so the Spark engine
+(`readout.engine_spark`) gives the same tables bit for bit.
 """
 
 from __future__ import annotations
 
-from datetime import date, timedelta
+from collections.abc import Callable
+from datetime import date
 
 import numpy as np
 import pandas as pd
 
-from armlock.assign import Spec
+from armlock.assign import InputError, Spec
+from armlock.audit import engine_pandas as audit_engine
+from armlock.audit.engine import EngineResult, Inputs, ReadoutResult, file_bytes, load_frames, local_path
 from armlock.audit.engine_pandas import NS_DAY, _arrow_ids, _positions
+from armlock.audit.exactsum import exact_sum, grouped_exact_sums, rounded_sum
 from armlock.audit.load import cutoff_of
 from armlock.audit.read import CUSTOMER, TIME, UNIT, Frames
 from armlock.audit.tables import AuditTables
 
-from .load import ATTR, KEY, REV
-from .tables import COV_PREFIX, VARIABLES, Moments, ReadoutTables
+from .load import ATTR, KEY, REV, attach_covariates, load_orders
+from .rules import fill_value, final_names, linear_quantile, look_dates, look_names, means_of, moments_of, pairs
+from .tables import Moments, ReadoutTables
 
 
-def look_dates(spec: Spec, as_of: date) -> list[date]:
-    """The end day of each look: every `look_days` days from the start, and the as-of date last."""
-    step = spec.readout.look_days
-    first = spec.start.date()
-    out = []
-    d = first + timedelta(days=step - 1)
-    while d < as_of:
-        out.append(d)
-        d += timedelta(days=step)
-    return out + [as_of]
+def readout(spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[int], None]) -> ReadoutResult:
+    """The whole embedded readout: the audit's loaders and tables, then the orders and the readout's tables."""
+    if inputs.orders is None:
+        raise InputError("a readout needs the orders log (--orders)")
+    fr, used, early = load_frames(spec, inputs, as_of, advance)
+    attach_covariates(spec, local_path(inputs.visits, "--visits"), fr.visits, [])  # type: ignore[arg-type]
+    audit_tables = audit_engine.compute(spec, fr, early)
+    audit = EngineResult(tables=audit_tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
+                         data_through=fr.data_through)
+    notes: list[str] = []
+    counts: dict[str, float] = {}
+    orders_path = local_path(inputs.orders, "--orders")
+    orders = load_orders(spec, orders_path, used, notes, counts)  # type: ignore[arg-type]
+    advance(file_bytes(orders_path))
+    tables = compute(spec, fr, audit_tables, orders, used, counts, notes)
+    return ReadoutResult(audit=audit, tables=tables, notes=notes)
+
+
+def grouped_moments(names: tuple[str, ...], data: np.ndarray, group: np.ndarray, groups: int) -> list[Moments]:
+    """Moments of the rows of `data` (units x variables) in each group 0..groups-1, exactly (readout.rules)."""
+    k = len(names)
+    n = np.bincount(group, minlength=groups)
+    col = np.tile(np.arange(k, dtype=np.int64), len(data))
+    sums = grouped_exact_sums(data.ravel(), np.repeat(group.astype(np.int64) * k, k) + col, groups * k)
+    means = np.array([means_of(int(n[g]), sums[g * k:(g + 1) * k]) for g in range(groups)]).reshape(groups, k)
+    d = data - means[group]
+    ia, ib = (np.array(x, dtype=np.int64) for x in zip(*pairs(k)))
+    prods = d[:, ia] * d[:, ib]
+    p = len(ia)
+    cross = grouped_exact_sums(prods.ravel(), np.repeat(group.astype(np.int64) * p, p)
+                               + np.tile(np.arange(p, dtype=np.int64), len(data)), groups * p)
+    return [moments_of(names, int(n[g]), means[g], cross[g * p:(g + 1) * p]) for g in range(groups)]
 
 
 def _customer_positions(spec: Spec, fr: Frames, arm: np.ndarray, vset: object,
@@ -86,7 +115,8 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
         x = v[c].to_numpy(dtype=np.float64).copy()
         nan = np.isnan(x)
         if nan.any():
-            fill = float(np.nanmean(x)) if (~nan).any() else 0.0
+            fin = np.isfinite(x)
+            fill = fill_value(exact_sum(x[fin]), int(fin.sum()), int((x == np.inf).sum()), int((x == -np.inf).sum()))
             x[nan] = fill
             notes.append(f"covariate '{c}': {int(nan.sum()):,} unit(s) with no value were given the pooled "
                          f"mean {fill:,.4g} (arm-blind, so the comparison stays fair)")
@@ -96,14 +126,12 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
     vset = _arrow_ids(v[UNIT]).combine_chunks()
     if spec.readout.orders.customer:
         if fr.identities is None:
-            from armlock.assign import InputError
-
             raise InputError("orders are keyed by customer ([readout.orders] customer = "
                              f"\"{spec.readout.orders.customer}\") but no identity links were given: "
                              "pass --identities to join customers to visitors")
         cust, first = _customer_positions(spec, fr, arm, vset, counts)
-        idx = cust.get_indexer(orders[KEY].to_numpy())
-        pos = np.where(idx >= 0, first[np.maximum(idx, 0)], -1)
+        ci = cust.get_indexer(orders[KEY].to_numpy())
+        pos = np.where(ci >= 0, first[np.maximum(ci, 0)], -1)
         if counts["customers_multi_arm"]:
             notes.append(f"{int(counts['customers_multi_arm']):,} customer(s) have visitor ids in more than one arm; "
                          "each counts in the arm of their first visitor id (intent to treat)")
@@ -116,7 +144,7 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
     if (~matched).any():
         what = "customer key has no visitor id in the visits" if spec.readout.orders.customer else \
             "unit id is not in the visits"
-        notes.append(f"orders: {int((~matched).sum()):,} order row(s) ({rev[~matched].sum():,.2f} revenue) whose "
+        notes.append(f"orders: {int((~matched).sum()):,} order row(s) ({rounded_sum(rev[~matched]):,.2f} revenue) whose "
                      f"{what} were left out: they cannot be given an arm")
     fs_o = np.where(matched, fs[np.maximum(pos, 0)], 0)
     before = matched & (t < fs_o)
@@ -137,40 +165,44 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
             notes.append(f"{int((~included).sum()):,} unit(s) first seen less than {cfg.window} days before the end of "
                          f"{as_of} were left out: their outcome window has not ended")
         if not included.any():
-            from armlock.assign import InputError
-
             raise InputError(f"no unit has a complete {cfg.window}-day outcome window by {as_of}: "
                              "choose a later --as-of or a shorter [readout] window")
-    vpos, vt, vrev = pos[valid], t[valid], rev[valid]
+    # each unit's orders added in one fixed order, by time and then revenue (the Spark engine's too)
+    idx = np.flatnonzero(valid)
+    idx = idx[np.lexsort((rev[idx], t[idx] // 1000))]  # microseconds: the finest time both engines hold
+    vpos, vt, vrev = pos[idx], t[idx], rev[idx]
 
     def unit_sums(limit: int) -> tuple[np.ndarray, np.ndarray]:
         m = vt < limit
-        r = np.bincount(vpos[m], weights=vrev[m], minlength=n)
+        r = np.bincount(vpos[m], weights=vrev[m], minlength=n)  # row by row, in the order above
         o = np.bincount(vpos[m & (vrev >= 0)], minlength=n).astype(np.float64)
         return r, o
 
     revenue, orders_n = unit_sums(cutoff)
     cap = None
     if cfg.revenue_cap:
-        cap = float(np.quantile(revenue[included], cfg.revenue_cap))
-        capped = int((revenue[included] > cap).sum())
+        pooled = np.sort(revenue[included])
+        cap = linear_quantile(len(pooled), cfg.revenue_cap, lambda i: float(pooled[i]))
+        capped = int((pooled > cap).sum())
         counts["units_capped"] = capped
         counts["revenue_cap_value"] = cap
         notes.append(f"revenue cap: unit revenue above the pooled {cfg.revenue_cap:g} quantile, {cap:,.2f}, was "
                      f"capped for {capped:,} unit(s) (the quantile is computed over all arms together)")
     attributed = None
     if ATTR in orders:
-        a = orders[ATTR].to_numpy()[valid] & (vt < cutoff) & included[vpos]
-        attributed = float(vrev[a].sum())
-    names = (*VARIABLES, *(COV_PREFIX + c for c in covs))
+        a = orders[ATTR].to_numpy()[idx] & (vt < cutoff) & included[vpos]
+        attributed = rounded_sum(vrev[a])
+    k = len(arms)
 
-    def moments(keep: np.ndarray, r: np.ndarray, o: np.ndarray) -> dict[str, Moments]:
-        if cap is not None:
-            r = np.minimum(r, cap)
-        data = np.column_stack([r, o, (o > 0).astype(np.float64), exposed, *xs])
-        return {name: Moments.of(names, data[keep & (arm == i)]) for i, name in enumerate(arms)}
+    def moments(names: tuple[str, ...], keep: np.ndarray, cols: list[np.ndarray]) -> dict[str, Moments]:
+        data = np.column_stack(cols)[keep]
+        return dict(zip(arms, grouped_moments(names, data, arm[keep], k)))
 
-    final = moments(included, revenue, orders_n)
+    def capped_(r: np.ndarray) -> np.ndarray:
+        return np.minimum(r, cap) if cap is not None else r
+
+    final = moments(final_names(covs), included,
+                    [capped_(revenue), orders_n, (orders_n > 0).astype(np.float64), exposed, *xs])
     looks = []
     for d in look_dates(spec, as_of):
         lim = cutoff_of(d).value
@@ -179,7 +211,7 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
             keep &= fs + window_ns <= lim
         if not keep.any():
             continue
-        r, o = (revenue, orders_n) if lim >= cutoff else unit_sums(lim)
-        looks.append((d.isoformat(), moments(keep, r, o)))
+        r = revenue if lim >= cutoff else unit_sums(lim)[0]
+        looks.append((d.isoformat(), moments(look_names(covs), keep, [capped_(r), *xs])))
     return ReadoutTables(arms=arms, covariates=covs, final=final, looks=looks, attributed=attributed,
                          counts=counts)

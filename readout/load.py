@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from armlock.assign import InputError, Spec
+from armlock.audit.exactsum import rounded_sum
 from armlock.audit.load import cutoff_of
 from armlock.audit.read import (
     Source,
@@ -88,7 +89,7 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
     frame = frame[keep] if not keep.all() else frame
     refunds = frame[REV].to_numpy() < 0
     counts["refund_rows"] = int(refunds.sum())
-    counts["refund_total"] = float(frame[REV].to_numpy()[refunds].sum())
+    counts["refund_total"] = rounded_sum(frame[REV].to_numpy()[refunds])  # exact: any engine, the same bits
     if refunds.any():
         notes.append(f"{src.path.name}: {int(refunds.sum()):,} refund row(s) (negative revenue, "
                      f"{-counts['refund_total']:,.2f} in total) were kept: revenue is net of refunds")

@@ -12,15 +12,12 @@ from datetime import date
 from pathlib import Path
 
 from armlock.assign import InputError, Spec
-from armlock.audit import engine_pandas as audit_engine
-from armlock.audit.load import load_exposures, load_identities, load_visits
-from armlock.audit.read import Frames
+from armlock.audit.engine import Engine, Inputs, canonical, select_engine
 from armlock.audit.model import AuditReport
-from armlock.audit.run import checks_from_tables, input_bytes, report_from_checks
+from armlock.audit.run import checks_from_tables, report_from_checks
 
-from . import engine_pandas
 from .analyze import analyze
-from .load import attach_covariates, load_orders, load_spend
+from .load import load_spend
 from .model import ReadoutReport
 
 PathLike = str | Path
@@ -39,11 +36,12 @@ def run_readout(
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
+    engine: Engine | str = "pandas",
 ) -> ReadoutReport:
     """Read out a test as of the end of `as_of`; see `run_readout_and_audit`."""
     return run_readout_and_audit(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,
                                  spend=spend, spend_file=spend_file, attributed_revenue=attributed_revenue,
-                                 as_of=as_of, advance=advance, split_changes=split_changes)[0]
+                                 as_of=as_of, advance=advance, split_changes=split_changes, engine=engine)[0]
 
 
 def run_readout_and_audit(
@@ -59,39 +57,30 @@ def run_readout_and_audit(
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
+    engine: Engine | str = "pandas",
 ) -> tuple[ReadoutReport, AuditReport]:
     """Read out a test as of the end of `as_of` (UTC; default: the last first-seen day).
 
     `spend` (one amount for the exposed arms) or `spend_file` (per campaign and day, columns in
-    `[readout.spend]`); `attributed_revenue` overrides the orders' attributed column. Raises
-    `assign.InputError` for unusable files (file, column and rows named). Also returns the audit
-    of the same inputs (the gate), as `run_audit` would report it; `split_changes` as in `run_audit`.
+    `[readout.spend]`, a local file); `attributed_revenue` overrides the orders' attributed column.
+    Raises `assign.InputError` for unusable files (file, column and rows named). Also returns the
+    audit of the same inputs (the gate), as `run_audit` would report it; `split_changes` as in
+    `run_audit`. `engine` is "pandas", "spark" or an `audit.engine.Engine` (as in `run_audit`):
+    it computes both the audit's and the readout's tables; the statistics here read only those.
     """
     if spend is not None and spend_file is not None:
         raise InputError("give either --spend or --spend-file, not both")
     if spend is not None and spend < 0:
         raise InputError(f"--spend must not be negative, got {spend}")
-    step = advance or (lambda n: None)
-    fr = Frames(visits=None)  # type: ignore[arg-type]
-    used = load_visits(spec, visits, as_of, fr)
-    attach_covariates(spec, visits, fr.visits, fr.notes)
-    step(input_bytes(visits))
-    if exposures is not None:
-        load_exposures(spec, exposures, used, fr)
-        step(input_bytes(exposures))
-    if identities is not None:
-        load_identities(spec, identities, used, fr)
-        step(input_bytes(identities))
-    audit_tables = audit_engine.compute(spec, fr)
-    checks = checks_from_tables(spec, audit_tables, fr.counts, split_changes or [])
-    audit = report_from_checks(spec, fr, used, checks)
-    counts: dict[str, float] = {}
-    order_frame = load_orders(spec, orders, used, fr.notes, counts)
-    step(input_bytes(orders))
+    eng = select_engine(engine) if isinstance(engine, str) else engine
+    res = eng.readout(spec, Inputs(visits, exposures, identities, orders), as_of, advance or (lambda n: None))
+    used = res.audit.as_of
+    checks = checks_from_tables(spec, canonical(res.audit.tables), res.audit.counts, split_changes or [])
+    audit = report_from_checks(spec, res.audit, used, checks)
+    notes = [*res.audit.notes, *res.notes]
     if spend_file is not None:
-        spend = load_spend(spec, spend_file, used, fr.notes)
-    tables = engine_pandas.compute(spec, fr, audit_tables, order_frame, used, counts, fr.notes)
-    attributed = attributed_revenue if attributed_revenue is not None else tables.attributed
-    report = analyze(spec, tables, as_of=used.isoformat(), checks=checks, spend=spend, attributed=attributed,
-                     notes=fr.notes, has_exposures=exposures is not None)
+        spend = load_spend(spec, spend_file, used, notes)
+    attributed = attributed_revenue if attributed_revenue is not None else res.tables.attributed
+    report = analyze(spec, res.tables, as_of=used.isoformat(), checks=checks, spend=spend, attributed=attributed,
+                     notes=notes, has_exposures=exposures is not None)
     return report, audit

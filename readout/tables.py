@@ -1,7 +1,7 @@
 """The readout's engine-neutral sufficient statistics: moment sums per arm and per weekly look.
 
-An engine (pandas now, Spark later) fills `ReadoutTables`; the statistics read only these, never
-the raw rows. Everything is a sum over units, so tables of disjoint slices of units add up
+An engine (pandas or Spark, `audit.engine.Engine.readout`) fills `ReadoutTables`; the statistics
+read only these, never the raw rows. Everything is a sum over units, so tables of disjoint slices of units add up
 (`Moments.__add__`), which is how a distributed engine would combine its partitions.
 
 Per unit the engine builds these variables (names in `VARIABLES`, then one per covariate):
@@ -15,7 +15,8 @@ Per unit the engine builds these variables (names in `VARIABLES`, then one per c
 For a group of units, `Moments` keeps n, the mean of each variable and the central cross-product
 matrix (co-moments; squared deviations on its diagonal). Means, variances and covariances of any
 of them, in any arm, follow, and so do the Welch, delta-method, CUPED and Wald statistics
-(`readout.stats`). A Spark engine fills them per partition and merges with `+`.
+(`readout.stats`). Both engines build them exactly (`readout.rules`: means and central
+cross-products from exact sums), so their tables agree bit for bit.
 """
 
 from __future__ import annotations
@@ -99,7 +100,8 @@ class ReadoutTables:
     `final`: each arm's moments at the as-of date (units whose outcome window is complete).
     `looks`: [(look date YYYY-MM-DD, {arm: Moments})] at the end of each look day (weekly from
     the start, the as-of date last), each unit's outcome counted up to that day: what a reader
-    would have seen then. `attributed` is the revenue the orders log credits to the channel.
+    would have seen then. A look's moments hold only what its estimate reads: revenue and the
+    covariates (`readout.rules.look_names`). `attributed` is the revenue the orders log credits to the channel.
     `counts` holds what was set aside or changed, for the input notes (see `readout.run`).
     """
 
