@@ -14,7 +14,18 @@ from armlock.audit.model import AuditReport
 from armlock.audit.render import RENDERERS
 from armlock.audit.words import status_word
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, emit, err, open_spec_and_lock, progress
+from .common import (
+    ACCEPT_CHANGED_SPLIT,
+    ENGINE,
+    SPARK_CONF,
+    SPARK_MASTER,
+    SPEC_HELP,
+    emit,
+    engine_settings,
+    err,
+    open_spec_and_lock,
+    progress,
+)
 
 # The report formats: one renderer per name (add a format with one line here).
 FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
@@ -49,17 +60,6 @@ def _as_of(text: str | None) -> date | None:
                                  param_hint="--as-of") from None
 
 
-def _spark_conf(items: list[str]) -> dict[str, str]:
-    out = {}
-    for item in items:
-        key, sep, value = item.partition("=")
-        if not sep or not key.strip():
-            raise typer.BadParameter(f"{item!r} is not KEY=VALUE, e.g. spark.executor.memory=8g",
-                                     param_hint="--spark-conf")
-        out[key.strip()] = value
-    return out
-
-
 def audit_cmd(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
     visits: str = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet; with --engine spark also a Parquet or Delta directory, a cluster path, or table:db.name)."),
@@ -72,9 +72,9 @@ def audit_cmd(
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
-    engine: str = typer.Option("pandas", "--engine", help="Where the rows are counted: pandas (this machine, default) or spark (needs pip install 'armlock[spark]' and Java 17; uses the active SparkSession, else starts one)."),
-    spark_master: str = typer.Option(None, "--spark-master", help="With --engine spark and no active session: the master to start one on (default local[*]; e.g. yarn, spark://host:7077)."),
-    spark_conf: list[str] = typer.Option(None, "--spark-conf", metavar="KEY=VALUE", help="With --engine spark: a Spark setting for the session it starts (repeatable), e.g. spark.executor.memory=8g. spark-defaults.conf and spark-submit --conf also apply."),
+    engine: str = ENGINE,
+    spark_master: str = SPARK_MASTER,
+    spark_conf: list[str] = SPARK_CONF,
 ) -> None:
     """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
     identity churn and covariate balance. Column names come from the spec's [audit] tables.
@@ -93,11 +93,7 @@ def audit_cmd(
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
                                  param_hint="--format")
     day = _as_of(as_of)
-    conf = _spark_conf(spark_conf or [])
-    if engine not in ("pandas", "spark"):
-        raise typer.BadParameter(f"unknown engine {engine!r}; choose pandas or spark", param_hint="--engine")
-    if engine != "spark" and (spark_master or conf):
-        raise typer.BadParameter("--spark-master and --spark-conf need --engine spark", param_hint="--engine")
+    conf = engine_settings(engine, spark_master, spark_conf)
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
     from armlock.audit.engine import select_engine

@@ -7,19 +7,29 @@ from pathlib import Path
 import typer
 
 from .cmd_audit import _as_of, exit_code
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, emit, open_spec_and_lock, progress
+from .common import (
+    ACCEPT_CHANGED_SPLIT,
+    ENGINE,
+    SPARK_CONF,
+    SPARK_MASTER,
+    SPEC_HELP,
+    emit,
+    engine_settings,
+    open_spec_and_lock,
+    progress,
+)
 
 FORMATS = ("text", "markdown", "json", "html")
 
 
 def readout_cmd(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    visits: Path = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet)."),
-    orders: Path = typer.Option(..., "--orders", help="Orders log from the shop's back end: one row per order, refunds as negative revenue (columns: [readout.orders])."),
-    exposures: Path = typer.Option(None, "--exposures", help="The ad vendor's exposure log: enables the leakage check and the effect per exposed unit."),
-    identities: Path = typer.Option(None, "--identities", help="Identity links: unit id -> customer key; needed when orders carry a customer key."),
+    visits: str = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet; with --engine spark also a Parquet or Delta directory, a cluster path, or table:db.name)."),
+    orders: str = typer.Option(..., "--orders", help="Orders log from the shop's back end: one row per order, refunds as negative revenue (columns: [readout.orders]; a path or, with --engine spark, table:db.name)."),
+    exposures: str = typer.Option(None, "--exposures", help="The ad vendor's exposure log: enables the leakage check and the effect per exposed unit."),
+    identities: str = typer.Option(None, "--identities", help="Identity links: unit id -> customer key; needed when orders carry a customer key."),
     spend: float = typer.Option(None, "--spend", help="What the channel cost over the test, one amount for the exposed arm(s), in the spec's currency."),
-    spend_file: Path = typer.Option(None, "--spend-file", help="Spend per campaign and day (columns: [readout.spend]); days outside the test are left out."),
+    spend_file: Path = typer.Option(None, "--spend-file", help="Spend per campaign and day (columns: [readout.spend]; a local file, read on this machine); days outside the test are left out."),
     attributed: float = typer.Option(None, "--attributed-revenue", help="Revenue the attribution report credited to the channel over the test (overrides the orders' attributed column)."),
     as_of: str = typer.Option(None, "--as-of", help="Read out as of the end of this UTC day (YYYY-MM-DD). Default: the last first-seen day."),
     fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Report format: {', '.join(FORMATS)}."),
@@ -28,6 +38,9 @@ def readout_cmd(
     record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record (default: beside the spec, SPEC.history.sqlite)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
+    engine: str = ENGINE,
+    spark_master: str = SPARK_MASTER,
+    spark_conf: list[str] = SPARK_CONF,
 ) -> None:
     """Read out the test: incremental revenue, profit, iROAS and ROI with honest intervals, the
     effect per exposed unit, and what attribution credited, arm against arm (intent to treat).
@@ -44,6 +57,8 @@ def readout_cmd(
     Example:
       armlock readout --spec spring.toml --visits visits.parquet --orders orders.csv \\
           --exposures exposures.parquet --spend 42000 --format html --out readout.html
+      armlock readout --spec spring.toml --engine spark --visits table:analytics.visits \\
+          --orders table:shop.orders --exposures s3a://logs/exposures/ --spend 42000 --format json
     """
     if fmt not in FORMATS:
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
@@ -53,16 +68,19 @@ def readout_cmd(
     if spend is not None and spend < 0:
         raise typer.BadParameter(f"spend must not be negative, got {spend:g}", param_hint="--spend")
     day = _as_of(as_of)
+    conf = engine_settings(engine, spark_master, spark_conf)
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
+    from armlock.audit.engine import select_engine
     from armlock.audit.run import input_bytes  # pandas/scipy load only when a readout runs
     from armlock.readout.run import run_readout
 
+    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf)
     total = input_bytes(visits, exposures, identities, orders) or None
     with progress(total, "reading logs") as advance:
         report = run_readout(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,
                              spend=spend, spend_file=spend_file, attributed_revenue=attributed, as_of=day,
-                             advance=advance, split_changes=changes_after_start(lock))
+                             advance=advance, split_changes=changes_after_start(lock), engine=eng)
     from armlock.audit import history
 
     hist = history_path or history.default_history_path(spec_path)

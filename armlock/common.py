@@ -22,6 +22,37 @@ ACCEPT_CHANGED_SPLIT: Any = typer.Option(
          "started, its audits then fail naming the change).")
 
 
+# Where the rows are counted: every command that reads the logs (audit, readout) takes these three.
+ENGINE: Any = typer.Option(
+    "pandas", "--engine",
+    help="Where the rows are counted: pandas (this machine, default) or spark (needs pip install "
+         "'armlock[spark]' and Java 17; uses the active SparkSession, else starts one).")
+SPARK_MASTER: Any = typer.Option(
+    None, "--spark-master",
+    help="With --engine spark and no active session: the master to start one on (default local[*]; "
+         "e.g. yarn, spark://host:7077).")
+SPARK_CONF: Any = typer.Option(
+    None, "--spark-conf", metavar="KEY=VALUE",
+    help="With --engine spark: a Spark setting for the session it starts (repeatable), e.g. "
+         "spark.executor.memory=8g. spark-defaults.conf and spark-submit --conf also apply.")
+
+
+def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str] | None) -> dict[str, str]:
+    """Check --engine, --spark-master and --spark-conf together (usage errors, exit 2); the Spark settings."""
+    conf = {}
+    for item in spark_conf or []:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip():
+            raise typer.BadParameter(f"{item!r} is not KEY=VALUE, e.g. spark.executor.memory=8g",
+                                     param_hint="--spark-conf")
+        conf[key.strip()] = value
+    if engine not in ("pandas", "spark"):
+        raise typer.BadParameter(f"unknown engine {engine!r}; choose pandas or spark", param_hint="--engine")
+    if engine != "spark" and (spark_master or conf):
+        raise typer.BadParameter("--spark-master and --spark-conf need --engine spark", param_hint="--engine")
+    return conf
+
+
 def err(text: str) -> None:
     """One message on stderr."""
     typer.echo(text, err=True)

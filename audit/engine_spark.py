@@ -14,15 +14,16 @@ import warnings
 from collections import defaultdict
 from collections.abc import Callable, Iterable
 from datetime import date
+from typing import Any
 
 import pandas as pd
 from pyspark.sql import Column, DataFrame, SparkSession
 from pyspark.sql import functions as F
 
-from armlock.assign import Spec
+from armlock.assign import InputError, Spec
 from armlock.assign.sql import spark_arm_expr, spark_string_literal
 
-from .engine import EngineResult, Inputs, file_bytes
+from .engine import EngineResult, Inputs, ReadoutResult, file_bytes
 from .engine_pandas import HASH_LIKE, PREFIX_MAX, _cuts
 from .engine_spark_load import US_DAY, SparkFrames, day_of, load_exposures, load_identities, load_visits
 from .exactsum import exact_total, rounded_mean
@@ -65,11 +66,29 @@ class SparkEngine:
 
     def compute(self, spec: Spec, inputs: Inputs, as_of: date | None,
                 advance: Callable[[int], None]) -> EngineResult:
+        return self._run(spec, inputs, as_of, advance)[0]
+
+    def readout(self, spec: Spec, inputs: Inputs, as_of: date | None,
+                advance: Callable[[int], None]) -> ReadoutResult:
+        """The audit's tables and, from the same loaded frames, the readout's (`readout.engine_spark`)."""
+        from armlock.readout.engine_spark import readout_tables
+
+        if inputs.orders is None:
+            raise InputError("a readout needs the orders log (--orders)")
+        audit, extra = self._run(spec, inputs, as_of, advance, readout_tables)
+        tables, notes = extra
+        return ReadoutResult(audit=audit, tables=tables, notes=notes)
+
+    def _run(self, spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[int], None],
+             then: Callable[..., Any] | None = None) -> tuple[EngineResult, Any]:
+        """Load and count the audit's tables; `then(spark, spec, inputs, fr, as_of, advance)` runs on the
+        loaded frames, in the same session settings, before the cached frames are released."""
         spark = self.spark()
         saved = {k: spark.conf.get(k, None) for k in (_TZ, _NANOS)}
         spark.conf.set(_TZ, "UTC")  # days, weeks and zone-less text times are UTC, as in the pandas engine
         spark.conf.set(_NANOS, "true")  # pandas' nanosecond Parquet timestamps: read as longs, converted exactly
         fr = SparkFrames()
+        extra = None
         try:
             used = load_visits(spark, spec, str(inputs.visits), as_of, fr)
             advance(file_bytes(inputs.visits))
@@ -79,7 +98,11 @@ class SparkEngine:
             if inputs.identities is not None:
                 load_identities(spark, spec, str(inputs.identities), used, fr)
                 advance(file_bytes(inputs.identities))
+            if then is not None:  # before the audit's tables, so that a bad orders file is told early
+                extra = then(spark, spec, inputs, fr, used, advance)
             tables = compute_tables(spec, fr)
+            audit = EngineResult(tables=tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
+                                 data_through=fr.data_through)
         finally:
             for key, value in saved.items():
                 if value is None:
@@ -88,8 +111,7 @@ class SparkEngine:
                     spark.conf.set(key, value)
             for frame in fr.cached:
                 frame.unpersist()
-        return EngineResult(tables=tables, as_of=used, notes=fr.notes, counts=fr.counts,
-                            data_through=fr.data_through)
+        return audit, extra
 
 
 # -- the arm, natively -------------------------------------------------------------------------------

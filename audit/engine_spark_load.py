@@ -36,7 +36,7 @@ def day_of(us: int) -> date:
 class SparkFrames:
     """What the Spark engine counts from: unit-level visits (cached), exposures and links, notes, counts."""
 
-    visits: DataFrame | None = None  # _unit, _t (us), _arm, [_fp], [_browser], _l<i> labels, _x<i> numbers
+    visits: DataFrame | None = None  # _unit, _t (us), POS of the kept row, _arm, [_fp], [_browser], _l<i>, _x<i>
     labels: dict[str, str] = field(default_factory=dict)  # user column -> internal label column
     numbers: dict[str, str] = field(default_factory=dict)  # covariate -> internal number column
     levels: dict[str, list[str]] = field(default_factory=dict)  # label column -> levels over every row read
@@ -99,7 +99,7 @@ def load_visits(spark: SparkSession, spec: Spec, ref: str, as_of: date | None, f
     # the earliest row of each unit; ties by position in the input (the pandas engine's stable sort)
     first = F.min(F.struct("_t", *POS, *others)).alias("r")
     units = (keep.groupBy("_unit").agg(first, F.count(F.lit(1)).alias("_rows"))
-             .select("_unit", *[F.col("r." + x).alias(x) for x in ("_t", *others)], "_rows"))
+             .select("_unit", *[F.col("r." + x).alias(x) for x in ("_t", *POS, *others)], "_rows"))
     units = units.cache()
     fr.cached.append(units)
     d = units.agg(F.count(F.lit(1)).alias("u"), F.sum(F.col("_rows") - 1).alias("dup"),

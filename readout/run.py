@@ -12,7 +12,7 @@ from datetime import date
 from pathlib import Path
 
 from armlock.assign import InputError, Spec
-from armlock.audit.engine import Engine, Inputs, canonical, select_engine
+from armlock.audit.engine import Engine, Inputs, ReadoutResult, canonical, select_engine
 from armlock.audit.model import AuditReport
 from armlock.audit.run import checks_from_tables, report_from_checks
 
@@ -74,6 +74,15 @@ def run_readout_and_audit(
         raise InputError(f"--spend must not be negative, got {spend}")
     eng = select_engine(engine) if isinstance(engine, str) else engine
     res = eng.readout(spec, Inputs(visits, exposures, identities, orders), as_of, advance or (lambda n: None))
+    return reports_from_result(spec, res, spend=spend, spend_file=spend_file, attributed_revenue=attributed_revenue,
+                               split_changes=split_changes, has_exposures=exposures is not None)
+
+
+def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None = None,
+                        spend_file: PathLike | None = None, attributed_revenue: float | None = None,
+                        split_changes: list[str] | None = None,
+                        has_exposures: bool = True) -> tuple[ReadoutReport, AuditReport]:
+    """The readout and its audit from an engine's `ReadoutResult`: statistics on the tables only."""
     used = res.audit.as_of
     checks = checks_from_tables(spec, canonical(res.audit.tables), res.audit.counts, split_changes or [])
     audit = report_from_checks(spec, res.audit, used, checks)
@@ -82,5 +91,5 @@ def run_readout_and_audit(
         spend = load_spend(spec, spend_file, used, notes)
     attributed = attributed_revenue if attributed_revenue is not None else res.tables.attributed
     report = analyze(spec, res.tables, as_of=used.isoformat(), checks=checks, spend=spend, attributed=attributed,
-                     notes=notes, has_exposures=exposures is not None)
+                     notes=notes, has_exposures=has_exposures)
     return report, audit

@@ -38,6 +38,18 @@ def test_spark_engine_without_pyspark_says_how_to_install(tmp_path) -> None:  # 
     assert "Traceback" not in r.stderr
 
 
+def test_readout_spark_engine_without_pyspark_says_how_to_install(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    spec = tmp_path / "t.toml"
+    assert _run(["init", "t", "--out", str(spec)]).returncode == 0
+    r = _run(["readout", "--spec", str(spec), "--visits", "v.csv", "--orders", "o.csv", "--engine", "spark"])
+    assert r.returncode == 4, r.stderr
+    assert "Error: --engine spark needs PySpark, which is not installed; install the extra: " \
+           "pip install 'armlock[spark]' (and Java 17)" in r.stderr
+    assert "Traceback" not in r.stderr
+    r = _run(["readout", "--spec", str(spec), "--visits", "v.csv", "--orders", "o.csv", "--spark-master", "local"])
+    assert r.returncode == 2 and "--spark-master and --spark-conf need --engine spark" in r.stderr
+
+
 def test_pandas_engine_never_imports_pyspark(tmp_path) -> None:  # type: ignore[no-untyped-def]
     spec = tmp_path / "t.toml"
     assert _run(["init", "t", "--out", str(spec)]).returncode == 0

@@ -1,0 +1,120 @@
+"""The readout's Spark loading: `readout.load`'s rules (orders, extra visits covariates) as Spark columns.
+
+Same set-aside rows, counts, notes and errors (file or table, column, sample rows) as the pandas
+reader; every row stays in Spark, only counts and a few sample positions reach the driver.
+"""
+
+from __future__ import annotations
+
+from datetime import date
+
+from pyspark.sql import Column, DataFrame, SparkSession
+from pyspark.sql import functions as F
+
+from armlock.assign import Spec
+from armlock.audit.engine_spark import exact_sums
+from armlock.audit.engine_spark_read import (
+    POS,
+    SparkSource,
+    as_of_cut,
+    ids_column,
+    labels_column,
+    need,
+    numbers_column,
+    open_source,
+    positions,
+    present_columns,
+    times_column,
+)
+
+
+def _set_aside(src: SparkSource, rows: DataFrame, flag: Column, n: int, col: str, why: str,
+               notes: list[str]) -> int:
+    if n:
+        notes.append(f"{src.path.name}: {n:,} row(s) with an empty '{col}' ({src.rows(positions(rows, flag), n)}) "
+                     f"were set aside: {why}")
+    return n
+
+
+def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: list[str],
+                counts: dict[str, float]) -> DataFrame:
+    """Orders as _key, _t (us), _rev and, when mapped, _attr: `readout.load.load_orders`' rules."""
+    co = spec.readout.orders
+    key = co.unit_id or co.customer
+    which = "unit_id" if co.unit_id else "customer"
+    src, raw = open_source(spark, ref, "orders")
+    notes += src.notes
+    need(src, raw, {which: key, "time": co.time, "revenue": co.revenue}, "[readout.orders]")
+    present = present_columns(raw)
+    optional = {name: col for name, col in (("order_id", co.order_id), ("attributed", co.attributed))
+                if col and col in present}
+    for name, col in (("order_id", co.order_id), ("attributed", co.attributed)):
+        if col and name not in optional:
+            notes.append(f"{src.path.name}: no '{col}' column ([readout.orders] {name}); "
+                         + ("orders are not de-duplicated" if name == "order_id"
+                            else "attributed revenue comes only from --attributed-revenue"))
+    sel = [ids_column(src, raw, key, notes).alias("_key"), times_column(src, raw, co.time, notes).alias("_t"),
+           numbers_column(src, raw, co.revenue).alias("_rev")]
+    if "attributed" in optional:
+        sel.append((labels_column(raw, optional["attributed"]) == F.lit(co.attributed_value)).alias("_attr"))
+    if "order_id" in optional:
+        sel.append(ids_column(src, raw, optional["order_id"], None).alias("_oid"))
+    rows = raw.select(*sel, *POS)
+    empty = F.col("_key") == ""
+    no_time = F.col("_t").isNull() & ~empty
+    no_rev = (F.col("_rev").isNull() | F.isnan("_rev")) & ~empty & ~no_time
+    keep = ~(empty | no_time | no_rev)
+    late = keep & (F.col("_t") >= as_of_cut(as_of))
+    c = rows.agg(F.count(F.lit(1)).alias("n"), *[F.sum(f.cast("long")).alias(a) for a, f in
+                                                  (("e", empty), ("t", no_time), ("r", no_rev), ("l", late))]
+                 ).collect()[0]
+    counts["order_rows"] = int(c["n"])
+    counts["order_empty_keys"] = _set_aside(src, rows, empty, int(c["e"] or 0), key,
+                                            "an order needs a key to find its unit", notes)
+    counts["order_missing_time"] = _set_aside(src, rows, no_time, int(c["t"] or 0), co.time, "an order needs a time",
+                                              notes)
+    counts["order_missing_revenue"] = _set_aside(src, rows, no_rev, int(c["r"] or 0), co.revenue,
+                                                 "an order needs revenue", notes)
+    n_late = int(c["l"] or 0)
+    counts["orders_after_as_of"] = n_late
+    if n_late:
+        notes.append(f"{src.path.name}: {n_late:,} order(s) after the as-of date {as_of} are ignored")
+    keep = keep & ~late
+    if "order_id" in optional:
+        # the first row of each order id in the file, over every row read (as pandas' duplicated(keep="first"))
+        firsts = rows.where(F.col("_oid") != "").groupBy("_oid").agg(F.min(F.struct(*POS)).alias("_first"))
+        rows = rows.join(firsts, "_oid", "left")
+        dup = (F.col("_oid") != "") & (F.struct(*POS) != F.col("_first")) & keep
+        n_dup = int(rows.where(dup).count())
+        counts["duplicate_orders"] = n_dup
+        if n_dup:
+            notes.append(f"{src.path.name}: {n_dup:,} row(s) repeat an order id already seen "
+                         f"({src.rows(positions(rows, dup), n_dup)}); each order id was counted once")
+        keep = keep & ~dup
+    cols = ["_key", "_t", "_rev"] + (["_attr"] if "attributed" in optional else [])
+    kept = rows.where(keep).select(*cols).cache()
+    r = kept.agg(F.sum((F.col("_rev") < 0).cast("long")).alias("n")).collect()[0]
+    n_ref = int(r["n"] or 0)
+    counts["refund_rows"] = n_ref
+    counts["refund_total"] = float(exact_sums(kept.where(F.col("_rev") < 0), [], "_rev").get((), 0))
+    if n_ref:
+        notes.append(f"{src.path.name}: {n_ref:,} refund row(s) (negative revenue, "
+                     f"{-counts['refund_total']:,.2f} in total) were kept: revenue is net of refunds")
+    return kept
+
+
+def extra_covariates(spark: SparkSession, spec: Spec, ref: str, missing: list[str]) -> DataFrame:
+    """_unit and _m<i> for the [readout] covariates the audit did not read, from each unit's earliest
+    visits row (ties by position in the input), as `readout.load.attach_covariates`."""
+    cv = spec.audit.visits
+    src, raw = open_source(spark, ref, "visits", cv.delimiter)
+    wanted = {"unit_id": cv.unit_id, "first_seen": cv.first_seen}
+    wanted.update({f"covariates[{i}]": c for i, c in enumerate(missing)})
+    need(src, raw, wanted, "[readout]")
+    rows = raw.select(ids_column(src, raw, cv.unit_id, None).alias("_unit"),
+                      times_column(src, raw, cv.first_seen, [], cv.first_seen_format).alias("_t"),
+                      *[numbers_column(src, raw, c).alias(f"_m{i}") for i, c in enumerate(missing)], *POS)
+    names = [f"_m{i}" for i in range(len(missing))]
+    first = F.min(F.struct("_t", *POS, *names)).alias("r")
+    return (rows.where((F.col("_unit") != "") & F.col("_t").isNotNull()).groupBy("_unit").agg(first)
+            .select("_unit", *[F.col("r." + x).alias(x) for x in names]))
