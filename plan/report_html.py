@@ -9,7 +9,7 @@ import matplotlib
 
 from armlock.assign import __version__
 from armlock.audit.report_html import (  # one visual language: the audit report's styles and chart writer
-    _ICON, _RC, ARM_COLOURS, BAND, CSS, INK, MUTED, STATUS_STYLE, _svg, esc,
+    _ICON, _RC, ARM_COLOURS, BAND, CSS, INK, MUTED, NARROW, STATUS_STYLE, WIDE, _both, _legend, _svg, esc,
 )
 from armlock.readout.confseq import anytime_halfwidth
 
@@ -33,9 +33,9 @@ def _share_colour(i: int) -> str:
     return ARM_COLOURS[i % len(ARM_COLOURS)]
 
 
-def chart_mde(p: Plan) -> str:
+def chart_mde(p: Plan, chart_id: str = "mde", narrow: bool = False) -> str:
     """Detectable effect (relative to revenue per unit) against weeks: one line per holdout share."""
-    fig, ax = plt.subplots(figsize=(7.2, 3.6))
+    fig, ax = plt.subplots(figsize=(NARROW, 4.4) if narrow else (WIDE, 3.6))
     markers = ["o", "s", "^", "D", "v", "P"]
     for i, h in enumerate(p.shares):
         cells = [p.cell(h, w) for w in p.weeks]
@@ -57,20 +57,21 @@ def chart_mde(p: Plan) -> str:
     _, top = ax.get_ylim()
     ax.set_ylim(0, top)
     ax.set_xlabel("weeks the test runs")
-    ax.set_ylabel("detectable difference, % of revenue per unit")
-    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
+    ax.set_ylabel("detectable difference,\n% of revenue per unit" if narrow else "detectable difference, % of revenue per unit")
+    _legend(ax, narrow, outside=True)
     fig.tight_layout()
-    return _svg(fig, "mde", "Smallest detectable difference against weeks, one line per holdout share")
+    return _svg(fig, chart_id, "Smallest detectable difference against weeks, one line per holdout share")
 
 
-def chart_cost(p: Plan) -> str:
+def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
     """Each share's weeks needed for the target against the revenue its holdout forgoes."""
-    fig, ax = plt.subplots(figsize=(7.2, 3.2))
+    fig, ax = plt.subplots(figsize=(NARROW, 3.8) if narrow else (WIDE, 3.2))
     for i, s in enumerate(p.summaries):
         ax.scatter([s.weeks], [s.revenue_forgone], s=70, color=_share_colour(i), zorder=3,
                    marker="o" if s.share != p.recommendation.share else "*")
-        ax.annotate(f"{pct(s.share)}: {s.weeks} wk, {money(s.revenue_forgone)}", (s.weeks, s.revenue_forgone),
-                    xytext=(6, 4), textcoords="offset points", fontsize=8, color=INK)
+        label = f"{pct(s.share)}: {s.weeks} wk" + ("" if narrow else f", {money(s.revenue_forgone)}")
+        ax.annotate(label, (s.weeks, s.revenue_forgone), xytext=(6, 4), textcoords="offset points", fontsize=8,
+                    color=INK)
     ax.axvline(p.max_weeks, color=MUTED, lw=1, ls="-.", label=f"longest allowed ({p.max_weeks} wk)")
     ax.set_xscale("log")
     from matplotlib.ticker import FuncFormatter, NullFormatter
@@ -84,13 +85,13 @@ def chart_cost(p: Plan) -> str:
     ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: money(v)))
     ax.set_ylim(0, ax.get_ylim()[1] * 1.15)
     ax.set_xlabel("weeks needed for the target (log scale)")
-    ax.set_ylabel("revenue forgone by the holdout")
-    ax.legend(loc="lower right", fontsize=8)
+    ax.set_ylabel("revenue forgone" if narrow else "revenue forgone by the holdout")
+    _legend(ax, narrow, wide_loc="lower right")
     fig.tight_layout()
-    return _svg(fig, "cost", "Weeks each holdout share needs against the revenue it forgoes")
+    return _svg(fig, chart_id, "Weeks each holdout share needs against the revenue it forgoes")
 
 
-def chart_weekly(p: Plan, share: float, weeks: int) -> str:
+def chart_weekly(p: Plan, share: float, weeks: int, chart_id: str = "weekly", narrow: bool = False) -> str:
     """For one plan: the half-width of the fixed-horizon and the anytime-valid interval, week by week."""
     x = p.inputs
     k = math.sqrt(1 - x.rho ** 2)
@@ -100,7 +101,7 @@ def chart_weekly(p: Plan, share: float, weeks: int) -> str:
           for w in ws]
     fixed = [p.z_alpha * s for s in se]
     anytime = [anytime_halfwidth(s, x.weekly_units * w, t_opt=t_opt, alpha=x.alpha) for s, w in zip(se, ws)]
-    fig, ax = plt.subplots(figsize=(7.2, 3.0))
+    fig, ax = plt.subplots(figsize=(NARROW, 3.6) if narrow else (WIDE, 3.0))
     ax.fill_between(ws, 0, fixed, color=BAND, lw=0)
     ax.plot(ws, fixed, color=ARM_COLOURS[1], lw=2, marker="s", ms=3, label="fixed-horizon (read once, at the end)")
     ax.plot(ws, anytime, color=ARM_COLOURS[0], lw=2, ls=(0, (6, 2)), marker="^", ms=3,
@@ -110,9 +111,9 @@ def chart_weekly(p: Plan, share: float, weeks: int) -> str:
     ax.set_ylim(0, min(max(anytime), 4 * max(fixed[-1], p.target_difference or 0)) * 1.1)
     ax.set_xlabel("week")
     ax.set_ylabel("interval half-width, per unit")
-    ax.legend(loc="upper right", fontsize=8)
+    _legend(ax, narrow, ncol=1)
     fig.tight_layout()
-    return _svg(fig, "weekly", f"Interval half-width by week for a {pct(share)} holdout over {weeks} weeks")
+    return _svg(fig, chart_id, f"Interval half-width by week for a {pct(share)} holdout over {weeks} weeks")
 
 
 def _table(t: Table) -> str:
@@ -133,13 +134,13 @@ def render_html(p: Plan) -> str:
     _, fg, bg = STATUS_STYLE[rec.status]
     tabs = tables(p)
     with matplotlib.rc_context(_RC):  # type: ignore[arg-type]
-        mde_chart = chart_mde(p)
-        cost_chart = chart_cost(p) if p.summaries else ""
+        mde_chart = _both(chart_mde, p, "mde")  # wide for screens and print, redrawn narrow for phones
+        cost_chart = _both(chart_cost, p, "cost") if p.summaries else ""
         if rec.share is not None and rec.weeks is not None:
             weekly_share, weekly_weeks = rec.share, rec.weeks
         else:
             weekly_share, weekly_weeks = max(p.shares), max(p.weeks)
-        weekly_chart = chart_weekly(p, weekly_share, weekly_weeks)
+        weekly_chart = _both(chart_weekly, p, weekly_share, weekly_weeks, "weekly")
     lines = headline(p)
     figures = "".join(f"<div><dt>{esc(e.name)}</dt><dd>{esc(num(e.value))}</dd></div>" for e in p.estimates)
     est = ""

@@ -20,7 +20,7 @@ def test_page_is_self_contained_and_escaped() -> None:
     page = render_html(make_plan(SHOP, notes=["<script>alert(1)</script> in a note"]))
     assert "<script>alert" not in page and "&lt;script&gt;" in page
     assert "http://" not in page.replace("http://www.w3.org", "") and "https://" not in page
-    assert page.count('data-chart="') == 3
+    assert page.count('data-chart="') == 6  # three charts, each drawn wide and redrawn narrow for phones
     assert 'data-status="pass"' in page
 
 
@@ -31,7 +31,7 @@ def test_page_is_self_contained_and_escaped() -> None:
 def test_page_without_a_recommendation(status: str, inputs: PlanInputs) -> None:
     page = render_html(make_plan(inputs))
     assert f'data-status="{status}"' in page
-    assert page.count('data-chart="') == (3 if status == "fail" else 2)  # no cost chart without a target
+    assert page.count('data-chart="') == 2 * (3 if status == "fail" else 2)  # no cost chart without a target
 
 
 @pytest.mark.parametrize("width", [390, 1280])
@@ -39,12 +39,21 @@ def test_page_in_a_browser(tmp_path: Path, width: int) -> None:
     f = tmp_path / "plan.html"
     f.write_text(render_html(make_plan(SHOP)), encoding="utf-8")
     with open_page(f, width) as (page, seen):
-        charts = page.evaluate("() => [...document.querySelectorAll('svg[data-chart]')].map(s => "
-                               "[s.dataset.chart, s.getBoundingClientRect().width, s.getBoundingClientRect().height])")
-        assert [c[0] for c in charts] == ["mde", "cost", "weekly"]
-        assert all(w >= min(width - 60, 440) and h > 150 for _, w, h in charts), charts
-        assert page.evaluate("() => document.documentElement.scrollWidth") <= width  # charts scroll in their figure
-        lines = page.evaluate("() => document.querySelectorAll('svg[data-chart=\"mde\"] path').length")
+        charts = page.evaluate("() => [...document.querySelectorAll('svg[data-chart]')]"
+                               ".filter(s => s.getBoundingClientRect().width > 0).map(s => "
+                               "[s.dataset.chart, s.getBoundingClientRect().width, s.getBoundingClientRect().height, "
+                               "s.closest('figure').clientWidth, s.closest('figure').scrollWidth])")
+        # a phone sees the narrow drawings, a desktop the wide ones; each fills its figure, none scrolls
+        suffix = "-narrow" if width < 544 else ""
+        assert [c[0] for c in charts] == [f"mde{suffix}", f"cost{suffix}", f"weekly{suffix}"]
+        assert all(w >= 0.9 * fig and scroll <= fig + 1 and h > 150 for _, w, h, fig, scroll in charts), charts
+        assert page.evaluate("() => document.documentElement.scrollWidth") <= width
+        smallest = page.evaluate("() => Math.min(...[...document.querySelectorAll('svg[data-chart]')]"
+                                 ".filter(s => s.getBoundingClientRect().width > 0).flatMap(s => [...s.querySelectorAll('text')])"
+                                 ".map(t => t.getBoundingClientRect().height).filter(h => h > 0))")
+        assert smallest >= 7.5, f"chart text is {smallest:.1f}px tall"
+        page.screenshot(path=str(tmp_path / f"plan-{width}.png"), full_page=True)
+        lines = page.evaluate(f"() => document.querySelectorAll('svg[data-chart=\"mde{suffix}\"] path').length")
         assert lines > 5
         assert seen == {"console_errors": [], "page_errors": [], "dialogs": [], "non_file_requests": [],
                         "failed_requests": []}
