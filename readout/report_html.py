@@ -24,7 +24,11 @@ from armlock.audit.report_html import (
     CSS,
     INK,
     MUTED,
+    NARROW,
+    WIDE,
+    _both,
     _dates,
+    _legend,
     _date_axis,
     badge,
     esc,
@@ -45,11 +49,11 @@ def _finite(*vals: float | None) -> bool:
     return all(v is not None and math.isfinite(v) for v in vals)
 
 
-def chart_looks(r: ReadoutReport, chart_id: str) -> str:
+def chart_looks(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     """Cumulative revenue-per-unit difference at each look with the fixed and anytime intervals."""
     pts = [lk for lk in r.looks if _finite(lk.difference, lk.lo, lk.hi, lk.anytime_lo, lk.anytime_hi)]
     days = _dates([lk.date for lk in pts])
-    fig, ax = plt.subplots(figsize=(7.2, 3.2))
+    fig, ax = plt.subplots(figsize=(NARROW, 3.8) if narrow else (WIDE, 3.2))
     ax.fill_between(days, [lk.anytime_lo for lk in pts], [lk.anytime_hi for lk in pts], color=ANYTIME_BAND,
                     lw=0, label="anytime interval (valid at every look)")
     ax.fill_between(days, [lk.lo for lk in pts], [lk.hi for lk in pts], color=BAND, lw=0,
@@ -59,16 +63,24 @@ def chart_looks(r: ReadoutReport, chart_id: str) -> str:
     ax.plot(days, [lk.difference for lk in pts], color=ARM_COLOURS[1], lw=2, marker="o", ms=3,
             label="estimate")
     ax.axhline(0, color=INK, lw=1)
-    ax.set_ylabel(f"revenue per unit, exposed − holdout ({r.money.currency})")
-    ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=3)
+    ax.set_ylabel(f"revenue per unit,\nexposed − holdout ({r.money.currency})" if narrow
+                  else f"revenue per unit, exposed − holdout ({r.money.currency})")
+    if narrow:
+        _legend(ax, narrow)
+    else:
+        ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=3)
     _date_axis(ax)
+    if narrow:
+        plt.setp(ax.get_xticklabels(), rotation=90)
     fig.tight_layout()
     return _svg(fig, chart_id, "Revenue per unit difference at each look with fixed and anytime intervals")
 
 
-def chart_arms(r: ReadoutReport, chart_id: str) -> str:
-    """Per arm: conversion and revenue per unit with their intervals."""
-    fig, axes = plt.subplots(1, 2, figsize=(7.2, 0.9 + 0.45 * max(len(r.arms), 2)), sharey=True)
+def chart_arms(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
+    """Per arm: conversion and revenue per unit with their intervals (side by side; stacked when narrow)."""
+    tall = 0.9 + 0.45 * max(len(r.arms), 2)
+    fig, axes = (plt.subplots(2, 1, figsize=(NARROW, 2 * tall + 0.3)) if narrow
+                 else plt.subplots(1, 2, figsize=(WIDE, tall), sharey=True))
     y = list(range(len(r.arms)))[::-1]
     for ax, (title, get, scale) in zip(axes, (("conversion (%)", lambda a: a.conversion, 100.0),
                                               (f"revenue per unit ({r.money.currency})", lambda a: a.revenue_per_unit, 1.0))):
@@ -81,7 +93,8 @@ def chart_arms(r: ReadoutReport, chart_id: str) -> str:
                         fmt="o" if a.role == "holdout" else "D", color=colour, capsize=4, ms=6, lw=2)
         ax.set_title(title, loc="left", fontsize=9)
         ax.grid(axis="y", visible=False)
-    axes[0].set_yticks(y, [f"{a.name} ({a.role})" for a in r.arms], fontsize=8)
+    for ax in axes[:2 if narrow else 1]:
+        ax.set_yticks(y, [f"{a.name} ({a.role})" for a in r.arms], fontsize=8)
     for ax in axes:
         lo, hi = ax.get_xlim()
         ax.set_xlim(lo - 0.15 * (hi - lo), hi + 0.15 * (hi - lo))
@@ -89,12 +102,17 @@ def chart_arms(r: ReadoutReport, chart_id: str) -> str:
     return _svg(fig, chart_id, "Conversion and revenue per unit of each arm with 95% intervals")
 
 
-def chart_roas(r: ReadoutReport, chart_id: str) -> str | None:
-    """iROAS with both intervals against the attributed ROAS and the break-even line."""
+def has_roas(r: ReadoutReport) -> bool:
+    """Whether there is an iROAS to draw (a spend was given and the interval is finite)."""
     m = r.money
-    if m.iroas is None or not _finite(m.iroas.value, m.iroas.lo, m.iroas.hi):
-        return None
-    fig, ax = plt.subplots(figsize=(7.2, 2.2))
+    return m.iroas is not None and _finite(m.iroas.value, m.iroas.lo, m.iroas.hi)
+
+
+def chart_roas(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
+    """iROAS with both intervals against the attributed ROAS and the break-even line (see `has_roas`)."""
+    m = r.money
+    assert m.iroas is not None
+    fig, ax = plt.subplots(figsize=(NARROW, 3.2) if narrow else (WIDE, 2.2))
     rows = [("measured: iROAS", 1)] + ([("attribution: ROAS", 0)] if m.attributed_roas is not None else [])
     iv = m.iroas
     if _finite(iv.anytime_lo, iv.anytime_hi):
@@ -112,7 +130,7 @@ def chart_roas(r: ReadoutReport, chart_id: str) -> str | None:
     ax.set_ylim(-0.7, 1.7)
     ax.set_xlabel(f"{m.currency} of revenue per {m.currency} of spend")
     ax.grid(axis="y", visible=False)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
+    _legend(ax, narrow, outside=True)
     fig.tight_layout()
     return _svg(fig, chart_id, "Measured iROAS with its intervals against the ROAS attribution credited")
 
@@ -169,10 +187,10 @@ def render_html(r: ReadoutReport) -> str:
     gate_list = "".join(f"<li>{badge(g.status)} <strong>{esc(g.title)}</strong>: {esc(g.summary.split('; ')[0])}</li>"
                         for g in bad)
     with matplotlib.rc_context(_RC):  # type: ignore[arg-type]
-        looks = f"<figure>{chart_looks(r, 'readout-looks')}</figure>" if len(r.looks) >= 2 else ""
-        arms = f"<figure>{chart_arms(r, 'readout-arms')}</figure>"
-        roas_svg = chart_roas(r, "readout-roas")
-    roas = f"<figure>{roas_svg}</figure>" if roas_svg else ""
+        # each chart wide for screens and print, and redrawn narrow for phones (the audit's `_both`)
+        looks = f"<figure>{_both(chart_looks, r, 'readout-looks')}</figure>" if len(r.looks) >= 2 else ""
+        arms = f"<figure>{_both(chart_arms, r, 'readout-arms')}</figure>"
+        roas = f"<figure>{_both(chart_roas, r, 'readout-roas')}</figure>" if has_roas(r) else ""
     all_tables = tables(r)
     arm_t, eff_t, money_t, *rest = all_tables
     cautions = "".join(f"<li>{esc(c)}</li>" for c in r.cautions)

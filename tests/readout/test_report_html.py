@@ -10,6 +10,7 @@ import pytest
 from armlock.readout.report_html import render_html
 from armlock.readout.run import run_readout
 
+from ..report.browser import open_page
 from .helpers import small_spec, visits_frame, write
 from .test_engine import _orders
 
@@ -26,7 +27,8 @@ def report(tmp_path_factory: pytest.TempPathFactory):
 def test_page_is_self_contained_with_three_charts(report) -> None:
     page = render_html(report)
     assert page.startswith("<!DOCTYPE html>") and "default-src 'none'" in page
-    assert re.findall(r'data-chart="([^"]+)"', page) == ["readout-roas", "readout-looks", "readout-arms"]
+    charts = ["readout-roas", "readout-looks", "readout-arms"]  # each drawn wide, then narrow for phones
+    assert re.findall(r'data-chart="([^"]+)"', page) == [c + s for c in charts for s in ("", "-narrow")]
     assert "http://" not in page.replace("http://www.w3.org", "") and "https://" not in page
     assert "anytime interval" in page and "Did it pay?" in page
 
@@ -57,3 +59,25 @@ def test_page_written_to_disk_is_utf8(report, tmp_path: Path) -> None:
     out = tmp_path / "r.html"
     out.write_text(render_html(report), encoding="utf-8")
     assert out.read_text(encoding="utf-8").count("<svg") >= 3
+
+
+@pytest.mark.parametrize("width", [390, 1280])
+def test_page_in_a_browser(report, tmp_path: Path, width: int) -> None:
+    f = tmp_path / "readout.html"
+    f.write_text(render_html(report), encoding="utf-8")
+    visible = "[...document.querySelectorAll('svg[data-chart]')].filter(s => s.getBoundingClientRect().width > 0)"
+    with open_page(f, width) as (page, seen):
+        charts = page.evaluate(f"() => {visible}.map(s => [s.dataset.chart, s.getBoundingClientRect().width, "
+                               "s.getBoundingClientRect().height, s.closest('figure').clientWidth, "
+                               "s.closest('figure').scrollWidth])")
+        # a phone sees the narrow drawings, a desktop the wide ones; each fills its figure, none scrolls
+        suffix = "-narrow" if width < 544 else ""
+        assert [c[0] for c in charts] == [f"readout-roas{suffix}", f"readout-looks{suffix}", f"readout-arms{suffix}"]
+        assert all(w >= 0.9 * fig and scroll <= fig + 1 and h > 100 for _, w, h, fig, scroll in charts), charts
+        assert page.evaluate("() => document.documentElement.scrollWidth") <= width
+        smallest = page.evaluate(f"() => Math.min(...{visible}.flatMap(s => [...s.querySelectorAll('text')])"
+                                 ".map(t => t.getBoundingClientRect().height).filter(h => h > 0))")
+        assert smallest >= 7.5, f"chart text is {smallest:.1f}px tall"
+        page.screenshot(path=str(tmp_path / f"readout-{width}.png"), full_page=True)
+    assert seen == {"console_errors": [], "page_errors": [], "dialogs": [], "non_file_requests": [],
+                    "failed_requests": []}
