@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import warnings
 from collections import defaultdict
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Generator, Iterable
 from datetime import date
 from typing import Any
 
@@ -25,6 +25,7 @@ from armlock.assign.sql import spark_arm_expr, spark_string_literal
 
 from .engine import EngineResult, Inputs, ReadoutResult, file_bytes
 from .engine_pandas import HASH_LIKE, PREFIX_MAX, _cuts
+from .engine_spark_batch import Rows, together
 from .engine_spark_load import US_DAY, SparkFrames, day_of, load_exposures, load_identities, load_visits
 from .exactsum import exact_total, rounded_mean
 from .tables import (
@@ -157,17 +158,25 @@ def exact_parts_cols(x: Column) -> tuple[Column, Column]:
     return (e - 52).cast("int"), m
 
 
-def exact_sums(frame: DataFrame, keys: list[str], value: str) -> dict[tuple, float]:
-    """{keys: exact sum of `value`} as Fractions (finite, non-zero values only)."""
+def exact_sums_query(frame: DataFrame, keys: list[str], value: str) -> DataFrame:
+    """The aggregate behind `exact_sums`: integer mantissa sums per keys and binary exponent."""
     e, m = exact_parts_cols(F.col(value))
     x = F.col(value)
-    parts = (frame.where(x.isNotNull() & ~F.isnan(x) & (F.abs(x) != float("inf")) & (x != 0))
-             .select(*keys, e.alias("_e"), m.alias("_m")).groupBy(*keys, "_e").agg(F.sum("_m").alias("_s"))
-             .collect())
+    return (frame.where(x.isNotNull() & ~F.isnan(x) & (F.abs(x) != float("inf")) & (x != 0))
+            .select(*keys, e.alias("_e"), m.alias("_m")).groupBy(*keys, "_e").agg(F.sum("_m").alias("_s")))
+
+
+def exact_sums_of(parts: Iterable[Any], keys: list[str]) -> dict[tuple, float]:
+    """`exact_sums_query`'s rows -> {keys: exact sum} as Fractions."""
     acc: dict[tuple, list[tuple[int, int]]] = defaultdict(list)
     for r in parts:
         acc[tuple(r[k] for k in keys)].append((int(r["_e"]), int(r["_s"])))
     return {k: exact_total(v) for k, v in acc.items()}  # type: ignore[misc]
+
+
+def exact_sums(frame: DataFrame, keys: list[str], value: str) -> dict[tuple, float]:
+    """{keys: exact sum of `value`} as Fractions (finite, non-zero values only), in one job of its own."""
+    return exact_sums_of(exact_sums_query(frame, keys, value).collect(), keys)
 
 
 # -- the tables ----------------------------------------------------------------------------------------
@@ -180,25 +189,34 @@ def compute_tables(spec: Spec, fr: SparkFrames) -> AuditTables:
          .withColumn("_mis", (F.col("_rec") >= 0) & (F.col("_rec") != F.col("_hashed")))
          .withColumn("_day", _floor_div(F.col("_t"), US_DAY))).cache()
     fr.cached.append(v)
-    lab = _label_counts(fr, v)
-    split, integ = split_and_integrity(spec, fr, v, lab)
-    tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, v, lab))
+    # every aggregate of every table goes to Spark in two collects (engine_spark_batch); split and
+    # integrity come first: leakage reads the arm counts (fr.arm_pairs) they leave behind
+    builders = [split_and_integrity(spec, fr, v), _numeric(spec, fr, v.where(F.col("_rec") >= 0), len(spec.arms))]
     if fr.exposures is not None:
-        tables.leakage = leakage_tables(spec, fr, v)
+        builders.append(leakage_tables(spec, fr, v))
     if fr.identities is not None:
-        tables.churn = churn_tables(spec, fr, v)
+        builders.append(churn_tables(spec, fr, v))
+    (split, integ, lab), numeric, *rest = together(*builders)
+    tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, lab, numeric))
+    if fr.exposures is not None:
+        tables.leakage = rest.pop(0)
+    if fr.identities is not None:
+        tables.churn = rest.pop(0)
     return tables
 
 
-def _label_counts(fr: SparkFrames, v: DataFrame) -> dict[str, dict[tuple[str, int, int], int]]:
-    """{label column: {(level, recorded, recomputed): units}} for every label column, in one pass."""
+def _label_query(fr: SparkFrames, v: DataFrame) -> DataFrame | None:
+    """Units per (label column, level, recorded, recomputed) for every label column, in one pass."""
     cols = list(fr.labels.values()) + (["_fp"] if fr.has_fp else [])
-    out: dict[str, dict[tuple[str, int, int], int]] = {c: {} for c in cols}
     if not cols:
-        return out
+        return None
     pairs = F.explode(F.array(*[F.struct(F.lit(c).alias("c"), F.col(c).alias("v")) for c in cols]))
-    rows = (v.select("_rec", "_hashed", pairs.alias("p")).groupBy("p.c", "p.v", "_rec", "_hashed").count()
-            .collect())
+    return v.select("_rec", "_hashed", pairs.alias("p")).groupBy("p.c", "p.v", "_rec", "_hashed").count()
+
+
+def _label_counts(fr: SparkFrames, rows: Rows) -> dict[str, dict[tuple[str, int, int], int]]:
+    """{label column: {(level, recorded, recomputed): units}} from `_label_query`'s rows."""
+    out: dict[str, dict[tuple[str, int, int], int]] = {c: {} for c in [*fr.labels.values(), "_fp"]}
     for r in rows:
         out[r["c"]][(r["v"], r["_rec"], r["_hashed"])] = int(r["count"])
     return out
@@ -228,13 +246,22 @@ def _iso(us: int) -> str:
     return pd.Timestamp(int(us), unit="us", tz="UTC").isoformat()
 
 
-def split_and_integrity(spec: Spec, fr: SparkFrames, v: DataFrame,
-                        lab: dict[str, dict[tuple[str, int, int], int]]) -> tuple[SplitTables, IntegrityTables]:
+LabelCounts = dict[str, dict[tuple[str, int, int], int]]
+
+
+def split_and_integrity(spec: Spec, fr: SparkFrames,
+                        v: DataFrame) -> Generator[list[DataFrame], list[Rows], tuple[SplitTables, IntegrityTables,
+                                                                                       LabelCounts]]:
+    """The split and integrity tables, and the label counts the balance check shares (a builder)."""
     arms, k = list(spec.arm_names), len(spec.arms)
     start_us = int(pd.Timestamp(spec.start).value // 1000)
-    g = v.groupBy("_arm", "_rec", "_hashed", "_day").agg(
+    gq = v.groupBy("_arm", "_rec", "_hashed", "_day").agg(
         F.count(F.lit(1)).alias("count"), F.sum((F.col("_t") < start_us).cast("long")).alias("pre"),
-        F.min("_t").alias("lo"), F.max("_t").alias("hi")).collect()
+        F.min("_t").alias("lo"), F.max("_t").alias("hi"))
+    lq = _label_query(fr, v)
+    got = yield [gq] + ([lq] if lq is not None else [])
+    g = got[0]
+    lab = _label_counts(fr, got[1] if lq is not None else [])
     days = sorted({int(r["_day"]) for r in g})
     dpos = {d: i for i, d in enumerate(days)}
     daily = [[0] * k for _ in days]
@@ -280,29 +307,30 @@ def split_and_integrity(spec: Spec, fr: SparkFrames, v: DataFrame,
         pre_start=sum(int(r["pre"]) for r in g), first_seen_min=_iso(min(r["lo"] for r in g)),
         first_seen_max=_iso(max(r["hi"] for r in g)), fingerprints=fps)
     split = SplitTables(arms=arms, units=dict(zip(arms, units)), daily=daily_df, segments=segs)
-    return split, integ
+    return split, integ, lab
 
 
-def balance_tables(spec: Spec, fr: SparkFrames, v: DataFrame,
-                   lab: dict[str, dict[tuple[str, int, int], int]]) -> BalanceTables:
-    arms, k = list(spec.arm_names), len(spec.arms)
+def balance_tables(spec: Spec, fr: SparkFrames, lab: LabelCounts, rows: list[dict[str, object]]) -> BalanceTables:
+    """The categorical crosstabs (from the label counts) and the numeric rows (from `_numeric`)."""
+    arms = list(spec.arm_names)
     cats = {name: _crosstab(lab[fr.labels[name]], fr.levels[fr.labels[name]], arms)
             for name in spec.audit.categorical_covariates}
-    rows: list[dict[str, object]] = []
-    if fr.numbers:
-        rows = _numeric(spec, fr, v.where(F.col("_rec") >= 0), k)
-    numeric = pd.DataFrame(rows, columns=NUMERIC_COLUMNS)
-    return BalanceTables(numeric=numeric, categorical=cats)
+    return BalanceTables(numeric=pd.DataFrame(rows, columns=NUMERIC_COLUMNS), categorical=cats)
 
 
 def _finite(x: Column) -> Column:
     return x.isNotNull() & ~F.isnan(x) & (F.abs(x) != float("inf"))
 
 
-def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame, k: int) -> list[dict[str, object]]:
-    """n, missing, invalid, mean, m2, rank_sum, ties, binary per covariate and arm (see audit.tables)."""
+def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame,
+             k: int) -> Generator[list[DataFrame], list[Rows], list[dict[str, object]]]:
+    """n, missing, invalid, mean, m2, rank_sum, ties, binary per covariate and arm (see audit.tables).
+
+    A builder of two rounds: counts, exact sums and ranks; then the squared deviations from the means."""
     arms = list(spec.arm_names)
     covs = list(fr.numbers.items())
+    if not covs:
+        return []
     aggs = []
     for i, (_, c) in enumerate(covs):
         x = F.col(c)
@@ -310,12 +338,16 @@ def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame, k: int) -> list[dict[st
         aggs += [F.sum(_finite(x).cast("long")).alias(f"n{i}"), F.sum(nan.cast("long")).alias(f"miss{i}"),
                  F.sum((~nan & ~_finite(x)).cast("long")).alias(f"inv{i}"),
                  F.sum((_finite(x) & ~x.isin(0.0, 1.0)).cast("long")).alias(f"nb{i}")]
-    per_arm = {r["_rec"]: r for r in ok.groupBy("_rec").agg(*aggs).collect()}
     long = ok.select("_rec", F.explode(F.array(*[F.struct(F.lit(i).alias("cov"), F.col(c).alias("x"))
                                                  for i, (_, c) in enumerate(covs)])).alias("p")
                      ).select("_rec", "p.cov", "p.x")
     long = long.where(_finite(F.col("x")))
-    sums = exact_sums(long, ["cov", "_rec"], "x")
+    ranked = _ranked(long, k)
+    per_arm_rows, sum_rows, rank_rows, cube_rows = yield [
+        ok.groupBy("_rec").agg(*aggs), exact_sums_query(long, ["cov", "_rec"], "x"), _rank_query(ranked, k),
+        exact_sums_query(_cubes(ranked), ["cov"], "t")]
+    per_arm = {r["_rec"]: r for r in per_arm_rows}
+    sums = exact_sums_of(sum_rows, ["cov", "_rec"])
 
     def n_of(i: int, a: int) -> int:
         r = per_arm.get(a)
@@ -327,8 +359,10 @@ def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame, k: int) -> list[dict[st
         if m == m:  # not NaN
             mean_col = F.when((F.col("cov") == i) & (F.col("_rec") == a), F.lit(m)).otherwise(mean_col)
     dev = long.select("cov", "_rec", ((F.col("x") - mean_col) * (F.col("x") - mean_col)).alias("d2"))
-    m2 = exact_sums(dev, ["cov", "_rec"], "d2")
-    ranks, ties = _rank_sums(long, k)
+    (m2_rows,) = yield [exact_sums_query(dev, ["cov", "_rec"], "d2")]
+    m2 = exact_sums_of(m2_rows, ["cov", "_rec"])
+    ranks = _rank_sums(rank_rows, k)
+    ties = exact_sums_of(cube_rows, ["cov"])
     out = []
     for i, (name, _) in enumerate(covs):
         n_all = sum(n_of(i, a) for a in range(k))
@@ -349,31 +383,43 @@ def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame, k: int) -> list[dict[st
     return out
 
 
-def _rank_sums(long: DataFrame, k: int) -> tuple[dict[tuple, object], dict[tuple, object]]:
-    """Pooled average ranks per covariate (ties share their mean rank): rank sums per arm, and sum(c^3 - c)."""
+def _ranked(long: DataFrame, k: int) -> DataFrame:
+    """Per covariate and distinct value: units per arm, c (all arms) and the units below it (pooled ranks)."""
     from pyspark.sql.window import Window
 
     per_value = long.groupBy("cov", "x").pivot("_rec", list(range(k))).count().na.fill(0)
     c = sum((F.col(str(a)) for a in range(k)), F.lit(0))
     w = Window.partitionBy("cov").orderBy("x").rowsBetween(Window.unboundedPreceding, -1)
-    ranked = per_value.select("cov", *[str(a) for a in range(k)], c.alias("c"),
-                              F.coalesce(F.sum(c).over(w), F.lit(0)).alias("below"))
+    return per_value.select("cov", *[str(a) for a in range(k)], c.alias("c"),
+                            F.coalesce(F.sum(c).over(w), F.lit(0)).alias("below"))
+
+
+def _rank_query(ranked: DataFrame, k: int) -> DataFrame:
+    """Twice the rank sum per covariate and arm (ties share their mean rank), as exact integers."""
     twice = (2 * F.col("below") + F.col("c") + 1).cast("decimal(38,0)")  # twice the average rank: an integer
-    sums = ranked.groupBy("cov").agg(*[F.sum(F.col(str(a)).cast("decimal(38,0)") * twice).alias(f"r{a}")
-                                       for a in range(k)]).collect()
+    return ranked.groupBy("cov").agg(*[F.sum(F.col(str(a)).cast("decimal(38,0)") * twice).alias(f"r{a}")
+                                       for a in range(k)])
+
+
+def _cubes(ranked: DataFrame) -> DataFrame:
+    """c^3 - c per tied value (the tie correction's terms)."""
+    return ranked.select("cov", (F.col("c").cast("double") * F.col("c") * F.col("c") - F.col("c")).alias("t"))
+
+
+def _rank_sums(rows: Rows, k: int) -> dict[tuple, object]:
     ranks: dict[tuple, object] = {}
-    for r in sums:
+    for r in rows:
         for a in range(k):
             ranks[(r["cov"], a)] = exact_total([(-1, int(r[f"r{a}"] or 0))])
-    cube = ranked.select("cov", (F.col("c").cast("double") * F.col("c") * F.col("c") - F.col("c")).alias("t"))
-    return ranks, exact_sums(cube, ["cov"], "t")  # type: ignore[return-value]
+    return ranks
 
 
 def _count_by(rows: Iterable, key: str) -> dict:
     return {r[key]: int(r["count"]) for r in rows}
 
 
-def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
+def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> Generator[list[DataFrame], list[Rows], LeakageTables]:
+    """Exposures against the units: by arm, holdout leakage by campaign and week, unseen ids (a builder)."""
     assert fr.exposures is not None
     arms, k = list(spec.arm_names), len(spec.arms)
     hold = [arms.index(a) for a in spec.holdout_arms]
@@ -386,7 +432,25 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
     j = j.select("_unit", "_t", "_camp", "_kind", "_eff", seen.alias("_seen"), bs.alias("_bs"), ba.alias("_ba"),
                  during.alias("_dur"), (during & F.col("_eff").isin(hold)).alias("_leak")).cache()
     fr.cached.append(j)
-    rows = j.groupBy("_seen", "_dur", "_eff", "_kind").count().collect()
+    per_unit = (j.where("_seen").groupBy("_unit")
+                .agg(F.max(F.col("_dur").cast("int")).alias("d"), F.max((~F.col("_dur")).cast("int")).alias("p"),
+                     F.max(F.col("_bs").cast("int")).alias("bs"), F.max(F.col("_ba").cast("int")).alias("ba"),
+                     F.first("_eff").alias("_eff")))
+    leak = j.where("_leak")
+    kinds = [F.sum((F.col("_kind") == 0).cast("long")).alias("impressions"),
+             F.sum((F.col("_kind") == 1).cast("long")).alias("clicks")]
+    week = _floor_div(_floor_div(F.col("_t"), US_DAY) + 3, 7)
+    uns = j.where(~F.col("_seen")).select("_unit").distinct().cache()
+    fr.cached.append(uns)
+    rows, pu, camp, wk, unseen, ur, vr = yield [
+        j.groupBy("_seen", "_dur", "_eff", "_kind").count(),
+        per_unit.groupBy("_eff").agg(F.count(F.lit(1)).alias("n"), F.sum("d").alias("d"), F.sum("p").alias("p"),
+                                     F.sum("bs").alias("bs"),
+                                     F.sum(((F.col("ba") == 1) & (F.col("bs") == 0)).cast("long")).alias("ba")),
+        leak.groupBy("_camp").agg(F.countDistinct("_unit").alias("units"), *kinds),
+        leak.groupBy(week.alias("w")).agg(F.countDistinct("_unit").alias("units"), *kinds, F.min("_t").alias("first")),
+        uns.select(hashed_index(spec).alias("a")).groupBy("a").count(),
+        *_extremes(uns, v)]
     n_rows = sum(int(r["count"]) for r in rows)
     imp, clk = [0] * k, [0] * k
     pre_rows = unseen_rows = 0
@@ -400,14 +464,6 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
             imp[r["_eff"]] += n
         elif r["_kind"] == 1:
             clk[r["_eff"]] += n
-    per_unit = (j.where("_seen").groupBy("_unit")
-                .agg(F.max(F.col("_dur").cast("int")).alias("d"), F.max((~F.col("_dur")).cast("int")).alias("p"),
-                     F.max(F.col("_bs").cast("int")).alias("bs"), F.max(F.col("_ba").cast("int")).alias("ba"),
-                     F.first("_eff").alias("_eff")))
-    pu = per_unit.groupBy("_eff").agg(F.count(F.lit(1)).alias("n"), F.sum("d").alias("d"), F.sum("p").alias("p"),
-                                      F.sum("bs").alias("bs"),
-                                      F.sum(((F.col("ba") == 1) & (F.col("bs") == 0)).cast("long")).alias("ba")
-                                      ).collect()
     exposed_u, pre_u = [0] * k, [0] * k
     for r in pu:
         exposed_u[r["_eff"]] = int(r["d"])
@@ -418,26 +474,18 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
     by_arm = pd.DataFrame({"units": [units.get(a, 0) for a in range(k)], "exposed_units": exposed_u,
                            "pre_exposed_units": pre_u, "impressions": imp, "clicks": clk},
                           index=pd.Index(arms, name="arm"), dtype="int64")
-    leak = j.where("_leak")
-    kinds = [F.sum((F.col("_kind") == 0).cast("long")).alias("impressions"),
-             F.sum((F.col("_kind") == 1).cast("long")).alias("clicks")]
-    camp = leak.groupBy("_camp").agg(F.countDistinct("_unit").alias("units"), *kinds).collect()
     by_campaign = pd.DataFrame([[int(r["units"]), int(r["impressions"]), int(r["clicks"])] for r in camp],
                                index=pd.Index([r["_camp"] for r in camp], name="campaign"),
                                columns=["units", "impressions", "clicks"], dtype="int64")
-    week = _floor_div(_floor_div(F.col("_t"), US_DAY) + 3, 7)
-    wk = sorted(leak.groupBy(week.alias("w")).agg(F.countDistinct("_unit").alias("units"), *kinds,
-                                                  F.min("_t").alias("first")).collect(), key=lambda r: r["w"])
+    wk = sorted(wk, key=lambda r: r["w"])
     by_week = pd.DataFrame([[int(r["units"]), int(r["impressions"]), int(r["clicks"])] for r in wk],
                            index=pd.Index([_label(int(r["w"]) * 7 - 3) for r in wk], name="week"),
                            columns=["units", "impressions", "clicks"], dtype="int64")
     first = min((r["first"] for r in wk), default=None)
-    uns = j.where(~F.col("_seen")).select("_unit").distinct().cache()
-    fr.cached.append(uns)
-    unseen = uns.select(hashed_index(spec).alias("a")).groupBy("a").count().collect()
     unseen_by = _count_by(unseen, "a")
     n_unseen = sum(unseen_by.values())
     n_seen_ids = sum(int(r["n"]) for r in pu)
+    diagnostics = yield from _unseen_diagnostics(uns, v, ur[0], vr[0])
     return LeakageTables(
         rows=n_rows, by_arm=by_arm, holdout_by_campaign=by_campaign, holdout_by_week=by_week,
         holdout_first=day_of(int(first)).isoformat() if first is not None else None,
@@ -445,7 +493,7 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> LeakageTables:
         pre_rows=pre_rows, unseen_ids=n_unseen, unseen_rows=unseen_rows,
         unseen_by_arm={a: unseen_by.get(i, 0) for i, a in enumerate(arms)}, exposed_ids=n_seen_ids + n_unseen,
         rows_read=fr.counts.get("exposure_rows", n_rows), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
-        **_unseen_diagnostics(uns, n_unseen, v))  # type: ignore[arg-type]
+        **diagnostics)  # type: ignore[arg-type]
 
 
 def _prefix(lo: str | None, hi: str | None, n: int) -> str:
@@ -458,36 +506,48 @@ def _prefix(lo: str | None, hi: str | None, n: int) -> str:
     return lo[:k]
 
 
-def _unseen_diagnostics(uns: DataFrame, n_unseen: int, v: DataFrame) -> dict[str, object]:
-    """Why exposed ids miss the visits (hashed ids, a prefix added or dropped): the pandas engine's rule."""
+def _extremes(uns: DataFrame, v: DataFrame) -> list[DataFrame]:
+    """The unseen ids' count, hash-like count and extremes; the units' count and extremes."""
+    return [uns.agg(F.count(F.lit(1)).alias("n"), F.sum(F.col("_unit").rlike(HASH_LIKE).cast("long")).alias("h"),
+                    F.min("_unit").alias("lo"), F.max("_unit").alias("hi")),
+            v.agg(F.count(F.lit(1)).alias("n"), F.min("_unit").alias("lo"), F.max("_unit").alias("hi"))]
+
+
+def _unseen_diagnostics(uns: DataFrame, v: DataFrame, r: dict[str, Any],
+                        vr: dict[str, Any]) -> Generator[list[DataFrame], list[Rows], dict[str, object]]:
+    """Why exposed ids miss the visits (hashed ids, a prefix added or dropped): the pandas engine's rule.
+
+    `r` and `vr` are `_extremes`' rows; a builder that needs a round only when a prefix is to be searched."""
     out: dict[str, object] = {"unseen_hash_like": 0, "unseen_prefix": "", "unseen_match_without_prefix": 0,
                               "visits_prefix": "", "unseen_match_with_visits_prefix": 0}
+    n_unseen = int(r["n"])
     if not n_unseen:
         return out
-    r = uns.agg(F.sum(F.col("_unit").rlike(HASH_LIKE).cast("long")).alias("h"), F.min("_unit").alias("lo"),
-                F.max("_unit").alias("hi")).collect()[0]
     out["unseen_hash_like"] = int(r["h"] or 0)
-    units = v.select("_unit")
-
-    def best(prefix: str, make: Callable[[str], Column]) -> tuple[str, int]:
-        found = [(int(uns.select(make(p).alias("_unit")).join(units, "_unit", "left_semi").count()), len(p), p)
-                 for p in _cuts(prefix)]
-        n, _, p = max(found)
-        return (p, n) if n else (prefix, 0)
-
+    searches: list[tuple[str, str, str, list[str], Callable[[str], Column]]] = []
     pre = _prefix(r["lo"], r["hi"], n_unseen)
     if pre:
-        out["unseen_prefix"], out["unseen_match_without_prefix"] = best(
-            pre, lambda p: F.expr(f"substring(_unit, {len(p) + 1})"))
-    vr = v.agg(F.count(F.lit(1)).alias("n"), F.min("_unit").alias("lo"), F.max("_unit").alias("hi")).collect()[0]
+        searches.append(("unseen_prefix", "unseen_match_without_prefix", pre, _cuts(pre),
+                         lambda p: F.expr(f"substring(_unit, {len(p) + 1})")))
     vpre = _prefix(vr["lo"], vr["hi"], int(vr["n"]))
     if vpre:
-        out["visits_prefix"], out["unseen_match_with_visits_prefix"] = best(
-            vpre, lambda p: F.concat(F.lit(p), F.col("_unit")))
+        searches.append(("visits_prefix", "unseen_match_with_visits_prefix", vpre, _cuts(vpre),
+                         lambda p: F.concat(F.lit(p), F.col("_unit"))))
+    if not searches:
+        return out
+    units = v.select("_unit")
+    counts = yield [uns.select(make(p).alias("_unit")).join(units, "_unit", "left_semi").agg(
+        F.count(F.lit(1)).alias("n")) for *_, cuts, make in searches for p in cuts]
+    at = 0
+    for key, match, prefix, cuts, _ in searches:  # the cut that matches most ids, the longest on a tie
+        n, _, p = max((int(counts[at + i][0]["n"]), len(p), p) for i, p in enumerate(cuts))
+        at += len(cuts)
+        out[key], out[match] = (p, n) if n else (prefix, 0)
     return out
 
 
-def churn_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> ChurnTables:
+def churn_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> Generator[list[DataFrame], list[Rows], ChurnTables]:
+    """Identity links against the units' arms: customers seen in several arms, by browser (a builder)."""
     assert fr.identities is not None
     cols = ["_unit", "_eff"] + (["_browser"] if fr.has_browser else [])
     kj = fr.identities.join(v.select(*cols), "_unit", "left")
@@ -498,11 +558,14 @@ def churn_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> ChurnTables:
     kj = kj.cache()
     fr.cached.append(kj)
     per_c = kj.groupBy("_customer").agg(F.count(F.lit(1)).alias("n"), F.countDistinct("_a").alias("arms"))
-    hist = per_c.groupBy("n").agg(F.count(F.lit(1)).alias("customers"),
-                                  F.sum((F.col("arms") > 1).cast("long")).alias("multi")).collect()
     per_b = kj.groupBy("_b", "_customer").agg(F.count(F.lit(1)).alias("n"), F.countDistinct("_a").alias("arms"))
-    bh = per_b.groupBy("_b", "n").agg(F.count(F.lit(1)).alias("customers"),
-                                       F.sum((F.col("arms") > 1).cast("long")).alias("multi")).collect()
+    hist, bh, ids = yield [
+        per_c.groupBy("n").agg(F.count(F.lit(1)).alias("customers"),
+                               F.sum((F.col("arms") > 1).cast("long")).alias("multi")),
+        per_b.groupBy("_b", "n").agg(F.count(F.lit(1)).alias("customers"),
+                                     F.sum((F.col("arms") > 1).cast("long")).alias("multi")),
+        kj.agg(F.countDistinct(F.when(F.col("_out"), F.col("_unit"))).alias("out"),
+               F.countDistinct("_unit").alias("ids"))]
     by_b: dict[str, list[int]] = {}
     for r in bh:
         acc = by_b.setdefault(r["_b"], [0, 0])
@@ -518,5 +581,4 @@ def churn_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> ChurnTables:
         multi_arm=sum(int(r["multi"] or 0) for r in hist),
         ids_hist={int(r["n"]): int(r["customers"]) for r in sorted(hist, key=lambda r: r["n"])},
         by_browser=by_browser, browser_hist=browser_hist,
-        ids_not_in_visits=int(kj.where("_out").select("_unit").distinct().count()),
-        link_ids=int(kj.select("_unit").distinct().count()))
+        ids_not_in_visits=int(ids[0]["out"]), link_ids=int(ids[0]["ids"]))

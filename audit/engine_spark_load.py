@@ -10,6 +10,7 @@ from pyspark.sql import functions as F
 
 from armlock.assign import InputError, Spec
 
+from .engine_spark_batch import collect_together
 from .engine_spark_read import (
     POS,
     as_of_cut,
@@ -84,16 +85,6 @@ def load_visits(spark: SparkSession, spec: Spec, ref: str, as_of: date | None, f
         sel.append(numbers_column(src, raw, name).alias(f"_x{i}"))
     rows = raw.select(*sel, *POS)
     empty, no_time = F.col("_unit") == "", F.col("_t").isNull() & (F.col("_unit") != "")
-    # levels over every row read, as the pandas reader's categories (a level seen only in set-aside rows stays)
-    c = rows.agg(F.count(F.lit(1)).alias("n"), F.sum(empty.cast("long")).alias("e"),
-                 F.sum(no_time.cast("long")).alias("t"),
-                 *[F.collect_set(x).alias(x) for x in fr.labels.values()]).collect()[0]
-    fr.levels = {x: list(c[x]) for x in fr.labels.values()}
-    total = int(c["n"])
-    fr.counts["visit_rows"] = total
-    fr.counts["empty_ids"] = note_empty(src, rows, empty, int(c["e"] or 0), cv.unit_id, "they have no arm", fr.notes)
-    fr.counts["missing_first_seen"] = note_empty(src, rows, no_time, int(c["t"] or 0), cv.first_seen,
-                                                 "a unit needs a first-seen time", fr.notes)
     keep = rows.where(~empty & F.col("_t").isNotNull())
     others = [x for x in rows.columns if x not in ("_unit", "_t", *POS)]
     # the earliest row of each unit; ties by position in the input (the pandas engine's stable sort)
@@ -102,22 +93,37 @@ def load_visits(spark: SparkSession, spec: Spec, ref: str, as_of: date | None, f
              .select("_unit", *[F.col("r." + x).alias(x) for x in ("_t", *POS, *others)], "_rows"))
     units = units.cache()
     fr.cached.append(units)
-    d = units.agg(F.count(F.lit(1)).alias("u"), F.sum(F.col("_rows") - 1).alias("dup"),
-                  F.sum((F.col("_rows") > 1).cast("long")).alias("dup_units"), F.max("_t").alias("last")).collect()[0]
-    n_dup = int(d["dup"] or 0)
+    # one job: the rows read (levels over every row, as the pandas reader's categories: a level seen only
+    # in set-aside rows stays) and the units by recorded arm and first-seen day (the as-of cut is a day's end)
+    day = ((F.col("_t") - F.pmod(F.col("_t"), F.lit(US_DAY))) / F.lit(US_DAY)).cast("long")
+    read, by_day = collect_together([
+        rows.agg(F.count(F.lit(1)).alias("n"), F.sum(empty.cast("long")).alias("e"),
+                 F.sum(no_time.cast("long")).alias("t"), *[F.collect_set(x).alias(x) for x in fr.labels.values()]),
+        units.groupBy("_arm", day.alias("_d")).agg(F.count(F.lit(1)).alias("u"), F.sum(F.col("_rows") - 1).alias("dup"),
+                                                   F.sum((F.col("_rows") > 1).cast("long")).alias("dup_units"))])
+    c = read[0]
+    fr.levels = {x: list(c[x]) for x in fr.labels.values()}
+    total = int(c["n"])
+    fr.counts["visit_rows"] = total
+    fr.counts["empty_ids"] = note_empty(src, rows, empty, int(c["e"] or 0), cv.unit_id, "they have no arm", fr.notes)
+    fr.counts["missing_first_seen"] = note_empty(src, rows, no_time, int(c["t"] or 0), cv.first_seen,
+                                                 "a unit needs a first-seen time", fr.notes)
+    n_dup = sum(int(r["dup"]) for r in by_day)
     fr.counts["duplicate_rows"] = n_dup
     if n_dup:
-        fr.notes.append(f"{src.path.name}: {int(d['dup_units']):,} unit id(s) had several first-seen rows "
-                        f"({n_dup:,} extra row(s)); the earliest row of each was kept")
-    if not d["u"]:
+        fr.notes.append(f"{src.path.name}: {sum(int(r['dup_units']) for r in by_day):,} unit id(s) had several "
+                        f"first-seen rows ({n_dup:,} extra row(s)); the earliest row of each was kept")
+    if not by_day:
         why = "it has no data rows" if not total else "every row lacked an id or a time"
         raise InputError(f"{src.path}: no usable rows in the visits file ({why})")
-    last = day_of(int(d["last"]))
+    last = day_of(max(int(r["_d"]) for r in by_day) * US_DAY)
     as_of = settle_as_of(fr, as_of, last)
     cut = as_of_cut(as_of)
-    per_arm = units.groupBy("_arm").agg(F.sum((F.col("_t") < cut).cast("long")).alias("count"),
-                                        F.sum((F.col("_t") >= cut).cast("long")).alias("late")).collect()
-    late = sum(int(r["late"]) for r in per_arm)
+    last_day = (cut - US_DAY) // US_DAY  # the as-of day, in days since the epoch
+    per_arm = [{"_arm": a, "count": sum(int(r["u"]) for r in by_day if r["_arm"] == a and r["_d"] <= last_day),
+                "late": sum(int(r["u"]) for r in by_day if r["_arm"] == a and r["_d"] > last_day)}
+               for a in dict.fromkeys(r["_arm"] for r in by_day)]
+    late = sum(r["late"] for r in per_arm)
     fr.counts["visits_after_as_of"] = late
     if late:
         fr.notes.append(f"{src.path.name}: {late:,} unit(s) first seen after the as-of date {as_of} are ignored")
@@ -153,9 +159,17 @@ def load_exposures(spark: SparkSession, spec: Spec, ref: str, as_of: date, fr: S
     empty = F.col("_unit") == ""
     no_time = F.col("_t").isNull() & ~empty
     late = F.col("_t").isNotNull() & (F.col("_t") >= as_of_cut(as_of)) & ~empty
-    c = rows.agg(F.count(F.lit(1)).alias("n"), F.sum((F.col("_kind") == 2).cast("long")).alias("o"),
+    kept = rows.where(~(empty | no_time | late))
+    # exact duplicates (same id, time, campaign and raw kind): one event logged twice, counted once
+    events = kept.groupBy("_unit", "_t", "_camp", "_kl").agg(F.first("_kind").alias("_kind"),
+                                                              F.count(F.lit(1)).alias("_n")).cache()
+    fr.cached.append(events)
+    read, dups = collect_together([
+        rows.agg(F.count(F.lit(1)).alias("n"), F.sum((F.col("_kind") == 2).cast("long")).alias("o"),
                  F.sum(empty.cast("long")).alias("e"), F.sum(no_time.cast("long")).alias("t"),
-                 F.sum(late.cast("long")).alias("l")).collect()[0]
+                 F.sum(late.cast("long")).alias("l")),
+        events.agg(F.sum(F.col("_n") - 1).alias("dup"))])
+    c = read[0]
     fr.counts["exposure_rows"] = int(c["n"])
     n_other = int(c["o"] or 0)
     if n_other:  # the other kinds in order of first appearance, as the pandas reader lists its levels
@@ -172,12 +186,7 @@ def load_exposures(spark: SparkSession, spec: Spec, ref: str, as_of: date, fr: S
     fr.counts["exposures_after_as_of"] = n_late
     if n_late:
         fr.notes.append(f"{src.path.name}: {n_late:,} exposure row(s) after the as-of date {as_of} are ignored")
-    kept = rows.where(~(empty | no_time | late))
-    # exact duplicates (same id, time, campaign and raw kind): one event logged twice, counted once
-    events = kept.groupBy("_unit", "_t", "_camp", "_kl").agg(F.first("_kind").alias("_kind"),
-                                                              F.count(F.lit(1)).alias("_n")).cache()
-    fr.cached.append(events)
-    n_dup = int(events.agg(F.sum(F.col("_n") - 1)).collect()[0][0] or 0)
+    n_dup = int(dups[0]["dup"] or 0)
     fr.counts["exposure_duplicate_rows"] = n_dup
     if n_dup:
         fr.notes.append(f"{src.path.name}: {n_dup:,} exposure row(s) repeat another row exactly (same id, "
@@ -203,9 +212,22 @@ def load_identities(spark: SparkSession, spec: Spec, ref: str, as_of: date, fr: 
     usable = ~(empty | no_cust)
     no_time = (F.col("_t").isNull() & usable) if has_time else F.lit(False)
     late = (F.col("_t") >= as_of_cut(as_of)) & usable & ~no_time if has_time else F.lit(False)
-    c = rows.agg(F.count(F.lit(1)).alias("n"), F.sum(empty.cast("long")).alias("e"),
+    if has_time:
+        kept = rows.where(usable & ~no_time & ~late).select("_unit", "_customer")
+        unseen_q = []
+    else:  # only links of units first seen by the as-of date (those in the cut visits)
+        known = fr.visits.select("_unit", F.lit(True).alias("_known"))
+        marked = rows.where(usable).select("_unit", "_customer").join(known, "_unit", "left")
+        kept = marked.where(F.col("_known").isNotNull()).select("_unit", "_customer")
+        unseen_q = [marked.where(F.col("_known").isNull()).agg(F.count(F.lit(1)).alias("n"))]
+    links = kept.distinct().cache()
+    fr.cached.append(links)
+    read, sizes, *unseen = collect_together([
+        rows.agg(F.count(F.lit(1)).alias("n"), F.sum(empty.cast("long")).alias("e"),
                  F.sum((no_cust & ~empty).cast("long")).alias("c"), F.sum(no_time.cast("long")).alias("t"),
-                 F.sum(late.cast("long")).alias("l")).collect()[0]
+                 F.sum(late.cast("long")).alias("l")),
+        links.agg(F.count(F.lit(1)).alias("links")), *unseen_q])
+    c = read[0]
     fr.counts["identity_rows"] = int(c["n"])
     fr.counts["identity_empty_ids"] = note_empty(src, rows, empty, int(c["e"] or 0), ci.unit_id,
                                                  "they name no unit", fr.notes)
@@ -220,21 +242,16 @@ def load_identities(spark: SparkSession, spec: Spec, ref: str, as_of: date, fr: 
         if n_late:
             fr.notes.append(f"{src.path.name}: {n_late:,} identity link(s) made after the as-of date "
                             f"{as_of} are ignored")
-        kept = rows.where(usable & ~no_time & ~late).select("_unit", "_customer")
+        before = int(c["n"]) - int(c["e"] or 0) - int(c["c"] or 0) - int(c["t"] or 0) - n_late
     else:
-        known = fr.visits.select("_unit", F.lit(True).alias("_known"))
-        marked = rows.where(usable).select("_unit", "_customer").join(known, "_unit", "left")
-        unknown = int(marked.where(F.col("_known").isNull()).count())
+        unknown = int(unseen[0][0]["n"])
         fr.counts["identity_links_unseen_units"] = unknown
         what = f"no '{ci.time}' column" if ci.time else "no link-time column"
         fr.notes.append(f"{src.path.name}: {what} ([audit.identities] time), so churn as of {as_of} uses only links "
                         f"of units first seen by then" + (f"; {unknown:,} link(s) of other units were "
                                                           "set aside" if unknown else ""))
-        kept = marked.where(F.col("_known").isNotNull()).select("_unit", "_customer")
-    kept = kept.cache()
-    links = kept.distinct().cache()
-    fr.cached += [kept, links]
-    before, after = kept.count(), links.count()
+        before = int(c["n"]) - int(c["e"] or 0) - int(c["c"] or 0) - unknown
+    after = int(sizes[0]["links"])
     if after < before:
         fr.notes.append(f"{src.path.name}: {before - after:,} repeated (unit, customer) row(s) counted once")
     fr.identities = links

@@ -40,7 +40,12 @@ def spec_50() -> Spec:
 
 @pytest.fixture(scope="session")
 def spark() -> Iterator[Any]:
-    """One small local SparkSession for the whole run (local[2], 2 shuffle partitions, no UI).
+    """One small local SparkSession for the whole run, tuned for many tiny audits rather than big data.
+
+    local[2], one shuffle partition, no UI, no adaptive execution (which submits one job per shuffle
+    stage) and no code generation: on inputs of a few thousand rows, compiling each query's Java code
+    (Janino) costs more than running it interpreted; results are the same either way. The CLI test
+    runs the engine in its own process with adaptive execution on (Spark's default).
 
     Skips when PySpark or Java is missing, except under CI=true, where the Spark tests must run.
     """
@@ -59,8 +64,11 @@ def spark() -> Iterator[Any]:
         .appName("armlock-tests")
         .config("spark.ui.enabled", "false")
         .config("spark.ui.showConsoleProgress", "false")
-        .config("spark.sql.shuffle.partitions", "2")
+        .config("spark.sql.shuffle.partitions", "1")
         .config("spark.default.parallelism", "2")
+        .config("spark.sql.adaptive.enabled", "false")
+        .config("spark.sql.codegen.wholeStage", "false")
+        .config("spark.sql.codegen.factoryMode", "NO_CODEGEN")
         .config("spark.driver.bindAddress", "127.0.0.1")
         .config("spark.sql.warehouse.dir", tempfile.mkdtemp(prefix="armlock-warehouse-"))
         .getOrCreate()
