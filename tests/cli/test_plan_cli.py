@@ -70,7 +70,7 @@ def test_html_out(tmp_path: Path) -> None:
     r = run_cli(tmp_path, "plan", *SHOP, "--format", "html", "--out", "plan.html")
     assert r.returncode == 0, r.stderr
     page = (tmp_path / "plan.html").read_text()
-    assert page.count('data-chart="') == 3 and "Holdout plan" in page
+    assert page.count('data-chart="') == 6 and "Holdout plan" in page  # three charts, wide and narrow
 
 
 def test_from_files(tmp_path: Path) -> None:
