@@ -70,7 +70,8 @@ def load_visits(spark: SparkSession, spec: Spec, ref: str, as_of: date | None, f
                             + ("the spec fingerprint in the data is not checked" if key == "fingerprint"
                                else "identity churn is not split by browser"))
     sel = [ids_column(src, raw, cv.unit_id, fr.notes).alias("_unit"),
-           times_column(src, raw, cv.first_seen, fr.notes, cv.first_seen_format).alias("_t"),
+           times_column(src, raw, cv.first_seen, fr.notes, cv.first_seen_format,
+                        "[audit.visits] first_seen_format").alias("_t"),
            labels_column(raw, cv.arm).alias("_arm")]
     if "fingerprint" in optional:
         sel.append(labels_column(raw, optional["fingerprint"]).alias("_fp"))
@@ -149,7 +150,7 @@ def load_exposures(spark: SparkSession, spec: Spec, ref: str, as_of: date, fr: S
     need(src, raw, {"unit_id": ce.unit_id, "time": ce.time, "campaign": ce.campaign, "kind": ce.kind},
          "[audit.exposures]")
     rows = raw.select(ids_column(src, raw, ce.unit_id, fr.notes).alias("_unit"),
-                      times_column(src, raw, ce.time, fr.notes, ce.time_format).alias("_t"),
+                      times_column(src, raw, ce.time, fr.notes, ce.time_format, "[audit.exposures] time_format").alias("_t"),
                       labels_column(raw, ce.campaign).alias("_camp"),
                       labels_column(raw, ce.kind).alias("_kl"), *POS)
     imp, clk = set(ce.impression_values), set(ce.click_values)
@@ -206,7 +207,7 @@ def load_identities(spark: SparkSession, spec: Spec, ref: str, as_of: date, fr: 
     sel = [ids_column(src, raw, ci.unit_id, fr.notes).alias("_unit"),
            ids_column(src, raw, ci.customer, None).alias("_customer")]
     if has_time:
-        sel.append(times_column(src, raw, ci.time, fr.notes, ci.time_format).alias("_t"))
+        sel.append(times_column(src, raw, ci.time, fr.notes, ci.time_format, "[audit.identities] time_format").alias("_t"))
     rows = raw.select(*sel, *POS)
     empty, no_cust = F.col("_unit") == "", F.col("_customer") == ""
     usable = ~(empty | no_cust)

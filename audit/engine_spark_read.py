@@ -20,7 +20,18 @@ from pyspark.sql import types as T
 from armlock.assign import InputError
 
 from .load import cutoff_of
-from .read import MISSING_LEVEL, SHOW_ROWS, _need
+from .read import (
+    _FORMAT_WORDS,
+    EPOCH_DIGITS,
+    EPOCH_LIMIT_S,
+    EPOCH_TEXT,
+    MISSING_LEVEL,
+    SHOW_ROWS,
+    _need,
+    bad_times,
+    looks_like,
+    strftime_regex,
+)
 from .engine import TABLE_PREFIX
 
 _ZONE = r"([Zz]|[+-]\d\d(:?\d\d)?)$"
@@ -163,6 +174,17 @@ def open_source(spark: SparkSession, ref: str, role: str, delimiter: str = ",") 
     return src, df
 
 
+_ARROW_NAMES = {T.ByteType: "int8", T.ShortType: "int16", T.IntegerType: "int32", T.LongType: "int64",
+                T.FloatType: "float", T.DoubleType: "double"}
+
+
+def _arrow_name(dtype: T.DataType) -> str:
+    """A numeric type as pyarrow names it (the pandas engine's messages quote Arrow's names)."""
+    if isinstance(dtype, T.DecimalType):
+        return f"decimal128({dtype.precision}, {dtype.scale})"
+    return _ARROW_NAMES.get(type(dtype), dtype.simpleString())
+
+
 def _first_line(exc: Exception) -> str:
     return (str(exc).strip().splitlines() or [type(exc).__name__])[0][:300]
 
@@ -205,12 +227,15 @@ def labels_column(df: DataFrame, name: str) -> Column:
     return F.when(t.isNull() | (t == ""), F.lit(MISSING_LEVEL)).otherwise(t)
 
 
-def times_column(src: SparkSource, df: DataFrame, name: str, notes: list[str], fmt: str = "iso8601") -> Column:
-    """Microseconds since the epoch (UTC), null for empty cells; the same notes and errors as `read_times`."""
+def times_column(src: SparkSource, df: DataFrame, name: str, notes: list[str], fmt: str = "iso8601",
+                 setting: str = "") -> Column:
+    """Microseconds since the epoch (UTC), null for empty cells; the same rules, notes and errors as `read_times`.
+
+    `fmt` ("iso8601", "epoch_seconds", "epoch_milliseconds" or a strftime pattern) applies to text and
+    numbers; timestamps and dates are read as they are. `setting` names the spec key, for the messages.
+    """
     dtype = df.schema[name].dataType
-    if fmt != "iso8601":
-        raise InputError(f"{src.path}: column '{name}' uses the time format {fmt!r}; the Spark engine reads ISO 8601 "
-                         "text and timestamps only so far (use --engine pandas, or convert the column)")
+    where = setting or "the column's time format"
     if (name in src.ns_columns or "*" in src.ns_columns) and isinstance(dtype, T.LongType):
         if name in src.naive_ns:
             notes.append(f"{src.path.name}: times in '{name}' have no zone; read as UTC")
@@ -224,26 +249,88 @@ def times_column(src: SparkSource, df: DataFrame, name: str, notes: list[str], f
     if isinstance(dtype, T.DateType):
         notes.append(f"{src.path.name}: '{name}' holds dates without a time; read as midnight UTC")
         return F.unix_micros(col(name).cast("timestamp"))
-    if not isinstance(dtype, T.StringType):
+    numeric = isinstance(dtype, T.NumericType) and not isinstance(dtype, T.DecimalType)  # as read_times
+    if numeric and fmt not in EPOCH_DIGITS:
+        first = df.where(col(name).isNotNull()).select(col(name)).limit(1).collect()
+        hint = looks_like(str(first[0][0])) if first else "holds numbers"
+        raise InputError(f"{src.path}: column '{name}' holds numbers ({_arrow_name(dtype)}), not "
+                         f"{_FORMAT_WORDS.get(fmt, fmt)} times; it {hint} in {where}")
+    if not (numeric or isinstance(dtype, T.StringType)):
         raise InputError(f"{src.path}: column '{name}' holds {dtype.simpleString()}, not times "
                          "(use ISO 8601 text or timestamps)")
-    text = F.trim(F.coalesce(col(name), F.lit("")))
-    parsed = F.unix_micros(F.expr("try_cast(_t_text AS TIMESTAMP)"))
-    probe = df.select(text.alias("_t_text"), *POS).select("*", parsed.alias("_t"))
-    stats = probe.agg(F.sum(((F.col("_t_text") != "") & F.col("_t").isNull()).cast("long")).alias("bad"),
-                      F.sum(((F.col("_t_text") != "") & ~F.col("_t_text").rlike(_ZONE)).cast("long")).alias("naive")
-                      ).collect()[0]
-    bad, naive = int(stats["bad"] or 0), int(stats["naive"] or 0)
+    if fmt not in EPOCH_DIGITS and fmt != "iso8601":
+        try:
+            strftime_regex(fmt)
+        except ValueError as exc:
+            raise InputError(f"{src.path}: column '{name}' uses the time format {fmt!r} ({where}); the Spark engine "
+                             f"reads the strftime directives %Y %m %d %H %M %S %f (and %%), not {exc}: convert the "
+                             "column, or use --engine pandas") from None
+    # text: what a message shows (the trimmed text; a number as the double pandas prints)
+    text = col(name).cast("double") if numeric else F.trim(F.coalesce(col(name), F.lit("")))
+    probe = df.select(text.alias("_t_text"), col(name).alias("_t_raw"), *POS)
+    blank, parsed = _parser(fmt, dtype, F.col("_t_text"), F.col("_t_raw"))
+    probe = probe.select("*", parsed.alias("_t"), blank.alias("_blank"))
+    flag = ~F.col("_blank") & F.col("_t").isNull()
+    naive = F.sum((~F.col("_blank") & (~F.col("_t_text").rlike(_ZONE) if fmt == "iso8601" else F.lit(True)))
+                  .cast("long"))
+    stats = probe.agg(F.sum(flag.cast("long")).alias("bad"), naive.alias("naive")).collect()[0]
+    bad, n_naive = int(stats["bad"] or 0), int(stats["naive"] or 0)
     if bad:
-        flag = (F.col("_t_text") != "") & F.col("_t").isNull()
-        pos = positions(probe, flag)
-        sample = probe.where(flag).orderBy(*POS).select("_t_text").first()[0]  # type: ignore[index]
-        raise InputError(
-            f"{src.path}: column '{name}' has {bad:,} time(s) that are not ISO 8601 "
-            f"(first: {src.rows(pos, bad)}; e.g. {sample!r}); write times like 2026-12-01T10:00:00Z")
-    if naive:
-        notes.append(f"{src.path.name}: {naive:,} time(s) in '{name}' have no zone; read as UTC")
-    return F.unix_micros(F.when(text == "", F.lit(None)).otherwise(text.try_cast("timestamp")))
+        hits = probe.where(flag).orderBy(*POS).select("_t_text").limit(100).collect()
+        samples = [str(float(r[0])) if numeric else r[0] for r in hits]
+        raise bad_times(src, name, bad, src.rows(positions(probe, flag), bad), samples, fmt, where)  # type: ignore[arg-type]
+    if n_naive and fmt == "iso8601":
+        notes.append(f"{src.path.name}: {n_naive:,} time(s) in '{name}' have no zone; read as UTC")
+    elif n_naive and fmt not in EPOCH_DIGITS:  # the patterns read here have no zone directive
+        notes.append(f"{src.path.name}: times in '{name}' ({fmt!r}) have no zone; read as UTC")
+    blank, parsed = _parser(fmt, dtype, text, col(name))
+    return F.when(blank, F.lit(None)).otherwise(parsed)
+
+
+def _parser(fmt: str, dtype: T.DataType, text: Column, raw: Column) -> tuple[Column, Column]:
+    """(blank, microseconds or null when it does not parse) of one time column, from its text and raw value."""
+    if fmt == "iso8601":
+        return text == "", F.unix_micros(text.try_cast("timestamp"))
+    if fmt in EPOCH_DIGITS:
+        return _epoch(fmt, dtype, text, raw)
+    return text == "", _strftime(fmt, text)
+
+
+def _epoch(fmt: str, dtype: T.DataType, text: Column, raw: Column) -> tuple[Column, Column]:
+    """`audit.read.epoch_micros`' rule in Spark: integers exact, decimal text digit by digit, floats rounded down."""
+    unit = 10 ** EPOCH_DIGITS[fmt]
+    limit = EPOCH_LIMIT_S * 10**6
+    if isinstance(dtype, T.IntegralType):
+        return raw.isNull(), F.when(F.abs(raw.cast("double")) * unit < limit, raw.cast("long") * unit)
+    if isinstance(dtype, T.NumericType):  # float, double: one correctly rounded product, then floor
+        v = raw.cast("double") * F.lit(float(unit))
+        return text.isNull() | F.isnan(text), F.when(~F.isnan(v) & (F.abs(v) < limit), F.floor(v).cast("long"))
+    digits = EPOCH_DIGITS[fmt]
+    part = lambda i: F.regexp_extract(text, _EPOCH_J, i)  # noqa: E731
+    whole = part(2).try_cast("long")
+    frac = F.rpad(F.substring(part(3), 1, digits), digits, "0").cast("long")
+    us = whole * unit + frac
+    ok = text.rlike(_EPOCH_J) & (whole < F.lit(int(limit // unit)))
+    return text == "", F.when(ok, F.when(part(1) == "-", -us).otherwise(us))
+
+
+_EPOCH_J = EPOCH_TEXT.replace("?P<sign>", "").replace("?P<whole>", "").replace("?P<frac>", "")  # Java: no names
+
+
+def _strftime(fmt: str, text: Column) -> Column:
+    """A strftime pattern read by the regular expression pandas' strptime uses, then an exact timestamp."""
+    pattern, order = strftime_regex(fmt)
+    got = {d: F.regexp_extract(text, pattern, i + 1) for i, d in enumerate(order)}
+
+    def num(d: str, default: int) -> Column:
+        return F.trim(got[d]).cast("int") if d in got else F.lit(default)
+
+    micros = F.lit(0) if "f" not in got else F.rpad(F.substring(got["f"], 1, 6), 6, "0").cast("long")
+    secs = num("S", 0).cast("decimal(8,6)") + (micros / F.lit(1_000_000)).cast("decimal(8,6)")
+    stamp = F.try_make_timestamp(num("Y", 1900), num("m", 1), num("d", 1), num("H", 0), num("M", 0), secs,
+                                 F.lit("UTC"))
+    # strptime's %S takes 60 and 61 but no time has them (pandas refuses them); Spark would roll them over
+    return F.when(text.rlike(pattern) & (num("S", 0) < 60), F.unix_micros(stamp))
 
 
 def numbers_column(src: SparkSource, df: DataFrame, name: str) -> Column:

@@ -287,6 +287,102 @@ def looks_like(sample: str) -> str:
     return "is not a time in the set format"
 
 
+EPOCH_DIGITS = {"epoch_seconds": 6, "epoch_milliseconds": 3}  # decimal digits from the unit to the microsecond
+EPOCH_TEXT = r"^(?P<sign>[+-]?)(?P<whole>[0-9]{1,16})(?:\.(?P<frac>[0-9]*))?$"  # plain decimals only
+EPOCH_LIMIT_S = 9.2e9  # |seconds| beyond this would overflow int64 nanoseconds
+
+
+def epoch_micros(arr: pa.ChunkedArray, fmt: str) -> tuple[np.ndarray, np.ndarray]:
+    """Epoch seconds or milliseconds -> (microseconds since 1970 as int64, valid mask), exactly.
+
+    The rule every engine follows: integers are scaled exactly; decimal text is read digit by digit
+    (digits beyond the microsecond are dropped); binary floats are multiplied once (correctly rounded)
+    and rounded down to the microsecond. Invalid: text that is not a plain decimal, NaN or infinity
+    in a float column, and times beyond the int64-nanosecond range.
+    """
+    digits = EPOCH_DIGITS[fmt]
+    unit = 10 ** digits
+    limit = EPOCH_LIMIT_S * 10**6
+    if pa.types.is_integer(arr.type):
+        whole = arr.cast(pa.int64()).to_numpy(zero_copy_only=False).astype("float64")  # nulls -> NaN
+        ok = ~np.isnan(whole) & (np.abs(whole) * unit < limit)
+        vals = np.where(ok, np.nan_to_num(whole), 0).astype(np.int64)
+        return vals * unit, ok
+    if pa.types.is_floating(arr.type) or pa.types.is_decimal(arr.type):
+        x = arr.cast(pa.float64()).to_numpy(zero_copy_only=False) * float(unit)
+        ok = np.isfinite(x) & (np.abs(x) < limit)
+        return np.floor(np.where(ok, x, 0.0)).astype(np.int64), ok
+    return _epoch_text(arr, digits)
+
+
+def _epoch_text(arr: pa.ChunkedArray, digits: int) -> tuple[np.ndarray, np.ndarray]:
+    text = pc.utf8_trim_whitespace(pc.fill_null(arr, ""))
+    parts = pc.extract_regex(text, EPOCH_TEXT)
+    ok = pc.is_valid(parts).to_numpy(zero_copy_only=False)
+    sign = pc.struct_field(parts, "sign").to_numpy(zero_copy_only=False)
+    whole = pc.cast(pc.fill_null(pc.struct_field(parts, "whole"), "0"), pa.int64()).to_numpy(zero_copy_only=False)
+    frac = pc.utf8_rpad(pc.utf8_slice_codeunits(pc.fill_null(pc.struct_field(parts, "frac"), ""), 0, digits),
+                        digits, "0")
+    frac_v = pc.cast(frac, pa.int64()).to_numpy(zero_copy_only=False) if digits else np.zeros(len(ok), np.int64)
+    unit = 10 ** digits
+    ok = ok & (whole < EPOCH_LIMIT_S * 10**6 / unit)
+    us = np.where(ok, whole, 0).astype(np.int64) * unit + np.where(ok, frac_v, 0)
+    return np.where(sign == "-", -us, us), ok
+
+
+def strftime_regex(fmt: str) -> tuple[str, list[str]]:
+    """A strftime pattern as an anchored regular expression (the directives' capture groups, in order).
+
+    Only the numeric directives %Y %m %d %H %M %S %f (and %%) are read; each matches what Python's
+    and pandas' strptime match (CPython `_strptime.TimeRE`, whose ranges are copied here; %f takes
+    up to 9 digits as pandas does) and whitespace in the pattern matches any run of whitespace.
+    Other directives raise ValueError naming them (used by engines that parse patterns themselves).
+    """
+    out, order, i = ["^"], [], 0
+    while i < len(fmt):
+        ch = fmt[i]
+        if ch == "%" and i + 1 < len(fmt):
+            d = fmt[i + 1]
+            i += 2
+            if d == "%":
+                out.append("%")
+            elif d in _DIRECTIVES:
+                out.append("(" + _DIRECTIVES[d] + ")")
+                order.append(d)
+            else:
+                raise ValueError(f"%{d}")
+            continue
+        if ch.isspace():
+            while i < len(fmt) and fmt[i].isspace():
+                i += 1
+            out.append(r"\s+")
+            continue
+        out.append(re.escape(ch))
+        i += 1
+    return "".join(out) + "$", order
+
+
+_DIRECTIVES = {"Y": r"\d\d\d\d", "m": r"1[0-2]|0[1-9]|[1-9]", "d": r"3[0-1]|[1-2]\d|0[1-9]|[1-9]| [1-9]",
+               "H": r"2[0-3]|[0-1]\d|\d", "M": r"[0-5]\d|\d", "S": r"6[0-1]|[0-5]\d|\d", "f": r"[0-9]{1,9}"}
+
+
+def bad_times(src: Source, col: str, n: int, first: str, samples: list[str], fmt: str, where: str) -> InputError:
+    """The error for times that do not parse (both engines): count, first rows, a sample and a hint.
+
+    `first` is `Source.rows` of the bad rows, `samples` their text (the first up to 100, in order)."""
+    sample = samples[0]
+    if fmt == "iso8601":
+        known = [t for t in samples if not looks_like(t).startswith("is not")]
+        if known:
+            hint = f"e.g. {sample!r}; {known[0]!r} {looks_like(known[0])} in {where}"
+        else:
+            hint = f"e.g. {sample!r}; write times like 2026-12-01T10:00:00Z, or set the format in {where}"
+    else:
+        hint = f"e.g. {sample!r}, which does not match {where} = {fmt!r}"
+    return InputError(f"{src.path}: column '{col}' has {n:,} time(s) that are not "
+                      f"{_FORMAT_WORDS.get(fmt, repr(fmt))} (first: {first}; {hint})")
+
+
 def _range_checked(src: Source, col: str, parsed: pd.Series) -> pd.Series:
     """Times as datetime64[ns, UTC]; a time outside 1678-2261 is an input error naming rows."""
     far = np.flatnonzero(((parsed < _T_MIN) | (parsed >= _T_MAX)).fillna(False).to_numpy(dtype=bool))
@@ -354,13 +450,12 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
         shown = pd.Series(pc.utf8_trim_whitespace(pc.fill_null(arr, "")).to_pandas(), dtype="str")
         blank = (shown == "").to_numpy()
         text = shown
-    if fmt in ("epoch_seconds", "epoch_milliseconds"):
-        nums = pd.to_numeric(text.where(~blank, None), errors="coerce").astype("float64")
-        scale = 1.0 if fmt == "epoch_seconds" else 1e-3
-        secs = nums * scale
-        ok = secs.abs() < 9.2e9  # inside the int64-nanosecond range, so the conversion cannot overflow
-        parsed = pd.to_datetime(secs.where(ok), unit="s", utc=True, errors="coerce")
-        bad = np.flatnonzero((nums.isna() | ~ok).to_numpy() & ~blank)
+    if fmt in EPOCH_DIGITS:
+        us, ok = epoch_micros(arr, fmt)
+        stamps = us.astype("datetime64[us]")
+        stamps[~ok] = np.datetime64("NaT")
+        parsed = pd.Series(pd.to_datetime(stamps, utc=True))
+        bad = np.flatnonzero(~ok & ~blank)
     elif fmt == "iso8601":
         parsed = pd.to_datetime(text, utc=True, format="ISO8601", errors="coerce")
         bad = np.flatnonzero(parsed.isna().to_numpy() & ~blank)
@@ -368,25 +463,13 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
         parsed = pd.to_datetime(text, utc=True, format=fmt, errors="coerce")
         bad = np.flatnonzero(parsed.isna().to_numpy() & ~blank)
     if len(bad):
-        sample = str(shown.iloc[bad[0]])
-        if fmt == "iso8601":
-            known = [t for t in (str(shown.iloc[i]) for i in bad[:100]) if not looks_like(t).startswith("is not")]
-            if known:
-                hint = f"e.g. {sample!r}; {known[0]!r} {looks_like(known[0])} in {where}"
-            else:
-                hint = f"e.g. {sample!r}; write times like 2026-12-01T10:00:00Z, or set the format in {where}"
-        else:
-            hint = f"e.g. {sample!r}, which does not match {where} = {fmt!r}"
-        raise InputError(
-            f"{src.path}: column '{col}' has {len(bad):,} time(s) that are not "
-            f"{_FORMAT_WORDS.get(fmt, repr(fmt))} (first: {src.rows(bad)}; {hint})"
-        )
+        raise bad_times(src, col, len(bad), src.rows(bad), [str(shown.iloc[i]) for i in bad[:100]], fmt, where)
     if fmt == "iso8601":
         zoned = text.str.contains(_ZONE, regex=True)
         naive = int((~zoned & ~pd.Series(blank)).sum())
         if naive:
             notes.append(f"{src.path.name}: {naive:,} time(s) in '{col}' have no zone; read as UTC")
-    elif fmt not in ("epoch_seconds", "epoch_milliseconds") and "%z" not in fmt and "%Z" not in fmt:
+    elif fmt not in EPOCH_DIGITS and "%z" not in fmt and "%Z" not in fmt:
         if int((~blank).sum()):
             notes.append(f"{src.path.name}: times in '{col}' ({fmt!r}) have no zone; read as UTC")
     return _range_checked(src, col, parsed)

@@ -224,3 +224,76 @@ def test_same_errors(spark: Any, tmp_path: Path) -> None:
                 engine.compute(spec, Inputs(path), None, lambda n: None)
             msgs.append(str(exc.value))
         assert msgs[0] == msgs[1]
+
+
+# -- time formats ------------------------------------------------------------------------------------
+
+def _with_formats(spec: Spec, visits: str, exposures: str, identities: str, bare: bool = False) -> Spec:
+    d = spec.model_dump(mode="json")
+    d.setdefault("audit", {})
+    if bare:  # visits need only id, first-seen time and arm
+        d["audit"].update(segments=[], covariates=[], categorical_covariates=[])
+    d["audit"].setdefault("visits", {})["first_seen_format"] = visits
+    d["audit"].setdefault("exposures", {})["time_format"] = exposures
+    d["audit"].setdefault("identities", {})["time_format"] = identities
+    return spec_from_dict(d)
+
+
+def _micros(s: pd.Series) -> pd.Series:
+    return pd.to_datetime(s, utc=True).dt.as_unit("us").astype("int64")
+
+
+def test_time_formats_parity(spark: Any, tmp_path: Path) -> None:
+    """Epoch seconds (decimal text), epoch milliseconds (integers and decimal text), strftime patterns
+    and floats: both engines give the same tables, and the lossless ones the tables of ISO 8601 times."""
+    spec = _spec("three_arms", salt="parity-formats")
+    logs = generate(spec, units=800, days=21, seed=21, faults=FAULTS, events_per_unit=3.0)
+    base = write_logs(logs, tmp_path / "iso", "parquet")
+    iso_spec = _spec("three_arms", salt="parity-formats")
+    ref = PandasEngine().compute(iso_spec, Inputs(base["visits"], base["exposures"], base["identities"]), None,
+                                 lambda n: None)
+    v, e, i = logs.visits.copy(), logs.exposures.copy(), logs.identities.copy()
+    vc, ec, ic = spec.audit.visits.first_seen, spec.audit.exposures.time, spec.audit.identities.time
+    vt, et, it = _micros(v[vc]), _micros(e[ec]), _micros(i[ic])  # the generator's times are whole milliseconds
+    cases = {  # name: visits' and exposures' time columns, their formats, whether lossless (then equal to ISO)
+        "text": ([f"{u // 10**6}.{u % 10**6:06d}" for u in vt], [f"{u // 1000}.{u % 1000:03d}" for u in et],
+                 ("epoch_seconds", "epoch_milliseconds"), True),
+        "strftime": (pd.to_datetime(vt, unit="us", utc=True).dt.strftime("%d/%m/%Y %H:%M:%S.%f").tolist(),
+                     pd.to_datetime(et, unit="us", utc=True).dt.strftime("%Y%m%d %H.%M.%S.%f").tolist(),
+                     ("%d/%m/%Y %H:%M:%S.%f", "%Y%m%d %H.%M.%S.%f"), True),
+        "numbers": ((vt // 1000).tolist(), (et / 1e6).tolist(), ("epoch_milliseconds", "epoch_seconds"), False),
+    }
+    for name, (vcol, ecol, (vf, ef), lossless) in cases.items():
+        v2, e2, i2 = v.copy(), e.copy(), i.copy()
+        v2[vc], e2[ec], i2[ic] = vcol, ecol, (it // 1000).tolist()  # links: integer milliseconds
+        fmt = "csv.gz" if name != "numbers" else "parquet"
+        paths = write_logs(type(logs)(visits=v2, exposures=e2, identities=i2), tmp_path / name, fmt)
+        spec2 = _with_formats(spec, vf, ef, "epoch_milliseconds")
+        p, s = _both(spark, spec2, Inputs(paths["visits"], paths["exposures"], paths["identities"]))
+        assert_parity(spec2, p, s)
+        if lossless:
+            assert_tables_equal(canonical(ref.tables), canonical(p.tables))
+
+
+@pytest.mark.parametrize(("fmt", "cell"), [("epoch_milliseconds", "17676e8"), ("epoch_seconds", "soon"),
+                                           ("%d/%m/%Y %H:%M", "31/02/2026 10:00"), ("%d/%m/%Y %H:%M", "05/01/2026 10:60")])
+def test_time_format_errors_match(spark: Any, tmp_path: Path, fmt: str, cell: str) -> None:
+    spec = _with_formats(_spec("two_arms"), fmt, "iso8601", "iso8601", bare=True)
+    good = "1767607200" if fmt == "epoch_seconds" else ("1767607200000" if fmt.startswith("epoch") else "05/01/2026 10:00")
+    path = tmp_path / "v.csv"
+    path.write_text(f"unit_id,first_seen,arm\na,{good},holdout\nb,{cell},holdout\nc,{cell},exposed\n", encoding="utf-8")
+    msgs = []
+    for engine in (PandasEngine(), _spark_engine(spark)):
+        with pytest.raises(InputError) as exc:
+            engine.compute(spec, Inputs(path), None, lambda n: None)
+        msgs.append(str(exc.value))
+    assert msgs[0] == msgs[1]
+    assert "lines 3, 4" in msgs[0] and "first_seen_format" in msgs[0] and repr(cell) in msgs[0]
+
+
+def test_strftime_directive_without_a_match_is_named(spark: Any, tmp_path: Path) -> None:
+    spec = _with_formats(_spec("two_arms"), "%d %b %Y", "iso8601", "iso8601", bare=True)
+    path = tmp_path / "v.csv"
+    path.write_text("unit_id,first_seen,arm\na,05 Jan 2026,holdout\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"%b"):
+        _spark_engine(spark).compute(spec, Inputs(path), None, lambda n: None)
