@@ -116,7 +116,8 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
         nan = np.isnan(x)
         if nan.any():
             fin = np.isfinite(x)
-            fill = fill_value(exact_sum(x[fin]), int(fin.sum()), int((x == np.inf).sum()), int((x == -np.inf).sum()))
+            fill = fill_value(exact_sum(x[fin]), int(fin.sum()), int((x == np.inf).sum()),
+                              int((x == -np.inf).sum()))
             x[nan] = fill
             notes.append(f"covariate '{c}': {int(nan.sum()):,} unit(s) with no value were given the pooled "
                          f"mean {fill:,.4g} (arm-blind, so the comparison stays fair)")
@@ -144,7 +145,8 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
     if (~matched).any():
         what = "customer key has no visitor id in the visits" if spec.readout.orders.customer else \
             "unit id is not in the visits"
-        notes.append(f"orders: {int((~matched).sum()):,} order row(s) ({rounded_sum(rev[~matched]):,.2f} revenue) whose "
+        lost = rounded_sum(rev[~matched])  # exact, as the Spark engine's
+        notes.append(f"orders: {int((~matched).sum()):,} order row(s) ({lost:,.2f} revenue) whose "
                      f"{what} were left out: they cannot be given an arm")
     fs_o = np.where(matched, fs[np.maximum(pos, 0)], 0)
     before = matched & (t < fs_o)

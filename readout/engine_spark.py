@@ -115,10 +115,11 @@ def readout_tables(spark: SparkSession, spec: Spec, inputs: Inputs, fr: SparkFra
     valid = o.where(matched & ~before & ~after)
 
     # each unit's orders in one fixed order (time, then revenue), summed up to each look's end
-    days = [d for d in look_dates(spec, as_of)]
+    days = look_dates(spec, as_of)
     limits = [as_of_cut(d) for d in days]
     per_unit = valid.groupBy("_unit").agg(F.array_sort(F.collect_list(F.struct("_t", "_rev"))).alias("_os"))
-    u = units.join(per_unit, "_unit", "left").withColumn("_os", F.coalesce("_os", F.array().cast(per_unit.schema["_os"].dataType)))
+    none = F.array().cast(per_unit.schema["_os"].dataType)  # a unit without orders: an empty list
+    u = units.join(per_unit, "_unit", "left").withColumn("_os", F.coalesce("_os", none))
     u = u.select("*", _revenue_upto(None).alias("_r"),
                  F.size(F.filter("_os", lambda x: x["_rev"] >= 0)).cast("double").alias("_o"),
                  *[_revenue_upto(lim).alias(f"_r{j}") for j, lim in enumerate(limits) if lim < cut],
