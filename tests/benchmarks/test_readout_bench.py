@@ -26,6 +26,7 @@ from armlock.audit.synth import generate, generate_orders, write_logs, write_ord
 pytestmark = pytest.mark.bench
 
 UNITS = int(os.environ.get("ARMLOCK_READOUT_BENCH_UNITS", "200000"))
+ROUNDS = int(os.environ.get("ARMLOCK_BENCH_ROUNDS", "1"))  # fresh processes per figure; the fastest counts
 EVENTS_PER_UNIT = 10.0  # exposure rows per unit
 BASE_RATE = 0.4  # about 0.5 orders per unit over the twelve weeks
 SPEC = {"name": "bench-readout", "salt": "bench-readout-salt", "start": "2026-01-05T00:00:00Z",
@@ -87,7 +88,7 @@ def _child(code: str, d: Path) -> dict[str, object]:
 @pytest.mark.benchmark(group="readout-vs-audit")
 def test_baseline_audit_alone(benchmark, files) -> None:  # type: ignore[no-untyped-def]
     d, truth = files
-    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=1, iterations=1)
+    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=ROUNDS, iterations=1)
     benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
                                  "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
     assert out["verdict"] == "pass"
@@ -96,7 +97,7 @@ def test_baseline_audit_alone(benchmark, files) -> None:  # type: ignore[no-unty
 @pytest.mark.benchmark(group="readout-vs-audit")
 def test_readout(benchmark, files) -> None:  # type: ignore[no-untyped-def]
     d, truth = files
-    out = benchmark.pedantic(_child, args=(_CHILD_READOUT, d), rounds=1, iterations=1)
+    out = benchmark.pedantic(_child, args=(_CHILD_READOUT, d), rounds=ROUNDS, iterations=1)
     benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
                                  "units": truth["units"], "order_rows": truth["order_rows"],
                                  "exposure_rows": truth["exposure_rows"]})
