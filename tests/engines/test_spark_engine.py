@@ -217,13 +217,15 @@ def test_same_errors(spark: Any, tmp_path: Path) -> None:
     bad = tmp_path / "t.csv"
     bad.write_text("unit_id,first_seen,arm\na,2026-01-06T00:00:00Z,holdout\nb,next tuesday,holdout\n",
                    encoding="utf-8")
-    for path in (tmp_path / "v.parquet", bad, tmp_path / "missing.parquet"):
+    bare = _with_formats(spec, "iso8601", "iso8601", "iso8601", bare=True)  # reaches the bad time itself
+    for s, path, said in ((spec, tmp_path / "v.parquet", "unit_id"), (bare, bad, "next tuesday"),
+                          (spec, tmp_path / "missing.parquet", "missing.parquet")):
         msgs = []
         for engine in (PandasEngine(), _spark_engine(spark)):
             with pytest.raises(InputError) as exc:
-                engine.compute(spec, Inputs(path), None, lambda n: None)
+                engine.compute(s, Inputs(path), None, lambda n: None)
             msgs.append(str(exc.value))
-        assert msgs[0] == msgs[1]
+        assert msgs[0] == msgs[1] and said in msgs[0], msgs
 
 
 # -- time formats ------------------------------------------------------------------------------------
