@@ -6,10 +6,9 @@ from pathlib import Path
 
 import typer
 
-from armlock.assign import SpecError
 from armlock.assign.snippet import render_snippet
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, emit, open_spec
 
 
 FORMS = ("html", "js")
@@ -41,17 +40,9 @@ def snippet(
         raise typer.BadParameter(f"unknown form {form!r}; choose html or js", param_hint="--form")
     spec = open_spec(spec_path, accept_changed_split=accept)
     text = render_snippet(spec, form)
-    if out is None:
-        typer.echo(text, nl=False)
-        return
-    try:
-        out.write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise SpecError(f"{out}: cannot write the snippet: {exc.strerror}") from None
-    err(
-        f"Wrote {out} ({form}, {len(text.encode('utf-8'))} bytes) for experiment "
-        f"{spec.name!r}, fingerprint {spec.fingerprint}"
-    )
+    emit(text, out, what="the snippet",
+         done=f"Wrote {out} ({form}, {len(text.encode('utf-8'))} bytes) for experiment "
+              f"{spec.name!r}, fingerprint {spec.fingerprint}")
 
 
 def register(app: typer.Typer) -> None:

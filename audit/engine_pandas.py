@@ -13,9 +13,7 @@ import pyarrow.compute as pc
 
 from armlock.assign import Spec, assign_many
 
-from .keys import arrow_ids as _arrow_ids
-from .keys import ns_of
-from .keys import positions as _positions
+from .keys import arrow_ids, ns_of, positions
 from .exactsum import exact_sum, rounded_mean, rounded_sum
 from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
 from .tables import (
@@ -163,7 +161,7 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
     assert e is not None
     arms, k = list(spec.arm_names), len(spec.arms)
     hold = np.isin(np.arange(k), [arms.index(a) for a in spec.holdout_arms])
-    pos = fr.exposure_pos if fr.exposure_pos is not None else _positions(e[UNIT], vset)
+    pos = fr.exposure_pos if fr.exposure_pos is not None else positions(e[UNIT], vset)
     seen = pos >= 0
     all_seen = bool(seen.all())
     idx = None if all_seen else np.flatnonzero(seen)
@@ -283,7 +281,7 @@ def _unseen_diagnostics(unseen: pd.Series, visit_ids: pd.Series, vset: pa.Array)
     out["unseen_hash_like"] = int(unseen.str.match(HASH_LIKE).sum())
 
     def best(prefix: str, make: Callable[[str], pd.Series]) -> tuple[str, int]:
-        found = [(int((_positions(make(p), vset) >= 0).sum()), len(p), p) for p in _cuts(prefix)]
+        found = [(int((positions(make(p), vset) >= 0).sum()), len(p), p) for p in _cuts(prefix)]
         n, _, p = max(found)
         return (p, n) if n else (prefix, 0)
 
@@ -300,7 +298,7 @@ def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> Chu
     ident, v = fr.identities, fr.visits
     assert ident is not None
     k = len(spec.arms)
-    pos = _positions(ident[UNIT], vset)
+    pos = positions(ident[UNIT], vset)
     arm = np.where(pos >= 0, eff[np.maximum(pos, 0)], -1).astype(np.int64)
     missing = pos < 0
     if missing.any():  # ids linked to a customer but not in the visits: the spec's arm, hashed once
@@ -399,7 +397,7 @@ def compute(spec: Spec, fr: Frames, early: Future[VisitArms] | None = None) -> A
     tables = AuditTables(split=split, integrity=integ, balance=balance_tables(spec, fr, rec, va.moments))
     tables.extra["hashed_arm"] = hashed  # per visits row, spec order: the readout's intent-to-treat arm
     if fr.exposures is not None or fr.identities is not None:
-        vset = _arrow_ids(v[UNIT]).combine_chunks()
+        vset = arrow_ids(v[UNIT]).combine_chunks()
         if fr.exposures is not None:
             tables.leakage = leakage_tables(spec, fr, eff, vset)
         if fr.identities is not None:

@@ -18,7 +18,8 @@ import pandas as pd
 from armlock.assign import InputError, Spec
 from armlock.audit import engine_pandas as audit_engine
 from armlock.audit.engine import EngineResult, Inputs, ReadoutResult, file_bytes, load_frames, local_path
-from armlock.audit.engine_pandas import NS_DAY, _arrow_ids, _positions
+from armlock.audit.engine_pandas import NS_DAY
+from armlock.audit.keys import arrow_ids, positions
 from armlock.audit.exactsum import exact_sum, grouped_exact_sums, rounded_sum
 from armlock.audit.load import cutoff_of
 from armlock.audit.read import CUSTOMER, TIME, UNIT, Frames
@@ -69,7 +70,7 @@ def _customer_positions(spec: Spec, fr: Frames, arm: np.ndarray, vset: object,
     customers whose units fall in more than one arm."""
     ident = fr.identities
     assert ident is not None
-    pos = _positions(ident[UNIT], vset)  # type: ignore[arg-type]
+    pos = positions(ident[UNIT], vset)  # type: ignore[arg-type]
     ok = pos >= 0
     links = pd.DataFrame({"c": ident[CUSTOMER].to_numpy()[ok], "p": pos[ok], "a": arm[pos[ok]]})
     g = links.groupby("c", sort=False)
@@ -83,7 +84,9 @@ def _exposed_during_test(spec: Spec, fr: Frames, fs: np.ndarray) -> np.ndarray:
     """1.0 for each visits row with an exposure at or after both the start and its first-seen time."""
     e = fr.exposures
     assert e is not None
-    pos = _positions(e[UNIT], _arrow_ids(fr.visits[UNIT]).combine_chunks())
+    pos = fr.exposure_pos  # matched once by the loader; computed here only for frames built otherwise
+    if pos is None:
+        pos = positions(e[UNIT], arrow_ids(fr.visits[UNIT]).combine_chunks())
     t = e[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
     seen = pos >= 0
     during = seen & (t >= pd.Timestamp(spec.start).value) & (t >= np.where(seen, fs[np.maximum(pos, 0)], 0))
@@ -124,7 +127,7 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
         xs.append(x)
 
     # orders -> units
-    vset = _arrow_ids(v[UNIT]).combine_chunks()
+    vset = arrow_ids(v[UNIT]).combine_chunks()
     if spec.readout.orders.customer:
         if fr.identities is None:
             raise InputError("orders are keyed by customer ([readout.orders] customer = "
@@ -137,7 +140,7 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
             notes.append(f"{int(counts['customers_multi_arm']):,} customer(s) have visitor ids in more than one arm; "
                          "each counts in the arm of their first visitor id (intent to treat)")
     else:
-        pos = _positions(orders[KEY], vset)
+        pos = positions(orders[KEY], vset)
     t = orders[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
     rev = orders[REV].to_numpy(dtype=np.float64)
     matched = pos >= 0
