@@ -13,6 +13,8 @@ from datetime import date
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+import pandas as pd
 from pyspark.sql import Column, DataFrame, SparkSession
 from pyspark.sql import functions as F
 from pyspark.sql import types as T
@@ -27,8 +29,11 @@ from .read import (
     EPOCH_TEXT,
     MISSING_LEVEL,
     SHOW_ROWS,
+    T_MAX_US,
+    T_MIN_US,
     _need,
     bad_times,
+    far_times,
     looks_like,
     strftime_regex,
 )
@@ -236,19 +241,24 @@ def times_column(src: SparkSource, df: DataFrame, name: str, notes: list[str], f
     """
     dtype = df.schema[name].dataType
     where = setting or "the column's time format"
+    typed = None
     if (name in src.ns_columns or "*" in src.ns_columns) and isinstance(dtype, T.LongType):
         if name in src.naive_ns:
             notes.append(f"{src.path.name}: times in '{name}' have no zone; read as UTC")
         q = "`" + name.replace("`", "``") + "`"
-        return F.expr(f"({q} - pmod({q}, 1000)) div 1000")
-    if isinstance(dtype, T.TimestampType):
-        return F.unix_micros(col(name))
-    if isinstance(dtype, T.TimestampNTZType):
+        typed = F.expr(f"({q} - pmod({q}, 1000)) div 1000")
+    elif isinstance(dtype, T.TimestampType):
+        typed = F.unix_micros(col(name))
+    elif isinstance(dtype, T.TimestampNTZType):
         notes.append(f"{src.path.name}: times in '{name}' have no zone; read as UTC")
-        return F.unix_micros(col(name).cast("timestamp"))
-    if isinstance(dtype, T.DateType):
+        typed = F.unix_micros(col(name).cast("timestamp"))
+    elif isinstance(dtype, T.DateType):
         notes.append(f"{src.path.name}: '{name}' holds dates without a time; read as midnight UTC")
-        return F.unix_micros(col(name).cast("timestamp"))
+        typed = F.unix_micros(col(name).cast("timestamp"))
+    if typed is not None:
+        probe = df.select(typed.alias("_t"), *POS)
+        _no_far_times(src, probe, name, int(probe.agg(F.sum(_far().cast("long"))).collect()[0][0] or 0))
+        return typed
     numeric = isinstance(dtype, T.NumericType) and not isinstance(dtype, T.DecimalType)  # as read_times
     if numeric and fmt not in EPOCH_DIGITS:
         first = df.where(col(name).isNotNull()).select(col(name)).limit(1).collect()
@@ -256,7 +266,7 @@ def times_column(src: SparkSource, df: DataFrame, name: str, notes: list[str], f
         raise InputError(f"{src.path}: column '{name}' holds numbers ({_arrow_name(dtype)}), not "
                          f"{_FORMAT_WORDS.get(fmt, fmt)} times; it {hint} in {where}")
     if not (numeric or isinstance(dtype, T.StringType)):
-        raise InputError(f"{src.path}: column '{name}' holds {dtype.simpleString()}, not times "
+        raise InputError(f"{src.path}: column '{name}' holds {_arrow_name(dtype)}, not times "
                          "(use ISO 8601 text or timestamps)")
     if fmt not in EPOCH_DIGITS and fmt != "iso8601":
         try:
@@ -273,18 +283,33 @@ def times_column(src: SparkSource, df: DataFrame, name: str, notes: list[str], f
     flag = ~F.col("_blank") & F.col("_t").isNull()
     naive = F.sum((~F.col("_blank") & (~F.col("_t_text").rlike(_ZONE) if fmt == "iso8601" else F.lit(True)))
                   .cast("long"))
-    stats = probe.agg(F.sum(flag.cast("long")).alias("bad"), naive.alias("naive")).collect()[0]
+    stats = probe.agg(F.sum(flag.cast("long")).alias("bad"), naive.alias("naive"),
+                      F.sum(_far().cast("long")).alias("far")).collect()[0]
     bad, n_naive = int(stats["bad"] or 0), int(stats["naive"] or 0)
     if bad:
         hits = probe.where(flag).orderBy(*POS).select("_t_text").limit(100).collect()
         samples = [str(float(r[0])) if numeric else r[0] for r in hits]
         raise bad_times(src, name, bad, src.rows(positions(probe, flag), bad), samples, fmt, where)  # type: ignore[arg-type]
+    _no_far_times(src, probe, name, int(stats["far"] or 0))
     if n_naive and fmt == "iso8601":
         notes.append(f"{src.path.name}: {n_naive:,} time(s) in '{name}' have no zone; read as UTC")
     elif n_naive and fmt not in EPOCH_DIGITS:  # the patterns read here have no zone directive
         notes.append(f"{src.path.name}: times in '{name}' ({fmt!r}) have no zone; read as UTC")
     blank, parsed = _parser(fmt, dtype, text, col(name))
     return F.when(blank, F.lit(None)).otherwise(parsed)
+
+
+def _far() -> Column:
+    """True for a time (`_t`, microseconds) outside the years 1678-2261, which the pandas engine cannot hold."""
+    return F.col("_t").isNotNull() & ((F.col("_t") < F.lit(T_MIN_US)) | (F.col("_t") >= F.lit(T_MAX_US)))
+
+
+def _no_far_times(src: SparkSource, probe: DataFrame, name: str, n: int) -> None:
+    """`audit.read.far_times` when `n` times (microseconds in the probe's `_t`) lie outside 1678-2261."""
+    if n:
+        first = probe.where(_far()).orderBy(*POS).select("_t").first()[0]  # type: ignore[index]
+        example = pd.Timestamp(np.datetime64(int(first), "us")).tz_localize("UTC")
+        raise far_times(src, name, n, src.rows(positions(probe, _far()), n), example)
 
 
 def _parser(fmt: str, dtype: T.DataType, text: Column, raw: Column) -> tuple[Column, Column]:

@@ -299,3 +299,67 @@ def test_strftime_directive_without_a_match_is_named(spark: Any, tmp_path: Path)
     path.write_text("unit_id,first_seen,arm\na,05 Jan 2026,holdout\n", encoding="utf-8")
     with pytest.raises(InputError, match=r"%b"):
         _spark_engine(spark).compute(spec, Inputs(path), None, lambda n: None)
+
+
+# -- the engines' common ground: years 1678-2261, microseconds, decimals --------------------------------
+
+@pytest.mark.parametrize("case", ["csv_iso_past", "csv_strftime_past", "parquet_future", "parquet_naive_past"])
+def test_times_outside_the_range_same_error(spark: Any, tmp_path: Path, case: str) -> None:
+    """The pandas engine holds nanoseconds since 1970 in 64 bits (years 1678-2261); Spark holds more.
+    A time outside that range is an input error on both, word for word (it was accepted by Spark,
+    or a traceback for years after 2262)."""
+    import datetime as dt
+
+    fmt = "%d/%m/%Y %H:%M" if "strftime" in case else "iso8601"
+    spec = _with_formats(_spec("two_arms"), fmt, "iso8601", "iso8601", bare=True)
+    if case.startswith("csv"):
+        path = tmp_path / "v.csv"
+        good, far = (("05/01/2026 10:00", "05/01/1500 10:00") if "strftime" in case
+                     else ("2026-01-05T10:00:00Z", "1500-01-05T10:00:00.25Z"))
+        path.write_text(f"unit_id,first_seen,arm\na,{good},holdout\nb,{far},holdout\nc,{far},exposed\n", encoding="utf-8")
+    else:
+        path = tmp_path / "v.parquet"
+        tz = None if "naive" in case else dt.timezone.utc
+        year = 2300 if "future" in case else 1500
+        times = [dt.datetime(2026, 1, 5, 10, tzinfo=tz), dt.datetime(year, 1, 5, 10, tzinfo=tz),
+                 dt.datetime(year, 1, 5, 10, tzinfo=tz)]
+        pq.write_table(pa.table({"unit_id": ["a", "b", "c"], "first_seen": pa.array(times, pa.timestamp("us", tz and "UTC")),
+                                 "arm": ["holdout", "holdout", "exposed"]}), path)
+    msgs = []
+    for engine in (PandasEngine(), _spark_engine(spark)):
+        with pytest.raises(InputError) as exc:
+            engine.compute(spec, Inputs(path), None, lambda n: None)
+        msgs.append(str(exc.value))
+    assert msgs[0] == msgs[1], msgs
+    assert "2 time(s) outside the years 1678-2261" in msgs[0] and ("lines 3, 4" in msgs[0] or "rows 2, 3" in msgs[0])
+
+
+def test_nanoseconds_and_decimals_parity(spark: Any, tmp_path: Path) -> None:
+    """Digits below the microsecond are dropped by both engines (Spark's timestamps have none), so
+    two exposure rows a few nanoseconds apart are one event logged twice on both; a decimal
+    covariate is read as the nearest double on both."""
+    from decimal import Decimal
+
+    spec = _spec("ninety_ten", salt="parity-nanos")
+    d = spec.model_dump(mode="json")
+    d["audit"] = {"segments": [], "covariates": ["spend"], "categorical_covariates": [],
+                  "exposures": {"unit_id": "unit_id", "time": "at", "campaign": "campaign", "kind": "kind"}}
+    spec = spec_from_dict(d)
+    n = 300
+    ids = [f"n{i:04d}" for i in range(n)]
+    base = pd.Timestamp("2026-01-06T00:00:00Z").value
+    ns = [base + i * 3_600_000_000_000 + 987_654_321 for i in range(n)]
+    pq.write_table(pa.table({"unit_id": ids, "first_seen": pa.array(ns, pa.timestamp("ns", "UTC")),
+                             "arm": [arm_for(spec, u) for u in ids],
+                             "spend": pa.array([Decimal(i * 37 % 1000).scaleb(-2) for i in range(n)],
+                                               pa.decimal128(12, 2))}), tmp_path / "v.parquet")
+    stamp = lambda t, extra: pd.Timestamp(t + extra).strftime("%Y-%m-%dT%H:%M:%S.%f") + f"{extra % 1000:03d}Z"  # noqa: E731
+    rows = ["unit_id,at,campaign,kind"]
+    for i in range(0, n, 3):  # each row twice, 1 ns and 2 ns later (the same microsecond)
+        t = ns[i] - 987_654_321 + 5 * 3_600_000_000_000 + 123_456_000
+        rows += [f"{ids[i]},{stamp(t, 1)},c1,impression", f"{ids[i]},{stamp(t, 2)},c1,impression"]
+    (tmp_path / "e.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    p, s = _both(spark, spec, Inputs(tmp_path / "v.parquet", tmp_path / "e.csv"))
+    assert_parity(spec, p, s)
+    assert p.counts["exposure_duplicate_rows"] == n // 3
+    assert p.tables.integrity.first_seen_min.endswith(".987654+00:00")
