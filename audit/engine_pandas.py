@@ -398,8 +398,12 @@ def compute(spec: Spec, fr: Frames, early: Future[VisitArms] | None = None) -> A
     tables.extra["hashed_arm"] = hashed  # per visits row, spec order: the readout's intent-to-treat arm
     if fr.exposures is not None or fr.identities is not None:
         vset = arrow_ids(v[UNIT]).combine_chunks()
-        if fr.exposures is not None:
-            tables.leakage = leakage_tables(spec, fr, eff, vset)
-        if fr.identities is not None:
-            tables.churn = churn_tables(spec, fr, eff, vset)
+        # the churn tables on a worker thread while the leakage tables are counted here: both are
+        # mostly Arrow and numpy work, which releases Python's lock, so on two cores they overlap
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="armlock-churn") as pool:
+            churn = pool.submit(churn_tables, spec, fr, eff, vset) if fr.identities is not None else None
+            if fr.exposures is not None:
+                tables.leakage = leakage_tables(spec, fr, eff, vset)
+            if churn is not None:
+                tables.churn = churn.result()
     return tables
