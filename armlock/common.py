@@ -34,7 +34,8 @@ SPARK_MASTER: Any = typer.Option(
 SPARK_CONF: Any = typer.Option(
     None, "--spark-conf", metavar="KEY=VALUE",
     help="With --engine spark: a Spark setting for the session it starts (repeatable), e.g. "
-         "spark.executor.memory=8g. spark-defaults.conf and spark-submit --conf also apply.")
+         "spark.executor.memory=8g. spark-defaults.conf (SPARK_CONF_DIR), PYSPARK_SUBMIT_ARGS and "
+         "spark-submit --conf also apply.")
 
 
 def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str] | None) -> dict[str, str]:
