@@ -393,18 +393,21 @@ def far_times(src: Source, col: str, n: int, first: str, example: pd.Timestamp) 
                       f"(first: {first}; e.g. {example}); check the export or the time format")
 
 
-def _whole_micros(ns: pd.Series) -> pd.Series:
-    """datetime64[ns, UTC] times with the digits below the microsecond dropped (rounded down).
+def _whole_micros(times: pd.Series) -> pd.Series:
+    """UTC times as datetime64[ns, UTC] with the digits below the microsecond dropped (rounded down).
 
     Every engine holds times to the microsecond (Spark's timestamps have no finer digits), so a
-    nanosecond in the input never makes two engines disagree on an order or a duplicate."""
-    v = ns.array.asi8
+    nanosecond in the input never makes two engines disagree on an order or a duplicate. Times of
+    a coarser unit have no such digits: they are only widened."""
+    if times.dt.unit != "ns":
+        return times.dt.as_unit("ns")
+    v = times.array.asi8
     below = v % 1000  # numpy's % takes the divisor's sign: times before 1970 round down too
     below[v == np.iinfo(np.int64).min] = 0  # NaT (an empty cell) stays NaT
     if not below.any():
-        return ns
+        return times
     out = v - below
-    return pd.Series(pd.DatetimeIndex(out.view("datetime64[ns]"), tz="UTC"), name=ns.name)
+    return pd.Series(pd.DatetimeIndex(out.view("datetime64[ns]"), tz="UTC"), name=times.name)
 
 
 def _range_checked(src: Source, col: str, parsed: pd.Series) -> pd.Series:
@@ -412,7 +415,7 @@ def _range_checked(src: Source, col: str, parsed: pd.Series) -> pd.Series:
     far = np.flatnonzero(((parsed < _T_MIN) | (parsed >= _T_MAX)).fillna(False).to_numpy(dtype=bool))
     if len(far):
         raise far_times(src, col, len(far), src.rows(far), parsed.iloc[far[0]].as_unit("us"))
-    return _whole_micros(parsed.dt.as_unit("ns"))
+    return _whole_micros(parsed)
 
 
 def _inside(values: pa.ChunkedArray) -> bool:
@@ -509,9 +512,9 @@ def decimal_floats(arr: pa.ChunkedArray) -> np.ndarray:
     t = arr.type
     if t.precision > 18:
         return np.array([np.nan if v is None else float(v) for v in arr.to_pylist()], dtype=np.float64)
+    width = t.byte_width  # 4, 8, 16 or 32 bytes, little-endian two's complement
     parts = []
     for chunk in arr.chunks:
-        width = t.byte_width  # 4, 8, 16 or 32 bytes, little-endian two's complement
         words = np.frombuffer(chunk.buffers()[1], dtype=np.int32 if width == 4 else np.int64)
         low = words.reshape(-1, max(width // 8, 1))[:, 0][chunk.offset:chunk.offset + len(chunk)]
         x = low.astype(np.float64) / float(10 ** t.scale)  # up to 18 digits: the low word is the value
@@ -525,8 +528,7 @@ def read_numbers(src: Source, table: pa.Table, col: str) -> pd.Series:
     """A numeric covariate as float64 (NaN for empty cells); text that is not a number raises.
 
     Decimals are read by `decimal_floats`. Integers beyond 2^53 (even beyond int64) become the
-    nearest float; +/-infinity passes through
-    (the balance tables count it as invalid and note it).
+    nearest float; +/-infinity passes through (the balance tables count it as invalid and note it).
     """
     arr = _arrow(table, col)
     if pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type) or pa.types.is_boolean(arr.type):

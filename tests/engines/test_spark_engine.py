@@ -211,6 +211,16 @@ def _hostile_spec(spec: Spec) -> Spec:
 
 # -- errors ------------------------------------------------------------------------------------------
 
+def _errors_of_both(spark: Any, spec: Spec, inputs: Inputs) -> list[str]:
+    """The input error each engine gives for the same inputs (pandas first)."""
+    msgs = []
+    for engine in (PandasEngine(), _spark_engine(spark)):
+        with pytest.raises(InputError) as exc:
+            engine.compute(spec, inputs, None, lambda n: None)
+        msgs.append(str(exc.value))
+    return msgs
+
+
 def test_same_errors(spark: Any, tmp_path: Path) -> None:
     spec = _spec("two_arms")
     pq.write_table(pa.table({"uid": ["a"], "first_seen": ["2026-01-06T00:00:00Z"]}), tmp_path / "v.parquet")
@@ -220,11 +230,7 @@ def test_same_errors(spark: Any, tmp_path: Path) -> None:
     bare = _with_formats(spec, "iso8601", "iso8601", "iso8601", bare=True)  # reaches the bad time itself
     for s, path, said in ((spec, tmp_path / "v.parquet", "unit_id"), (bare, bad, "next tuesday"),
                           (spec, tmp_path / "missing.parquet", "missing.parquet")):
-        msgs = []
-        for engine in (PandasEngine(), _spark_engine(spark)):
-            with pytest.raises(InputError) as exc:
-                engine.compute(s, Inputs(path), None, lambda n: None)
-            msgs.append(str(exc.value))
+        msgs = _errors_of_both(spark, s, Inputs(path))
         assert msgs[0] == msgs[1] and said in msgs[0], msgs
 
 
@@ -284,11 +290,7 @@ def test_time_format_errors_match(spark: Any, tmp_path: Path, fmt: str, cell: st
     good = "1767607200" if fmt == "epoch_seconds" else ("1767607200000" if fmt.startswith("epoch") else "05/01/2026 10:00")
     path = tmp_path / "v.csv"
     path.write_text(f"unit_id,first_seen,arm\na,{good},holdout\nb,{cell},holdout\nc,{cell},exposed\n", encoding="utf-8")
-    msgs = []
-    for engine in (PandasEngine(), _spark_engine(spark)):
-        with pytest.raises(InputError) as exc:
-            engine.compute(spec, Inputs(path), None, lambda n: None)
-        msgs.append(str(exc.value))
+    msgs = _errors_of_both(spark, spec, Inputs(path))
     assert msgs[0] == msgs[1]
     assert "lines 3, 4" in msgs[0] and "first_seen_format" in msgs[0] and repr(cell) in msgs[0]
 
@@ -325,11 +327,7 @@ def test_times_outside_the_range_same_error(spark: Any, tmp_path: Path, case: st
                  dt.datetime(year, 1, 5, 10, tzinfo=tz)]
         pq.write_table(pa.table({"unit_id": ["a", "b", "c"], "first_seen": pa.array(times, pa.timestamp("us", tz and "UTC")),
                                  "arm": ["holdout", "holdout", "exposed"]}), path)
-    msgs = []
-    for engine in (PandasEngine(), _spark_engine(spark)):
-        with pytest.raises(InputError) as exc:
-            engine.compute(spec, Inputs(path), None, lambda n: None)
-        msgs.append(str(exc.value))
+    msgs = _errors_of_both(spark, spec, Inputs(path))
     assert msgs[0] == msgs[1], msgs
     assert "2 time(s) outside the years 1678-2261" in msgs[0] and ("lines 3, 4" in msgs[0] or "rows 2, 3" in msgs[0])
 
