@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+import os
 from pathlib import Path
 from typing import Any
 
@@ -14,6 +16,33 @@ from .common import emit, err
 FORMATS = ("text", "markdown", "json", "html")
 
 
+def _number(part: str, flag: str) -> float:
+    try:
+        v = float(part)
+    except ValueError:
+        raise typer.BadParameter(f"{part!r} is not a number", param_hint=flag) from None
+    if not math.isfinite(v):
+        raise InputError(f"{flag}: must be a finite number, got {part}")
+    return v
+
+
+def parse_fraction(text: str | None, flag: str, *, lift: bool = False) -> float | None:
+    """'8%' -> 0.08, '0.08' -> 0.08. A bare number above 1 is refused with the fix ('did you mean 8%?'):
+    a share cannot exceed 1, and a lift of +800% is almost always a percent typed without its sign."""
+    if text is None:
+        return None
+    t = text.strip()
+    if t.endswith("%"):
+        return _number(t[:-1].strip(), flag) / 100
+    v = _number(t, flag)
+    if v > 1:
+        if lift:
+            raise InputError(f"{flag}: {t} would mean +{v * 100:,.6g}%; did you mean {t}%? Write {t}% or "
+                             f"{v / 100:g} (or {v * 100:,.6g}% if you really mean it)")
+        raise InputError(f"{flag}: {t} is not a share between 0 and 1; did you mean {t}%? Write {t}% or {v / 100:g}")
+    return v
+
+
 def parse_shares(text: str) -> list[float]:
     """'5%,10%,0.2' -> [0.05, 0.1, 0.2]; a bare number must be a share in (0, 1)."""
     out = []
@@ -23,7 +52,8 @@ def parse_shares(text: str) -> list[float]:
         except ValueError:
             raise InputError(f"--holdout-shares: {part!r} is not a share; write 0.05 or 5%") from None
         if not 0 < v < 1:
-            raise InputError(f"--holdout-shares: {part} is outside (0, 1); write 0.05 or 5%")
+            hint = f"; did you mean {part}%?" if not part.endswith("%") and 1 < v < 100 else ""
+            raise InputError(f"--holdout-shares: {part} is outside (0, 1){hint}; write 0.05 or 5%")
         out.append(round(v, 10))
     if not out:
         raise InputError("--holdout-shares: give at least one share, e.g. 5%,10%,20%")
@@ -31,35 +61,45 @@ def parse_shares(text: str) -> list[float]:
 
 
 def parse_weeks(text: str) -> list[int]:
-    """'2-26' or '2,4,8,12' (or both, comma-separated) -> whole weeks."""
-    out: list[int] = []
+    """'2-26' or '2,4,8,12' (or both, comma-separated) -> whole weeks, each from 1 to MAX_WEEKS."""
+    from armlock.plan.compute import MAX_WEEKS
+
+    out: set[int] = set()
     for part in filter(None, (p.strip() for p in text.split(","))):
         lo, dash, hi = part.partition("-")
         try:
-            nums = list(range(int(lo), int(hi) + 1)) if dash else [int(part)]
+            ends = (int(lo), int(hi)) if dash else (int(part), int(part))
         except ValueError:
             raise InputError(f"--weeks: {part!r} is not a whole number of weeks or a range like 2-26") from None
-        if dash and not nums:
+        if dash and ends[1] < ends[0]:
             raise InputError(f"--weeks: {part!r} runs from high to low; write it as {hi.strip()}-{lo.strip()}")
-        if min(nums) < 1:
+        if ends[0] < 1:
             raise InputError(f"--weeks: {part!r} must give whole weeks of at least 1")
-        out += nums
+        if ends[1] > MAX_WEEKS:
+            raise InputError(f"--weeks: {part!r} goes beyond {MAX_WEEKS} weeks (10 years), the longest a plan "
+                             "considers")
+        out.update(range(ends[0], ends[1] + 1))
     if not out:
         raise InputError("--weeks: give at least one duration, e.g. 2-26")
-    return sorted(set(out))
+    return sorted(out)
 
 
-def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | None, orders_revenue: str | None) -> Any:
+def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | None, orders_revenue: str | None,
+             visits_unit: str | None = None, visits_time: str | None = None) -> Any:
+    """Where the pre-period files' columns are: the options, else the spec's maps, else the default names; each
+    column remembers who named it, so an error quotes the option or the spec setting actually used."""
     from armlock.plan.estimate import PrePeriodColumns
 
     kw: dict[str, Any] = {}
+    named: dict[str, str] = {}
     if spec_path is not None:
         from armlock.assign import load_spec
 
         spec = load_spec(spec_path)  # the column maps only: planning does not use the split, so no lock check
         kw.update(unit_id=spec.audit.visits.unit_id, first_seen=spec.audit.visits.first_seen,
-                  covariates=tuple(spec.audit.covariates), visits_delimiter=spec.audit.visits.delimiter,
+                  visits_delimiter=spec.audit.visits.delimiter,
                   first_seen_format=spec.audit.visits.first_seen_format)
+        named.update(unit_id=f"{spec_path}: [audit.visits] unit_id", first_seen=f"{spec_path}: [audit.visits] first_seen")
         ro = getattr(spec, "readout", None)  # the readout's [readout] tables, in specs that carry them
         orders = getattr(ro, "orders", None)
         if orders is not None:
@@ -70,15 +110,22 @@ def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | N
                       orders_revenue=getattr(orders, "revenue", "revenue"),
                       orders_order_id=getattr(orders, "order_id", "") or "",
                       orders_delimiter=getattr(orders, "delimiter", ",") or ",")
-        if getattr(ro, "covariates", None):
-            kw["covariates"] = tuple(dict.fromkeys([*ro.covariates, *spec.audit.covariates]))
+            named.update(orders_unit_id=f"{spec_path}: [readout.orders] unit_id",
+                         orders_revenue=f"{spec_path}: [readout.orders] revenue")
+        if ro is not None:  # the covariates the readout will adjust with (none: the readout uses no CUPED)
+            kw["covariates"] = tuple(getattr(ro, "covariates", ()) or ())
+            named["covariates"] = f"{spec_path}: [readout] covariates"
     if covariate:
-        kw.update(covariates=(covariate,), covariate_explicit=True)
-    if orders_unit:
-        kw["orders_unit_id"] = orders_unit
-    if orders_revenue:
-        kw["orders_revenue"] = orders_revenue
-    return PrePeriodColumns(**kw)
+        kw["covariates"] = tuple(c.strip() for c in covariate.split(",") if c.strip())
+        named["covariates"] = "--covariate"
+    for key, value, flag in (("unit_id", visits_unit, "--visits-unit-column"),
+                             ("first_seen", visits_time, "--visits-time-column"),
+                             ("orders_unit_id", orders_unit, "--orders-unit-column"),
+                             ("orders_revenue", orders_revenue, "--orders-revenue-column")):
+        if value:
+            kw[key] = value
+            named[key] = flag
+    return PrePeriodColumns(**kw, named_by=named)
 
 
 def carry_plan_into_spec_text(text: str, *, planned_units: int, margin: float | None, alpha: float,
@@ -111,32 +158,73 @@ def carry_plan_into_spec_text(text: str, *, planned_units: int, margin: float | 
     return text[:start] + section + text[end:]
 
 
+def write_spec_atomically(name: str, share: float, dest: Path, *, force: bool, carry: dict[str, Any]) -> Any:
+    """Render the spec (as `armlock init` does, fresh salt), carry the plan into its `[readout]` table, validate
+    it from a temporary file in the destination's folder and only then rename it into place: an invalid spec
+    is never left on disk."""
+    import tempfile
+
+    from armlock.assign import load_spec
+    from armlock.assign.init import render_spec_toml
+    from armlock.assign.spec import share_to_basis_points
+
+    if dest.is_dir():
+        raise SpecError(f"--spec-out {dest}: is a folder; give the spec's file name, e.g. {dest / (name + '.toml')}")
+    if dest.exists() and not force:
+        raise SpecError(f"{dest}: already exists; choose another --spec-out or pass --force")
+    try:
+        h = share_to_basis_points(share)
+    except ValueError as exc:
+        raise SpecError(f"--write-spec: {exc}") from None
+    text = carry_plan_into_spec_text(render_spec_toml(name, [("holdout", h), ("exposed", 10_000 - h)]), **carry)
+    folder = dest.parent if str(dest.parent) else Path(".")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".tmp", dir=folder)
+    except OSError as exc:
+        raise SpecError(f"{dest}: cannot write: {exc.strerror}") from None
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            f.write(text)
+        spec = load_spec(tmp)  # the spec as written must validate, or nothing is left behind
+        os.replace(tmp, dest)
+    except OSError as exc:
+        raise SpecError(f"{dest}: cannot write: {exc.strerror}") from None
+    except SpecError as exc:
+        raise SpecError(f"--write-spec: no spec written, because it would not validate: {exc}") from None
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+    return spec
+
+
 def plan_cmd(
     weekly_units: float = typer.Option(None, "--weekly-units", help="New units (visitors) a week who would enter the test."),
     revenue_mean: float = typer.Option(None, "--revenue-mean", help="Revenue per unit over the test, mean (units without orders count 0)."),
     revenue_sd: float = typer.Option(None, "--revenue-sd", help="Revenue per unit, standard deviation (often 5-20 times the mean)."),
-    conversion: float = typer.Option(None, "--conversion", help="Instead of mean and SD: the share of units that order, e.g. 0.02."),
+    conversion: str = typer.Option(None, "--conversion", help="Instead of mean and SD: the share of units that order, e.g. 2% or 0.02."),
     order_value: float = typer.Option(None, "--order-value", help="With --conversion: average order value."),
     order_value_sd: float = typer.Option(None, "--order-value-sd", help="With --conversion: SD of order values (default 0, which understates the spread)."),
-    exposure_rate: float = typer.Option(1.0, "--exposure-rate", help="Share of the exposed arm the vendor actually reaches (0-1]; dilutes the effect."),
-    effect: float = typer.Option(None, "--effect", help="Target: extra revenue per exposed (reached) unit."),
-    lift: float = typer.Option(None, "--lift", help="Target: relative lift per exposed unit, e.g. 0.05 for +5% of revenue per unit."),
+    exposure_rate: str = typer.Option(None, "--exposure-rate", help="Share of the exposed arm the vendor actually reaches, e.g. 60% (default 100%, full reach); dilutes the effect."),
+    effect: float = typer.Option(None, "--effect", help="Target: extra revenue per reached unit (in currency)."),
+    lift: str = typer.Option(None, "--lift", help="Target: relative lift per reached unit, e.g. 5% or 0.05."),
     target_iroas: float = typer.Option(None, "--target-iroas", help="Target: incremental revenue per unit of spend (needs --weekly-spend)."),
-    weekly_spend: float = typer.Option(None, "--weekly-spend", help="The channel's weekly spend with nobody held out."),
-    margin: float = typer.Option(None, "--margin", help="Gross margin as a share of revenue, e.g. 0.4 (break-even iROAS = 1 / margin)."),
-    alpha: float = typer.Option(0.05, "--alpha", help="Two-sided significance level."),
-    power: float = typer.Option(0.8, "--power", help="Power to plan for."),
+    weekly_spend: float = typer.Option(None, "--weekly-spend", help="The channel's weekly spend during the test (all of it on the exposed arm; the readout divides by the whole spend)."),
+    margin: str = typer.Option(None, "--margin", help="Gross margin as a share of revenue, e.g. 40% (break-even iROAS = 1 / margin)."),
+    alpha: str = typer.Option("5%", "--alpha", help="Two-sided significance level, below 50%."),
+    power: str = typer.Option("80%", "--power", help="Power to plan for, at least 50%."),
     equal_variance: bool = typer.Option(False, "--equal-variance", help="Plan with the textbook formula (both arms keep the same SD under the effect) instead of letting the exposed arm's variance grow with the effect."),
-    rho: float = typer.Option(None, "--rho", help="Correlation of revenue with its pre-period covariate, for CUPED (default 0, or estimated from --visits)."),
+    rho: float = typer.Option(None, "--rho", help="Correlation of revenue with the readout's pre-period covariate, for CUPED (default 0, or estimated from --visits)."),
     visits: Path = typer.Option(None, "--visits", help="Pre-period visits file (CSV, CSV.gz, Parquet): one row per unit, first-seen time, pre-period columns."),
     orders: Path = typer.Option(None, "--orders", help="Pre-period orders file: unit id and revenue per order."),
-    spec_path: Path = typer.Option(None, "--spec", "-s", help="A spec whose column maps ([audit.visits], [readout.orders]) name the files' columns (default names otherwise)."),
-    covariate: str = typer.Option(None, "--covariate", help="Visits column to use for CUPED (default: the spec's covariates, best correlated)."),
+    spec_path: Path = typer.Option(None, "--spec", "-s", help="A spec whose column maps ([audit.visits], [readout.orders]) and [readout] covariates name the files' columns (default names otherwise)."),
+    covariate: str = typer.Option(None, "--covariate", help="Visits column(s) the readout will use for CUPED, comma-separated (default: the spec's [readout] covariates, else pre_revenue)."),
+    visits_unit: str = typer.Option(None, "--visits-unit-column", help="Visits column with the unit id (default unit_id)."),
+    visits_time: str = typer.Option(None, "--visits-time-column", help="Visits column with the first-seen time (default first_seen)."),
     orders_unit: str = typer.Option(None, "--orders-unit-column", help="Orders column with the unit id (default unit_id)."),
     orders_revenue: str = typer.Option(None, "--orders-revenue-column", help="Orders column with the revenue (default revenue)."),
     holdout_shares: str = typer.Option("5%,10%,20%,30%,50%", "--holdout-shares", help="Holdout shares to compare, e.g. 5%,10%,20% or 0.05,0.1."),
-    weeks: str = typer.Option("2-26", "--weeks", help="Durations in weeks: a range 2-26 or a list 2,4,8."),
-    max_weeks: int = typer.Option(12, "--max-weeks", help="The longest test you would run; the advice picks the smallest share that fits."),
+    weeks: str = typer.Option("2-26", "--weeks", help="Durations in weeks: a range 2-26 or a list 2,4,8 (at most 520)."),
+    max_weeks: int = typer.Option(12, "--max-weeks", help="The longest test you would run."),
     fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Output format: {', '.join(FORMATS)}."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the plan to this file instead of stdout."),
     write_spec: str = typer.Option(None, "--write-spec", help="Also write a spec NAME.toml with the recommended holdout share (as `armlock init` does)."),
@@ -148,14 +236,15 @@ def plan_cmd(
     the weeks the target needs, what reading every week costs, and a one-sentence recommendation.
 
     Give the shop as numbers, or as pre-period files (--visits and --orders) from which traffic, revenue
-    per unit, conversion and rho are estimated; numbers given as options override the estimates.
+    per unit, conversion and rho are estimated; numbers given as options override the estimates. Shares
+    and levels take a percent (8%) or a fraction (0.08); a bare number above 1 is refused.
 
     Exit codes: 0 ok, 2 usage (an option that is not a number), 4 bad input (a number out of range,
     a file or column missing, --write-spec without a recommendation).
 
     Example:
-      armlock plan --weekly-units 40000 --revenue-mean 7 --revenue-sd 75 --exposure-rate 0.6 \\
-          --effect 0.35 --weekly-spend 12000 --margin 0.4 --rho 0.3 --write-spec spring-retargeting
+      armlock plan --weekly-units 40000 --revenue-mean 7 --revenue-sd 75 --exposure-rate 60% \\
+          --effect 0.35 --weekly-spend 12000 --margin 40% --rho 0.3 --write-spec spring-retargeting
     """
     from armlock.plan.compute import make_plan
     from armlock.plan.model import PlanInputs
@@ -163,6 +252,12 @@ def plan_cmd(
 
     if fmt not in FORMATS:
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}", param_hint="--format")
+    reach = parse_fraction(exposure_rate, "--exposure-rate")
+    the_lift = parse_fraction(lift, "--lift", lift=True)
+    the_margin = parse_fraction(margin, "--margin")
+    the_alpha = parse_fraction(alpha, "--alpha")
+    the_power = parse_fraction(power, "--power")
+    the_conversion = parse_fraction(conversion, "--conversion")
     shares, week_list = parse_shares(holdout_shares), parse_weeks(weeks)
     if write_spec is not None:  # refuse before any work, so a plan is never printed for a spec that cannot be written
         import re
@@ -181,34 +276,43 @@ def plan_cmd(
     if (visits is None) != (orders is None):
         raise InputError("give both --visits and --orders to estimate from pre-period files (or neither, "
                          "and give the numbers)")
+    file_options = {"--spec": spec_path, "--covariate": covariate, "--visits-unit-column": visits_unit,
+                    "--visits-time-column": visits_time, "--orders-unit-column": orders_unit,
+                    "--orders-revenue-column": orders_revenue}
     if visits is not None and orders is not None:
         from armlock.plan.estimate import estimate_pre_period
 
-        pre = estimate_pre_period(visits, orders, _columns(spec_path, covariate, orders_unit, orders_revenue))
+        cols = _columns(spec_path, covariate, orders_unit, orders_revenue, visits_unit, visits_time)
+        pre = estimate_pre_period(visits, orders, cols)
         found, estimates, notes = pre.values, pre.estimates, pre.notes
-    elif spec_path is not None or covariate or orders_unit or orders_revenue:
-        raise InputError("--spec, --covariate and the orders column options only apply with --visits and --orders")
+    elif any(v is not None for v in file_options.values()):
+        given_opts = [k for k, v in file_options.items() if v is not None]
+        raise InputError(f"{', '.join(given_opts)}: only apply with --visits and --orders (the pre-period files)")
     given = {k: v for k, v in {
         "weekly_units": weekly_units, "revenue_mean": revenue_mean, "revenue_sd": revenue_sd, "rho": rho,
     }.items() if v is not None}
     if given and found:
         notes.append("Given on the command line instead of the estimate: " + ", ".join(
             f"{k.replace('_', ' ')} {v:g}" for k, v in given.items()))
-    common = dict(exposure_rate=exposure_rate, effect=effect, lift=lift, target_iroas=target_iroas,
-                  weekly_spend=weekly_spend, margin=margin, alpha=alpha, power=power,
-                  equal_variance=equal_variance)
+    if reach is None:
+        notes.insert(0, "--exposure-rate was not given, so every unit of the exposed arm is assumed reached by the "
+                        "vendor (full reach); real reach is usually lower and dilutes the effect the arms show.")
+    common = dict(exposure_rate=1.0 if reach is None else reach, effect=effect, lift=the_lift,
+                  target_iroas=target_iroas, weekly_spend=weekly_spend, margin=the_margin, alpha=the_alpha,
+                  power=the_power, equal_variance=equal_variance)
     units = given.get("weekly_units", found.get("weekly_units"))
     the_rho = given.get("rho", found.get("rho", 0.0))
     if units is None:
         raise InputError("--weekly-units: how many new units a week would enter the test? (or give --visits and --orders)")
-    if conversion is not None or order_value is not None:
-        if conversion is None or order_value is None:
+    if the_conversion is not None or order_value is not None:
+        if the_conversion is None or order_value is None:
             raise InputError("--conversion and --order-value go together")
         if revenue_mean is not None or revenue_sd is not None:
             raise InputError("give revenue per unit as --revenue-mean and --revenue-sd, or as --conversion and "
                              "--order-value, not both")
-        inputs = PlanInputs.from_conversion(conversion=conversion, order_value=order_value,
-                                            order_value_sd=order_value_sd or 0.0, weekly_units=units, rho=the_rho, **common)
+        inputs = PlanInputs.from_conversion(conversion=the_conversion, order_value=order_value,
+                                            order_value_sd=order_value_sd or 0.0, weekly_units=units, rho=the_rho,
+                                            **common)
     else:
         if order_value_sd is not None:
             raise InputError("--order-value-sd goes with --conversion and --order-value")
@@ -223,6 +327,13 @@ def plan_cmd(
     if write_spec is not None and plan.recommendation.share is None:
         raise InputError(f"--write-spec: no spec written, because there is no recommended share "
                          f"({plan.recommendation.status}): {plan.recommendation.sentence}")
+    spec = None
+    if write_spec is not None:  # written (and validated) before the plan is printed: a failure leaves nothing
+        assert plan.recommendation.share is not None
+        weeks_planned = plan.recommendation.weeks or 0
+        spec = write_spec_atomically(write_spec, plan.recommendation.share, dest, force=force, carry=dict(
+            planned_units=int(round(inputs.weekly_units * weeks_planned)), margin=inputs.margin,
+            alpha=inputs.alpha, power=inputs.power))
     if fmt == "html":
         from armlock.plan.report_html import render_html
 
@@ -230,22 +341,9 @@ def plan_cmd(
     else:
         text = RENDERERS[fmt](plan)
     emit(text, out, what="the plan", done=f"Wrote {out} ({fmt}). {plan.recommendation.sentence}")
-    if write_spec is not None:
-        from .cmd_spec import write_new_spec
-
-        assert plan.recommendation.share is not None
-        target, spec = write_new_spec(write_spec, holdout_share=plan.recommendation.share, out=spec_out, force=force)
-        weeks_planned = plan.recommendation.weeks or 0
-        text = target.read_text(encoding="utf-8")
-        carried = carry_plan_into_spec_text(text, planned_units=int(round(inputs.weekly_units * weeks_planned)),
-                                            margin=inputs.margin, alpha=inputs.alpha, power=inputs.power)
-        if carried != text:  # the readout reads the test as planned: its anytime interval is tightest there
-            from armlock.assign import load_spec
-
-            target.write_text(carried, encoding="utf-8")
-            spec = load_spec(target)
+    if spec is not None:
         split = ", ".join(f"{a.name} {a.weight / 100:g}%" for a in spec.arms)
-        err(f"Wrote {target}  (arms: {split}; fingerprint {spec.fingerprint}); plan to run it "
+        err(f"Wrote {dest}  (arms: {split}; fingerprint {spec.fingerprint}); plan to run it "
             f"{plan.recommendation.weeks} weeks. Once the test starts, never change salt or weights.")
 
 

@@ -18,6 +18,8 @@ from .power import (
     conversion_mde, extra_variance, power_two_variances, se_difference, units_needed_two_variances, z_sum,
 )
 
+MAX_WEEKS = 520  # 10 years: the longest duration a plan considers (our choice; a grid is bounded)
+MAX_SHARES = 20  # holdout shares compared at once (our choice; the tables stay readable)
 SMALL_ARM = 1000  # below this many units in an arm the normal approximation is shaky (common practice)
 
 
@@ -30,13 +32,16 @@ def _check_grid(shares: Sequence[float], weeks: Sequence[int], max_weeks: int) -
         if abs(s * 10_000 - round(s * 10_000)) > 1e-6:
             raise InputError(f"--holdout-shares: {s!r} is not a whole number of basis points "
                              "(the split works in steps of 0.01%)")
+    if len(shares) > MAX_SHARES:
+        raise InputError(f"--holdout-shares: {len(shares)} shares; give at most {MAX_SHARES}")
     if not weeks:
         raise InputError("--weeks: give at least one duration")
     for w in weeks:
-        if not isinstance(w, int) or w < 1:
-            raise InputError(f"--weeks: {w!r} is not a whole number of weeks of at least 1")
-    if max_weeks < 1:
-        raise InputError(f"--max-weeks: must be at least 1, got {max_weeks}")
+        if not isinstance(w, int) or isinstance(w, bool) or not 1 <= w <= MAX_WEEKS:
+            raise InputError(f"--weeks: {w!r} is not a whole number of weeks from 1 to {MAX_WEEKS} (10 years)")
+    if not isinstance(max_weeks, int) or not 1 <= max_weeks <= MAX_WEEKS:
+        raise InputError(f"--max-weeks: must be a whole number of weeks from 1 to {MAX_WEEKS} (10 years), "
+                         f"got {max_weeks}")
 
 
 def pct(share: float) -> str:
@@ -262,7 +267,7 @@ def _assumptions(p: Plan) -> list[str]:
 def _notes(p: Plan) -> list[str]:
     x = p.inputs
     out = []
-    if x.conversion is not None and not x.order_value_sd:
+    if x.conversion is not None and x.order_value_sd is not None and x.order_value_sd == 0:
         out.append("Order values were taken as constant (no --order-value-sd): real order values vary, so the "
                    "revenue SD and every detectable effect here are understated.")
     if p.target_iroas is not None and p.break_even_iroas is not None and p.target_iroas < p.break_even_iroas:

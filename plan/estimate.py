@@ -32,11 +32,20 @@ class PrePeriodColumns:
     orders_unit_id: str = "unit_id"
     orders_revenue: str = "revenue"
     orders_order_id: str = ""  # optional: an order id repeated in the file is counted once (as the readout does)
-    covariates: Sequence[str] = ("pre_orders", "pre_revenue")  # tried in turn; the best correlated is used
-    covariate_explicit: bool = False  # True when the user named the covariate: then it must exist
+    covariates: Sequence[str] = ("pre_revenue",)  # the readout's CUPED covariates (its default: pre_revenue)
     visits_delimiter: str = ","  # CSV delimiters and the first-seen time format, as in the spec's column maps
     orders_delimiter: str = ","
     first_seen_format: str = "iso8601"
+    # field -> who named the column ("--covariate", "x.toml: [readout] covariates"); a field not here has its
+    # default name, which an error says instead of quoting a spec that was not given
+    named_by: dict[str, str] = field(default_factory=dict)
+
+    def origin(self, key: str) -> str:
+        return self.named_by.get(key, f"the default name; {_OPTION[key]} names another")
+
+
+_OPTION = {"unit_id": "--visits-unit-column", "first_seen": "--visits-time-column", "covariates": "--covariate",
+           "orders_unit_id": "--orders-unit-column", "orders_revenue": "--orders-revenue-column"}
 
 
 @dataclass
@@ -46,6 +55,10 @@ class PrePeriod:
     values: dict[str, float]
     estimates: list[Estimate] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    # 95% range of (revenue SD / mean)^2 and of the revenue variance, each as a ratio to its estimate: the
+    # weeks a target needs scale with the first (a --lift target) or the second (--effect, --target-iroas)
+    cv2_range: tuple[float, float] = (1.0, 1.0)
+    variance_range: tuple[float, float] = (1.0, 1.0)
 
 
 def _set_aside(src: Source, mask: np.ndarray, what: str, notes: list[str]) -> None:
@@ -54,15 +67,26 @@ def _set_aside(src: Source, mask: np.ndarray, what: str, notes: list[str]) -> No
         notes.append(f"{src.path.name}: {n:,} row(s) {what} ({src.rows(np.flatnonzero(mask), n)}) were set aside")
 
 
+def _present(path: Path, role: str, delimiter: str, want: dict[str, str], cols: PrePeriodColumns) -> list[str]:
+    """Refuse a named column the file lacks, saying who named it (an option, the spec, or the default)."""
+    present = _header(Source(path, role), delimiter, [])
+    for key, col in want.items():
+        if col not in present:
+            raise InputError(f"{path}: column '{col}' ({cols.origin(key)}) not found in the {role} file; the file "
+                             f"has columns: {', '.join(present) or '(none)'}")
+    return present
+
+
 def _visits(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.DataFrame, list[str], Source]:
-    if cols.covariate_explicit:
-        present = _header(Source(path, "visits"), cols.visits_delimiter, [])
-        for c in cols.covariates:
-            if c not in present:
-                raise InputError(f"{path}: column '{c}' (--covariate) not found in the visits file; the file has "
-                                 f"columns: {', '.join(present) or '(none)'}")
+    present = _present(path, "visits", cols.visits_delimiter, {"unit_id": cols.unit_id, "first_seen": cols.first_seen},
+                       cols)
+    missing = [c for c in cols.covariates if c not in present]
+    if missing and "covariates" in cols.named_by:  # the readout will need them: say so now
+        raise InputError(f"{path}: column '{missing[0]}' ({cols.origin('covariates')}) not found in the visits file; "
+                         f"the file has columns: {', '.join(present) or '(none)'}")
+    covs = [c for c in dict.fromkeys(cols.covariates) if c in present and c not in (cols.unit_id, cols.first_seen)]
     # the audit's one reader: BOM, delimiter, duplicate and nested columns, damaged files (audit/read.py)
-    optional = {f"covariate {c}": c for c in dict.fromkeys(cols.covariates) if c not in (cols.unit_id, cols.first_seen)}
+    optional = {f"covariate {c}": c for c in covs}
     mapped = read_mapped(path, "visits", "[audit.visits]", {"unit_id": cols.unit_id, "first_seen": cols.first_seen},
                          notes, optional=optional, delimiter=cols.visits_delimiter)
     src, table = mapped.src, mapped.table
@@ -87,6 +111,8 @@ def _visits(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Da
 
 
 def _orders(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Series, pd.Series, Source]:
+    _present(path, "orders", cols.orders_delimiter,
+             {"orders_unit_id": cols.orders_unit_id, "orders_revenue": cols.orders_revenue}, cols)
     mapped = read_mapped(path, "orders", "[readout.orders]",
                          {"unit_id": cols.orders_unit_id, "revenue": cols.orders_revenue}, notes,
                          optional={"order_id": cols.orders_order_id}, delimiter=cols.orders_delimiter)
@@ -120,7 +146,8 @@ def estimate_pre_period(visits: str | Path, orders: str | Path, columns: PrePeri
 
     A unit's revenue is the sum of its orders in the orders file (0 without orders); orders of units that
     are not in the visits file are counted and left out. rho is the correlation of revenue per unit with
-    the best-correlated numeric pre-period column of the visits file (the spec's covariates).
+    the covariates the readout will use (the spec's `[readout] covariates`, `--covariate`, else its default
+    pre_revenue); `PrePeriod` also carries the 95% sampling ranges of the variance and of (SD / mean)^2.
     """
     cols = columns or PrePeriodColumns()
     notes: list[str] = []
@@ -164,32 +191,73 @@ def estimate_pre_period(visits: str | Path, orders: str | Path, columns: PrePeri
         Estimate("conversion", buyers / n, n, f"{buyers:,} of {n:,} units ordered"),
         Estimate("order value (mean)", values["order_value"], buyers, f"{n_orders:,} orders of {buyers:,} buyers"),
     ]
-    best: tuple[float, str, int] | None = None
-    for c in covs:
-        x = frame[c].to_numpy(dtype=float)
-        ok = ~np.isnan(x)
-        if ok.sum() >= MIN_UNITS and np.std(x[ok]) > 0:
-            r = float(np.corrcoef(x[ok], y[ok])[0, 1])
-            if best is None or abs(r) > abs(best[0]):
-                best = (r, c, int(ok.sum()))
-            if not ok.all():
-                notes.append(f"{vsrc.path.name}: '{c}' is empty for {int((~ok).sum()):,} unit(s); rho uses the others")
-        else:
-            notes.append(f"{vsrc.path.name}: '{c}' does not vary (or has fewer than {MIN_UNITS} values); not used for CUPED")
-    if best is not None and abs(best[0]) < MIN_RHO:
-        notes.append(f"{vsrc.path.name}: the best pre-period column, '{best[1]}', correlates only {best[0]:.3f} with "
-                     f"revenue per unit (over {best[2]:,} units); too weak to plan on, so planned without CUPED")
-        best = None
-        covs = []
-    if best is not None:
-        values["rho"] = best[0]
-        others = [c for c in covs if c != best[1]]
-        est.append(Estimate("pre-period correlation (rho)", best[0], best[2],
-                            f"correlation of revenue per unit with '{best[1]}' over {best[2]:,} units"
-                            + (f" (the best of {', '.join([best[1], *others])})" if others else "")))
-    elif not covs and not any("too weak" in n for n in notes):
-        notes.append(f"{vsrc.path.name}: no pre-period column ({', '.join(cols.covariates) or 'none named'}) found; "
-                     "planned without CUPED")
+    rho = _readout_rho(frame, covs, y, cols, vsrc.path.name, notes)
+    if rho is not None:
+        values["rho"] = rho[0]
+        est.append(Estimate("pre-period correlation (rho)", rho[0], rho[1], rho[2]))
+    cv2, var = sampling_ranges(y)
+    values_range = PrePeriod(values=values, estimates=est, notes=notes, cv2_range=cv2, variance_range=var)
     notes.append("Revenue per unit is each unit's revenue from its first visit to the end of the orders file; "
                  "a test's window per unit may differ, so check the mean against the test you plan.")
-    return PrePeriod(values=values, estimates=est, notes=notes)
+    return values_range
+
+
+def sampling_ranges(y: np.ndarray, z: float = 1.959964) -> tuple[tuple[float, float], tuple[float, float]]:
+    """95% ranges, as ratios to the estimates, of the variance s^2 and of (s / mean)^2 from their sampling error.
+
+    Large-sample moments of the sample mean and variance (the delta method; e.g. Casella & Berger 2002,
+    Statistical Inference, §5.5.4, and Exercise 5.8 for Var(s^2)): Var(s^2) ~ (m4 - s^4) / n,
+    Cov(s^2, mean) ~ m3 / n, Var(mean) = s^2 / n, taken on the log scale so a range stays positive. It uses the
+    data's own fourth moment, not the chi-square interval (which holds for normal data only and is far too
+    narrow for skewed revenue); tests/plan/test_estimate.py checks it against a bootstrap.
+    """
+    n = len(y)
+    m, s2 = float(y.mean()), float(y.var(ddof=1))
+    d = y - m
+    m3, m4 = float(np.mean(d ** 3)), float(np.mean(d ** 4))
+    v_log_s2 = max(m4 - s2 ** 2, 0.0) / (n * s2 ** 2)
+    v_log_m = s2 / (n * m ** 2)
+    c = m3 / (n * s2 * m)
+    v_log_cv2 = max(v_log_s2 + 4 * v_log_m - 4 * c, 0.0)
+    def rng(v: float) -> tuple[float, float]:
+        return float(np.exp(-z * np.sqrt(v))), float(np.exp(z * np.sqrt(v)))
+    return rng(v_log_cv2), rng(v_log_s2)
+
+
+def _readout_rho(frame: pd.DataFrame, covs: list[str], y: np.ndarray, cols: PrePeriodColumns, name: str,
+                 notes: list[str]) -> tuple[float, int, str] | None:
+    """rho for the covariates the readout will use: the multiple correlation R of revenue per unit with all of
+    them (the readout's CUPED fits one pooled theta per covariate, which removes R^2 of the variance)."""
+    if not covs:
+        if "covariates" in cols.named_by and not cols.covariates:
+            notes.append(f"{cols.origin('covariates')} is empty: the readout will use no covariate, so planned "
+                         "without CUPED")
+        else:
+            notes.append(f"{name}: no covariate column of the readout ({', '.join(cols.covariates) or 'none named'}) "
+                         "found; planned without CUPED")
+        return None
+    x = frame[covs].to_numpy(dtype=float)
+    ok = ~np.isnan(x).any(axis=1)
+    if int((~ok).sum()):
+        notes.append(f"{name}: {int((~ok).sum()):,} unit(s) have an empty covariate ({', '.join(covs)}); rho uses "
+                     "the others")
+    xs, ys = x[ok], y[ok]
+    keep = [i for i in range(len(covs)) if len(xs) >= MIN_UNITS and np.std(xs[:, i]) > 0]
+    for i, c in enumerate(covs):
+        if i not in keep:
+            notes.append(f"{name}: '{c}' does not vary (or has fewer than {MIN_UNITS} values); it reduces no variance")
+    if not keep:
+        return None
+    xk = xs[:, keep] - xs[:, keep].mean(axis=0)
+    yc = ys - ys.mean()
+    beta, *_ = np.linalg.lstsq(xk, yc, rcond=None)  # the readout's pooled theta, Deng et al. 2013
+    r2 = max(0.0, 1.0 - float(np.sum((yc - xk @ beta) ** 2)) / float(np.sum(yc ** 2)))
+    r = float(np.sqrt(r2))
+    used = [covs[i] for i in keep]
+    if r < MIN_RHO:
+        notes.append(f"{name}: the readout's covariate(s) {', '.join(used)} correlate only {r:.3f} with revenue per "
+                     f"unit (over {len(ys):,} units); too weak to plan on, so planned without CUPED")
+        return None
+    how = (f"correlation of revenue per unit with '{used[0]}'" if len(used) == 1 else
+           f"multiple correlation of revenue per unit with {', '.join(repr(c) for c in used)}")
+    return r, len(ys), f"{how} over {len(ys):,} units, the covariate(s) the readout will use ({cols.origin('covariates')})"

@@ -20,8 +20,28 @@ FLAGS = {
     "conversion": "--conversion", "order_value": "--order-value", "order_value_sd": "--order-value-sd",
     "exposure_rate": "--exposure-rate", "effect": "--effect", "lift": "--lift",
     "target_iroas": "--target-iroas", "weekly_spend": "--weekly-spend", "margin": "--margin",
-    "alpha": "--alpha", "power": "--power", "rho": "--rho",
+    "alpha": "--alpha", "power": "--power", "rho": "--rho", "against": "--against",
 }
+
+
+# field -> (lowest, highest, what it is): magnitudes a shop can have (our choice); outside them the arithmetic
+# would overflow or the plan would be meaningless, so the user gets the range instead of an internal error
+RANGES = {
+    "weekly_units": (1.0, 1e9, "new units a week lie between 1 and 1,000,000,000"),
+    "revenue_mean": (1e-6, 1e9, "revenue per unit lies between 0.000001 and 1,000,000,000"),
+    "revenue_sd": (1e-6, 1e12, "the SD of revenue per unit lies between 0.000001 and 1,000,000,000,000"),
+    "exposure_rate": (1e-3, 1.0, "the share of the exposed arm reached lies between 0.1% and 100%"),
+    "effect": (1e-12, 1e12, "an effect per reached unit lies between 0.000000000001 and 1,000,000,000,000"),
+    "target_iroas": (1e-6, 1e6, "a target iROAS lies between 0.000001 and 1,000,000"),
+    "weekly_spend": (1e-6, 1e12, "weekly spend lies between 0.000001 and 1,000,000,000,000"),
+    "order_value": (1e-6, 1e9, "an order value lies between 0.000001 and 1,000,000,000"),
+    "order_value_sd": (0.0, 1e12, "the SD of order values lies between 0 and 1,000,000,000,000"),
+    "conversion": (1e-9, 1.0, "conversion lies between 0.0000001% and 100%"),
+    "margin": (1e-4, 1.0, "a gross margin lies between 0.01% and 100%"),
+}
+MAX_CV = 10_000  # revenue SD / mean above this is a unit or currency mix-up, not a shop (our choice)
+MAX_LIFT = 10.0  # +1000% per reached unit: the largest lift a plan sizes (our choice)
+AGAINST = ("zero", "break-even")  # what the test must tell the channel's effect from
 
 
 def _bad(name: str, why: str) -> InputError:
@@ -54,6 +74,8 @@ class PlanInputs:
     order_value: float | None = None
     order_value_sd: float | None = None
     equal_variance: bool = False  # True: the textbook formula, both arms with the same SD under the effect
+    against: str = "zero"  # "break-even": size the test to tell the target iROAS from break-even (1 / margin)
+    currency: str = ""  # shown beside amounts (e.g. USD); empty: amounts without a code
 
     def __post_init__(self) -> None:
         for name in ("weekly_units", "revenue_mean", "revenue_sd", "exposure_rate", "alpha", "power", "rho",
@@ -70,12 +92,23 @@ class PlanInputs:
         if self.revenue_sd <= 0:
             raise _bad("revenue_sd", f"must be positive, got {self.revenue_sd:g}: revenue that never varies "
                        "between units is not real data (check the SD, or give --conversion and --order-value)")
+        for name, (lo, hi, what) in RANGES.items():  # magnitudes a shop can have (our choice), so no number overflows
+            v = getattr(self, name)
+            if v is not None and not lo <= v <= hi:
+                raise _bad(name, f"{v:g} is out of range: {what}")
+        cv = self.revenue_sd / self.revenue_mean
+        if cv > MAX_CV:
+            raise _bad("revenue_sd", f"{self.revenue_sd:g} is {cv:,.0f} times the mean {self.revenue_mean:g}; above "
+                       f"{MAX_CV:,} times no normal-based plan holds (check that both are per unit, in one currency)")
         if not 0 < self.exposure_rate <= 1:
             raise _bad("exposure_rate", f"must lie in (0, 1], got {self.exposure_rate:g} (the share of the "
-                       "exposed arm the vendor actually reaches)")
-        for name in ("alpha", "power"):
-            if not 0 < getattr(self, name) < 1:
-                raise _bad(name, f"must lie in (0, 1), got {getattr(self, name):g}")
+                       "exposed arm the vendor actually reaches; write 60% or 0.6)")
+        if not 1e-6 <= self.alpha < 0.5:
+            raise _bad("alpha", f"must lie in (0, 0.5) (and be at least 0.000001), got {self.alpha:g}: it is the chance of a false "
+                       "'the channel works' you accept, e.g. 5% or 0.05")
+        if not 0.5 <= self.power < 1:
+            raise _bad("power", f"must lie in [0.5, 1), got {self.power:g}: the chance of detecting the target "
+                       "when it is real, e.g. 80% or 0.8 (below 50% the test misses more often than it finds)")
         if not -1 < self.rho < 1:
             raise _bad("rho", f"must lie in (-1, 1), got {self.rho:g} (the correlation of revenue with its "
                        "pre-period covariate; 0 when there is none)")
@@ -85,12 +118,23 @@ class PlanInputs:
         for name in targets:
             if getattr(self, name) <= 0:
                 raise _bad(name, f"must be positive, got {getattr(self, name):g}")
+        if self.lift is not None and self.lift > MAX_LIFT:
+            raise _bad("lift", f"{self.lift:g} means +{self.lift * 100:,.0f}% per reached unit, more than the "
+                       f"+{MAX_LIFT * 100:,.0f}% a plan can size; write the lift as a percent, e.g. 8%")
+        if self.effect is not None and self.effect > MAX_LIFT * self.revenue_mean:
+            raise _bad("effect", f"{self.effect:g} per reached unit is more than {MAX_LIFT:g} times revenue per unit "
+                       f"({self.revenue_mean:g}); the effect is extra revenue per reached unit, in currency")
         if self.weekly_spend is not None and self.weekly_spend <= 0:
             raise _bad("weekly_spend", f"must be positive, got {self.weekly_spend:g}")
         if self.target_iroas is not None and self.weekly_spend is None:
             raise _bad("target_iroas", "needs --weekly-spend (the iROAS is incremental revenue per unit of spend)")
         if self.margin is not None and not 0 < self.margin <= 1:
-            raise _bad("margin", f"must lie in (0, 1], got {self.margin:g} (gross margin as a share of revenue)")
+            raise _bad("margin", f"must lie in (0, 1], got {self.margin:g} (gross margin as a share of revenue, "
+                       "e.g. 40% or 0.4)")
+        if self.against not in AGAINST:
+            raise _bad("against", f"must be one of {', '.join(AGAINST)}, got {self.against!r}")
+        if self.against == "break-even" and (self.margin is None or self.weekly_spend is None):
+            raise _bad("against", "break-even needs --margin and --weekly-spend (break-even iROAS is 1 / margin)")
 
     @classmethod
     def from_conversion(cls, *, conversion: float, order_value: float, order_value_sd: float = 0.0,

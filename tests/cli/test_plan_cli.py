@@ -93,7 +93,7 @@ def test_from_files(tmp_path: Path) -> None:
     (["--weekly-units", "0", "--revenue-mean", "7", "--revenue-sd", "75"], "--weekly-units: must be positive"),
     (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "0"], "--revenue-sd: must be positive"),
     (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--holdout-shares", "5,10"],
-     "--holdout-shares: 5 is outside (0, 1); write 0.05 or 5%"),
+     "--holdout-shares: 5 is outside (0, 1); did you mean 5%?; write 0.05 or 5%"),
     (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--holdout-shares", "0%"],
      "outside (0, 1)"),
     (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--holdout-shares", "100%"],
@@ -103,7 +103,31 @@ def test_from_files(tmp_path: Path) -> None:
     (["--weekly-units", "1000", "--revenue-mean", "7"], "give revenue per unit"),
     (["--revenue-mean", "7", "--revenue-sd", "5"], "--weekly-units"),
     (["--weekly-units", "1000", "--conversion", "0.02"], "go together"),
-    (["--weekly-units", "1000", "--conversion", "1.5", "--order-value", "50"], "--conversion: must lie in (0, 1)"),
+    (["--weekly-units", "1000", "--conversion", "1.5", "--order-value", "50"], "--conversion: 1.5 is not a share"),
+    (["--weekly-units", "1000", "--conversion", "150%", "--order-value", "50"], "--conversion: must lie in (0, 1)"),
+    # a bare lift or share above 1 is refused with the fix; a percent is accepted (test_percent_inputs)
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--lift", "8"],
+     "--lift: 8 would mean +800%; did you mean 8%? Write 8% or 0.08 (or 800% if you really mean it)"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--exposure-rate", "60"],
+     "--exposure-rate: 60 is not a share between 0 and 1; did you mean 60%?"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--margin", "40"], "did you mean 40%?"),
+    # nonsense levels and magnitudes: a range, never a recommendation or an internal error
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--alpha", "0.99"],
+     "--alpha: must lie in (0, 0.5) (and be at least 0.000001), got 0.99"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--power", "0.01"],
+     "--power: must lie in [0.5, 1), got 0.01"),
+    (["--weekly-units", "1e300", "--revenue-mean", "7", "--revenue-sd", "75"], "--weekly-units: 1e+300 is out of range"),
+    (["--weekly-units", "1000", "--revenue-mean", "1e-300", "--revenue-sd", "75"], "--revenue-mean: 1e-300 is out of range"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "1e300"], "--revenue-sd: 1e+300 is out of range"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--lift", "1e6"], "--lift: 1e6 would mean"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--lift", "100000000%"],
+     "--lift: 1e+06 means +100,000,000% per reached unit"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--weeks", "1-2000000"],
+     "--weeks: '1-2000000' goes beyond 520 weeks"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--max-weeks", "100000"],
+     "--max-weeks: must be a whole number of weeks from 1 to 520"),
+    (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "75", "--covariate", "pre_revenue"],
+     "--covariate: only apply with --visits and --orders"),
     (["--weekly-units", "1000", "--revenue-mean", "7", "--revenue-sd", "5", "--target-iroas", "3"], "--weekly-spend"),
     (["--visits", "missing.csv", "--weekly-units", "10"], "give both --visits and --orders"),
     (["--visits", "missing.csv", "--orders", "o.csv"], "missing.csv: visits file not found"),
@@ -113,6 +137,38 @@ def test_bad_input_exit_4_with_a_clear_message(tmp_path: Path, args: list[str], 
     assert r.returncode == 4, (r.stdout, r.stderr)
     assert r.stderr.startswith("Error: ") and message in r.stderr, r.stderr
     assert "Traceback" not in r.stderr and r.stdout == ""
+
+
+def test_percent_inputs_and_the_default_reach_said(tmp_path: Path) -> None:
+    pct = run_cli(tmp_path, "plan", "--weekly-units", "300000", "--revenue-mean", "7", "--revenue-sd", "75",
+                  "--lift", "8%", "--exposure-rate", "80%", "--margin", "40%", "--alpha", "5%", "--power", "80%",
+                  "--format", "json")
+    frac = run_cli(tmp_path, "plan", "--weekly-units", "300000", "--revenue-mean", "7", "--revenue-sd", "75",
+                   "--lift", "0.08", "--exposure-rate", "0.8", "--margin", "0.4", "--format", "json")
+    assert pct.returncode == 0 and frac.returncode == 0, pct.stderr + frac.stderr
+    a, b = json.loads(pct.stdout), json.loads(frac.stdout)
+    assert a["inputs"]["lift"] == pytest.approx(0.08) and a["inputs"]["exposure_rate"] == pytest.approx(0.8)
+    assert a["recommendation"] == b["recommendation"]
+    full = run_cli(tmp_path, "plan", "--weekly-units", "300000", "--revenue-mean", "7", "--revenue-sd", "75",
+                   "--lift", "8%")
+    assert "--exposure-rate was not given" in full.stdout and "full reach" in full.stdout
+
+
+def test_write_spec_writes_nothing_unless_it_validates(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from armlock.assign import SpecError
+    from armlock.cmd_plan import write_spec_atomically
+
+    carry = dict(planned_units=1000, margin=None, alpha=0.05, power=0.8)
+    dest = tmp_path / "t.toml"
+    spec = write_spec_atomically("t", 0.1, dest, force=False, carry=carry)
+    assert dest.exists() and spec.arms[0].weight == 1000
+    import armlock.cmd_plan as cp
+
+    real = cp.carry_plan_into_spec_text
+    monkeypatch.setattr(cp, "carry_plan_into_spec_text", lambda text, **kw: real(text, **kw) + "\n[nonsense\n")
+    with pytest.raises(SpecError, match="no spec written"):
+        write_spec_atomically("u", 0.1, tmp_path / "u.toml", force=False, carry=carry)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["t.toml"]  # no spec, no temporary file left behind
 
 
 def test_pre_period_file_without_orders(tmp_path: Path) -> None:

@@ -50,7 +50,7 @@ def test_estimates_match_numpy_on_the_same_data(tmp_path: Path, fmt: str) -> Non
     assert v["revenue_sd"] == pytest.approx(t["y"].std(ddof=1))
     assert v["conversion"] == pytest.approx(t["buyers"] / t["n"])
     assert v["order_value"] == pytest.approx(t["y"].sum() / t["orders"])
-    assert v["rho"] == pytest.approx(np.corrcoef(t["x"], t["y"])[0, 1])  # pre_revenue beats pre_orders here
+    assert v["rho"] == pytest.approx(np.corrcoef(t["x"], t["y"])[0, 1])  # the readout's default covariate
     names = {e.name: e for e in pre.estimates}
     assert names["weekly new units"].units == t["n"] and f"{t['days']} days" in names["weekly new units"].how
     assert "pre_revenue" in names["pre-period correlation (rho)"].how
@@ -77,7 +77,7 @@ def test_spec_column_map_and_explicit_orders_columns(tmp_path: Path) -> None:
     v.to_csv(vp, index=False)
     pd.read_csv(op).rename(columns={"unit_id": "visitor", "revenue": "amount"}).to_csv(op, index=False)
     cols = PrePeriodColumns(unit_id="vid", first_seen="ts", orders_unit_id="visitor", orders_revenue="amount",
-                            covariates=("pre_orders",), covariate_explicit=True)
+                            covariates=("pre_orders",), named_by={"covariates": "--covariate"})
     pre = estimate_pre_period(vp, op, cols)
     assert pre.values["revenue_mean"] == pytest.approx(t["y"].mean())
     assert "pre_orders" in pre.estimates[-1].how
@@ -100,10 +100,54 @@ def test_orders_of_other_units_only(tmp_path: Path) -> None:
 
 def test_missing_column_names_file_and_spec_key(tmp_path: Path) -> None:
     vp, op, _ = _files(tmp_path)
-    with pytest.raises(InputError, match=r"column 'amount' not found in the orders file .* revenue = \"amount\""):
-        estimate_pre_period(vp, op, PrePeriodColumns(orders_revenue="amount"))
+    # an error quotes who named the column: the option, the spec's setting, or the default name (never a spec
+    # that was not given)
+    with pytest.raises(InputError, match=r"column 'amount' \(--orders-revenue-column\) not found in the orders file"):
+        estimate_pre_period(vp, op, PrePeriodColumns(orders_revenue="amount",
+                                                     named_by={"orders_revenue": "--orders-revenue-column"}))
+    with pytest.raises(InputError, match=r"column 'revenue' \(the default name; --orders-revenue-column names "
+                                         r"another\) not found in the orders file") as e:
+        op.write_text("unit_id,amount\nu1,5\n")
+        estimate_pre_period(vp, op)
+    assert "spec" not in str(e.value) and "[readout" not in str(e.value)
     with pytest.raises(InputError, match=r"column 'nope' \(--covariate\) not found in the visits file"):
-        estimate_pre_period(vp, op, PrePeriodColumns(covariates=("nope",), covariate_explicit=True))
+        estimate_pre_period(vp, op, PrePeriodColumns(covariates=("nope",), named_by={"covariates": "--covariate"}))
+
+
+def test_rho_is_for_the_covariates_the_readout_uses_not_the_best_column(tmp_path: Path) -> None:
+    vp, op, t = _files(tmp_path)
+    v = pd.read_csv(vp)
+    v["pre_orders"] = t["y"] + np.random.default_rng(5).normal(0, t["y"].std(), len(v))  # better correlated
+    v.to_csv(vp, index=False)
+    both = estimate_pre_period(vp, op, PrePeriodColumns(covariates=("pre_revenue",), named_by={"covariates": "x"}))
+    assert both.values["rho"] == pytest.approx(np.corrcoef(t["x"], t["y"])[0, 1])  # not pre_orders' higher one
+    # two covariates: the multiple correlation, R^2 of the least-squares fit (numpy lstsq as the reference)
+    two = estimate_pre_period(vp, op, PrePeriodColumns(covariates=("pre_revenue", "pre_orders")))
+    X = np.column_stack([np.ones(len(v)), v["pre_revenue"], v["pre_orders"]])
+    beta, *_ = np.linalg.lstsq(X, t["y"], rcond=None)
+    r2 = 1 - np.sum((t["y"] - X @ beta) ** 2) / np.sum((t["y"] - t["y"].mean()) ** 2)
+    assert two.values["rho"] == pytest.approx(np.sqrt(r2))
+    none = estimate_pre_period(vp, op, PrePeriodColumns(covariates=(), named_by={"covariates": "s.toml: [readout] covariates"}))
+    assert "rho" not in none.values and any("will use no covariate" in n for n in none.notes)
+
+
+def test_sampling_range_of_the_variance_matches_a_bootstrap(tmp_path: Path) -> None:
+    # the delta-method ranges (Casella & Berger 2002, §5.5.4) against a plain bootstrap of the same units
+    # (Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 13, percentile interval)
+    from armlock.plan.estimate import sampling_ranges
+
+    rng = np.random.default_rng(8)
+    n = 12_600
+    y = np.where(rng.random(n) < 0.05, rng.lognormal(3.5, 0.9, n), 0.0)
+    cv2, var = sampling_ranges(y)
+    idx = rng.integers(0, n, (400, n))
+    boot = y[idx]
+    b_var = boot.var(axis=1, ddof=1) / y.var(ddof=1)
+    b_cv2 = (boot.std(axis=1, ddof=1) / boot.mean(axis=1)) ** 2 / (y.std(ddof=1) / y.mean()) ** 2
+    for (lo, hi), b in ((var, b_var), (cv2, b_cv2)):
+        q_lo, q_hi = np.quantile(b, [0.025, 0.975])
+        assert lo < 1 < hi
+        assert abs(lo - q_lo) < 0.03 and abs(hi - q_hi) < 0.03, (lo, hi, q_lo, q_hi)
 
 
 def test_revenue_that_never_varies(tmp_path: Path) -> None:
@@ -135,7 +179,7 @@ def test_a_weak_correlation_is_not_planned_on(tmp_path: Path) -> None:
     v["pre_orders"] = np.random.default_rng(10).normal(size=len(v))
     v.to_csv(vp, index=False)
     pre = estimate_pre_period(vp, op)
-    r = max(abs(np.corrcoef(v[c], t["y"])[0, 1]) for c in ("pre_revenue", "pre_orders"))
+    r = abs(np.corrcoef(v["pre_revenue"], t["y"])[0, 1])
     assert r < 0.05 and "rho" not in pre.values
     assert any("too weak to plan on" in n for n in pre.notes)
 

@@ -129,7 +129,7 @@ def test_bad_numbers_are_input_errors_naming_the_option(kw: dict, flag: str) -> 
 
 @pytest.mark.parametrize("shares,weeks,match", [
     ([0.0, 0.1], [4], "outside"), ([1.0], [4], "outside"), ([0.12345], [4], "basis points"),
-    ([], [4], "at least one"), ([0.1], [0], "at least 1"), ([0.1], [], "at least one"),
+    ([], [4], "at least one"), ([0.1], [0], "from 1 to 520"), ([0.1], [], "at least one"),
 ])
 def test_bad_grid(shares: list[float], weeks: list[int], match: str) -> None:
     with pytest.raises(InputError, match=match):
