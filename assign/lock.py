@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 from dataclasses import dataclass, field
@@ -33,6 +34,34 @@ class LockCheck:
     changes: list[dict[str, Any]] = field(default_factory=list)  # confirmed changes, oldest first
 
 
+def id_sources(spec: Spec) -> list[list[str]]:
+    """Where the snippet takes a browser's id, in order: the configured sources, then armlock's cookie.
+
+    Changing them changes which id is hashed for people already in the test, as a changed salt
+    does. Whether the server or the snippet sets armlock's cookie (`id_from`) is not part of it:
+    the server keeps every valid id the snippet set, so moving to server-set ids moves nobody.
+    """
+    return [[s.kind, s.name, s.pattern] for s in spec.snippet.id_sources] + [["own_cookie", spec.snippet.cookie_name, ""]]
+
+
+def id_fingerprint(spec: Spec) -> str:
+    """16 hex digits of SHA-256 over the canonical JSON of `id_sources(spec)`."""
+    canon = json.dumps(id_sources(spec), separators=(",", ":"), ensure_ascii=False)
+    return hashlib.sha256(canon.encode("utf-8")).hexdigest()[:16]
+
+
+def _fmt_sources(sources: list) -> str:
+    def one(s: list) -> str:
+        kind, name, pattern = (list(s) + ["", "", ""])[:3]
+        return f"{kind} {name}" + (f" ~ {pattern}" if pattern else "")
+    return ", ".join(one(s) for s in sources) or "?"
+
+
+def _ids_changed(old: dict, spec: Spec) -> bool:
+    """Whether the lock recorded other id sources (a lock written before they were recorded: no)."""
+    return "id_fingerprint" in old and old["id_fingerprint"] != id_fingerprint(spec)
+
+
 def _describe_change(old: dict, spec: Spec) -> str:
     parts = []
     if old.get("salt") != spec.salt:
@@ -42,6 +71,9 @@ def _describe_change(old: dict, spec: Spec) -> str:
     if old_arms != new_arms:
         fmt = lambda arms: ", ".join(f"{n} {w}" for n, w in arms) or "?"  # noqa: E731
         parts.append(f"the arms changed from [{fmt(old_arms)}] to [{fmt(new_arms)}]")
+    if _ids_changed(old, spec):
+        parts.append(f"the id sources changed from [{_fmt_sources(old.get('id_sources', []))}] "
+                     f"to [{_fmt_sources(id_sources(spec))}]")
     return " and ".join(parts) or "the assignment fields changed"
 
 
@@ -54,6 +86,12 @@ def _valid_shape(data: Any) -> bool:
     arms = data.get("arms", [])
     if not isinstance(arms, list) or not all(
             isinstance(a, list) and len(a) == 2 and isinstance(a[0], str) and isinstance(a[1], int) for a in arms):
+        return False
+    if not isinstance(data.get("id_fingerprint", ""), str):
+        return False
+    sources = data.get("id_sources", [])
+    if not isinstance(sources, list) or not all(
+            isinstance(s, list) and all(isinstance(x, str) for x in s) for s in sources):
         return False
     changes = data.get("changes", [])
     return isinstance(changes, list) and all(isinstance(c, dict) for c in changes)
@@ -88,6 +126,8 @@ def _record(spec: Spec, changes: list[dict[str, Any]]) -> dict[str, Any]:
         "fingerprint": spec.fingerprint,
         "salt": spec.salt,
         "arms": [[a.name, a.weight] for a in spec.arms],
+        "id_fingerprint": id_fingerprint(spec),
+        "id_sources": id_sources(spec),
         "recorded_at": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "note": "Written by armlock at first use of the spec. Commit it with the spec; "
         "if the fingerprint of the spec ever differs, armlock refuses to go on until the change is confirmed.",
@@ -123,13 +163,20 @@ def check_lock(spec: Spec, spec_path: str | Path, *, write: bool = True) -> Lock
             return LockCheck(lp, "unwritable", None, problem)
         return LockCheck(lp, "recorded", record)
     changes = list(old.get("changes", []))
-    if old.get("fingerprint") == spec.fingerprint:
+    if old.get("fingerprint") == spec.fingerprint and not _ids_changed(old, spec):
+        if "id_fingerprint" not in old and write:
+            old = _add_id_sources(lp, old, spec)
         return LockCheck(lp, "same", old, changes=changes)
     started = spec.start <= datetime.now(timezone.utc)
+    what = ("Changing the salt or the arm weights re-hashes every visitor: "
+            if old.get("fingerprint") != spec.fingerprint else
+            "Changing the id sources (or the id cookie's name) changes which id is hashed for people "
+            "already in the test, so a returning visitor can land in another arm: ")
     warning = (
         f"THE SPLIT HAS CHANGED. {_describe_change(old, spec)} since the spec was first used "
-        f"({old.get('recorded_at', '?')}, fingerprint {old.get('fingerprint')}; now {spec.fingerprint}).\n"
-        "Changing the salt or the arm weights re-hashes every visitor: "
+        f"({old.get('recorded_at', '?')}, fingerprint {old.get('fingerprint')}; now {spec.fingerprint}"
+        + (f"; id sources {old.get('id_fingerprint')}, now {id_fingerprint(spec)}" if _ids_changed(old, spec) else "")
+        + ").\n" + what
         + ("the test has started, so people already counted in one arm move to another and "
            "the arms are no longer comparable. "
            if started else "the test has not started yet, so this is harmless if deliberate. ")
@@ -137,6 +184,17 @@ def check_lock(spec: Spec, spec_path: str | Path, *, write: bool = True) -> Lock
         + (" (audits of this test will then fail, naming the change)." if started else ".")
     )
     return LockCheck(lp, "changed", old, warning, changes=changes)
+
+
+def _add_id_sources(lp: Path, old: dict, spec: Spec) -> dict:
+    """A lock written before id sources were recorded gets them now, as the spec has them today.
+
+    Such a lock cannot tell whether the id sources changed before this moment; from now on a
+    change is caught. A lock that cannot be rewritten is read as before (split only).
+    """
+    record = {**old, "id_fingerprint": id_fingerprint(spec), "id_sources": id_sources(spec),
+              "id_sources_recorded_at": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")}
+    return old if _write(lp, record) else record
 
 
 def accept_change(spec: Spec, check: LockCheck) -> LockCheck:

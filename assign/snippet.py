@@ -76,6 +76,7 @@ def snippet_config(spec: Spec) -> dict[str, Any]:
         # self-test at load: the experiment name's bucket by Python. A page whose built-ins were
         # patched before the snippet loaded, so that it would hash differently, fails closed.
         "t": bucket(spec.salt, spec.name),
+        "u": 1 if s.id_from == "server" else 0,
     }
 
 

@@ -82,7 +82,7 @@ class IdSource(BaseModel):
             )
         if self.kind != "cookie" and not re.match(JS_PATH, self.name):
             raise ValueError(
-                f"a {self.kind} source is a dotted path of identifiers such as site.customer.key, "
+                f"a {self.kind} source is a dotted path of identifiers such as site.visitor.id, "
                 f"got {self.name!r}"
             )
         return self
@@ -174,6 +174,7 @@ class SnippetSettings(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     id_sources: tuple[IdSource, ...] = Field(default=(), max_length=8)
+    id_from: Literal["script", "server"] = "script"
     cookie_name: str = "armlock_uid"
     cookie_days: int = Field(default=395, ge=1, le=MAX_COOKIE_DAYS, strict=True)
     cookie_domain: str = Field(default="", max_length=253)
@@ -217,6 +218,11 @@ class SnippetSettings(BaseModel):
             )
         if self.event_name == self.error_event_name:
             raise ValueError("event_name and error_event_name must differ")
+        if self.id_from == "server" and self.id_sources:
+            raise ValueError(
+                'with id_from = "server" the id cookie the server sets (cookie_name) is the only id; '
+                "remove the id_sources (a site id or customer key can go into the identity links)"
+            )
         return self
 
 
@@ -234,15 +240,19 @@ event_name = "armlock_arm"   # event pushed once the arm is known
 error_event_name = "armlock_error"  # event pushed when the snippet fails closed (no arm, no tag)
 global_name = "armlock"      # window.armlock: .arm, .gate(callback) for the vendor's tag
 qa_param = ""                # e.g. "armlock_qa": ?armlock_qa=exposed forces an arm for one page view
+id_from = "script"           # "server": the shop's server sets cookie_name (docs/identity.md); the
+                             # snippet then never mints an id and fails closed without one
 
-# Ids the site already has, tried in this order before armlock's own cookie. Examples:
+# Where a browser's first id comes from when it has no armlock cookie yet (the cookie then keeps
+# it, so a later login never moves the visitor). Not a login or customer key: that only links
+# ids ([audit.identities]). Tried in this order; not with id_from = "server". Examples:
 # [[snippet.id_sources]]
 # kind = "cookie"            # "cookie", "global" (window.a.b) or "data_layer" (latest value at a key)
 # name = "site_uid"
 # pattern = "^v1\\\\.(.+)$"    # optional: a regular expression whose first group is the id
 # [[snippet.id_sources]]
 # kind = "global"
-# name = "site.customer.key"
+# name = "site.visitor.id"
 
 [snippet.consent]
 # Before consent the snippet does nothing: no cookie, no arm, no vendor tag.

@@ -9,7 +9,8 @@ try {
   // b their cumulative weights (basis points), x exposed arm names, k own cookie name, m Max-Age (s), o cookie domain, l data-layer name,
   // e event name, r error event name, g global object name, i id sources [[kind, name, pattern]],
   // c consent [key, value] or [function path] or null, q QA override parameter ("" = off),
-  // t the bucket Python gives the experiment name (the self-test at load).
+  // t the bucket Python gives the experiment name (the self-test at load), u 1 when the shop's
+  // server sets the id cookie (the snippet then only reads it).
   // The decision lives in these closure variables only; window[C.g] is a frozen read-only view.
   var dl, G, arm = null, forced = false, state = 'waiting', queue = [], hexDigits = '0123456789abcdef',
     toText = String, freeze = Object.freeze, U8 = w.Uint8Array, cr = w.crypto;
@@ -165,10 +166,18 @@ try {
     for (i = 0; o != null && i < parts.length; i++) o = o[parts[i]];
     return o;
   }
-  // a cookie's value ('' when absent); document.cookie joins pairs with "; " (RFC 6265, 5.4)
+  // every value of a cookie, oldest first ([''] when absent): document.cookie joins pairs with
+  // "; ", and with the same path the earlier-created cookie comes first (RFC 6265, 5.4)
+  function cookies(name) {
+    for (var parts = ('; ' + d.cookie).split('; ' + name + '='), out = [], i = 1; i < parts.length; i++) out[i - 1] = parts[i].split(';')[0];
+    return i > 1 ? out : [''];
+  }
   function getCookie(name) {
-    var parts = ('; ' + d.cookie).split('; ' + name + '=');
-    return parts.length > 1 ? parts[1].split(';')[0] : '';
+    return cookies(name)[0];
+  }
+  // an id that may go into a cookie as it is: the rule the server middleware keeps ids by
+  function safe(v) {
+    return /^[\w.\-]{1,128}$/.test(v);
   }
   // the latest value pushed into the data layer at a key path
   function fromLayer(p) {
@@ -204,11 +213,19 @@ try {
       return null;
     }
   }
-  // the visitor id: configured sources in order, then armlock's own cookie, its localStorage
-  // mirror, and finally a freshly minted id
+  // the visitor id. Set by the server (C.u): the first valid value of its cookie, never minted
+  // here. Otherwise the first id this browser had: armlock's own cookie, its localStorage
+  // mirror, then the configured sources in order, and finally a freshly minted id; an id from a
+  // source is kept in the cookie, so a later login (a source that changes) never moves the visitor
   function visitorId() {
-    var i, s, v, m, kept, own;
-    for (i = 0; i < C.i.length; i++) {
+    var i, s, v, m, kept, own = getCookie(C.k), all;
+    if (C.u) {
+      for (all = cookies(C.k), i = 0; i < all.length; i++) if (safe(all[i])) return all[i];
+      throw 'no server-set id in cookie ' + C.k;
+    }
+    kept = store(C.k);
+    if (!safe(kept || '')) kept = '';
+    for (i = 0; !own && !kept && i < C.i.length; i++) {
       s = C.i[i];
       v = s[0] == 'cookie' ? getCookie(s[1]) : s[0] == 'global' ? path(w, s[1]) : fromLayer(s[1]);
       if (typeof v == 'number' && v - v === 0) v = toText(v);
@@ -216,12 +233,14 @@ try {
         m = new RegExp(s[2]).exec(v);
         v = m && m[1] || '';
       }
-      if (typeof v == 'string' && v !== '') return v;
+      if (typeof v == 'string' && v !== '') {
+        // an id the cookie cannot hold as it is stays unkept: read from its source each time
+        if (!safe(v)) return v;
+        break;
+      }
+      v = '';
     }
-    own = getCookie(C.k);
-    kept = store(C.k);
-    if (!/^[\w.\-]{1,128}$/.test(kept || '')) kept = '';
-    v = own || kept || mint();
+    v = own || kept || v || mint();
     if (own !== v) {
       d.cookie = C.k + '=' + v + '; Path=/; Max-Age=' + C.m +
         (C.o ? '; Domain=' + C.o : '') + '; SameSite=Lax' + (w.location.protocol == 'https:' ? '; Secure' : '');

@@ -62,16 +62,18 @@ def test_unsafe_local_storage_value_is_not_written_into_a_cookie() -> None:
     assert "evil" not in "".join(res["cookieWrites"])
 
 
-def test_id_sources_in_priority_order_with_pattern() -> None:
+def test_id_sources_in_priority_order_with_pattern_and_the_id_found_is_kept() -> None:
     spec = make_spec(id_sources=[
-        {"kind": "global", "name": "site.customer.key"},
+        {"kind": "global", "name": "site.visitor.id"},
         {"kind": "cookie", "name": "site_uid", "pattern": "^v1\\.(.+)$"},
         {"kind": "data_layer", "name": "user.id"},
     ])
     js = render_snippet(spec)
-    logged_in = run_node({"snippet": js, "globals": {"site": {"customer": {"key": 12345}}},
+    by_global = run_node({"snippet": js, "globals": {"site": {"visitor": {"id": 12345}}},
                           "cookie": "site_uid=v1.abc"})
-    assert logged_in["arm"] == arm_for(spec, "12345") and logged_in["cookieWrites"] == []
+    assert by_global["arm"] == arm_for(spec, "12345")
+    # the first id found is kept in armlock's own cookie and its mirror (issue 23)
+    assert by_global["cookies"]["armlock_uid"] == "12345" and by_global["storage"] == {"armlock_uid": "12345"}
     by_cookie = run_node({"snippet": js, "cookie": "site_uid=v1.abc"})
     assert by_cookie["arm"] == arm_for(spec, "abc")
     no_match = run_node({"snippet": js, "cookie": "site_uid=v2.abc",
@@ -79,6 +81,9 @@ def test_id_sources_in_priority_order_with_pattern() -> None:
     assert no_match["arm"] == arm_for(spec, "u-9")  # the latest data-layer value wins
     nothing = run_node({"snippet": js})
     assert UUID4.match(nothing["cookies"]["armlock_uid"])
+    # an id a cookie cannot hold as it is (a space, a ';') is read from its source on each view
+    odd = run_node({"snippet": js, "globals": {"site": {"visitor": {"id": "a b;c"}}}})
+    assert odd["arm"] == arm_for(spec, "a b;c") and odd["cookieWrites"] == [] and odd["storage"] == {}
 
 
 def test_gate_runs_only_for_the_exposed_arms_and_named_arms() -> None:

@@ -117,12 +117,13 @@ def test_minify_only_changes_whitespace_comments_and_local_names() -> None:
 
 def test_js_form_size_is_under_the_goal() -> None:
     # Issue 13: the js form with every option set (the golden spec) stays under 3,000 bytes
-    # gzipped (measured, with numbers, in the benchmark and the README).
+    # gzipped (measured, with numbers, in the benchmark and the README); issue 23 (the server-set
+    # id and the kept first id) moved the goal to 3,100 bytes.
     spec = load_spec(GOLDEN_SPEC)
     cfg = snippet_config(spec)
     assert cfg["c"] and cfg["q"] and cfg["o"] and len(cfg["i"]) == 2  # every option is set
     size = len(gzip.compress(render_snippet(spec, "js").encode("utf-8"), 9))
-    assert size < 3000, size
+    assert size < 3100, size
 
 
 def test_readme_size_table_is_the_measured_size() -> None:
@@ -161,7 +162,9 @@ def test_golden_snippet_behaves_in_node() -> None:
     from armlock.assign.batch import arm_for
 
     assert res["arm"] == arm_for(spec, "abc123")
-    assert res["cookieWrites"] == []  # the site's own id was used: armlock sets no cookie
+    # the site's own id was used, and kept in armlock's cookie as the browser's first id (issue 23)
+    assert res["cookieWrites"] == ["armlock_uid=abc123; Path=/; Max-Age=34128000; Domain=.shop.example; "
+                                   "SameSite=Lax; Secure"]
 
 
 def run_cli(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:

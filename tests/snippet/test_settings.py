@@ -44,7 +44,7 @@ def test_init_output_is_a_valid_spec_and_checks(tmp_path: Path) -> None:
 def test_commented_examples_in_init_output_are_valid_when_uncommented() -> None:
     text = render_spec_toml("x", [("holdout", 1000), ("exposed", 9000)], salt="abc")
     lines = text.splitlines()
-    start = lines.index("# Ids the site already has, tried in this order before armlock's own cookie. Examples:")
+    start = next(i for i, ln in enumerate(lines) if ln.startswith("# Where a browser's first id comes from"))
     block = [ln[2:] for ln in lines[start + 1:]
              if ln.startswith(("# [[snippet", "# kind", "# name", "# pattern"))]
     data = tomllib.loads("\n".join(block))
@@ -63,6 +63,8 @@ GOOD: list[dict[str, Any]] = [
     {"data_layer": "siteLayer_2", "global_name": "$holdout"},
     {"event_name": "holdout arm known", "error_event_name": "</script><!--\u2028"},
     {"qa_param": "qa.arm-force_1"},
+    {"id_from": "server"},
+    {"id_from": "script", "id_sources": [{"kind": "cookie", "name": "site_uid"}]},
     {"id_sources": [{"kind": "cookie", "name": "site.uid'$", "pattern": "^(?:v1|v2)\\.([0-9a-f]+)$"}]},
     {"id_sources": [{"kind": "global", "name": "site.customer.key"},
                     {"kind": "data_layer", "name": "user.id"}]},
@@ -92,6 +94,9 @@ BAD: list[tuple[dict[str, Any], str, str]] = [
     ({"event_name": ""}, "snippet.event_name", "at least 1"),
     ({"event_name": "line\nbreak"}, "snippet.event_name", "control characters"),
     ({"qa_param": "a&b"}, "snippet.qa_param", "URL parameter name"),
+    ({"id_from": "browser"}, "snippet.id_from", "'script' or 'server'"),
+    ({"id_from": "server", "id_sources": [{"kind": "global", "name": "site.customer.key"}]}, "snippet",
+     "the only id; remove the id_sources"),
     ({"qa_param": "x" * 65}, "snippet.qa_param", "URL parameter name"),
     ({"colour": "red"}, "snippet.colour", "unknown key 'colour'; valid keys here: id_sources"),
     ({"id_sources": [{"kind": "header", "name": "x"}]}, "snippet.id_sources[0].kind", "'cookie', 'global' or 'data_layer'"),
