@@ -14,6 +14,7 @@ from armlock.assign.sql import spark_arm_expr, spark_bucket_expr
 from tests.conftest import layout_spec, load_vectors
 
 # the `spark` fixture (one local session per run) is in tests/conftest.py
+pytestmark = pytest.mark.spark
 
 
 def _spark_eval(spark, spec: Spec, ids: list[str | None]) -> tuple[list, list]:  # type: ignore[no-untyped-def]

@@ -14,8 +14,8 @@ from tests.cli.cli_run import run_cli
 from armlock.assign import arm_for, bucket, load_spec
 
 
-def run(cwd: Path, *args: str, stdin: str | None = None) -> subprocess.CompletedProcess[bytes]:
-    return run_cli(cwd, *args, stdin=stdin, text=False)
+def run(cwd: Path, *args: str, stdin: str | None = None, process: bool = False) -> subprocess.CompletedProcess[bytes]:
+    return run_cli(cwd, *args, stdin=stdin, text=False, process=process)
 
 
 @pytest.fixture
@@ -26,7 +26,7 @@ def spec(tmp_path: Path) -> Path:
 
 
 def test_version_and_help(tmp_path: Path) -> None:
-    r = run(tmp_path, "--version")
+    r = run(tmp_path, "--version", process=True)  # the installed entry point, in a real process
     assert r.returncode == 0 and r.stdout.decode().startswith("armlock 0.")
     for cmd in ("init", "check", "assign"):
         h = run(tmp_path, cmd, "--help")
@@ -71,7 +71,8 @@ def test_bad_spec_exit_code_and_message(tmp_path: Path) -> None:
 
 
 def test_assign_lines_from_stdin(spec: Path, tmp_path: Path) -> None:
-    r = run(tmp_path, "assign", "--spec", spec.name, stdin="alpha\r\nbeta\n\ngamma")
+    # a real process: ids stream through the operating system's stdin and stdout
+    r = run(tmp_path, "assign", "--spec", spec.name, stdin="alpha\r\nbeta\n\ngamma", process=True)
     assert r.returncode == 0, r.stderr
     rows = list(csv.reader(io.StringIO(r.stdout.decode())))
     s = load_spec(spec)

@@ -29,7 +29,7 @@ run = run_cli
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, subprocess.CompletedProcess[str]]:
     cwd = tmp_path_factory.mktemp("newuser")
-    return cwd, run(cwd, "demo")
+    return cwd, run(cwd, "demo", process=True)  # the README's first command, in a real process
 
 
 def test_demo_runs_in_a_fresh_folder_and_says_what_it_found(demo: tuple[Path, subprocess.CompletedProcess[str]]) -> None:

@@ -32,7 +32,7 @@ def test_cli_spark_engine_matches_pandas(spark: Any, tmp_path: Path) -> None:
                  "--spark-conf", "spark.sql.shuffle.partitions=1"] if engine == "spark" else []
         r = run_cli(tmp_path, "audit", "--spec", "t.toml", "--visits", str(paths["visits"]),
                     "--exposures", str(paths["exposures"]), "--identities", str(paths["identities"]),
-                    "--format", "json", "--engine", engine, *extra)
+                    "--format", "json", "--engine", engine, *extra, process=True)
         assert r.returncode in (0, 3), r.stderr[-2000:]
         out[engine] = json.loads(r.stdout)
         codes[engine] = r.returncode
