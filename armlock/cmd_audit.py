@@ -8,8 +8,8 @@ from pathlib import Path
 
 import typer
 
+from armlock.assign import Spec
 from armlock.assign.spec_audit import AuditThresholds
-from armlock.assign.errors import EXIT_FAIL, EXIT_OK, EXIT_WARN
 from armlock.audit.model import AuditReport
 from armlock.audit.render import RENDERERS
 from armlock.audit.words import status_word
@@ -41,13 +41,35 @@ def _html(report: AuditReport, history: list[dict] | None = None,
 FORMATS["html"] = _html
 
 
-def exit_code(verdict: str, strict: bool) -> int:
-    """0 pass (and warn without --strict), 1 warn with --strict, 3 fail."""
-    if verdict == "fail":
-        return EXIT_FAIL
-    if verdict == "warn" and strict:
-        return EXIT_WARN
-    return EXIT_OK
+def finish(command: str, experiment: str, as_of: str, verdict: str, checks: list[tuple[str, str]],
+           strict: bool) -> None:
+    """The scheduler's summary line on stderr, then the exit code routed from the checks."""
+    from .routing import route, summary_line
+
+    code = route(verdict, checks, strict)
+    err(summary_line(command, experiment, as_of, verdict, checks, code))
+    if code:
+        raise typer.Exit(code)
+
+
+def concurrent_specs(spec_path: Path, given: list[Path]) -> list[tuple[str, Spec]]:
+    """The specs named by --alongside: each file, and every other spec of each folder (validated;
+    the audited spec itself is left out, a copy of it is not)."""
+    from armlock.assign import load_spec
+    from armlock.assign.portfolio import folder_specs
+
+    out: dict[Path, tuple[str, Spec]] = {}
+    me = spec_path.resolve()
+    for item in given:
+        notes: list[str] = []
+        files = ([s.path for s in folder_specs(item, exclude=spec_path, notes=notes)] if item.is_dir()
+                 else [item])
+        for note in notes:
+            err(note)
+        for f in files:
+            if f.resolve() != me:
+                out.setdefault(f.resolve(), (str(f), load_spec(f)))
+    return list(out.values())
 
 
 def _as_of(text: str | None) -> date | None:
@@ -71,17 +93,21 @@ def audit_cmd(
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is WARN (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
+    alongside: list[Path] = typer.Option(None, "--alongside", metavar="SPEC|FOLDER", help="A concurrent test's spec file, or a folder of specs (every other spec in it; repeatable): adds the check that the two splits are independent on their shared units (a copied salt fails it)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
     engine: str = ENGINE,
     spark_master: str = SPARK_MASTER,
     spark_conf: list[str] = SPARK_CONF,
 ) -> None:
     """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
-    identity churn and covariate balance. Column names come from the spec's [audit] tables.
+    identity churn and covariate balance; with --alongside, independence from concurrent tests.
+    Column names come from the spec's [audit] tables.
 
-    Exit codes: 0 verdict PASS (or WARN without --strict), 1 WARN with --strict, 3 FAIL,
-    4 bad input (a file, column or row is wrong: nothing was judged), 6 the spec's split changed
-    since its lock was recorded (confirm with --accept-changed-split).
+    Exit codes: 0 verdict PASS (or WARN without --strict), 1 WARN with --strict, 3 FAIL (a split
+    check fails), 4 bad input (a file, column or row is wrong: nothing was judged), 5 internal error,
+    6 the spec's split changed since its lock was recorded (confirm with --accept-changed-split),
+    7 the data is stale (only a feed-freshness check fails). The last line on stderr is a one-line
+    summary for a scheduler's log.
 
     Example:
       armlock audit --spec spring.toml --visits visits.parquet --exposures exposures.csv.gz \\
@@ -99,11 +125,12 @@ def audit_cmd(
     from armlock.audit.engine import select_engine
     from armlock.audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
 
+    siblings = concurrent_specs(spec_path, alongside or [])
     eng = select_engine(engine, spark_master=spark_master, spark_conf=conf)
     with progress(input_bytes(visits, exposures, identities) or None, "reading logs") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
                            as_of=day, advance=advance, split_changes=changes_after_start(lock),
-                           engine=eng)
+                           engine=eng, alongside=siblings)
     from armlock.audit import history
 
     hist = history_path or history.default_history_path(spec_path)
@@ -116,9 +143,8 @@ def audit_cmd(
             else FORMATS[fmt](report))
     emit(text, out, what="the report",
          done=f"Wrote the {fmt} report to {out}: verdict {status_word(report.verdict)} ({report.verdict_text})")
-    code = exit_code(report.verdict, strict)
-    if code:
-        raise typer.Exit(code)
+    finish("audit", report.experiment, report.as_of, report.verdict,
+           [(c.id, c.status) for c in report.checks], strict)
 
 
 def register(app: typer.Typer) -> None:

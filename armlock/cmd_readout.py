@@ -6,7 +6,7 @@ from pathlib import Path
 
 import typer
 
-from .cmd_audit import _as_of, exit_code
+from .cmd_audit import _as_of, finish
 from .common import (
     ACCEPT_CHANGED_SPLIT,
     ENGINE,
@@ -51,8 +51,10 @@ def readout_cmd(
     anytime interval beside it. Column names come from the spec's [readout] tables.
 
     Exit codes: 0 PASS (or WARN without --strict), 1 WARN with --strict, 3 the audit gate is FAIL,
-    4 bad input (a file, column or row is wrong: nothing was judged), 6 the spec's split changed
-    since its lock was recorded (confirm with --accept-changed-split).
+    4 bad input (a file, column or row is wrong: nothing was judged), 5 internal error, 6 the spec's
+    split changed since its lock was recorded (confirm with --accept-changed-split), 7 the data is
+    stale (only a feed-freshness check of the gate fails). The last line on stderr is a one-line
+    summary for a scheduler's log.
 
     Example:
       armlock readout --spec spring.toml --visits visits.parquet --orders orders.csv \\
@@ -97,9 +99,8 @@ def readout_cmd(
 
         text = RENDERERS[fmt](report)
     emit(text, out, what="the report", done=f"Wrote the {fmt} readout to {out}: {report.headline}")
-    code = exit_code(report.status, strict)
-    if code:
-        raise typer.Exit(code)
+    finish("readout", report.experiment, report.as_of, report.status,
+           [(c.id, c.status) for c in report.gate], strict)
 
 
 def register(app: typer.Typer) -> None:

@@ -43,7 +43,12 @@ def write_new_spec(name: str, *, holdout_share: float = 0.5, arms: str | None = 
         raise SpecError(f"--out {target}: is a folder; give the spec's file name, e.g. --out {target / (name + '.toml')}")
     if target.exists() and not force:
         raise SpecError(f"{target}: already exists; choose another --out or pass --force")
-    text = render_spec_toml(name, arm_list)
+    from armlock.assign.init import new_salt
+    from armlock.assign.portfolio import refuse_shared_salt
+
+    salt = new_salt()
+    refuse_shared_salt(target, salt)  # a fresh salt never clashes; this guards the rule in one place
+    text = render_spec_toml(name, arm_list, salt=salt)
     try:
         target.write_text(text, encoding="utf-8")
     except OSError as exc:
@@ -81,11 +86,16 @@ def check(
 ) -> None:
     """Validate a spec and print its fingerprint and lock status (does not record the lock).
 
+    Also refuses (exit 4) a salt that another spec in the same folder already uses.
+
     Example: armlock check --spec spring-retargeting.toml
     """
+    from armlock.assign.portfolio import refuse_shared_salt
+
     notes: list[str] = []
     try:
         spec = load_spec(spec_path, notes=notes)
+        refuse_shared_salt(spec_path, spec.salt, notes)  # exit 4 naming both files
     except SpecError as exc:
         if not as_json:
             raise

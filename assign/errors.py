@@ -4,6 +4,9 @@
     ├── SpecError           the experiment spec file is missing, not TOML, or invalid  -> exit 4
     ├── InputError          a data file (ids, visits, exposures...) is missing or bad  -> exit 4
     └── SplitChangedError   the spec's salt or weights differ from its lock file       -> exit 6
+
+An audit or readout that ran sets its own code from its checks (`armlock/routing.py`): 3 when a
+split check fails, 7 when only a feed-freshness check does (the data is stale).
 """
 
 from __future__ import annotations
@@ -16,6 +19,7 @@ EXIT_FAIL = 3  # audit found a failing check
 EXIT_BAD_INPUT = 4  # spec or data file is wrong: nothing was judged
 EXIT_INTERNAL = 5  # a bug in armlock: please report it
 EXIT_SPLIT_CHANGED = 6  # the spec's split differs from the one its lock file recorded, unconfirmed
+EXIT_STALE = 7  # the data is stale: a feed-freshness check fails and no split check does
 
 
 class ArmlockError(Exception):

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from datetime import date, datetime, UTC
 from pathlib import Path
 
@@ -55,6 +55,7 @@ def run_audit(
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
     engine: Engine | str = "pandas",
+    alongside: Sequence[tuple[str, Spec]] = (),
 ) -> AuditReport:
     """Audit a test's logs as of the end of `as_of` (UTC; default: the last first-seen day).
 
@@ -64,16 +65,41 @@ def run_audit(
     `advance(n)` is called with each file's size in bytes once it is read (for a progress bar
     whose total is `input_bytes(visits, exposures, identities)`). `engine` is "pandas" (embedded),
     "spark" (a SparkSession: the active one, else a local one) or an `audit.engine.Engine`.
+    `alongside` names concurrent tests ((spec file, Spec) pairs): the independence check
+    (`audit/overlap.py`) then reads the visits file's ids again on this machine.
     """
     eng = select_engine(engine) if isinstance(engine, str) else engine
     res = eng.compute(spec, Inputs(visits, exposures, identities), as_of, advance or (lambda n: None))
-    return build_report(spec, res, split_changes)
+    extra = [concurrent_check(spec, visits, res.as_of, alongside)] if alongside else []
+    return build_report(spec, res, split_changes, extra)
 
 
-def build_report(spec: Spec, res: EngineResult, split_changes: list[str] | None = None) -> AuditReport:
-    """The report from an engine's result: statistics and verdicts on the canonical tables."""
+def concurrent_check(spec: Spec, visits: PathLike, as_of: date, alongside: Sequence[tuple[str, Spec]]) -> Check:
+    """The independence check against concurrent tests, on the visits' units as of `as_of`."""
+    from .engine import TABLE_PREFIX
+    from .load import load_visits
+    from .overlap import TITLE, check_independence, crosstab, shared_mask
+    from .read import TIME, UNIT
+
+    if str(visits).startswith(TABLE_PREFIX):
+        return Check(id="independence", title=TITLE, status="warn",
+                     summary="Cannot judge: the visits are a catalog table, and the independence check reads a "
+                             "local visits file; run it on an export of the visits' id and first-seen columns.")
+    import pandas as pd
+
+    fr = Frames(visits=pd.DataFrame())
+    load_visits(spec, visits, as_of, fr)
+    ids, times = fr.visits[UNIT], fr.visits[TIME]
+    tabs = [crosstab(spec, sib, ids[shared_mask(times, sib)].tolist(), source=src) for src, sib in alongside]
+    return check_independence(spec, tabs)
+
+
+def build_report(spec: Spec, res: EngineResult, split_changes: list[str] | None = None,
+                 extra: Sequence[Check] = ()) -> AuditReport:
+    """The report from an engine's result: statistics and verdicts on the canonical tables (and
+    `extra` checks computed beside the engine, such as independence from concurrent tests)."""
     checks = checks_from_tables(spec, canonical(res.tables), res.counts, split_changes or [])
-    return report_from_checks(spec, res, res.as_of, checks)
+    return report_from_checks(spec, res, res.as_of, [*checks, *extra])
 
 
 def report_from_checks(spec: Spec, fr: Frames | EngineResult, as_of: date, checks: list[Check]) -> AuditReport:
