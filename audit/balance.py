@@ -22,6 +22,7 @@ MIN_ARM_UNITS = 30
 # Categorical levels (and binary 2x2 cells) with fewer expected units than this are pooled /
 # tested exactly (Cochran's rule for the chi-square approximation, common practice).
 MIN_EXPECTED = 5.0
+OVERFLOW_NOTE = "not testable: values too large to sum (a square overflows a float)"
 
 
 def smd_continuous(mean_t: float, var_t: float, mean_c: float, var_c: float) -> float:
@@ -168,6 +169,19 @@ def _numeric_rows(cov: str, g: pd.DataFrame, ref: str, others: list[str], arms: 
     mean = {a: float(g.loc[a, "mean"]) for a in arms}
     var = {a: sample_variance(n[a], float(g.loc[a, "m2"])) for a in arms}
     out: list[_Row] = []
+    m2 = {a: float(g.loc[a, "m2"]) for a in arms}
+    if not all(math.isfinite(mean[a]) and math.isfinite(m2[a]) for a in arms if n[a]):
+        # a value so large (near 1e308) that its square or sum overflows: mean, SMD and the mean test
+        # are meaningless; the rank test (ranks do not overflow) still judges whether the arms differ
+        out += [_Row(covariate=cov, level=None, arm=arm, ref=None, value=None, smd=None, vr=None, chance=None,
+                     test="-", p=None, note=OVERFLOW_NOTE) for arm in others]
+        if min(n.values()) >= MIN_ARM_UNITS:
+            p_rank = kruskal_from_ranks(np.array([n[a] for a in arms]),
+                                        np.array([float(g.loc[a, "rank_sum"]) for a in arms]),
+                                        float(g["ties"].iloc[0]))
+            out.append(_Row(covariate=cov, level="(ranks, all arms)", arm=",".join(others), ref=None, value=None,
+                            smd=None, vr=None, chance=None, test="rank-sum", p=p_rank))
+        return out
     pooled_all = pooled_moments([(n[a], mean[a] if n[a] else 0.0, float(g.loc[a, "m2"])) for a in arms])
     constant = pooled_all[0] >= 2 and pooled_all[2] == 0.0
     for arm in others:
@@ -252,34 +266,43 @@ def check_balance(spec: Spec, bt: BalanceTables) -> Check:
         return Check(id="balance", title="Covariate balance", status="skipped",
                      summary="No covariates are configured ([audit] covariates, categorical_covariates).",
                      reason="no covariates configured")
+    # A statistic is compared only when it is a number: None (not computed) and NaN (undefined)
+    # never count as "no difference"; a p-value that underflows to 0 is the strongest evidence, and
+    # an infinite SMD (two constant arms that differ) the largest difference.
     tested = [r for r in rows if r.p is not None and not math.isnan(r.p)]
     adj = holm([r.p for r in tested])  # type: ignore[misc]
     for r, a in zip(tested, adj):
         r.p_holm = float(a)
     invalid = int(bt.numeric["invalid"].sum()) if "invalid" in bt.numeric else 0
-    smd_rows = [r for r in rows if r.smd is not None and math.isfinite(r.smd)]
-    worst = max(smd_rows, key=lambda r: abs(r.smd or 0.0), default=None)
-    max_smd = abs(worst.smd or 0.0) if worst else 0.0
+    smd_rows = [r for r in rows if r.smd is not None and not math.isnan(r.smd)]
+    worst = max(smd_rows, key=lambda r: abs(r.smd), default=None)  # type: ignore[arg-type]
+    max_smd = abs(worst.smd) if worst and worst.smd is not None else 0.0
     name = (worst.covariate + (f"={worst.level}" if worst.level else "")) if worst else "-"
-    sig = [r for r in tested if (r.p_holm or 1.0) < th.balance_p]
+    sig = [r for r in tested if r.p_holm is not None and r.p_holm < th.balance_p]
     sig_covs = {r.covariate for r in sig}
     rank_sig = {r.covariate for r in sig if r.test.startswith("rank")}
     has_rank = {r.covariate for r in tested if r.test.startswith("rank")}
+    overflow = {r.covariate for r in rows if r.note == OVERFLOW_NOTE}
 
     def big(r: _Row) -> bool:
-        return r.smd is not None and abs(r.smd) > th.smd_fail
+        return r.smd is not None and not math.isnan(r.smd) and abs(r.smd) > th.smd_fail
 
     fail_rows = [r for r in rows if r.covariate in sig_covs and big(r)
                  and (r.covariate not in has_rank or r.covariate in rank_sig)
                  and not r.note]
-    judged = {r.covariate for r in tested}
+    # a covariate too large to sum whose ranks differ beyond chance: as broken as a large SMD
+    fail_rows += [r for r in sig if r.covariate in overflow and r.covariate in rank_sig]
+    judged = {r.covariate for r in tested if r.covariate not in overflow}
     unjudged = sorted({r.covariate for r in rows if r.note.startswith("too few")} - judged)
     untestable = sorted({f"{r.covariate} ({r.note.split(':')[0]})" for r in rows
-                         if r.note and not r.note.startswith("too few")})
+                         if r.note and not r.note.startswith("too few") and not r.note.startswith("constant")})
+    constant = sorted({r.covariate for r in rows if r.note.startswith("constant")})
     status: Status
     extra = ""
     if untestable:
         extra += " Not tested: " + ", ".join(untestable) + "."
+    if constant:
+        extra += " Constant in every arm (alike by construction): " + ", ".join(constant) + "."
     if invalid:
         extra += f" {invalid} covariate value(s) were +/-infinity and were left out (invalid input)."
     if not tested:
@@ -290,25 +313,35 @@ def check_balance(spec: Spec, bt: BalanceTables) -> Check:
                    + (f"; smallest arm has {small}" if len(bt.numeric) else "") + ")." + extra)
     elif fail_rows:
         status = "fail"
-        r = max(fail_rows, key=lambda r: abs(r.smd or 0.0))
+        r = max(fail_rows, key=lambda r: abs(r.smd) if r.smd is not None else math.inf)
+        p_min = min(x.p_holm for x in sig if x.covariate == r.covariate and x.p_holm is not None)
+        size = (f"has SMD {r.smd:.3f} (chance alone gives about +/-{r.chance or 0:.3f})" if r.smd is not None
+                else "has values too large to sum, and its ranks differ")
         summary = (f"Arms differ before the test far beyond chance: {r.covariate}"
-                   + (f"={r.level}" if r.level else "") + f" has SMD {r.smd:.3f} (chance alone gives about "
-                   f"+/-{r.chance or 0:.3f}), Holm p {min(x.p_holm or 1 for x in sig if x.covariate == r.covariate):.2g}; "
+                   + (f"={r.level}" if r.level and r.smd is not None else "") + f" {size}, Holm p {p_min:.2g}; "
                    "check how units enter the arms (pre-period data joined by arm, a filter applied to one arm) "
                    "before reading any result." + extra)
     elif sig:
         status = "warn"
-        r = min(sig, key=lambda r: r.p_holm or 1.0)
+        r = min(sig, key=lambda r: r.p_holm if r.p_holm is not None else 1.0)
         size = (f" (largest |SMD| {max_smd:.3f} on {name}"
                 + ("; small in size" if max_smd <= th.smd_warn else "") + ")")
         summary = (f"Arms differ before the test by more than chance allows on {', '.join(sorted(sig_covs))} "
                    f"(Holm p {r.p_holm:.2g}, {r.test}){size}: check how units enter the arms; adjust the readout "
                    "for the covariate (e.g. CUPED) only once the cause is known." + extra)
+    elif unjudged or untestable:
+        # some covariates could not be judged: never a pass (issue #20's one status rule)
+        status = "warn"
+        summary = ("Could not judge every covariate: "
+                   + ", ".join([*unjudged, *untestable]) + (" (too few units to judge)" if unjudged and not untestable
+                                                            else "")
+                   + f". The others differ by no more than chance allows (largest |SMD| {max_smd:.3f}, {name})."
+                   + extra)
     else:
         status = "pass"
         summary = (f"Arms differ on no covariate by more than chance allows at this size (largest |SMD| {max_smd:.3f}, "
                    f"{name}; chance alone gives about +/-{(worst.chance if worst and worst.chance else 0):.3f})."
-                   + (f" Too few units to judge: {', '.join(unjudged)}." if unjudged else "") + extra)
+                   + extra)
 
     def fmt(x: object) -> object:
         if x is None:

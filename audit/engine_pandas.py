@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
@@ -127,10 +129,12 @@ def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, ob
         m = arms_used == i
         xi = vals[m]
         mean = rounded_mean(exact_sum(xi), len(xi))
-        d = xi - mean
+        with np.errstate(over="ignore", invalid="ignore"):  # values near 1e308: m2 is inf (balance says so)
+            d = xi - mean
+            d = d * d
         rows.append({"arm_index": i, "n": len(xi), "missing": int((ok & nan & (arm == i)).sum()),
                      "invalid": int((ok & ~nan & ~fin & (arm == i)).sum()),
-                     "mean": mean, "m2": rounded_sum(d * d), "rank_sum": rounded_sum(ranks[m]),
+                     "mean": mean, "m2": rounded_sum(d) if np.isfinite(d).all() else math.inf, "rank_sum": rounded_sum(ranks[m]),
                      "ties": ties, "binary": binary})
     return rows
 

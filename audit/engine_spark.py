@@ -27,7 +27,7 @@ from .engine import EngineResult, Inputs, ReadoutResult, file_bytes
 from .engine_pandas import HASH_LIKE, PREFIX_MAX, _cuts
 from .engine_spark_batch import Rows, together
 from .engine_spark_load import US_DAY, SparkFrames, day_of, load_exposures, load_identities, load_visits
-from .exactsum import exact_total, rounded_mean
+from .exactsum import exact_total, rounded_mean, to_float
 from .tables import (
     NUMERIC_COLUMNS,
     AuditTables,
@@ -370,8 +370,11 @@ def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame,
         if m == m:  # not NaN
             mean_col = F.when((F.col("cov") == i) & (F.col("_rec") == a), F.lit(m)).otherwise(mean_col)
     dev = long.select("cov", "_rec", ((F.col("x") - mean_col) * (F.col("x") - mean_col)).alias("d2"))
-    (m2_rows,) = yield [exact_sums_query(dev, ["cov", "_rec"], "d2")]
+    # a square that overflows (values near 1e308) makes m2 infinite, as in the pandas engine
+    (m2_rows, inf_rows) = yield [exact_sums_query(dev, ["cov", "_rec"], "d2"),
+                                 dev.where(F.abs(F.col("d2")) == float("inf")).groupBy("cov", "_rec").count()]
     m2 = exact_sums_of(m2_rows, ["cov", "_rec"])
+    m2.update({(r["cov"], r["_rec"]): float("inf") for r in inf_rows})
     ranks = _rank_sums(rank_rows, k)
     ties = exact_sums_of(cube_rows, ["cov"])
     out = []
@@ -388,7 +391,7 @@ def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame,
             out.append({"covariate": name, "arm": arms[a], "n": n_of(i, a),
                         "missing": int(r[f"miss{i}"] or 0) if r is not None else 0,
                         "invalid": int(r[f"inv{i}"] or 0) if r is not None else 0,
-                        "mean": means[(i, a)], "m2": float(m2.get((i, a), 0)),
+                        "mean": means[(i, a)], "m2": to_float(m2.get((i, a), 0)),
                         "rank_sum": float(ranks.get((i, a), 0)), "ties": float(ties.get((i,), 0)),
                         "binary": binary})
     return out

@@ -59,14 +59,23 @@ def exact_sum(x: np.ndarray) -> Fraction:
     return exact_total(exact_parts(x).items())
 
 
+def to_float(value: Fraction | int) -> float:
+    """An exact value as the nearest float; beyond the float range, +/-inf (never an OverflowError:
+    a sum of values near 1e308 overflows, and the statistics treat an infinite moment explicitly)."""
+    try:
+        return float(value)
+    except OverflowError:
+        return float("inf") if value > 0 else float("-inf")
+
+
 def rounded_sum(x: np.ndarray) -> float:
-    """The correctly rounded sum of `x` (as `math.fsum`, but vectorized)."""
-    return float(exact_sum(x))
+    """The correctly rounded sum of `x` (as `math.fsum`, but vectorized); +/-inf beyond the float range."""
+    return to_float(exact_sum(x))
 
 
 def rounded_mean(total: Fraction, n: int) -> float:
     """The correctly rounded mean of n values whose exact sum is `total` (NaN when n is 0)."""
-    return float(total / n) if n else float("nan")
+    return to_float(total / n) if n else float("nan")
 
 
 _BLOCK = 1 << 15  # rows per step of `grouped_exact_sums`: its temporaries stay in the CPU cache

@@ -62,8 +62,8 @@ def render_text(r: AuditReport) -> str:
     arms = ", ".join(f"{a.name} {a.weight / 100:g}% ({a.role})" for a in r.arms)
     through = f" (data through {r.data_through} only)" if r.data_through else ""
     out = [f"armlock audit: {r.experiment}   as of {r.as_of}{through}   spec {r.fingerprint}",
-           f"arms: {arms}",
-           f"verdict: {MARK[r.verdict]}  {r.verdict_text}", ""]
+           f"verdict: {MARK[r.verdict]}  {r.verdict_text}",
+           f"arms: {arms}", ""]
     if r.input_notes:
         out.append("Input notes:")
         out += [f"  - {n}" for n in r.input_notes]
@@ -104,9 +104,11 @@ def md_table(t: Table) -> str:
 
 
 def render_markdown(r: AuditReport) -> str:
-    out = [f"## armlock audit: {r.experiment} — **{MARK[r.verdict]}**", "",
+    unchecked = (" (could not check: " + ", ".join(_md_escape(m.title) for m in r.not_checked) + ")"
+                 if r.not_checked else "")
+    out = [f"## armlock audit: {_md_escape(r.experiment)} — **{MARK[r.verdict]}**{unchecked}", "",
            f"As of **{r.as_of}** (UTC{', data through ' + r.data_through + ' only' if r.data_through else ''}), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
-           f"> {r.verdict_text}", "",
+           f"> {_md_escape(r.verdict_text)}", "",
            "| check | status | what it means |", "|---|---|---|"]
     out += [f"| {_md_escape(c.title)} | **{MARK[c.status]}** | {_md_escape(c.summary)} |" for c in r.checks]
     if r.input_notes:

@@ -13,7 +13,7 @@ from .churn import check_churn
 from .engine import Engine, EngineResult, Inputs, canonical, file_bytes, select_engine
 from .integrity import check_integrity
 from .leakage import check_leakage
-from .model import ArmInfo, AuditReport, Check, worst
+from .model import ArmInfo, AuditReport, Check, NotChecked, not_checked_sentence, verdict_of
 from .read import Frames
 from .srm import check_srm, check_srm_segments
 from .tables import AuditTables
@@ -30,6 +30,23 @@ VERDICT_TEXT = {
     "warn": "The split needs a look: at least one check warns (see below); results may still be usable.",
     "fail": "The split is broken: at least one check fails; do not read results until it is fixed.",
 }
+
+
+def verdict_text(verdict: str, checks: list[Check], missing: list[NotChecked]) -> str:
+    """The verdict in words; what could not be checked comes first, so no reader misses it."""
+    if not missing:
+        return VERDICT_TEXT[verdict]
+    head = not_checked_sentence(missing)
+    warned = any(c.status == "warn" and c.judged for c in checks)
+    if verdict == "fail":
+        return f"{head} {VERDICT_TEXT['fail']}"
+    if any(m.gate for m in missing):
+        rest = ("The split cannot be called healthy without " + ", ".join(m.title for m in missing if m.gate)
+                + ("; a check that ran warns (see below)." if warned else "; the checks that ran found no problem."))
+        return f"{head} {rest}"
+    if verdict == "warn":
+        return f"{head} {VERDICT_TEXT['warn']}"
+    return f"{head} The checks that ran found no problem."
 
 
 def checks_from_tables(spec: Spec, tables: AuditTables, counts: dict[str, int],
@@ -104,7 +121,7 @@ def build_report(spec: Spec, res: EngineResult, split_changes: list[str] | None 
 
 def report_from_checks(spec: Spec, fr: Frames | EngineResult, as_of: date, checks: list[Check]) -> AuditReport:
     """The AuditReport of a set of checks (shared with the readout, which runs the same checks)."""
-    verdict = worst([c.status for c in checks])
+    verdict, missing = verdict_of(checks)
     return AuditReport(
         experiment=spec.name,
         fingerprint=spec.fingerprint,
@@ -114,7 +131,8 @@ def report_from_checks(spec: Spec, fr: Frames | EngineResult, as_of: date, check
         armlock_version=__version__,
         arms=[ArmInfo(name=a.name, weight=a.weight, role=a.role) for a in spec.arms],
         verdict=verdict,
-        verdict_text=VERDICT_TEXT[verdict],
+        verdict_text=verdict_text(verdict, checks, missing),
         input_notes=list(fr.notes),
         checks=checks,
+        not_checked=missing,
     )

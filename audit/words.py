@@ -18,7 +18,8 @@ STATUS_MEANING: dict[str, str] = {
     "pass": "the check ran and found nothing to act on",
     "warn": "the check found something to look at, or could not judge (its summary says which)",
     "fail": "the split is broken: do not read results until it is fixed",
-    "skipped": "the check did not run (its input was not given); it counts as PASS in the verdict",
+    "skipped": "the check did not run (its input was not given); it never counts as a pass: the verdict "
+               "names it, and is at least WARN when it is SRM, integrity or leakage",
 }
 NOTHING_CHANGED = "No status changed, no threshold was crossed and no rate or p-value moved much."
 SHARE_DECIMALS = 2  # shares are written as percent with this many decimals in every human output

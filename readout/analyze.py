@@ -6,7 +6,7 @@ import math
 from datetime import UTC, datetime
 
 from armlock.assign import Spec, __version__
-from armlock.audit.model import Check, Figure
+from armlock.audit.model import Check, Figure, NotChecked, verdict_of
 from armlock.plan.power import mde
 
 from .model import (
@@ -73,7 +73,8 @@ def _num(v: float | None, digits: int = 2) -> str:
     return "n/a" if v is None or not math.isfinite(v) else f"{v:,.{digits}f}"
 
 
-def headline(m: Money, status: str, failing: list[Check], level: int) -> str:
+def headline(m: Money, status: str, failing: list[Check], level: int,
+             missing: list[NotChecked] | None = None) -> str:
     """One sentence a marketing lead can repeat (and, on a failing audit, why not to)."""
     cur, inc = m.currency, m.incremental_revenue
     span = f"{level}% interval {money_text(inc.lo, cur)} to {money_text(inc.hi, cur)}"
@@ -93,10 +94,21 @@ def headline(m: Money, status: str, failing: list[Check], level: int) -> str:
         if m.attributed_roas is not None:
             said += f" (ROAS {_num(m.attributed_roas)})"
     said += "."
+    gaps = [m for m in (missing or []) if m.gate]
     if status == "fail":
         names = ", ".join(c.title for c in failing)
         said = f"NOT TRUSTWORTHY: the split audit fails ({names}), so this estimate may be biased. " + said
+        if gaps:
+            said = said.replace(" so this estimate", " and " + _gap_words(gaps) + "; so this estimate", 1)
+    elif gaps:
+        said = (f"NOT TRUSTWORTHY: {_gap_words(gaps)}, so nothing shows the split is sound enough to read. "
+                + said)
     return said
+
+
+def _gap_words(gaps: list[NotChecked]) -> str:
+    """'could not check Leakage (not run: no exposure log given)' for a headline."""
+    return "could not check " + "; ".join(f"{g.title} ({g.why})" for g in gaps)
 
 
 def _arm_row(name: str, role: str, m: Moments, alpha: float) -> ArmRow:
@@ -216,9 +228,10 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
         looks.append(Look(date=day, units={a: arms_m[a].n for a in tables.arms}, difference=_f(est.value),
                           lo=_f(est.lo), hi=_f(est.hi), anytime_lo=_f(lo_a), anytime_hi=_f(hi_a)))
 
-    status = _gate_status(checks)
+    status, missing = verdict_of(checks)
+    trusted = status != "fail" and not any(g.gate for g in missing)
     failing = [c for c in checks if c.status == "fail"]
-    warning = [c for c in checks if c.status == "warn"]
+    warning = [c for c in checks if c.status == "warn" and c.judged]
     if warning and status != "fail":
         cautions.insert(0, "Caution: the split audit warns (" + ", ".join(c.title for c in warning)
                         + "); read the estimate with that in mind.")
@@ -227,9 +240,10 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
     report = ReadoutReport(
         experiment=spec.name, fingerprint=spec.fingerprint, as_of=as_of,
         generated_at=datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
-        armlock_version=__version__, status=status, trustworthy=status != "fail",
-        headline=headline(m, status, failing, level), reading_advice=READING, cautions=cautions,
+        armlock_version=__version__, status=status, trustworthy=trusted,
+        headline=headline(m, status, failing, level, missing), reading_advice=READING, cautions=cautions,
         gate=[GateCheck(id=c.id, title=c.title, status=c.status, summary=c.summary) for c in checks],
+        not_checked=missing,
         arms=rows, effects=effects, adjustment=adjustment, exposure=exposure, money=m, looks=looks,
         settings={"alpha": alpha, "power": power, "margin": cfg.margin, "currency": cfg.currency,
                   "window": cfg.window, "revenue_cap": cfg.revenue_cap, "planned_units": cfg.planned_units,
@@ -247,11 +261,6 @@ def _scaled_rel(e: Estimate, hold: Moments) -> Estimate:
     if not mu:
         return Estimate(float("nan"), float("nan"), float("nan"), float("nan"))
     return Estimate(e.value / mu, e.se / abs(mu), e.lo / mu, e.hi / mu, e.p, e.df)
-
-
-def _gate_status(checks: list[Check]) -> str:
-    st = [c.status for c in checks]
-    return "fail" if "fail" in st else "warn" if "warn" in st else "pass"
 
 
 def _figures(m: Money, prim: Estimate, adj: Adjustment | None) -> dict[str, Figure]:

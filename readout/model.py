@@ -4,7 +4,11 @@ JSON output is `ReadoutReport.to_json_dict()`, schema id `SCHEMA`; a change that
 renames a field bumps the schema number. Money is in `money.currency` (display only). Every
 interval is two-sided at 1 - `settings["alpha"]`; `anytime_lo`/`anytime_hi` is the anytime-valid
 interval (valid at every look), `lo`/`hi` the fixed-horizon one (valid for one planned look).
-`status` uses the audit's words: pass | warn | fail (the gate's verdict).
+`status` uses the audit's words: pass | warn | fail (the gate's verdict, the audit's one rule:
+never pass when SRM, integrity or leakage did not run or could not judge). `trustworthy` is the
+gate's result: true only when SRM, integrity and leakage all judged and no gate check fails; a
+decision built on the readout is withheld when it is false. `not_checked` names what the gate
+could not check.
 """
 
 from __future__ import annotations
@@ -13,7 +17,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from armlock.audit.model import Figure
+from armlock.audit.model import Figure, NotChecked
 
 SCHEMA = "armlock.readout/1"
 Status = Literal["pass", "warn", "fail", "skipped"]
@@ -153,6 +157,7 @@ class ReadoutReport(BaseModel):
     reading_advice: str  # which interval a weekly reader should use
     cautions: list[str] = Field(default_factory=list)
     gate: list[GateCheck] = Field(default_factory=list)
+    not_checked: list[NotChecked] = Field(default_factory=list)
     arms: list[ArmRow]
     effects: list[Effect]
     adjustment: Adjustment | None = None

@@ -126,8 +126,9 @@ def _adjust_line(r: ReadoutReport) -> str | None:
 
 def render_text(r: ReadoutReport) -> str:
     out = [f"armlock readout: {r.experiment}   as of {r.as_of}   spec {r.fingerprint}",
-           f"audit gate: {MARK[r.status]}", "", textwrap.fill(r.headline, WIDTH), ""]
-    bad = [g for g in r.gate if g.status in ("fail", "warn")]
+           f"audit gate: {MARK[r.status]}{'' if r.trustworthy else ', not trustworthy'}", "",
+           textwrap.fill(r.headline, WIDTH), ""]
+    bad = [g for g in r.gate if g.status != "pass"]
     if bad:
         out.append("Audit checks that gate this readout:")
         out += [f"  [{MARK[g.status]}] {g.title}: {g.summary.split('; ')[0]}" for g in bad]
@@ -155,10 +156,11 @@ def _md(s: str) -> str:
 
 
 def render_markdown(r: ReadoutReport) -> str:
-    out = [f"## armlock readout: {r.experiment} — audit gate **{MARK[r.status]}**", "",
+    out = [f"## armlock readout: {_md(r.experiment)} — audit gate **{MARK[r.status]}**"
+           f"{'' if r.trustworthy else ', not trustworthy'}", "",
            f"As of **{r.as_of}** (UTC), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
            f"> {_md(r.headline)}", ""]
-    bad = [g for g in r.gate if g.status in ("fail", "warn")]
+    bad = [g for g in r.gate if g.status != "pass"]
     if bad:
         out += ["**Audit checks that gate this readout**", ""]
         out += [f"- **{MARK[g.status]}** {_md(g.title)}: {_md(g.summary.split('; ')[0])}" for g in bad]

@@ -183,7 +183,9 @@ EXTRA_CSS = """
 def render_html(r: ReadoutReport) -> str:
     """The whole readout page as a string."""
     word, fg, bg = _GATE_WORDS.get(r.status, _GATE_WORDS["warn"])
-    bad = [g for g in r.gate if g.status in ("fail", "warn")]
+    if not r.trustworthy and r.status != "fail":
+        word = f"{MARK[r.status]}: not trustworthy"
+    bad = [g for g in r.gate if g.status != "pass"]
     gate_list = "".join(f"<li>{badge(g.status)} <strong>{esc(g.title)}</strong>: {esc(g.summary.split('; ')[0])}</li>"
                         for g in bad)
     with matplotlib.rc_context(_RC):  # type: ignore[arg-type]

@@ -16,7 +16,7 @@ from fractions import Fraction
 import numpy as np
 
 from armlock.assign import Spec
-from armlock.audit.exactsum import rounded_mean
+from armlock.audit.exactsum import rounded_mean, to_float
 
 from .tables import COV_PREFIX, VARIABLES, Moments
 
@@ -62,7 +62,7 @@ def moments_of(names: tuple[str, ...], n: int, means: np.ndarray, cross: Sequenc
         return Moments.empty(names)
     m2 = np.zeros((k, k))
     for (a, b), s in zip(pairs(k), cross):
-        m2[a, b] = m2[b, a] = float(Fraction(s))
+        m2[a, b] = m2[b, a] = to_float(Fraction(s))
     return Moments(names, n, np.asarray(means, dtype=np.float64), m2)
 
 
