@@ -253,7 +253,9 @@ def _crossing(key: str, label: str, old: Any, new: Any, unit: str, th: Any) -> s
         if attr is None:
             continue
         limit = float(getattr(th, attr))
-        bad = (lambda v: v > limit) if side == "above" else (lambda v: v < limit)
+        def bad(v: float, limit: float = limit) -> bool:
+            return v > limit if side == "above" else v < limit
+
         if bad(old) != bad(new):
             word = "above" if side == "above" else "below"
             went = "rose" if new > old else "fell"

@@ -25,7 +25,7 @@ def test_linear_quantile_is_numpys_bit_for_bit(seed: int) -> None:
         x = np.round(rng.lognormal(3, 1.2, n) * (rng.random(n) < 0.3), 2)  # many ties at 0, as unit revenue
         s = np.sort(x)
         for q in (0.5, 0.9, 0.95, 0.99, 0.999, 0.9999, 0.123456789, rng.random()):
-            assert linear_quantile(n, q, lambda i: float(s[i])) == float(np.quantile(x, q)), (n, q)
+            assert linear_quantile(n, q, lambda i, s=s: float(s[i])) == float(np.quantile(x, q)), (n, q)
 
 
 def test_grouped_exact_sums_equal_fsum() -> None:
