@@ -6,12 +6,13 @@ from pathlib import Path
 
 import typer
 
+from armlock.assign.module import render_module
 from armlock.assign.snippet import render_snippet
 
 from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, emit, open_spec
 
 
-FORMS = ("html", "js")
+FORMS = ("html", "js", "module")
 
 
 def snippet(
@@ -20,8 +21,10 @@ def snippet(
         "html",
         "--form",
         "-f",
-        metavar="<html|js>",
-        help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host.",
+        metavar="<html|js|module>",
+        help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host; "
+        "module: an ES module of the split and the server-set id cookie for Node and edge runtimes "
+        "(docs/identity.md).",
     ),
     out: Path = typer.Option(
         None, "--out", "-o", help="Write the snippet to this file instead of stdout."
@@ -37,9 +40,9 @@ def snippet(
     Example: armlock snippet --spec spring-retargeting.toml --form html --out armlock-tag.html
     """
     if form not in FORMS:
-        raise typer.BadParameter(f"unknown form {form!r}; choose html or js", param_hint="--form")
+        raise typer.BadParameter(f"unknown form {form!r}; choose html, js or module", param_hint="--form")
     spec = open_spec(spec_path, accept_changed_split=accept)
-    text = render_snippet(spec, form)
+    text = render_module(spec) if form == "module" else render_snippet(spec, form)
     emit(text, out, what="the snippet",
          done=f"Wrote {out} ({form}, {len(text.encode('utf-8'))} bytes) for experiment "
               f"{spec.name!r}, fingerprint {spec.fingerprint}")

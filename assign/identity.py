@@ -56,8 +56,8 @@ def cookie_values(header: str | None, name: str) -> list[str]:
     """
     out = []
     for part in (header or "").split(";"):
-        key, eq, value = part.strip().partition("=")
-        if eq and key == name:
+        key, eq, value = part.partition("=")
+        if eq and key.strip() == name:  # name and value are trimmed (RFC 6265, 5.2, steps 4-5)
             out.append(value.strip())
     return out
 

@@ -25,7 +25,7 @@ def test_snippet_wrong_form_is_plain(tmp_path: Path) -> None:
     assert run_cli(tmp_path, "init", "t").returncode == 0
     run = run_cli(tmp_path, "snippet", "--spec", "t.toml", "--form", "svg")
     assert run.returncode == 2
-    assert "Invalid value for --form: unknown form 'svg'; choose html or js" in run.stderr
+    assert "Invalid value for --form: unknown form 'svg'; choose html, js or module" in run.stderr
     assert "Value error" not in run.stderr
 
 
