@@ -17,8 +17,10 @@ from armlock.audit.words import status_word
 from .common import (
     ACCEPT_CHANGED_SPLIT,
     ENGINE,
+    MEMORY_LIMIT,
     SPARK_CONF,
     SPARK_MASTER,
+    TEMP_DIR,
     SPEC_HELP,
     emit,
     engine_settings,
@@ -98,6 +100,8 @@ def audit_cmd(
     engine: str = ENGINE,
     spark_master: str = SPARK_MASTER,
     spark_conf: list[str] = SPARK_CONF,
+    memory_limit: str = MEMORY_LIMIT,
+    temp_dir: str = TEMP_DIR,
 ) -> None:
     """Audit the split's health: SRM (overall, by day and segment), assignment integrity, leakage,
     identity churn and covariate balance; with --alongside, independence from concurrent tests.
@@ -119,14 +123,15 @@ def audit_cmd(
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
                                  param_hint="--format")
     day = _as_of(as_of)
-    conf = engine_settings(engine, spark_master, spark_conf)
+    conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
     from armlock.audit.engine import select_engine
     from armlock.audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
 
     siblings = concurrent_specs(spec_path, alongside or [])
-    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf)
+    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf, memory_limit=memory_limit,
+                        temp_directory=temp_dir)
     with progress(input_bytes(visits, exposures, identities) or None, "reading logs") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
                            as_of=day, advance=advance, split_changes=changes_after_start(lock),

@@ -10,8 +10,10 @@ from .cmd_audit import _as_of, finish
 from .common import (
     ACCEPT_CHANGED_SPLIT,
     ENGINE,
+    MEMORY_LIMIT,
     SPARK_CONF,
     SPARK_MASTER,
+    TEMP_DIR,
     SPEC_HELP,
     emit,
     engine_settings,
@@ -41,6 +43,8 @@ def readout_cmd(
     engine: str = ENGINE,
     spark_master: str = SPARK_MASTER,
     spark_conf: list[str] = SPARK_CONF,
+    memory_limit: str = MEMORY_LIMIT,
+    temp_dir: str = TEMP_DIR,
 ) -> None:
     """Read out the test: incremental revenue, profit, iROAS and ROI with honest intervals, the
     effect per exposed unit, and what attribution credited, arm against arm (intent to treat).
@@ -70,14 +74,15 @@ def readout_cmd(
     if spend is not None and spend < 0:
         raise typer.BadParameter(f"spend must not be negative, got {spend:g}", param_hint="--spend")
     day = _as_of(as_of)
-    conf = engine_settings(engine, spark_master, spark_conf)
+    conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
     from armlock.audit.engine import select_engine
     from armlock.audit.run import input_bytes  # pandas/scipy load only when a readout runs
     from armlock.readout.run import run_readout
 
-    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf)
+    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf, memory_limit=memory_limit,
+                        temp_directory=temp_dir)
     total = input_bytes(visits, exposures, identities, orders) or None
     with progress(total, "reading logs") as advance:
         report = run_readout(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,

@@ -25,7 +25,8 @@ ACCEPT_CHANGED_SPLIT: Any = typer.Option(
 # Where the rows are counted: every command that reads the logs (audit, readout) takes these three.
 ENGINE: Any = typer.Option(
     "pandas", "--engine",
-    help="Where the rows are counted: pandas (this machine, default) or spark (needs pip install "
+    help="Where the rows are counted: duckdb (this machine, in memory that grows with units, not rows; "
+         "spills to disk), pandas (this machine, all rows in memory) or spark (needs pip install "
          "'armlock[spark]' and Java 17; uses the active SparkSession, else starts one).")
 SPARK_MASTER: Any = typer.Option(
     None, "--spark-master",
@@ -36,10 +37,20 @@ SPARK_CONF: Any = typer.Option(
     help="With --engine spark: a Spark setting for the session it starts (repeatable), e.g. "
          "spark.executor.memory=8g. spark-defaults.conf (SPARK_CONF_DIR), PYSPARK_SUBMIT_ARGS and "
          "spark-submit --conf also apply.")
+MEMORY_LIMIT: Any = typer.Option(
+    None, "--memory-limit", metavar="SIZE",
+    help="With --engine duckdb: the most memory DuckDB may take, e.g. 4GB (default: 80% of this "
+         "machine's memory); beyond it, it spills to --temp-dir.")
+TEMP_DIR: Any = typer.Option(
+    None, "--temp-dir", metavar="DIR",
+    help="With --engine duckdb: the folder DuckDB spills to (default: a new folder in the system's "
+         "temporary directory, removed afterwards).")
+ENGINE_NAMES = ("duckdb", "pandas", "spark")
 
 
-def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str] | None) -> dict[str, str]:
-    """Check --engine, --spark-master and --spark-conf together (usage errors, exit 2); the Spark settings."""
+def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str] | None,
+                    memory_limit: str | None = None, temp_dir: str | None = None) -> dict[str, str]:
+    """Check --engine with the Spark and DuckDB settings together (usage errors, exit 2); the Spark settings."""
     conf = {}
     for item in spark_conf or []:
         key, sep, value = item.partition("=")
@@ -47,10 +58,12 @@ def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str]
             raise typer.BadParameter(f"{item!r} is not KEY=VALUE, e.g. spark.executor.memory=8g",
                                      param_hint="--spark-conf")
         conf[key.strip()] = value
-    if engine not in ("pandas", "spark"):
-        raise typer.BadParameter(f"unknown engine {engine!r}; choose pandas or spark", param_hint="--engine")
+    if engine not in ENGINE_NAMES:
+        raise typer.BadParameter(f"unknown engine {engine!r}; choose duckdb, pandas or spark", param_hint="--engine")
     if engine != "spark" and (spark_master or conf):
         raise typer.BadParameter("--spark-master and --spark-conf need --engine spark", param_hint="--engine")
+    if engine != "duckdb" and (memory_limit or temp_dir):
+        raise typer.BadParameter("--memory-limit and --temp-dir need --engine duckdb", param_hint="--engine")
     return conf
 
 

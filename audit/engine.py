@@ -35,7 +35,7 @@ if TYPE_CHECKING:
     from .engine_pandas import VisitArms
     from .read import Frames
 
-ENGINES = ("pandas", "spark")
+ENGINES = ("duckdb", "pandas", "spark")
 SPARK_INSTALL = "pip install 'armlock[spark]'"
 TABLE_PREFIX = "table:"  # `table:db.name` names a table of the Spark catalog instead of a path
 
@@ -148,10 +148,18 @@ def file_bytes(*paths: Source | None) -> int:
 
 
 def select_engine(name: str = "pandas", *, spark_master: str | None = None,
-                  spark_conf: dict[str, str] | None = None) -> Engine:
-    """The engine called `name`. Spark loads only here, and only when asked for."""
+                  spark_conf: dict[str, str] | None = None, memory_limit: str | None = None,
+                  temp_directory: str | None = None) -> Engine:
+    """The engine called `name`. Spark loads only here, and only when asked for.
+
+    `memory_limit` and `temp_directory` are the DuckDB engine's (its memory limit, e.g. "8GB", and
+    the folder it spills to)."""
     if name == "pandas":
         return PandasEngine()
+    if name == "duckdb":
+        from .engine_duckdb import DuckDBEngine
+
+        return DuckDBEngine(memory_limit=memory_limit, temp_directory=temp_directory)
     if name == "spark":
         try:
             import pyspark  # noqa: F401

@@ -244,18 +244,25 @@ def _arrow(table: pa.Table, col: str) -> pa.ChunkedArray:
     return arr
 
 
-def read_ids(src: Source, table: pa.Table, col: str, notes: list[str]) -> tuple[pd.Series, np.ndarray]:
-    """Ids as text; returns (ids, mask of empty or null ids)."""
-    arr = _arrow(table, col)
+def text_ids(src: Source, arr: pa.ChunkedArray | pa.Array, col: str, notes: list[str] | None) -> pa.ChunkedArray | pa.Array:
+    """Ids as Arrow text, nulls as "": integers become their decimal text (noted), other types raise."""
+    if pa.types.is_dictionary(arr.type):
+        arr = arr.cast(arr.type.value_type)
     if pa.types.is_integer(arr.type):
-        notes.append(f"{src.path.name}: ids in '{col}' are integers; hashed as their decimal text")
+        if notes is not None:
+            notes.append(f"{src.path.name}: ids in '{col}' are integers; hashed as their decimal text")
         arr = arr.cast(pa.string())
     elif not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
         raise InputError(
             f"{src.path}: column '{col}' holds {arr.type}, not text ids; export the ids as text "
             "exactly as the site stores them"
         )
-    arr = pc.fill_null(arr, "")
+    return pc.fill_null(arr, "")
+
+
+def read_ids(src: Source, table: pa.Table, col: str, notes: list[str]) -> tuple[pd.Series, np.ndarray]:
+    """Ids as text; returns (ids, mask of empty or null ids)."""
+    arr = text_ids(src, _arrow(table, col), col, notes)
     ids = pd.Series(arr.to_pandas(), dtype="str", name=col)
     empty = pc.equal(arr, "").to_numpy(zero_copy_only=False)
     return ids.reset_index(drop=True), np.asarray(empty, dtype=bool)
@@ -410,14 +417,6 @@ def _whole_micros(times: pd.Series) -> pd.Series:
     return pd.Series(pd.DatetimeIndex(out.view("datetime64[ns]"), tz="UTC"), name=times.name)
 
 
-def _range_checked(src: Source, col: str, parsed: pd.Series) -> pd.Series:
-    """Times as datetime64[ns, UTC] in whole microseconds; a time outside 1678-2261 is an input error naming rows."""
-    far = np.flatnonzero(((parsed < _T_MIN) | (parsed >= _T_MAX)).fillna(False).to_numpy(dtype=bool))
-    if len(far):
-        raise far_times(src, col, len(far), src.rows(far), parsed.iloc[far[0]].as_unit("us"))
-    return _whole_micros(parsed)
-
-
 def _inside(values: pa.ChunkedArray) -> bool:
     """True when every time lies in the years the engine holds (checked on Arrow's min and max)."""
     mm = pc.min_max(values)
@@ -428,16 +427,57 @@ def _inside(values: pa.ChunkedArray) -> bool:
     return bool(lo >= bounds[0].value and hi < bounds[1].value)
 
 
-def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: str = "iso8601",
-               setting: str = "") -> pd.Series:
-    """Times as UTC timestamps (NaT for empty cells); zone-less times are read as UTC and noted.
+@dataclass
+class ParsedTimes:
+    """One pass of the time rules over a column (or a slice of it), before any error is raised.
 
-    `fmt` is the column's time format ("iso8601", "epoch_seconds", "epoch_milliseconds" or a
-    strftime pattern); it applies to text and numbers, while Parquet timestamps are read as
-    they are. `setting` names the spec key that sets it, for the messages.
-    """
-    arr = _arrow(table, col)
-    where = setting or "the column's time format"
+    `values` are UTC times in whole microseconds (NaT for empty cells; meaningless where `bad` or
+    `far` is not empty); `bad` / `far` are the positions that do not parse / lie outside 1678-2261,
+    `shown` the text of the first 100 bad ones, `far_first` the first far time. The rest says which
+    notes the column earns: `dates` (dates without a time), `naive` (zone-less Parquet timestamps),
+    `naive_text` (zone-less ISO 8601 texts, counted), `fmt_naive` (a pattern without a zone)."""
+
+    values: pd.Series
+    bad: np.ndarray
+    shown: list[str]
+    far: np.ndarray
+    far_first: pd.Timestamp | None = None
+    dates: bool = False
+    naive: bool = False
+    naive_text: int = 0
+    fmt_naive: bool = False
+
+
+def numeric_times_error(src: Source, col: str, typ: pa.DataType, first: object, fmt: str, where: str) -> InputError:
+    """The error for a numeric time column without an epoch format; `first` is its first non-null value."""
+    hint = looks_like(str(first)) if first is not None else "holds numbers"
+    return InputError(f"{src.path}: column '{col}' holds numbers ({typ}), not {_FORMAT_WORDS.get(fmt, fmt)} "
+                      f"times; it {hint} in {where}")
+
+
+def time_notes(src: Source, col: str, fmt: str, p: ParsedTimes) -> list[str]:
+    """The input notes a parsed time column earns (read_times' and every streaming reader's)."""
+    if p.dates:
+        return [f"{src.path.name}: '{col}' holds dates without a time; read as midnight UTC"]
+    if p.naive:
+        return [f"{src.path.name}: times in '{col}' have no zone; read as UTC"]
+    if p.naive_text:
+        return [f"{src.path.name}: {p.naive_text:,} time(s) in '{col}' have no zone; read as UTC"]
+    if p.fmt_naive:
+        return [f"{src.path.name}: times in '{col}' ({fmt!r}) have no zone; read as UTC"]
+    return []
+
+
+def parse_times(src: Source, arr: pa.ChunkedArray, col: str, fmt: str = "iso8601", where: str = "") -> ParsedTimes:
+    """The time rules of `read_times` over one column or slice, raising only for the column's type.
+
+    A numeric column without an epoch format, or a type that holds no times, raises here (the
+    first error `read_times` gives); values that do not parse or lie outside 1678-2261 are
+    returned as positions, so a reader of slices can count them over the whole file."""
+    where = where or "the column's time format"
+    none = np.zeros(0, np.int64)
+    if pa.types.is_dictionary(arr.type):
+        arr = arr.cast(arr.type.value_type)
     if pa.types.is_timestamp(arr.type) or pa.types.is_date(arr.type):
         try:  # nanoseconds stay as they are; coarser units widen to microseconds (exact, wider range)
             nano = pa.types.is_timestamp(arr.type) and arr.type.unit == "ns"
@@ -447,24 +487,23 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
         if pa.types.is_timestamp(arr.type) and arr.type.tz is not None and _inside(values):
             # the common case, zoned times within the engine's range: one cast to nanoseconds in Arrow
             # (one combined chunk converts to pandas without a copy; many chunks take a slow path)
-            out = pd.Series(values.cast(pa.timestamp("ns", "UTC")).combine_chunks().to_pandas())
-            return _whole_micros(out) if nano else out
-        out = pd.Series(values.combine_chunks().to_pandas())
+            out = pd.Series(_combined(values.cast(pa.timestamp("ns", "UTC"))).to_pandas())
+            return ParsedTimes(_whole_micros(out) if nano else out, none, [], none)
+        out = pd.Series(_combined(values).to_pandas())
+        dates = naive = False
         if pa.types.is_date(arr.type):
-            notes.append(f"{src.path.name}: '{col}' holds dates without a time; read as midnight UTC")
+            dates = True
             out = out.dt.tz_localize("UTC")
         elif out.dt.tz is None:
-            notes.append(f"{src.path.name}: times in '{col}' have no zone; read as UTC")
+            naive = True
             out = out.dt.tz_localize("UTC")
         else:
             out = out.dt.tz_convert("UTC")
-        return _range_checked(src, col, out)
+        return _with_range(ParsedTimes(out, none, [], none, dates=dates, naive=naive))
     numeric = pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type)
     if numeric and fmt not in ("epoch_seconds", "epoch_milliseconds"):
         sample = pc.drop_null(arr)
-        hint = looks_like(str(sample[0].as_py())) if len(sample) else "holds numbers"
-        raise InputError(f"{src.path}: column '{col}' holds numbers ({arr.type}), not {_FORMAT_WORDS.get(fmt, fmt)} "
-                         f"times; it {hint} in {where}")
+        raise numeric_times_error(src, col, arr.type, sample[0].as_py() if len(sample) else None, fmt, where)
     if not (numeric or pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
         raise InputError(f"{src.path}: column '{col}' holds {arr.type}, not times (use ISO 8601 text or timestamps)")
     if numeric:
@@ -476,7 +515,7 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
         blank = (shown == "").to_numpy()
         text = shown
     if fmt in EPOCH_DIGITS:
-        us, ok = epoch_micros(arr, fmt)
+        us, ok = epoch_micros(arr if isinstance(arr, pa.ChunkedArray) else pa.chunked_array([arr]), fmt)
         stamps = us.astype("datetime64[us]")
         stamps[~ok] = np.datetime64("NaT")
         parsed = pd.Series(pd.to_datetime(stamps, utc=True))
@@ -487,17 +526,48 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
     else:
         parsed = pd.to_datetime(text, utc=True, format=fmt, errors="coerce")
         bad = np.flatnonzero(parsed.isna().to_numpy() & ~blank)
+    out = ParsedTimes(parsed, bad, [str(shown.iloc[i]) for i in bad[:100]], none)
     if len(bad):
-        raise bad_times(src, col, len(bad), src.rows(bad), [str(shown.iloc[i]) for i in bad[:100]], fmt, where)
+        return out
     if fmt == "iso8601":
         zoned = text.str.contains(_ZONE, regex=True)
-        naive = int((~zoned & ~pd.Series(blank)).sum())
-        if naive:
-            notes.append(f"{src.path.name}: {naive:,} time(s) in '{col}' have no zone; read as UTC")
+        out.naive_text = int((~zoned & ~pd.Series(blank)).sum())
     elif fmt not in EPOCH_DIGITS and "%z" not in fmt and "%Z" not in fmt:
-        if int((~blank).sum()):
-            notes.append(f"{src.path.name}: times in '{col}' ({fmt!r}) have no zone; read as UTC")
-    return _range_checked(src, col, parsed)
+        out.fmt_naive = bool(int((~blank).sum()))
+    return _with_range(out)
+
+
+def _combined(values: pa.ChunkedArray | pa.Array) -> pa.Array:
+    return values.combine_chunks() if isinstance(values, pa.ChunkedArray) else values
+
+
+def _with_range(p: ParsedTimes) -> ParsedTimes:
+    """Fills `far` (times outside 1678-2261) and, when there are none, drops the digits below the microsecond."""
+    parsed = p.values
+    far = np.flatnonzero(((parsed < _T_MIN) | (parsed >= _T_MAX)).fillna(False).to_numpy(dtype=bool))
+    if len(far):
+        p.far, p.far_first = far, parsed.iloc[far[0]].as_unit("us")
+    else:
+        p.values = _whole_micros(parsed)
+    return p
+
+
+def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: str = "iso8601",
+               setting: str = "") -> pd.Series:
+    """Times as UTC timestamps (NaT for empty cells); zone-less times are read as UTC and noted.
+
+    `fmt` is the column's time format ("iso8601", "epoch_seconds", "epoch_milliseconds" or a
+    strftime pattern); it applies to text and numbers, while Parquet timestamps are read as
+    they are. `setting` names the spec key that sets it, for the messages. (`parse_times` holds
+    the rules; this raises `bad_times` or `far_times` over the whole column.)
+    """
+    p = parse_times(src, _arrow(table, col), col, fmt, setting)
+    if len(p.bad):
+        raise bad_times(src, col, len(p.bad), src.rows(p.bad), p.shown, fmt, setting or "the column's time format")
+    notes.extend(time_notes(src, col, fmt, p))
+    if len(p.far):
+        raise far_times(src, col, len(p.far), src.rows(p.far), p.far_first)  # type: ignore[arg-type]
+    return p.values
 
 
 def decimal_floats(arr: pa.ChunkedArray) -> np.ndarray:

@@ -1,0 +1,295 @@
+"""The DuckDB engine (embedded, the default): exposure rows are counted inside DuckDB; only per-unit and per-cell tables come out.
+
+Visits and identity links are read by `audit.load` (one row per unit or link) and counted by
+`audit.engine_pandas`; the exposure log, the one that grows with the traffic, is streamed slice by
+slice (`audit.engine_duckdb_read`) into one DuckDB query that joins each row to its unit and
+groups it by unit and by the holdout's campaign and week cells. What comes back (`cells`) has one
+row per exposed unit, per unseen id and per leaked (unit, campaign, week): memory grows with units
+and cells, never with rows. Arms are the contract's (`audit.engine_pandas.hash_arms`: XXH64 of each
+distinct id, computed once), joined in DuckDB by id.
+
+DuckDB runs under a memory limit (`--memory-limit`, DuckDB's own default otherwise: 80 % of the
+machine's memory) and spills to a temporary folder (`--temp-dir`, else a new folder under the
+system's temporary directory, removed afterwards); when even that is not enough, the run stops
+with an `Error:` that says so.
+"""
+
+from __future__ import annotations
+
+import shutil
+import tempfile
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from datetime import date
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+
+from armlock.assign import InputError, Spec
+
+from . import engine_pandas
+from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path
+from .engine_duckdb_read import STREAM_SCHEMA, ExposureReader, ExposureScan, Unsorted
+from .engine_pandas import NS_DAY, VisitArms, _unseen_diagnostics, hash_arms
+from .keys import arrow_ids
+from .load import load_identities, load_visits
+from .read import TIME, UNIT, Frames
+from .tables import AuditTables, LeakageTables
+
+US_DAY = NS_DAY // 1000
+DUCKDB_INSTALL = "pip install duckdb"
+
+
+@contextmanager
+def connect(memory_limit: str | None, temp_directory: str | None) -> Iterator[Any]:
+    """A DuckDB connection in memory with the limit and the spill folder (a fresh one removed afterwards)."""
+    try:
+        import duckdb
+    except ImportError:
+        raise InputError(f"the DuckDB engine needs the duckdb package, which is not installed: {DUCKDB_INSTALL}") from None
+    made = None
+    if temp_directory is None:
+        made = tempfile.mkdtemp(prefix="armlock-duckdb-")
+    config = {"temp_directory": temp_directory or made, "preserve_insertion_order": False}
+    if memory_limit:
+        config["memory_limit"] = memory_limit
+    try:
+        con = duckdb.connect(":memory:", config=config)
+    except duckdb.Error as exc:
+        raise InputError(f"cannot start DuckDB with --memory-limit {memory_limit!r} and --temp-dir "
+                         f"{temp_directory!r}: {str(exc).splitlines()[0]}") from None
+    try:
+        yield con
+    finally:
+        con.close()
+        if made is not None:
+            shutil.rmtree(made, ignore_errors=True)
+
+
+def arrow_of(rel: Any) -> pa.Table:
+    """A DuckDB relation as an Arrow table (DuckDB 2 names the call `to_arrow_table`, 1.x `arrow`)."""
+    fetch = getattr(rel, "to_arrow_table", None) or rel.arrow
+    return fetch()
+
+
+def _floor_div(expr: str, d: int) -> str:
+    """Floor division of an integer expression in SQL (DuckDB's % keeps the dividend's sign)."""
+    return f"(({expr}) - ((({expr}) % {d}) + {d}) % {d}) // {d}"
+
+
+def _day(us: int) -> str:
+    return str(np.datetime64(int(us) // US_DAY, "D"))
+
+
+class DuckDBEngine:
+    """The embedded engine on DuckDB: memory grows with units and cells, never with exposure rows."""
+
+    name = "duckdb"
+
+    def __init__(self, memory_limit: str | None = None, temp_directory: str | None = None) -> None:
+        self.memory_limit, self.temp_directory = memory_limit, temp_directory
+
+    def compute(self, spec: Spec, inputs: Inputs, as_of: date | None,
+                advance: Callable[[int], None]) -> EngineResult:
+        fr, used, tables = self.load_and_count(spec, inputs, as_of, advance)
+        return EngineResult(tables=tables, as_of=used, notes=fr.notes, counts=fr.counts,
+                            data_through=fr.data_through)
+
+    def readout(self, spec: Spec, inputs: Inputs, as_of: date | None,
+                advance: Callable[[int], None]) -> ReadoutResult:
+        from armlock.readout import engine_duckdb as readout_engine
+
+        return readout_engine.readout(self, spec, inputs, as_of, advance)
+
+    def load_and_count(self, spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[int], None],
+                       before_count: Callable[[Frames], None] | None = None) -> tuple[Frames, date, AuditTables]:
+        """Read the logs, count the exposures in DuckDB and the rest as the pandas engine does."""
+        visits = local_path(inputs.visits, "--visits")
+        exposures = local_path(inputs.exposures, "--exposures")
+        identities = local_path(inputs.identities, "--identities")
+        fr = Frames(visits=None)  # type: ignore[arg-type]
+        used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
+        early = engine_pandas.start_visit_arms(spec, fr.visits)
+        advance(file_bytes(visits))
+        link_notes: list[str] = []
+        if identities is not None:  # read while the ids are hashed; its notes follow the exposures'
+            at = len(fr.notes)
+            load_identities(spec, identities, used, fr)
+            link_notes = fr.notes[at:]
+            del fr.notes[at:]
+        leakage = None
+        if exposures is not None:
+            va = early.result()
+            leakage = self.leakage(spec, exposures, used, fr, va)
+            advance(file_bytes(exposures))
+        fr.notes += link_notes
+        if identities is not None:
+            advance(file_bytes(identities))
+        if before_count is not None:
+            before_count(fr)
+        tables = engine_pandas.compute(spec, fr, early)
+        tables.leakage = leakage
+        return fr, used, tables
+
+    # -- exposures -------------------------------------------------------------------------------
+
+    def leakage(self, spec: Spec, path: Path, as_of: date, fr: Frames, va: VisitArms) -> LeakageTables:
+        """The leakage tables of the exposure log, counted in DuckDB."""
+        reader = ExposureReader(spec, path, as_of, fr.notes)
+        with connect(self.memory_limit, self.temp_directory) as con:
+            con.register("v", _visits_table(spec, fr, va))
+            start_us = int(pd.Timestamp(spec.start).value // 1000)
+            try:
+                scan = self._cells(con, reader, start_us, sorted_mode=True)
+            except Unsorted:  # times go back somewhere: read again, DuckDB groups the repeats
+                scan = self._cells(con, reader, start_us, sorted_mode=False)
+            return _leakage_from_cells(spec, con, reader, scan, fr, va)
+
+    def _cells(self, con: Any, reader: ExposureReader, start_us: int, sorted_mode: bool) -> ExposureScan:
+        """Stream the log into DuckDB's table `cells` (one pass; sorted mode de-duplicates as it streams)."""
+        import duckdb
+
+        scan = ExposureScan()
+
+        def rows() -> Iterator[pa.RecordBatch]:
+            try:
+                yield from reader.stream(scan, sorted_mode)
+            except BaseException as exc:  # DuckDB would swallow the type: keep it, end the stream
+                scan.error = exc
+
+        stream = pa.RecordBatchReader.from_batches(STREAM_SCHEMA, rows())
+        con.register("ev", stream)
+        events = "ev" if sorted_mode else \
+            "(SELECT id, t, camp, kl, min(kind) AS kind, sum(n) AS n FROM ev GROUP BY id, t, camp, kl)"
+        try:
+            con.execute("DROP TABLE IF EXISTS cells")
+            con.execute(_CELLS_SQL.format(events=events, start=start_us,
+                                          week=_floor_div(_floor_div("t", US_DAY) + " + 3", 7)))
+        except duckdb.OutOfMemoryException as exc:
+            if isinstance(scan.error, (InputError, Unsorted)):
+                raise scan.error from None
+            raise InputError(_out_of_memory(self.memory_limit, exc)) from None
+        except duckdb.Error as exc:
+            if scan.error is not None:
+                raise scan.error from None
+            raise InputError(f"{reader.src.path}: DuckDB could not count the exposures: "
+                             f"{str(exc).splitlines()[0]}") from None
+        finally:
+            con.unregister("ev")
+        if scan.error is not None:
+            raise scan.error
+        return scan
+
+
+def _out_of_memory(limit: str | None, exc: BaseException) -> str:
+    said = f"--memory-limit {limit}" if limit else "DuckDB's default memory limit (80% of this machine's memory)"
+    return (f"the DuckDB engine ran out of memory under {said}, even spilling to its temporary folder "
+            f"({str(exc).splitlines()[0]}); give it more with --memory-limit, point --temp-dir at a disk with "
+            "more room, or run on a cluster with --engine spark")
+
+
+# One row per exposed unit (pos), per unseen id (uid), and per leaked (unit, campaign, week): rows
+# with no leak have lcamp and lweek NULL. Every count is of distinct events (a row logged twice is
+# one event; n - 1 extra copies are counted in dups).
+_CELLS_SQL = """
+CREATE TEMP TABLE cells AS
+WITH j AS (
+  SELECT e.id, e.t, e.camp, e.kind, e.n, v.pos, v.fs, v.eff, v.hold,
+         e.t < {start} AS bs, e.t >= {start} AND e.t >= v.fs AS dur
+  FROM {events} e LEFT JOIN v ON e.id = v.id
+)
+SELECT pos,
+       CASE WHEN pos IS NULL THEN id END AS uid,
+       CASE WHEN dur AND hold THEN camp END AS lcamp,
+       CASE WHEN dur AND hold THEN {week} END AS lweek,
+       any_value(eff) AS eff,
+       count(*) AS events,
+       sum(n - 1) AS dups,
+       count(*) FILTER (WHERE NOT dur) AS pre_rows,
+       count(*) FILTER (WHERE dur AND kind = 0) AS imps,
+       count(*) FILTER (WHERE dur AND kind = 1) AS clks,
+       bool_or(dur) AS dur_any,
+       bool_or(NOT dur) AS pre_any,
+       bool_or(bs) AS bs_any,
+       bool_or(NOT bs AND t < fs) AS ba_any,
+       min(t) AS t_min
+FROM j
+GROUP BY 1, 2, 3, 4
+"""
+
+
+def effective_arms(va: VisitArms) -> np.ndarray:
+    """Per visits row: the recorded arm when it is a known one, else the arm the spec's hash gives."""
+    return np.where(va.rec >= 0, va.rec, va.hashed).astype(np.int64)
+
+
+def _visits_table(spec: Spec, fr: Frames, va: VisitArms) -> pa.Table:
+    """The units as DuckDB joins them: id, row, first-seen (microseconds), arm and whether it is a holdout."""
+    v = fr.visits
+    eff = effective_arms(va)
+    hold = np.isin(eff, [list(spec.arm_names).index(a) for a in spec.holdout_arms])
+    fs = v[TIME].array.as_unit("ns").asi8 // 1000
+    return pa.table({"id": arrow_ids(v[UNIT]).cast(pa.string()), "pos": pa.array(np.arange(len(v), dtype=np.int32)),
+                     "fs": pa.array(fs, pa.int64()), "eff": pa.array(eff.astype(np.int8)), "hold": pa.array(hold)})
+
+
+def _frame(rows: list[tuple], index: list[str], name: str) -> pd.DataFrame:
+    return pd.DataFrame([list(r) for r in rows], index=pd.Index(index, name=name, dtype=object),
+                        columns=["units", "impressions", "clicks"], dtype="int64")
+
+
+def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: ExposureScan, fr: Frames,
+                        va: VisitArms) -> LeakageTables:
+    """The leakage tables from DuckDB's `cells` (small queries; per-unit flags come back as arrays)."""
+    arms, k = list(spec.arm_names), len(spec.arms)
+    rows, dups, unseen_rows, pre_rows = (int(x or 0) for x in con.execute(
+        "SELECT sum(events), sum(dups), sum(events) FILTER (WHERE pos IS NULL), "
+        "sum(pre_rows) FILTER (WHERE pos IS NOT NULL) FROM cells").fetchone())
+    reader.finish(scan, dups, fr.notes, fr.counts)
+    nv = len(fr.visits)
+    eff = effective_arms(va)
+    pu = con.execute("SELECT pos, bool_or(dur_any) AS d, bool_or(pre_any) AS p, bool_or(bs_any) AS bs, "
+                     "bool_or(ba_any) AS ba FROM cells WHERE pos IS NOT NULL GROUP BY pos").fetchnumpy()
+    pos = np.asarray(pu["pos"], dtype=np.int64)
+
+    def flag(name: str) -> np.ndarray:
+        out = np.zeros(nv, dtype=bool)
+        out[pos[np.asarray(pu[name], dtype=bool)]] = True
+        return out
+
+    exposed_u, pre_u, bs_u, ba_u = flag("d"), flag("p"), flag("bs"), flag("ba")
+    kinds = dict.fromkeys(range(k), (0, 0))
+    for a, i, c in con.execute("SELECT eff, sum(imps), sum(clks) FROM cells WHERE pos IS NOT NULL "
+                               "GROUP BY eff").fetchall():
+        kinds[int(a)] = (int(i), int(c))
+    by_arm = pd.DataFrame({
+        "units": np.bincount(eff, minlength=k),
+        "exposed_units": np.bincount(eff[exposed_u], minlength=k),
+        "pre_exposed_units": np.bincount(eff[pre_u], minlength=k),
+        "impressions": [kinds[a][0] for a in range(k)],
+        "clicks": [kinds[a][1] for a in range(k)],
+    }, index=pd.Index(arms, name="arm"))
+    camp = con.execute("SELECT lcamp, count(DISTINCT pos), sum(imps), sum(clks) FROM cells "
+                       "WHERE lcamp IS NOT NULL GROUP BY lcamp").fetchall()
+    by_campaign = _frame([r[1:] for r in camp], [r[0] for r in camp], "campaign")
+    wk = con.execute("SELECT lweek, count(DISTINCT pos), sum(imps), sum(clks), min(t_min) FROM cells "
+                     "WHERE lweek IS NOT NULL GROUP BY lweek ORDER BY lweek").fetchall()
+    by_week = _frame([r[1:4] for r in wk], [_day((int(r[0]) * 7 - 3) * US_DAY) for r in wk], "week")
+    first = _day(min(int(r[4]) for r in wk)) if wk else None
+    uids = arrow_of(con.sql("SELECT uid FROM cells WHERE pos IS NULL"))
+    uniq = pd.Series(uids.column("uid").to_pandas() if uids.num_rows else [], dtype="str")
+    ua = hash_arms(spec, uniq) if len(uniq) else np.zeros(0, np.int16)
+    v = fr.visits
+    diag = _unseen_diagnostics(uniq, v[UNIT], arrow_ids(v[UNIT]).combine_chunks())
+    return LeakageTables(
+        rows=rows, by_arm=by_arm, holdout_by_campaign=by_campaign, holdout_by_week=by_week, holdout_first=first,
+        pre_before_start=int(bs_u.sum()), pre_before_assignment=int((ba_u & ~bs_u).sum()),
+        pre_rows=pre_rows, unseen_ids=len(uniq), unseen_rows=unseen_rows,
+        unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
+        exposed_ids=len(pos) + len(uniq), exposed_rows=exposed_u,
+        rows_read=fr.counts.get("exposure_rows", rows), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
+        **diag,  # type: ignore[arg-type]
+    )

@@ -1,0 +1,44 @@
+"""The readout on the DuckDB engine: the audit's tables from `audit.engine_duckdb`, then the readout's per-unit sums.
+
+The exposure log is counted in DuckDB (each unit's exposed-during-the-test flag comes back as one
+array over the units); the orders, the per-unit revenue and the exact moments follow the rules
+the pandas readout implements (`readout.engine_pandas.compute`, `readout.rules`), so both engines
+give the same tables bit for bit.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from datetime import date
+from typing import TYPE_CHECKING
+
+from armlock.assign import InputError, Spec
+from armlock.audit.engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path
+
+from . import engine_pandas
+from .load import attach_covariates, load_orders
+
+if TYPE_CHECKING:
+    from armlock.audit.engine_duckdb import DuckDBEngine
+    from armlock.audit.read import Frames
+
+
+def readout(engine: DuckDBEngine, spec: Spec, inputs: Inputs, as_of: date | None,
+            advance: Callable[[int], None]) -> ReadoutResult:
+    """The whole readout on DuckDB: the audit (the gate), then the orders and the readout's tables."""
+    if inputs.orders is None:
+        raise InputError("a readout needs the orders log (--orders)")
+
+    def covariates(fr: Frames) -> None:
+        attach_covariates(spec, local_path(inputs.visits, "--visits"), fr.visits, [])  # type: ignore[arg-type]
+
+    fr, used, audit_tables = engine.load_and_count(spec, inputs, as_of, advance, before_count=covariates)
+    audit = EngineResult(tables=audit_tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
+                         data_through=fr.data_through)
+    notes: list[str] = []
+    counts: dict[str, float] = {}
+    orders_path = local_path(inputs.orders, "--orders")
+    orders = load_orders(spec, orders_path, used, notes, counts)  # type: ignore[arg-type]
+    advance(file_bytes(orders_path))
+    tables = engine_pandas.compute(spec, fr, audit_tables, orders, used, counts, notes)
+    return ReadoutResult(audit=audit, tables=tables, notes=notes)
