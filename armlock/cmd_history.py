@@ -8,7 +8,7 @@ from typing import Any
 
 import typer
 
-from armlock.audit.history import changes, default_history_path, load, load_readouts, trend_keys
+from armlock.audit.history import changes, default_history_path, load, load_readouts, not_passing, trend_keys
 from armlock.audit.words import NOTHING_CHANGED, format_value, status_word
 
 from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
@@ -35,22 +35,25 @@ def _header_lines(label: str) -> list[str]:
 
 
 def trend_table(runs: list[dict[str, Any]]) -> str:
-    """A plain terminal table: one row per as-of date, the verdict and the headline figures.
+    """A plain terminal table: one row per as-of date, the verdict, the headline figures and what
+    failed (the failing checks' ids, else the warning ones).
 
     Headers are the figures' full labels, wrapped onto as many lines as they need.
     """
     keys = trend_columns(runs)
     latest = runs[-1]["figures"]
-    heads = [["as of"], ["verdict"]] + [_header_lines(latest[k]["label"]) for k in keys]
+    heads = [["as of"], ["verdict"]] + [_header_lines(latest[k]["label"]) for k in keys] + [["failing checks"]]
     rows = [[r["as_of"], status_word(r["verdict"])]
             + [format_value(r["figures"].get(k, {}).get("value"), latest[k]["unit"])
-               if k in r["figures"] else "-" for k in keys] for r in runs]
+               if k in r["figures"] else "-" for k in keys] + [not_passing(r)] for r in runs]
     depth = max(len(h) for h in heads)
     heads = [[""] * (depth - len(h)) + h for h in heads]  # labels sit on the rule, like the data
     width = [max(len(c) for c in [*h, *(r[i] for r in rows)]) for i, h in enumerate(heads)]
 
     def line(cells: list[str]) -> str:
-        return "  ".join(c.ljust(w) if i < 2 else c.rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
+        last = len(cells) - 1  # text columns (as of, verdict, failing checks) left, numbers right
+        return "  ".join(c.ljust(w) if i < 2 or i == last else c.rjust(w)
+                         for i, (c, w) in enumerate(zip(cells, width))).rstrip()
 
     head_lines = [line([h[j] for h in heads]) for j in range(depth)]
     return "\n".join(head_lines + [line(["-" * w for w in width])] + [line(r) for r in rows])

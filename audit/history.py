@@ -19,8 +19,8 @@ from armlock.assign.errors import InputError
 from .model import AuditReport
 from .words import format_value, status_word
 
-__all__ = ["changes", "default_history_path", "format_value", "load", "load_readouts", "record", "record_readout",
-           "row_from_report", "trend_keys"]
+__all__ = ["changes", "default_history_path", "format_value", "load", "load_readouts", "not_passing", "record",
+           "record_readout", "row_from_report", "trend_keys"]
 
 SCHEMA_VERSION = 1
 SUFFIX = ".history.sqlite"
@@ -200,6 +200,17 @@ def load(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
         except json.JSONDecodeError as exc:
             raise _corrupt(path, f"row for as-of {as_of} is not valid JSON: {exc.msg}") from None
     return out
+
+
+def not_passing(run: dict[str, Any]) -> str:
+    """Why a recorded run is not PASS, in a few words: its failing checks' ids ("srm, leakage"),
+    else its warning ones ("warn: balance"), else "-"."""
+    checks = run.get("checks", {})
+    for status, prefix in (("fail", ""), ("warn", "warn: ")):
+        ids = [cid for cid, info in checks.items() if info.get("status") == status]
+        if ids:
+            return prefix + ", ".join(ids)
+    return "-"
 
 
 # --- what changed --------------------------------------------------------------------------------

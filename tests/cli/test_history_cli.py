@@ -61,6 +61,9 @@ def test_history_table_and_changes(spec: Path, tmp_path: Path) -> None:
     assert header[:5] == ["as of", "verdict", "SRM p-value", "holdout leakage", "several arms"]
     assert lines[rule - 2].strip() == "customers in" and "…" not in r.stdout
     assert table[-1].split()[2:4] == ["0.0001", "1.40%"]
+    # the last column says why each week is not PASS: failing checks' ids, else the warning ones
+    assert "failing checks" in lines[rule - 1]
+    assert table[-1].endswith("srm, leakage") and table[0].split("  ")[-1].startswith("warn: ")
     assert "Since 2026-03-16 (as of 2026-03-23):" in lines
     assert "  - Holdout leakage rose from 0.60% to 1.40%" in lines
     assert "  - The verdict went from WARN to FAIL" in lines
