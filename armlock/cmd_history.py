@@ -60,19 +60,32 @@ def trend_table(runs: list[dict[str, Any]]) -> str:
 
 
 def readout_table(readouts: list[dict[str, Any]]) -> str:
-    """One row per recorded readout: the gate, incremental revenue with its interval, iROAS, p."""
+    """One row per recorded readout: the gate and the checks that failed, the decision and the
+    interval it used, incremental revenue and iROAS with their anytime intervals; the fixed
+    interval and p only in the row of the planned final look (the one look where they are valid)."""
     def fig(r: dict[str, Any], key: str) -> Any:
         return r["figures"].get(key, {}).get("value")
 
-    head = ["as of", "gate", "incremental revenue", "interval", "iROAS", "p"]
-    rows = [[r["as_of"], status_word(r["status"]), format_value(fig(r, "incremental_revenue"), "count"),
-             f"{format_value(fig(r, 'incremental_revenue_lo'), 'count')} to "
-             f"{format_value(fig(r, 'incremental_revenue_hi'), 'count')}",
-             format_value(fig(r, "iroas"), "ratio"), format_value(fig(r, "p"), "p")] for r in readouts]
+    def span(r: dict[str, Any], key: str, unit: str) -> str:
+        lo, hi = fig(r, key + "_lo"), fig(r, key + "_hi")
+        return "-" if lo is None and hi is None else f"{format_value(lo, unit)} to {format_value(hi, unit)}"
+
+    words = {"pays": "pays", "does_not_pay": "does not pay", "not_yet_known": "not yet known"}
+    head = ["as of", "gate", "failed", "decision", "incremental revenue", "anytime interval", "iROAS",
+            "anytime interval", "fixed interval", "p"]
+    rows = [[r["as_of"], status_word(r["status"]), fig(r, "gate_failed") or "-",
+             (f"{words.get(fig(r, 'decision'), fig(r, 'decision'))} ({fig(r, 'basis')})"
+              if fig(r, "decision") else "-"),
+             format_value(fig(r, "incremental_revenue"), "count"), span(r, "incremental_revenue_anytime", "count"),
+             format_value(fig(r, "iroas"), "ratio"), span(r, "iroas_anytime", "ratio"),
+             span(r, "incremental_revenue", "count"),
+             format_value(fig(r, "p"), "p") if fig(r, "p") is not None else "-"] for r in readouts]
     width = [max(len(str(c)) for c in col) for col in zip(head, *rows)]
     line = lambda cells: "  ".join(  # noqa: E731
-        str(c).ljust(w) if i < 2 else str(c).rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
-    return "\n".join([line(head), line(["-" * w for w in width])] + [line(r) for r in rows])
+        str(c).ljust(w) if i < 4 else str(c).rjust(w) for i, (c, w) in enumerate(zip(cells, width))).rstrip()
+    note = ("Each week's decision uses the anytime interval; the fixed interval and p are shown only at the "
+            "planned final look.")
+    return "\n".join([line(head), line(["-" * w for w in width])] + [line(r) for r in rows] + ["", note])
 
 
 def history_cmd(

@@ -54,6 +54,8 @@ class ReadoutSettings(BaseModel):
     power: float = Field(0.8, gt=0.5, lt=1)
     # Gross margin on revenue (0.3 = 30%): incremental profit = margin x incremental revenue.
     margin: float = Field(0.3, gt=0, le=1)
+    # The iROAS the channel must beat to pay; 0 = break-even, 1 / margin (revenue that covers the spend).
+    target_iroas: float = Field(0.0, ge=0, le=1000)
     currency: str = Field("USD", pattern=r"^[A-Z]{3}$")  # ISO 4217, for display only
     # Outcome window: "to_as_of" (every order from first-seen to the as-of date) or a number of
     # days after each unit's first-seen time (units whose window has not ended are left out).
@@ -88,6 +90,7 @@ covariates = ["pre_revenue"]  # pre-period visits columns for variance reduction
 alpha = 0.05                  # two-sided level of the intervals (0.05 = 95% intervals)
 power = 0.8                   # power of the minimum detectable effect the report states
 margin = 0.3                  # gross margin on revenue (0.3 = 30%), for profit and ROI: set yours
+target_iroas = 0.0            # iROAS the channel must beat to pay; 0 = break-even, 1 / margin
 currency = "USD"              # ISO 4217 code, for display only
 window = "to_as_of"           # outcome window: "to_as_of", or days after first-seen (e.g. 28)
 revenue_cap = 0.0             # cap unit revenue at this pooled quantile (e.g. 0.999); 0 = no cap

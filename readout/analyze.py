@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from datetime import UTC, datetime
+from datetime import UTC, date, datetime
 
 from armlock.assign import Spec, __version__
 from armlock.audit.model import Check, Figure, NotChecked, verdict_of
@@ -12,6 +12,7 @@ from armlock.plan.power import mde
 from .model import (
     Adjustment,
     ArmRow,
+    Decision,
     Effect,
     ExposureEffect,
     GateCheck,
@@ -20,6 +21,7 @@ from .model import (
     Money,
     ReadoutReport,
 )
+from .decision import ANSWER_WORDS, decide
 from .money import money
 from .stats import Estimate, anytime, cuped, mean_estimate, ratio_diff, ratio_estimate, relative_lift, wald, welch
 from .tables import COV_PREFIX, Moments, ReadoutTables
@@ -73,22 +75,26 @@ def _num(v: float | None, digits: int = 2) -> str:
     return "n/a" if v is None or not math.isfinite(v) else f"{v:,.{digits}f}"
 
 
-def headline(m: Money, status: str, failing: list[Check], level: int,
+def headline(m: Money, d: Decision, status: str, failing: list[Check], level: int,
              missing: list[NotChecked] | None = None) -> str:
-    """One sentence a marketing lead can repeat (and, on a failing audit, why not to)."""
+    """The decision first, then the money on the same interval (anytime before the planned final
+    look, fixed at it); on a gate that is not passed, why the answer is withheld."""
     cur, inc = m.currency, m.incremental_revenue
-    span = f"{level}% interval {money_text(inc.lo, cur)} to {money_text(inc.hi, cur)}"
-    if inc.lo is not None and inc.lo > 0:
+    anytime = d.basis == "anytime"
+    lo, hi = (inc.anytime_lo, inc.anytime_hi) if anytime else (inc.lo, inc.hi)
+    span = f"{level}% {d.basis} interval {money_text(lo, cur)} to {money_text(hi, cur)}"
+    if lo is not None and lo > 0:
         said = f"The channel added {money_text(inc.value, cur)} in revenue ({span})"
-    elif inc.hi is not None and inc.hi < 0:
+    elif hi is not None and hi < 0:
         said = f"The channel lowered revenue by {money_text(-(inc.value or 0), cur)} ({span})"
     else:
-        said = (f"The test cannot tell the channel's effect from zero: {money_text(inc.value, cur)} in revenue "
+        said = (f"The test cannot tell the channel's effect on revenue from zero: {money_text(inc.value, cur)} "
                 f"({span})")
     if m.spend:
-        said += f" for spend {money_text(m.spend, cur)}: iROAS {_num(m.iroas.value if m.iroas else None)}"
-        if m.iroas is not None:
-            said += f" ({_num(m.iroas.lo)} to {_num(m.iroas.hi)})"
+        said += f" for spend {money_text(m.spend, cur)}"
+        if m.roi is not None and m.roi.value is not None:
+            rlo, rhi = (m.roi.anytime_lo, m.roi.anytime_hi) if anytime else (m.roi.lo, m.roi.hi)
+            said += f"; ROI {_pct(m.roi.value)} ({_pct(rlo)} to {_pct(rhi)})"
     if m.attributed_revenue is not None:
         said += f"; attribution credited {money_text(m.attributed_revenue, cur)}"
         if m.attributed_roas is not None:
@@ -97,13 +103,20 @@ def headline(m: Money, status: str, failing: list[Check], level: int,
     gaps = [m for m in (missing or []) if m.gate]
     if status == "fail":
         names = ", ".join(c.title for c in failing)
-        said = f"NOT TRUSTWORTHY: the split audit fails ({names}), so this estimate may be biased. " + said
-        if gaps:
-            said = said.replace(" so this estimate", " and " + _gap_words(gaps) + "; so this estimate", 1)
-    elif gaps:
-        said = (f"NOT TRUSTWORTHY: {_gap_words(gaps)}, so nothing shows the split is sound enough to read. "
-                + said)
-    return said
+    if status == "fail":
+        names = ", ".join(c.title for c in failing)
+        why = f"the split audit fails ({names})" + (f" and {_gap_words(gaps)}" if gaps else "")
+        return f"NOT TRUSTWORTHY: {why}, so whether the channel pays is withheld and this estimate may be biased. " + said
+    if gaps:
+        return (f"NOT TRUSTWORTHY: {_gap_words(gaps)}, so nothing shows the split is sound enough to read and "
+                f"whether the channel pays is withheld. " + said)
+    if d.withheld:
+        return f"NOT TRUSTWORTHY: {d.reason} " + said
+    return f"{ANSWER_WORDS[d.answer].capitalize()}: {d.reason} " + said
+
+
+def _pct(v: float | None) -> str:
+    return "n/a" if v is None or not math.isfinite(v) else f"{v * 100:.0f}%"
 
 
 def _gap_words(gaps: list[NotChecked]) -> str:
@@ -231,6 +244,13 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
     status, missing = verdict_of(checks)
     trusted = status != "fail" and not any(g.gate for g in missing)
     failing = [c for c in checks if c.status == "fail"]
+    problem = "; ".join(x for x in (f"the split audit fails ({', '.join(c.title for c in failing)})" if failing else "",
+                                    _gap_words([g for g in missing if g.gate])
+                                    if any(g.gate for g in missing) else "") if x)
+    decision = decide(spec, iroas=m.iroas, df=prim.df, units=units_total, as_of=as_of, trustworthy=trusted,
+                      gate_problem=problem or "the audit gate is not passed",
+                      earlier=[(date.fromisoformat(day), sum(a.n for a in arms_m.values()))
+                               for day, arms_m in tables.looks if day < as_of])
     warning = [c for c in checks if c.status == "warn" and c.judged]
     if warning and status != "fail":
         cautions.insert(0, "Caution: the split audit warns (" + ", ".join(c.title for c in warning)
@@ -238,10 +258,10 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
     roles = {a.name: a.role for a in spec.arms}
     rows = [_arm_row(a, roles[a], final[a], alpha) for a in tables.arms]
     report = ReadoutReport(
-        experiment=spec.name, fingerprint=spec.fingerprint, as_of=as_of,
+        decision=decision, experiment=spec.name, fingerprint=spec.fingerprint, as_of=as_of,
         generated_at=datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
         armlock_version=__version__, status=status, trustworthy=trusted,
-        headline=headline(m, status, failing, level, missing), reading_advice=READING, cautions=cautions,
+        headline=headline(m, decision, status, failing, level, missing), reading_advice=READING, cautions=cautions,
         gate=[GateCheck(id=c.id, title=c.title, status=c.status, summary=c.summary) for c in checks],
         not_checked=missing,
         arms=rows, effects=effects, adjustment=adjustment, exposure=exposure, money=m, looks=looks,
@@ -250,7 +270,7 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
                   "anytime_t_opt": t_opt, "covariates": tables.covariates,
                   "primary": "CUPED" if covs else "raw (Welch)", "arm_rule": "intent to treat: the arm the spec's "
                   "hash gives each unit; customers count in the arm of their first unit"},
-        input_notes=notes, figures=_figures(m, prim, adjustment),
+        input_notes=notes, figures=_figures(m, prim, adjustment, decision, failing, missing),
     )
     return report
 
@@ -263,16 +283,38 @@ def _scaled_rel(e: Estimate, hold: Moments) -> Estimate:
     return Estimate(e.value / mu, e.se / abs(mu), e.lo / mu, e.hi / mu, e.p, e.df)
 
 
-def _figures(m: Money, prim: Estimate, adj: Adjustment | None) -> dict[str, Figure]:
+def _figures(m: Money, prim: Estimate, adj: Adjustment | None, d: Decision, failing: list[Check],
+             missing: list[NotChecked]) -> dict[str, Figure]:
+    """The figures `--record` keeps each week: the decision and the anytime intervals always; the
+    fixed-horizon interval and p only at the planned final look, the one look where they are valid."""
+    inc = m.incremental_revenue
     out = {
-        "incremental_revenue": Figure(label="incremental revenue", value=_f(m.incremental_revenue.value)),
-        "incremental_revenue_lo": Figure(label="incremental revenue, interval low", value=m.incremental_revenue.lo),
-        "incremental_revenue_hi": Figure(label="incremental revenue, interval high", value=m.incremental_revenue.hi),
+        "decision": Figure(label="decision", value=d.answer, unit="text"),
+        "basis": Figure(label="interval the decision used", value=d.basis, unit="text"),
+        "gate_failed": Figure(label="gate checks that fail or were not checked",
+                              value=", ".join([c.id for c in failing] + [f"{g.id} not checked" for g in missing
+                                                                         if g.gate]) or None, unit="text"),
+        "breakeven_iroas": Figure(label="break-even iROAS", value=d.breakeven_iroas, unit="ratio"),
+        "incremental_revenue": Figure(label="incremental revenue", value=_f(inc.value)),
+        "incremental_revenue_anytime_lo": Figure(label="incremental revenue, anytime interval low",
+                                                 value=inc.anytime_lo),
+        "incremental_revenue_anytime_hi": Figure(label="incremental revenue, anytime interval high",
+                                                 value=inc.anytime_hi),
         "revenue_per_unit_difference": Figure(label="revenue per unit difference", value=_f(prim.value)),
-        "p": Figure(label="p-value of the revenue difference", value=_f(prim.p), unit="p"),
     }
+    if d.final_look:
+        out["incremental_revenue_lo"] = Figure(label="incremental revenue, fixed interval low", value=inc.lo)
+        out["incremental_revenue_hi"] = Figure(label="incremental revenue, fixed interval high", value=inc.hi)
+        out["p"] = Figure(label="p-value of the revenue difference", value=_f(prim.p), unit="p")
+        if d.p_breakeven is not None:
+            out["p_breakeven"] = Figure(label="p-value of iROAS = break-even", value=d.p_breakeven, unit="p")
     if m.iroas is not None:
         out["iroas"] = Figure(label="iROAS", value=m.iroas.value, unit="ratio")
+        out["iroas_anytime_lo"] = Figure(label="iROAS, anytime interval low", value=m.iroas.anytime_lo, unit="ratio")
+        out["iroas_anytime_hi"] = Figure(label="iROAS, anytime interval high", value=m.iroas.anytime_hi, unit="ratio")
+        if d.final_look:
+            out["iroas_lo"] = Figure(label="iROAS, fixed interval low", value=m.iroas.lo, unit="ratio")
+            out["iroas_hi"] = Figure(label="iROAS, fixed interval high", value=m.iroas.hi, unit="ratio")
     if m.roi is not None:
         out["roi"] = Figure(label="ROI", value=m.roi.value, unit="share")
     if m.attributed_roas is not None:

@@ -129,6 +129,36 @@ class Look(BaseModel):
     anytime_hi: float | None
 
 
+class Decision(BaseModel):
+    """Did the channel pay? The answer against break-even on the interval valid for this look.
+
+    `basis` is "anytime" at every look before the planned size, "fixed" at the planned final look;
+    `lo`/`hi` is that interval of iROAS. `withheld`: the audit gate is not passed, so the answer
+    is "not_yet_known" whatever the figures say. `p_breakeven` (two-sided, iROAS = break-even) is
+    given only at the planned final look, where a fixed-horizon p is valid.
+    """
+
+    model_config = ConfigDict(extra="forbid")
+
+    answer: Literal["pays", "does_not_pay", "not_yet_known"]
+    basis: Literal["anytime", "fixed"]
+    reason: str
+    action: str  # what follows from the answer
+    withheld: bool = False
+    breakeven_iroas: float
+    breakeven_source: str
+    iroas: float | None
+    lo: float | None
+    hi: float | None
+    level: int  # the interval's level in percent
+    p_breakeven: float | None = None
+    final_look: bool
+    stage: str  # why this look is (or is not) the planned final look
+    planned_units: int | None = None
+    planned_end: str | None = None
+    units: int
+
+
 class GateCheck(BaseModel):
     """One audit check as the readout's gate reads it."""
 
@@ -145,6 +175,7 @@ class ReadoutReport(BaseModel):
 
     model_config = ConfigDict(extra="forbid", populate_by_name=True)
 
+    decision: Decision  # first: the answer every output leads with
     schema_: str = Field(SCHEMA, alias="schema")
     experiment: str
     fingerprint: str

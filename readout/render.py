@@ -11,6 +11,7 @@ from armlock.audit.model import Table
 from armlock.audit.render import json_text, md_table, text_table
 from armlock.audit.words import STATUS_WORD
 
+from .decision import ANSWER_WORDS
 from .model import Interval, ReadoutReport
 
 MARK = STATUS_WORD  # one word per status in every output (audit/words.py)
@@ -124,8 +125,31 @@ def _adjust_line(r: ReadoutReport) -> str | None:
             f"reduced the variance by {red}; the adjusted estimate is primary (chosen in the spec, before the data).")
 
 
+def decision_word(r: ReadoutReport) -> str:
+    """PAYS, DOES NOT PAY, NOT YET KNOWN (or NOT YET KNOWN (withheld by the audit gate))."""
+    d = r.decision
+    return ANSWER_WORDS[d.answer] + (" (withheld by the audit gate)" if d.withheld else "")
+
+
+def decision_lines(r: ReadoutReport) -> list[str]:
+    """The decision as the first lines of a report: answer, reason, basis and break-even, action."""
+    d = r.decision
+    basis = ("fixed-horizon interval (this is the planned final look)" if d.basis == "fixed"
+             else "anytime interval (valid at every look before the planned final one)")
+    p = f"; p of iROAS = break-even {fmt_p(d.p_breakeven)}" if d.p_breakeven is not None else ""
+    return [f"Does the channel pay? {decision_word(r)}", d.reason,
+            f"Read on the {d.level}% {basis}; break-even iROAS {num(d.breakeven_iroas)} ({d.breakeven_source}){p}.",
+            f"What to do: {d.action}"]
+
+
+def fmt_p(p: float | None) -> str:
+    return "-" if p is None else f"{p:.2g}"
+
+
 def render_text(r: ReadoutReport) -> str:
-    out = [f"armlock readout: {r.experiment}   as of {r.as_of}   spec {r.fingerprint}",
+    dl = decision_lines(r)
+    out = [dl[0], *(textwrap.fill(x, WIDTH) for x in dl[1:]), "",
+           f"armlock readout: {r.experiment}   as of {r.as_of}   spec {r.fingerprint}",
            f"audit gate: {MARK[r.status]}{'' if r.trustworthy else ', not trustworthy'}", "",
            textwrap.fill(r.headline, WIDTH), ""]
     bad = [g for g in r.gate if g.status != "pass"]
@@ -156,7 +180,9 @@ def _md(s: str) -> str:
 
 
 def render_markdown(r: ReadoutReport) -> str:
-    out = [f"## armlock readout: {_md(r.experiment)} — audit gate **{MARK[r.status]}**"
+    dl = decision_lines(r)
+    out = [f"**{_md(dl[0])}**", "", *(f"{_md(x)}  " for x in dl[1:]), "",
+           f"## armlock readout: {_md(r.experiment)} — audit gate **{MARK[r.status]}**"
            f"{'' if r.trustworthy else ', not trustworthy'}", "",
            f"As of **{r.as_of}** (UTC), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
            f"> {_md(r.headline)}", ""]

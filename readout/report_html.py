@@ -35,7 +35,7 @@ from armlock.audit.report_html import (
 )
 
 from .model import Interval, ReadoutReport
-from .render import MARK, _adjust_line, tables
+from .render import MARK, _adjust_line, decision_word, tables
 
 ANYTIME_BAND = "#dce9ef"  # pale blue: the wider, anytime band; the fixed band is the audit's sand
 _GATE_WORDS = {  # status -> word on the banner, text colour, background
@@ -43,6 +43,29 @@ _GATE_WORDS = {  # status -> word on the banner, text colour, background
     "warn": ("WARN: read with caution", "#7a4d00", "#fdf0d5"),
     "fail": ("FAIL: not trustworthy", "#9e1f24", "#fbe4e3"),
 }
+
+
+_DECISION_COLOURS = {  # answer -> text colour, background
+    "pays": ("#17603a", "#e3f2e8"),
+    "does_not_pay": ("#9e1f24", "#fbe4e3"),
+    "not_yet_known": ("#3d4a50", "#eceff1"),
+}
+
+
+def decision_box(r: ReadoutReport) -> str:
+    """The answer to the page's question, first on the page: answer, reason, interval used, action."""
+    d = r.decision
+    fg, bg = _DECISION_COLOURS["not_yet_known" if d.withheld else d.answer]
+    basis = ("fixed-horizon interval: this is the planned final look" if d.basis == "fixed"
+             else "anytime interval: valid at every look before the planned final one")
+    p = f" · p of iROAS = break-even {d.p_breakeven:.2g}" if d.p_breakeven is not None else ""
+    return (f'<div class="decision" id="decision" data-answer="{esc(d.answer)}" data-basis="{esc(d.basis)}" '
+            f'style="color:{fg};background:{bg}" role="status">'
+            f'<span class="word">{esc(decision_word(r))}</span>'
+            f'<p class="reason">{esc(d.reason)}</p>'
+            f'<p class="basis">Read on the {d.level}% {esc(basis)} · break-even iROAS {d.breakeven_iroas:.2f} '
+            f'({esc(d.breakeven_source)}){esc(p)}</p>'
+            f'<p class="action"><strong>What to do:</strong> {esc(d.action)}</p></div>')
 
 
 def _finite(*vals: float | None) -> bool:
@@ -175,6 +198,11 @@ def _figures(r: ReadoutReport) -> str:
 
 
 EXTRA_CSS = """
+.decision { padding: 1rem; border-radius: 10px; margin-bottom: 1rem; border: 3px solid currentColor;
+  -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+.decision .word { font-size: 1.6rem; font-weight: 800; display: block; letter-spacing: .02em; }
+.decision p { margin: .3rem 0 0; color: #1d2427; overflow-wrap: anywhere; }
+.decision .reason { font-size: 1.1rem; font-weight: 600; }
 .figures dd.range { font-size: .8rem; font-weight: 400; color: #4f5a5e; }
 .headline { font-size: 1.15rem; font-weight: 600; margin: .3rem 0 0; }
 """
@@ -216,9 +244,10 @@ def render_html(r: ReadoutReport) -> str:
 <body><main>
 <div class="top"><h1>Did the channel pay? Readout of {esc(r.experiment)}</h1>
 <p>Data as of {esc(r.as_of)} · arm against arm (intent to treat) · spec fingerprint <code>{esc(r.fingerprint)}</code></p></div>
+{decision_box(r)}
 <div class="verdict" data-verdict="{esc(r.status)}" style="color:{fg};background:{bg}" role="status">
 <svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{icon}</svg>
-<div><span class="word">{esc(word)}</span><p class="headline">{esc(r.headline)}</p>
+<div><span class="word">Audit gate: {esc(word)}</span><p class="headline">{esc(r.headline)}</p>
 {f'<ul class="gate">{gate_list}</ul>' if gate_list else ''}</div></div>
 <section class="check" id="money" data-section="money"><header><h2>Did it pay?</h2></header>
 <p class="summary">{esc(r.reading_advice)}</p>{_figures(r)}{roas}{_table(money_t)}</section>

@@ -123,3 +123,61 @@ def coverage(*, tests: int, units: int, alpha: float = 0.05, seed: int = 0) -> C
         hit_cuped += c.estimate.lo <= truth <= c.estimate.hi
         red.append(c.variance_reduction)
     return Coverage(tests, units, hit_raw / tests, hit_cuped / tests, float(np.mean(red)))
+
+
+@dataclass
+class FalsePays:
+    """Share of simulated tests at exactly break-even that the decision rule ever called "pays"."""
+
+    tests: int
+    weeks: int
+    units: int  # per test at the planned final look (both arms)
+    rule: float  # anytime interval before the planned final look, fixed at it (the readout's rule)
+    fixed_weekly: float  # the fixed interval read at every look (what the rule prevents)
+    fixed_once: float  # the fixed interval read once, at the planned final look
+
+
+def false_pays(*, tests: int, weeks: int, per_week: int, p_holdout: float = 0.04, lift: float = 0.1,
+               holdout_share: float = 0.1, alpha: float = 0.05, seed: int = 0) -> FalsePays:
+    """Simulate tests whose channel is exactly at break-even, read every week.
+
+    The exposed arm's buyers buy at p_holdout (1 + lift) and spend is set so that the true iROAS
+    equals break-even: "pays" at a look means the lower end of the look's interval lies above the
+    true difference (iROAS is the difference times a positive constant, so the comparison is the
+    same). The rule reads the anytime interval (readout.confseq, tuned to the planned size) at
+    weeks 1 .. weeks-1 and the fixed-horizon Welch interval at the planned final week, as
+    `readout.decision` does; a test counts once, at its first "pays".
+    """
+    rng = np.random.default_rng(seed)
+    mv = mean_value()
+    p_exposed = p_holdout * (1 + lift)
+    truth = (p_exposed - p_holdout) * mv
+    acc = np.zeros((2, 3, tests))
+    z = float(sps.norm.isf(alpha / 2))
+    t_opt = weeks * per_week
+    rule = np.zeros(tests, bool)
+    weekly = np.zeros(tests, bool)
+    once = np.zeros(tests, bool)
+    for week in range(1, weeks + 1):
+        n_h = rng.binomial(per_week, holdout_share, size=tests)
+        for arm, (n, p) in enumerate(((n_h, p_holdout), (per_week - n_h, p_exposed))):
+            buyers = rng.binomial(n, p)
+            vals = rng.lognormal(*VALUE, size=int(buyers.sum()))
+            owner = np.repeat(np.arange(tests), buyers)
+            acc[arm, 0] += n
+            acc[arm, 1] += np.bincount(owner, vals, minlength=tests)
+            acc[arm, 2] += np.bincount(owner, vals * vals, minlength=tests)
+        n0, s0, q0 = acc[0]
+        n1, s1, q1 = acc[1]
+        m0, m1 = s0 / n0, s1 / n1
+        se = np.sqrt((q0 - s0 * m0) / (n0 - 1) / n0 + (q1 - s1 * m1) / (n1 - 1) / n1)
+        diff = m1 - m0
+        fixed_lo = diff - z * se
+        weekly |= fixed_lo > truth
+        if week < weeks:
+            k = np.array([anytime_factor(float(t), t_opt=t_opt, alpha=alpha) for t in n0 + n1])
+            rule |= diff - k * se > truth
+        else:
+            rule |= fixed_lo > truth
+            once = fixed_lo > truth
+    return FalsePays(tests, weeks, t_opt, float(rule.mean()), float(weekly.mean()), float(once.mean()))
