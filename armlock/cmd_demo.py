@@ -89,6 +89,13 @@ STORY_FAULTS = ("The story: the shop holds out 10% of its visitors from a displa
                 "do: an audience was built and exposed before the test started, the vendor reached "
                 "part of the holdout in one campaign, and one browser family resets cookies about "
                 "weekly, so logged-in customers come back in new arms.")
+STORY_SERVER = ("The story: the shop holds out 10% of its visitors from a display retargeting vendor "
+                "for twelve weeks, to measure what the ads really add. Two things went wrong: an audience "
+                "was built and exposed before the test started, and the vendor reached part of the "
+                "holdout in one campaign. This is the variant with server-set ids (armlock demo "
+                "--server-ids): the shop's own server sets the visitor id cookie, so the browser family "
+                "that caps cookies written by script at 7 days no longer resets ids, and logged-in "
+                "customers keep their arm (see docs/identity.md in armlock's repository).")
 STORY_CLEAN = ("The story: the shop holds out 10% of its visitors from a display retargeting vendor "
                "for twelve weeks, to measure what the ads really add. This is the clean version "
                "(armlock demo --clean): no fault was injected.")
@@ -133,8 +140,12 @@ def _prepare(folder: Path) -> None:
         raise InputError(f"{folder}: cannot create the demo folder: {exc.strerror}") from None
 
 
-def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> DemoResult:
-    """Write the scenario into `folder`, audit it once per week with history, write the report."""
+def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS, server_ids: bool = False) -> DemoResult:
+    """Write the scenario into `folder`, audit it once per week with history, write the report.
+
+    `server_ids`: the shop's server sets the id cookie (the spec says `id_from = "server"`), so the
+    cookie_churn fault resets no id (audit/synth.py); every other fault stays.
+    """
     from armlock.audit import synth
     from armlock.audit.history import default_history_path, load, record, record_readout
     from armlock.audit.report_html import render_html
@@ -150,13 +161,16 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS) -> Demo
     # the shop's plan: about this many visitors over the twelve weeks; orders carry attribution
     text = text.replace("planned_units = 0 ", f"planned_units = {units} ").replace(
         'attributed = "" ', 'attributed = "attributed_channel"')
+    if server_ids:
+        text = text.replace('id_from = "script"', 'id_from = "server"', 1)
     spec_path.write_text(f"# INVENTED demo scenario: {SHOP} at {SITE} is made up (armlock demo).\n"
                          + text, encoding="utf-8")
     spec = load_spec(spec_path)
     check_lock(spec, spec_path, write=True)
-    story = textwrap.fill(STORY_CLEAN if clean else STORY_FAULTS, width=92)
+    story = textwrap.fill(STORY_CLEAN if clean else STORY_SERVER if server_ids else STORY_FAULTS, width=92)
     (folder / "README.txt").write_text(README.replace("{story}", story), encoding="utf-8")
-    logs = synth.generate(spec, units=units, days=7 * WEEKS, seed=SEED, faults=() if clean else FAULTS)
+    logs = synth.generate(spec, units=units, days=7 * WEEKS, seed=SEED, faults=() if clean else FAULTS,
+                          server_ids=server_ids)
     paths = synth.write_logs(logs, folder / "logs", fmt="parquet")  # audits read it twice as fast as CSV
     orders = synth.generate_orders(spec, logs, days=7 * WEEKS, seed=SEED + 1, uplift=UPLIFT, duplicates=0.002)
     paths["orders"] = synth.write_orders(orders, folder / "logs", fmt="parquet")
@@ -216,6 +230,10 @@ def _headline(summary: str) -> str:
 def demo(
     folder: Path = typer.Argument(Path("armlock-demo"), metavar="DIR", help="Folder to write the demo into; an existing one must be empty or an earlier demo."),
     clean: bool = typer.Option(False, "--clean", help="Inject no fault: the healthy version of the same test."),
+    server_ids: bool = typer.Option(
+        False, "--server-ids",
+        help="The shop's server sets the id cookie (docs/identity.md): the browser family that caps "
+             "script-written cookies no longer churns ids; the other faults stay."),
 ) -> None:
     """Build an invented shop's twelve-week holdout test and audit it week by week.
 
@@ -226,9 +244,12 @@ def demo(
     Example: armlock demo my-first-demo
     """
     err(f"Building the invented demo shop {SHOP} in {folder} ...")
-    res = build_demo(folder, clean=clean)
+    res = build_demo(folder, clean=clean, server_ids=server_ids)
     typer.echo(f"armlock demo: {SHOP}, a made-up shop at {SITE}, 10% held out from a retargeting vendor.")
-    typer.echo(f"Audited {res.weeks} weeks ({'no faults injected' if clean else 'faults injected'}); "
+    injected = "no faults injected" if clean else "faults injected"
+    if server_ids:
+        injected += "; ids set by the shop's server"
+    typer.echo(f"Audited {res.weeks} weeks ({injected}); "
                f"last week's verdict: {status_word(res.verdict)}. {res.verdict_text}")
     for line in res.findings:
         typer.echo(textwrap.fill(line, width=100, initial_indent="  - ", subsequent_indent="    "))

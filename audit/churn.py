@@ -13,7 +13,7 @@ from .tables import ChurnTables
 
 COOKIE_NOTE = ("Common practice: one major browser engine caps cookies written by script at 7 days "
                "(its tracking prevention), so long tests lose returning visitors' ids there; a "
-               "server-set first-party cookie or a logged-in key keeps them.")
+               "first-party cookie set by the shop's own server keeps them (armlock.assign.middleware).")
 
 
 def expected_multi_arm(ids_per_customer: Sequence[int] | np.ndarray, theta: Sequence[float],
@@ -83,8 +83,8 @@ def check_churn(spec: Spec, ct: ChurnTables | None) -> Check:
     if levels:
         summary = ("; ".join(t for _, t in levels) + ": those people were assigned to both arms (their ids fall in "
                    "more than one), so some may have been shown ads under one id and held out under another, "
-                   "which dilutes the contrast; keep the id stable (a server-set first-party cookie, or key on the "
-                   "logged-in customer). " + COOKIE_NOTE)
+                   "which dilutes the contrast; keep the id stable with a first-party cookie set by the shop's own "
+                   "server (a login links ids, it must not replace them). " + COOKIE_NOTE)
     else:
         summary = (f"{share:.2%} of customers are in more than one arm ({exp_share:.2%} expected from their extra ids); "
                    "within limits. " + COOKIE_NOTE)

@@ -13,7 +13,9 @@ Faults (``FAULTS``), each a known way a holdout split breaks:
 - ``pre_exposure``  an audience built before the test: 5% of units were exposed in the 14 days
   before their first assignment, plus ids the visits never saw, exposed before the start.
 - ``cookie_churn``  ids on "webkit" are reset about every 7 days, so logged-in customers come
-  back with new ids that hash into arms afresh (customers in several arms).
+  back with new ids that hash into arms afresh (customers in several arms). The reset is that
+  engine's cap on cookies written by script; with ``server_ids=True`` (the shop's own server sets
+  the id cookie, docs/identity.md) the cap does not apply and no id is reset.
 - ``imbalance``     one covariate (``pre_orders``, and with it ``pre_revenue``) skewed upward in the
   first exposed arm (SMD about 0.16).
 """
@@ -107,11 +109,14 @@ def generate(
     seed: int = 0,
     faults: Iterable[str] = (),
     events_per_unit: float = 4.0,
+    server_ids: bool = False,
 ) -> SyntheticLogs:
     """Invented logs for `spec`'s test: `units` visitors over `days` days from `spec.start`.
 
     `events_per_unit` is the mean number of exposure rows per unit in the visits (so the exposure
-    log has about units * events_per_unit rows). Deterministic for a given seed.
+    log has about units * events_per_unit rows). Deterministic for a given seed. `server_ids`:
+    the id cookie is set by the shop's server, so the ``cookie_churn`` cap resets no id (the
+    visitors are the same as without it; what is drawn after them, such as exposures, is not).
 
     >>> from armlock.assign import spec_from_dict
     >>> s = spec_from_dict({"name": "t", "salt": "s", "start": "2026-01-05T00:00:00Z",
@@ -173,7 +178,11 @@ def generate(
     }
 
     # -- cookie churn: customers on FAULT_BROWSER come back with fresh ids -------------------
-    if "cookie_churn" in fset:
+    if "cookie_churn" in fset and server_ids:
+        truth["churn_browser"] = FAULT_BROWSER
+        truth["churned_ids"] = 0  # server-set cookies are not capped: nobody comes back with a new id
+        truth["server_ids"] = 1
+    elif "cookie_churn" in fset:
         c_mask = (np.asarray(visit_cols["browser"]) == FAULT_BROWSER) & (visit_cols["customer"] >= 0)
         src = np.flatnonzero(c_mask)
         remaining = horizon - visit_cols["offset"][src]
