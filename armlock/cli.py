@@ -15,12 +15,12 @@ from armlock.assign import ArmlockError, __version__
 from armlock.assign.errors import EXIT_INTERNAL
 
 from . import cmd_assign, cmd_plan, cmd_snippet, cmd_spec
-from . import cmd_demo, cmd_history
+from . import cmd_demo, cmd_history, cmd_overview
 from . import cmd_audit, cmd_readout
 
 # The commands in the order of the job: plan it, fix the split, apply it, audit it, read it out.
 # A command not listed here (a new one) is shown after these, in the order it was registered.
-JOB_ORDER = ("plan", "init", "check", "assign", "snippet", "audit", "readout", "history", "demo")
+JOB_ORDER = ("plan", "init", "check", "assign", "snippet", "audit", "readout", "history", "overview", "demo")
 
 
 def usage_name(param: Any) -> str:
@@ -99,6 +99,7 @@ cmd_spec.register(app)
 cmd_assign.register(app)
 cmd_snippet.register(app)
 cmd_history.register(app)
+cmd_overview.register(app)
 cmd_demo.register(app)
 cmd_audit.register(app)
 cmd_readout.register(app)

@@ -45,7 +45,7 @@ def test_root_help_lists_commands_in_the_job_order() -> None:
 
     out = _help().split("Commands:")[1]
     listed = [line.split()[0] for line in out.splitlines() if line.startswith("  ") and line.strip()]
-    assert JOB_ORDER == ("plan", "init", "check", "assign", "snippet", "audit", "readout", "history", "demo")
+    assert JOB_ORDER == ("plan", "init", "check", "assign", "snippet", "audit", "readout", "history", "overview", "demo")
     known = [c for c in JOB_ORDER if c in listed]
     assert listed[: len(known)] == known
     assert {"init", "check", "assign", "snippet", "audit", "history", "demo"} <= set(known)
