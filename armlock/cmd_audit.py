@@ -54,6 +54,35 @@ def finish(command: str, experiment: str, as_of: str, verdict: str, checks: list
         raise typer.Exit(code)
 
 
+def _previous_run(hist: Path, report: AuditReport) -> dict | None | bool:
+    """The run an alert compares with (None: no earlier run); False, with a note, when the history
+    cannot be read (then no alert is judged, rather than a wrong one sent)."""
+    from armlock.assign import ArmlockError
+    from armlock.audit.alerts import previous_run
+    from armlock.audit.history import load
+
+    try:
+        return previous_run(load(hist, report.fingerprint), report.as_of)
+    except ArmlockError as exc:
+        err(f"No alert judged: {exc}")
+        return False
+
+
+def send_alert(url: str, spec: Spec, report: AuditReport, previous: dict | None, link: str | None) -> None:
+    """Post the alert when this run is news; a note on stderr either way. Never raises, never exits."""
+    from armlock.audit.alerts import alert_message, alert_payload, alert_reasons
+
+    from .alert_post import post, where
+
+    reasons = alert_reasons(spec, report, previous)
+    if not reasons:
+        err(f"No alert sent to {where(url)}: nothing got worse since the previous recorded run.")
+        return
+    message = alert_message(report, reasons, previous, link)
+    ok, what = post(url, alert_payload(report, reasons, message, link))
+    err(f"Alert sent to {what}." if ok else f"Alert NOT delivered ({what}); the audit's result stands.")
+
+
 def concurrent_specs(spec_path: Path, given: list[Path]) -> list[tuple[str, Spec]]:
     """The specs named by --alongside: each file, and every other spec of each folder (validated;
     the audited spec itself is left out, a copy of it is not)."""
@@ -96,6 +125,8 @@ def audit_cmd(
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
     history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
     alongside: list[Path] = typer.Option(None, "--alongside", metavar="SPEC|FOLDER", help="A concurrent test's spec file, or a folder of specs (every other spec in it; repeatable): adds the check that the two splits are independent on their shared units (a copied salt fails it)."),
+    alert: str = typer.Option(None, "--alert", metavar="URL", help="A webhook (chat or e-mail relay) to post a short message to (JSON, its text at most 500 characters) when the verdict got worse since the previous recorded run, a feed went stale, or the test reached its planned end; never for an unchanged PASS. A webhook that is down never changes the result."),
+    alert_link: str = typer.Option(None, "--alert-link", metavar="URL", help="The link the alert ends with, e.g. where the report is published (default: the --out file)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
     engine: str = ENGINE,
     spark_master: str = SPARK_MASTER,
@@ -124,6 +155,11 @@ def audit_cmd(
                                  param_hint="--format")
     day = _as_of(as_of)
     conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
+    if alert is not None:
+        from .alert_post import check_url
+
+        if (why := check_url(alert)) is not None:
+            raise typer.BadParameter(why, param_hint="--alert")
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
     from armlock.audit.engine import select_engine
@@ -139,6 +175,7 @@ def audit_cmd(
     from armlock.audit import history
 
     hist = history_path or history.default_history_path(spec_path)
+    before = _previous_run(hist, report) if alert is not None else None
     if record:
         history.record(hist, report)
         if report.data_through:
@@ -148,6 +185,8 @@ def audit_cmd(
             else FORMATS[fmt](report))
     emit(text, out, what="the report",
          done=f"Wrote the {fmt} report to {out}: verdict {status_word(report.verdict)} ({report.verdict_text})")
+    if alert is not None and before is not False:
+        send_alert(alert, spec, report, before, alert_link or (str(out) if out else None))
     finish("audit", report.experiment, report.as_of, report.verdict,
            [(c.id, c.status) for c in report.checks], strict)
 

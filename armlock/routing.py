@@ -12,7 +12,7 @@ A scheduler sees only an exit code and a log. So the codes say who must act:
     7  stale-data     a feed-freshness check fails and no split check does: the data pipeline
                       must catch up (with --strict a freshness warning also gives 7)
 
-"Stale" is defined by check id (`STALE_CHECKS`): the audit's feed-freshness checks.
+"Stale" is defined by check id (`armlock.audit.alerts.STALE_CHECKS`): the audit's feed-freshness check.
 """
 
 from __future__ import annotations
@@ -29,6 +29,7 @@ from armlock.assign.errors import (
     EXIT_USAGE,
     EXIT_WARN,
 )
+from armlock.audit.alerts import STALE_CHECKS, is_stale_check  # noqa: F401 (STALE_CHECKS re-exported)
 
 # The short name of each code, as the summary line prints it (stable: a log filter may match it).
 CODE_NAMES = {
@@ -36,15 +37,7 @@ CODE_NAMES = {
     EXIT_BAD_INPUT: "bad-input", EXIT_INTERNAL: "internal-error", EXIT_SPLIT_CHANGED: "split-changed",
     EXIT_STALE: "stale-data",
 }
-# Check ids that judge whether a feed is current rather than whether the split is healthy: their
-# failure alone means "the data is stale" (exit 7), not "the split is broken" (exit 3).
-STALE_CHECKS = frozenset({"freshness", "feed_freshness"})
 SUMMARY_MAX = 300  # characters: a scheduler's log line, never a report
-
-
-def is_stale_check(check_id: str) -> bool:
-    """Whether a check judges a feed's freshness (`freshness`, or an id `freshness_<feed>`)."""
-    return check_id in STALE_CHECKS or check_id.startswith(("freshness_", "freshness."))
 
 
 def route(verdict: str, checks: Iterable[tuple[str, str]], strict: bool) -> int:
