@@ -225,6 +225,10 @@ def plan_cmd(
     holdout_shares: str = typer.Option("5%,10%,20%,30%,50%", "--holdout-shares", help="Holdout shares to compare, e.g. 5%,10%,20% or 0.05,0.1."),
     weeks: str = typer.Option("2-26", "--weeks", help="Durations in weeks: a range 2-26 or a list 2,4,8 (at most 520)."),
     max_weeks: int = typer.Option(12, "--max-weeks", help="The longest test you would run."),
+    prefer: str = typer.Option("balanced", "--prefer", metavar="<balanced|money|time>", help="How to weigh weeks against revenue forgone: balanced (the fastest design forgoing at most 25% more than the cheapest), money (least revenue forgone), time (fewest weeks)."),
+    against: str = typer.Option("zero", "--against", metavar="<zero|break-even>", help="What the test must tell the target from: zero (does the channel add revenue?) or break-even (does it pay? needs --weekly-spend and --margin)."),
+    currency: str = typer.Option(None, "--currency", help="Currency code shown beside amounts, e.g. USD (default: the spec's [readout] currency with --spec, else none)."),
+    full: bool = typer.Option(False, "--full", help="Text output: add every share x weeks grid and the assumptions (the default is the recommendation and one table)."),
     fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Output format: {', '.join(FORMATS)}."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the plan to this file instead of stdout."),
     write_spec: str = typer.Option(None, "--write-spec", help="Also write a spec NAME.toml with the recommended holdout share (as `armlock init` does)."),
@@ -297,9 +301,15 @@ def plan_cmd(
     if reach is None:
         notes.insert(0, "--exposure-rate was not given, so every unit of the exposed arm is assumed reached by the "
                         "vendor (full reach); real reach is usually lower and dilutes the effect the arms show.")
+    if currency is not None and not (len(currency) == 3 and currency.isalpha() and currency.isupper()):
+        raise InputError(f"--currency: {currency!r} is not a three-letter currency code such as USD (ISO 4217)")
+    if currency is None and spec_path is not None and visits is not None:
+        from armlock.assign import load_spec
+
+        currency = getattr(getattr(load_spec(spec_path), "readout", None), "currency", None)
     common = dict(exposure_rate=1.0 if reach is None else reach, effect=effect, lift=the_lift,
                   target_iroas=target_iroas, weekly_spend=weekly_spend, margin=the_margin, alpha=the_alpha,
-                  power=the_power, equal_variance=equal_variance)
+                  power=the_power, equal_variance=equal_variance, against=against, currency=currency or "")
     units = given.get("weekly_units", found.get("weekly_units"))
     the_rho = given.get("rho", found.get("rho", 0.0))
     if units is None:
@@ -323,7 +333,15 @@ def plan_cmd(
                              "--order-value (or --visits and --orders to estimate them)")
         extra = {k: found[k] for k in ("conversion", "order_value") if k in found and not given}
         inputs = PlanInputs(weekly_units=units, revenue_mean=mean, revenue_sd=sd, rho=the_rho, **extra, **common)
-    plan = make_plan(inputs, shares=shares, weeks=week_list, max_weeks=max_weeks, estimates=estimates, notes=notes)
+    spread = None
+    if found and "revenue_sd" not in given:  # the SD was estimated: the weeks carry its sampling error
+        spread = pre.cv2_range if (the_lift is not None and "revenue_mean" not in given) else pre.variance_range
+        notes.append(f"The weeks carry a 95% range from the pre-period's sampling error of the "
+                     f"{'revenue SD relative to the mean' if spread is pre.cv2_range else 'revenue SD'} "
+                     f"(x {spread[0]:.2f} to x {spread[1]:.2f}; large-sample moments of the sample variance and "
+                     "mean, the delta method, Casella & Berger 2002, §5.5.4).")
+    plan = make_plan(inputs, shares=shares, weeks=week_list, max_weeks=max_weeks, estimates=estimates, notes=notes,
+                     prefer=prefer, spread=spread)
     if write_spec is not None and plan.recommendation.share is None:
         raise InputError(f"--write-spec: no spec written, because there is no recommended share "
                          f"({plan.recommendation.status}): {plan.recommendation.sentence}")
@@ -338,6 +356,10 @@ def plan_cmd(
         from armlock.plan.report_html import render_html
 
         text = render_html(plan)
+    elif fmt == "text":
+        from armlock.plan.render import render_text
+
+        text = render_text(plan, full=full)
     else:
         text = RENDERERS[fmt](plan)
     emit(text, out, what="the plan", done=f"Wrote {out} ({fmt}). {plan.recommendation.sentence}")

@@ -180,33 +180,41 @@ class Cell:
     mde_relative: float  # mde / revenue per unit
     mde_relative_cuped: float
     mde_per_exposed: float  # the planned MDE (CUPED if rho != 0) divided by the exposure rate
-    mde_weekly_reading: float  # planned MDE when the anytime-valid interval is read every week
+    mde_weekly_reading: float  # planned MDE when read every week at the readout's anytime boundary (simulated)
     mde_conversion: float | None  # change in conversion rate detectable (rate difference), if known
     iroas_vs_zero: float | None  # smallest iROAS distinguishable from zero (needs spend)
     iroas_vs_break_even: float | None  # smallest iROAS distinguishable from break-even (needs spend, margin)
     revenue_forgone: float | None  # holdout revenue lost if the channel works at the target effect
     profit_forgone: float | None  # margin x revenue forgone minus the spend saved on the holdout
     power_at_target: float | None  # power of this cell against the target (planned variance)
-    power_weekly_reading: float | None  # the same when read every week with the anytime-valid interval (a lower bound)
+    power_weekly_reading: float | None  # the same when read every week at the readout's anytime boundary (simulated)
 
 
 @dataclass(frozen=True)
 class ShareSummary:
-    """One holdout share against the target: the weeks it needs and what those weeks cost."""
+    """One holdout share against the target: the weeks it needs, checked by simulation, and what they cost."""
 
     share: float
-    weeks_needed: float  # exact (fractional) weeks, planned variance
+    target_difference: float  # arm-level difference per unit at the target (an iROAS target differs by share)
+    weeks_needed: float  # exact (fractional) weeks, normal arithmetic, planned variance
     weeks_needed_raw: float  # without CUPED
-    weeks_needed_weekly_reading: float  # when read weekly with the anytime-valid interval
-    weeks: int  # whole weeks to run (at least MIN_WEEKS)
-    revenue_forgone: float
+    weeks_needed_weekly_reading: float  # read every week with the readout's anytime interval (simulated boundary)
+    weekly_factor: float  # weeks read weekly / weeks read once
+    weeks: int | None  # whole weeks to run: the fewest where the simulated readout test is sound; None: not in 10 years
+    weeks_normal: int | None  # whole weeks by the normal arithmetic alone (at least MIN_WEEKS)
+    revenue_forgone: float | None
     profit_forgone: float | None
+    false_win_rate: float | None = None  # simulated false 'the channel works' rate at `weeks` (alpha is the plan)
+    power_simulated: float | None = None  # simulated power at `weeks`
+    false_win_rate_normal: float | None = None  # simulated false-win rate at `weeks_normal`
+    weeks_range: tuple[int, int] | None = None  # 95% range of the weeks from the pre-period's sampling error
 
 
 @dataclass(frozen=True)
 class Recommendation:
-    """The one-sentence advice. status: pass (meets the target in time), warn (only later than allowed),
-    fail (not within the longest duration planned), skipped (no target given)."""
+    """The advice. status (machine value; people read the words of render.STATUS_WORDS): pass (a sound design
+    meets the target in time: RECOMMENDED), warn (only later than allowed: TOO LONG), fail (no sound design
+    within 10 years: OUT OF REACH), skipped (no target given: NO TARGET)."""
 
     status: str
     share: float | None
@@ -234,6 +242,14 @@ class Plan:
     estimates: list[Estimate] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     assumptions: list[str] = field(default_factory=list)
+    prefer: str = "balanced"  # how the recommendation weighs weeks against revenue forgone
+    shape: tuple[float, float, float] = (0.0, 0.0, 0.0)  # simulated revenue: share buying, lognormal mu, sigma
+
+    def summary(self, share: float) -> ShareSummary:
+        for s in self.summaries:
+            if math.isclose(s.share, share):
+                return s
+        raise KeyError(share)
 
     @property
     def cuped(self) -> bool:
@@ -266,6 +282,10 @@ class Plan:
                 "anytime_factor": self.anytime_factor, "fixed_factor": self.z_alpha,
                 "width_ratio": self.anytime_factor / self.z_alpha,
             },
+            "against": self.inputs.against,
+            "prefer": self.prefer,
+            "simulated_revenue": {"buying_share": self.shape[0], "order_value_log_mean": self.shape[1],
+                                  "order_value_log_sd": self.shape[2]},
             "max_weeks": self.max_weeks,
             "shares": self.shares,
             "weeks": self.weeks,

@@ -8,11 +8,13 @@ import textwrap
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from .compute import money, num, pct
+from .compute import MAX_WEEKS, cash, money, num, pct, weeks_words
+from .soundness import SIMS
 from .model import Cell, Plan
 
 WIDTH = 100  # terminal text is wrapped at this width (tables are as wide as their columns)
-_STATUS_WORD = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "SKIPPED"}
+# the plan's own status words (not the audit's): what the recommendation is
+STATUS_WORDS = {"pass": "RECOMMENDED", "warn": "TOO LONG", "fail": "OUT OF REACH", "skipped": "NO TARGET"}
 
 
 @dataclass
@@ -37,28 +39,66 @@ def _rate(x: float) -> str:
 def headline(p: Plan) -> list[str]:
     """The lines that say what was planned on."""
     x = p.inputs
-    lines = [f"{money(x.weekly_units)} new units a week; revenue per unit {money(x.revenue_mean)} "
+    cur = f" {x.currency}" if x.currency else ""
+    lines = [f"{money(x.weekly_units)} new units a week; revenue per unit {money(x.revenue_mean)}{cur} "
              f"(SD {money(x.revenue_sd)})"
              + (f", conversion {_rate(x.conversion)}, order value {money(x.order_value or 0)}"
                 if x.conversion is not None else "")
-             + f"; {pct(x.exposure_rate)} of the exposed arm reached"]
+             + f"; {pct(x.exposure_rate)} of the exposed arm reached by the vendor"]
     if p.cuped:
         lines.append(f"CUPED: pre-period correlation {x.rho:.3g}, variance x {1 - x.rho ** 2:.3g}")
     if p.target_difference is not None and p.target_per_exposed is not None:
-        t = (f"target: +{money(p.target_per_exposed)} per exposed unit = +{money(p.target_difference)} per unit "
+        t = (f"target: +{cash(p, p.target_per_exposed)} per reached unit = +{money(p.target_difference)} per unit "
              f"between the arms ({pct(p.target_difference / x.revenue_mean)} of revenue per unit)")
         if p.target_iroas is not None:
-            t += f", iROAS {p.target_iroas:.3g}"
+            t += f", iROAS {num(p.target_iroas)}"
+        if x.against == "break-even":
+            t += ", to be told from break-even"
         lines.append(t)
     money_bits = []
     if x.weekly_spend is not None:
-        money_bits.append(f"weekly spend {money(x.weekly_spend)} with nobody held out")
+        money_bits.append(f"weekly spend {cash(p, x.weekly_spend)} (the whole spend, as the readout divides)")
     if p.break_even_iroas is not None:
-        money_bits.append(f"gross margin {pct(x.margin or 0)} (break-even iROAS {p.break_even_iroas:.3g})")
+        money_bits.append(f"gross margin {pct(x.margin or 0)} (break-even iROAS {num(p.break_even_iroas)})")
     if money_bits:
         lines.append("; ".join(money_bits))
-    lines.append(f"{x.power * 100:.3g}% power, two-sided alpha {x.alpha:g}")
+    lines.append(f"{x.power * 100:.3g}% power, two-sided alpha {x.alpha * 100:g}%; --prefer {p.prefer}")
     return lines
+
+
+def _weeks_cell(w: float) -> str:
+    return f"{w:,.1f}" if math.isfinite(w) and w <= MAX_WEEKS else f"> {MAX_WEEKS}"
+
+
+def choices(p: Plan) -> Table | None:
+    """The one table of the short output: each holdout share, its sound weeks, what it costs, how it was checked."""
+    if not p.summaries:
+        return None
+    x = p.inputs
+    has_profit = any(s.profit_forgone is not None for s in p.summaries)
+    head = ["holdout", "weeks", "exact", "weekly", "holdout units", "forgone"] + \
+        (["profit"] if has_profit else []) + ["power", "false wins", ""]
+    rows = []
+    for s in p.summaries:
+        mark = "<- recommended" if p.recommendation.share is not None and s.share == p.recommendation.share else ""
+        if s.weeks is not None and s.weeks > p.max_weeks and not mark:
+            mark = "too long"
+        row = [pct(s.share), weeks_words(s.weeks).replace(" weeks", "") if s.weeks is not None else weeks_words(math.inf),
+               _weeks_cell(s.weeks_needed), _weeks_cell(s.weeks_needed_weekly_reading),
+               money(s.share * x.weekly_units * s.weeks) if s.weeks is not None else "",
+               money(s.revenue_forgone) if s.revenue_forgone is not None else ""]
+        if has_profit:
+            row.append(money(s.profit_forgone) if s.profit_forgone is not None else "")
+        row += [f"{s.power_simulated * 100:.1f}%" if s.power_simulated is not None else "",
+                f"{s.false_win_rate * 100:.1f}%" if s.false_win_rate is not None else "", mark]
+        rows.append(row)
+    cur = f" in {x.currency}" if x.currency else ""
+    return Table(f"Each holdout share: weeks = the whole weeks where the readout's test keeps its level and power "
+                 f"(simulated, {SIMS:,} tests: power and false wins); exact = the normal arithmetic's weeks; weekly = "
+                 f"the weeks if read every week; forgone = revenue{cur} the holdout does not get if the channel works as "
+                 "targeted" + ("; profit = margin x forgone minus the spend saved on the holdout (negative when the "
+                 "saving is larger)" if has_profit else "") + f"; too long = over the {p.max_weeks} weeks allowed",
+                 head, rows)
 
 
 def tables(p: Plan, *, compact: bool = False) -> list[Table]:
@@ -74,29 +114,13 @@ def tables(p: Plan, *, compact: bool = False) -> list[Table]:
                  (lambda c: f"{num(c.mde_cuped)} ({num(c.mde)}) {num(c.mde_relative_cuped * 100)}%")
                  if p.cuped and not compact
                  else (lambda c: f"{num(c.mde_cuped)} {num(c.mde_relative_cuped * 100)}%"))]
-    if p.summaries:
-        has_profit = any(s.profit_forgone is not None for s in p.summaries)
-        head = ["holdout", "weeks", "exact", "no CUPED" if p.cuped else "", "read weekly",
-                "holdout units", "revenue forgone"] + (["profit forgone"] if has_profit else [])
-        rows = []
-        for s in p.summaries:
-            row = [pct(s.share), str(s.weeks), f"{s.weeks_needed:.1f}", f"{s.weeks_needed_raw:.1f}" if p.cuped else "",
-                   f"{s.weeks_needed_weekly_reading:.1f}", money(s.share * x.weekly_units * s.weeks),
-                   money(s.revenue_forgone)]
-            if has_profit:
-                row.append(money(s.profit_forgone) if s.profit_forgone is not None else "")
-            rows.append(row)
-        if not p.cuped:
-            head.pop(3)
-            for r in rows:
-                r.pop(3)
-        out.append(Table("Weeks each holdout share needs for the target, and what those weeks cost "
-                         "(revenue the holdout does not get if the channel works as targeted; profit is net of "
-                         "the spend saved on the holdout, negative when the saving is larger)", head, rows))
+    ch = choices(p)
+    if ch is not None:
+        out.append(ch)
     if x.weekly_spend is not None:
         if p.break_even_iroas is not None:
             out.append(_grid(p, f"Smallest iROAS distinguishable from zero / from break-even "
-                                f"({p.break_even_iroas:.3g})",
+                                f"({num(p.break_even_iroas)}); iROAS = incremental revenue / the whole spend",
                              lambda c: f"{num(c.iroas_vs_zero or 0)} / {num(c.iroas_vs_break_even or 0)}"))
         else:
             out.append(_grid(p, "Smallest iROAS distinguishable from zero (give --margin for break-even)",
@@ -106,38 +130,49 @@ def tables(p: Plan, *, compact: bool = False) -> list[Table]:
 
 def weekly_reading_line(p: Plan) -> str:
     ratio = p.anytime_factor / p.z_alpha
-    s = p.summaries[0] if p.summaries else None
-    more = (f"; to keep the same detectable effect it needs {s.weeks_needed_weekly_reading / s.weeks_needed:.2f} "
-            "times as many weeks") if s else ""
-    return (f"Reading the result every week: the anytime-valid interval is {ratio:.2f} times as wide as the "
-            f"fixed-horizon one at the planned end ({p.anytime_factor:.3g} vs {p.z_alpha:.3g} standard errors){more}. "
-            "Reading only once, at the planned end, keeps the fixed-horizon width.")
+    rec = p.recommendation
+    s = p.summary(rec.share) if rec.share is not None else (p.summaries[0] if p.summaries else None)
+    more = ""
+    if s is not None and math.isfinite(s.weeks_needed_weekly_reading):
+        more = (f"; read every week at the readout's own boundary (simulated), a {pct(s.share)} holdout needs "
+                f"{s.weekly_factor:.2f} times the weeks for the same power ({_weeks_cell(s.weeks_needed_weekly_reading)}"
+                f" instead of {_weeks_cell(s.weeks_needed)})")
+    return (f"Reading the result every week: the readout's anytime-valid interval is {ratio:.2f} times as wide as "
+            f"the fixed-horizon one at the planned end ({p.anytime_factor:.3g} vs {p.z_alpha:.3g} standard errors)"
+            f"{more}. Reading only once, at the planned end, keeps the fixed-horizon width.")
 
 
 def _text_table(t: Table) -> str:
     widths = [max(len(r[i]) for r in [t.header, *t.rows]) for i in range(len(t.header))]
     fmt = lambda r: "  ".join(v.ljust(w) if i == 0 else v.rjust(w) for i, (v, w) in enumerate(zip(r, widths)))  # noqa: E731
-    return "\n".join([*textwrap.wrap(t.title, WIDTH), fmt(t.header), *(fmt(r).rstrip() for r in t.rows)])
+    return "\n".join([*textwrap.wrap(t.title, WIDTH), fmt(t.header).rstrip(), *(fmt(r).rstrip() for r in t.rows)])
 
 
-def render_text(p: Plan) -> str:
+def render_text(p: Plan, *, full: bool = False) -> str:
+    """The terminal plan: short by default (the recommendation, its alternatives, one table); `full` adds every
+    share x weeks grid and the assumptions."""
     rec = p.recommendation
     wrap = lambda text, first="", rest="  ": textwrap.wrap(text, WIDTH, initial_indent=first, subsequent_indent=rest)  # noqa: E731
     parts = ["armlock plan: " + headline(p)[0], *("  " + line for line in headline(p)[1:]), "",
-             *wrap(f"Recommendation [{_STATUS_WORD[rec.status]}]: {rec.sentence}"), ""]
+             *wrap(f"{STATUS_WORDS[rec.status]}: {rec.sentence}"), ""]
     if p.estimates:
         parts += ["Estimated from the pre-period files:",
                   *(f"  {e.name}: {money(e.value) if abs(e.value) >= 1 else f'{e.value:.4g}'} ({e.how})"
                     for e in p.estimates), ""]
-    for t in tables(p, compact=True):
+    shown = tables(p, compact=True) if full else [t for t in [choices(p)] if t is not None]
+    for t in shown:
         parts += [_text_table(t), ""]
-    parts += [*wrap(weekly_reading_line(p)), "", "Assumptions:"]
-    for a in p.assumptions:
-        parts += wrap(a, "  - ", "    ")
+    parts += [*wrap(weekly_reading_line(p))]
+    if full:
+        parts += ["", "Assumptions:"]
+        for a in p.assumptions:
+            parts += wrap(a, "  - ", "    ")
     if p.notes:
         parts += ["", "Notes:"]
         for n in p.notes:
             parts += wrap(n, "  - ", "    ")
+    if not full:
+        parts += ["", "(--full adds the detectable effect and iROAS for every share and duration, and the assumptions)"]
     return "\n".join(parts) + "\n"
 
 
@@ -148,7 +183,7 @@ def _md_cell(v: str) -> str:
 def render_markdown(p: Plan) -> str:
     rec = p.recommendation
     parts = ["# Holdout plan", "", *(f"- {line}" for line in headline(p)), "",
-             f"**Recommendation ({rec.status}):** {rec.sentence}", ""]
+             f"**{STATUS_WORDS[rec.status].capitalize()}:** {rec.sentence}", ""]
     if p.estimates:
         parts += ["## Estimated from the pre-period files", "",
                   *(f"- {e.name}: {e.value:.6g} ({e.how})" for e in p.estimates), ""]

@@ -20,8 +20,7 @@ from .render import Table, headline, tables, weekly_reading_line
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-_WORDS = {"pass": "Recommended", "warn": "Longer than allowed", "fail": "Cannot reach the target",
-          "skipped": "No target given"}
+_WORDS = {"pass": "Recommended", "warn": "Too long", "fail": "Out of reach", "skipped": "No target"}
 _EXTRA_CSS = """
 .rec .word { font-size: 1.25rem; font-weight: 700; display: block; }
 .lead { margin: .2rem 0 0; font-size: 1.05rem; }
@@ -66,7 +65,8 @@ def chart_mde(p: Plan, chart_id: str = "mde", narrow: bool = False) -> str:
 def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
     """Each share's weeks needed for the target against the revenue its holdout forgoes."""
     fig, ax = plt.subplots(figsize=(NARROW, 3.8) if narrow else (WIDE, 3.2))
-    for i, s in enumerate(p.summaries):
+    sound = [s for s in p.summaries if s.weeks is not None and s.revenue_forgone is not None]
+    for i, s in enumerate(sound):
         ax.scatter([s.weeks], [s.revenue_forgone], s=70, color=_share_colour(i), zorder=3,
                    marker="o" if s.share != p.recommendation.share else "*")
         label = f"{pct(s.share)}: {s.weeks} wk" + ("" if narrow else f", {money(s.revenue_forgone)}")
@@ -76,8 +76,8 @@ def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
     ax.set_xscale("log")
     from matplotlib.ticker import FuncFormatter, NullFormatter
 
-    lo = min([s.weeks for s in p.summaries] + [p.max_weeks]) / 1.5
-    hi = max([s.weeks for s in p.summaries] + [p.max_weeks]) * 2.2  # room for the labels
+    lo = min([s.weeks for s in sound] + [p.max_weeks]) / 1.5
+    hi = max([s.weeks for s in sound] + [p.max_weeks]) * 2.2  # room for the labels
     ax.set_xlim(lo, hi)
     ax.set_xticks([t for t in (1, 2, 4, 8, 13, 26, 52, 104, 208, 520, 1040) if lo <= t <= hi] or [p.max_weeks])
     ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))

@@ -27,11 +27,15 @@ def test_text_plan(tmp_path: Path) -> None:
     assert r.returncode == 0, r.stderr
     out = r.stdout
     assert out.startswith("armlock plan: 300,000 new units a week")
-    assert "Recommendation [PASS]: Hold out" in out
-    assert "Smallest detectable difference in revenue per unit" in out
-    assert "Smallest iROAS distinguishable from zero / from break-even (2.5)" in out
+    assert "RECOMMENDED: Hold out" in out and "PASS" not in out  # the plan's own status word, not the audit's
+    assert "Each holdout share:" in out and "Alternatives:" in out
+    assert "Smallest detectable difference in revenue per unit" not in out  # short by default: one table
     assert "Reading the result every week" in out
     assert "Traceback" not in r.stderr
+    full = run_cli(tmp_path, "plan", *SHOP, "--full").stdout
+    assert "Smallest detectable difference in revenue per unit" in full and "Assumptions:" in full
+    assert "Smallest iROAS distinguishable from zero / from break-even (2.50)" in full
+    assert "Welch's t-test" in full  # the test the readout uses is said, and simulated
 
 
 def test_json_and_markdown(tmp_path: Path) -> None:
@@ -60,7 +64,7 @@ def test_write_spec_uses_the_recommended_share(tmp_path: Path) -> None:
 
 
 def test_write_spec_refused_without_a_recommendation(tmp_path: Path) -> None:
-    r = run_cli(tmp_path, "plan", "--weekly-units", "500", "--revenue-mean", "7", "--revenue-sd", "75",
+    r = run_cli(tmp_path, "plan", "--weekly-units", "50", "--revenue-mean", "7", "--revenue-sd", "75",
                 "--lift", "0.05", "--write-spec", "tiny")
     assert r.returncode == 4 and "no spec written" in r.stderr
     assert not (tmp_path / "tiny.toml").exists()

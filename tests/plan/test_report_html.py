@@ -25,7 +25,7 @@ def test_page_is_self_contained_and_escaped() -> None:
 
 
 @pytest.mark.parametrize("status,inputs", [
-    ("fail", PlanInputs(weekly_units=2_000, revenue_mean=7.0, revenue_sd=75.0, lift=0.05)),
+    ("fail", PlanInputs(weekly_units=200, revenue_mean=7.0, revenue_sd=75.0, lift=0.05)),
     ("skipped", PlanInputs(weekly_units=2_000, revenue_mean=7.0, revenue_sd=75.0)),
 ])
 def test_page_without_a_recommendation(status: str, inputs: PlanInputs) -> None:
