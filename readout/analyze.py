@@ -7,6 +7,7 @@ from datetime import UTC, date, datetime
 
 from armlock.assign import Spec, __version__
 from armlock.audit.model import Check, Figure, NotChecked, verdict_of
+from armlock.audit.srm import holm
 from armlock.plan.power import mde
 
 from .model import (
@@ -29,7 +30,8 @@ from .tables import COV_PREFIX, Moments, ReadoutTables
 ASSUMPTIONS = [
     "The ad changes sales only through exposure: being in the exposed arm without seeing an ad does nothing.",
     "Exposure is what the vendor's log records; exposures the log misses make this figure too large.",
-    "No unit is pushed away by the ad (monotonicity); holdout units the vendor reached count as exposed.",
+    "Monotonicity, about exposure: no unit would be exposed if held out yet unexposed if in the exposed arm "
+    "(being put in the exposed arm never lowers a unit's exposure); holdout units the vendor reached count as exposed.",
 ]
 READING = ("Reading the result every week? Use the anytime interval: it stays valid at every look. "
            "The fixed interval is valid only for one look planned in advance.")
@@ -173,7 +175,7 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
                 effects.append(Effect(arm=arm, versus=versus, metric=metric, label=label + " (adjusted)",
                                       method=f"CUPED ({', '.join(tables.covariates)})", primary=True,
                                       absolute=interval(c.estimate, n_ab, t_opt=t_opt, alpha=alpha),
-                                      relative=interval(_scaled_rel(c.estimate, hold)),
+                                      relative=interval(c.relative) if c.relative else None,
                                       mde=_f(mde(c.estimate.se, alpha=alpha, power=power))
                                       if math.isfinite(c.estimate.se) else None))
                 if adjustment is None:
@@ -187,10 +189,12 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
             w = wald(a, hold, "revenue", "exposed", alpha)
             exposure.append(ExposureEffect(
                 arm=arm, exposure_rate_exposed=float(w.exposure_a), exposure_rate_holdout=float(w.exposure_b),
-                itt_exposure=float(w.itt_d), per_exposed_unit=interval(w.estimate), assumptions=ASSUMPTIONS))
+                itt_exposure=float(w.itt_d), per_exposed_unit=interval(w.estimate, n_ab, t_opt=t_opt, alpha=alpha),
+                assumptions=ASSUMPTIONS))
             if w.exposure_b > 0:
                 cautions.append(f"The vendor reached {w.exposure_b:.2%} of the holdout: the effect per exposed unit "
                                 "treats that as two-sided non-compliance; the per-unit and money figures are diluted.")
+    _holm_by_metric(effects)
     if covs and adjustment is None:
         adjustment = Adjustment(covariates=tables.covariates, theta=[], variance_reduction=None, primary="CUPED")
 
@@ -250,7 +254,8 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
     decision = decide(spec, iroas=m.iroas, df=prim.df, units=units_total, as_of=as_of, trustworthy=trusted,
                       gate_problem=problem or "the audit gate is not passed",
                       earlier=[(date.fromisoformat(day), sum(a.n for a in arms_m.values()))
-                               for day, arms_m in tables.looks if day < as_of])
+                               for day, arms_m in tables.looks if day < as_of],
+                      buyers=int(round(min(ex.total("buyer"), hold.total("buyer")))))
     warning = [c for c in checks if c.status == "warn" and c.judged]
     if warning and status != "fail":
         cautions.insert(0, "Caution: the split audit warns (" + ", ".join(c.title for c in warning)
@@ -261,7 +266,9 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
         decision=decision, experiment=spec.name, fingerprint=spec.fingerprint, as_of=as_of,
         generated_at=datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z"),
         armlock_version=__version__, status=status, trustworthy=trusted,
-        headline=headline(m, decision, status, failing, level, missing), reading_advice=READING, cautions=cautions,
+        headline=" ".join(x for x in (headline(m, decision, status, failing, level, missing),
+                                      cap_sentence(spec, tables.counts, cfg.currency)) if x),
+        reading_advice=READING, estimand=estimand(spec, as_of), cautions=cautions,
         gate=[GateCheck(id=c.id, title=c.title, status=c.status, summary=c.summary) for c in checks],
         not_checked=missing,
         arms=rows, effects=effects, adjustment=adjustment, exposure=exposure, money=m, looks=looks,
@@ -275,12 +282,38 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
     return report
 
 
-def _scaled_rel(e: Estimate, hold: Moments) -> Estimate:
-    """Relative lift of an adjusted difference against the holdout's mean (its SE scaled alike)."""
-    mu = hold.mean("revenue")
-    if not mu:
-        return Estimate(float("nan"), float("nan"), float("nan"), float("nan"))
-    return Estimate(e.value / mu, e.se / abs(mu), e.lo / mu, e.hi / mu, e.p, e.df)
+def estimand(spec: Spec, as_of: str) -> str:
+    """What the readout estimates, in one line."""
+    w = spec.readout.window
+    period = ("from each unit's first visit through the end of the as-of day " + as_of if w == "to_as_of" else
+              f"from each unit's first visit through {w} days after it (units first seen at least {w} days before "
+              f"the end of {as_of})")
+    cap = f", each unit's revenue capped at the pooled {spec.readout.revenue_cap:g} quantile" \
+        if spec.readout.revenue_cap else ""
+    return (f"Estimand: revenue per unit net of refunds{cap}, {period}, exposed arm(s) minus holdout, by the arm "
+            "the split assigned (intent to treat); money figures scale it to the exposed arm(s)' units.")
+
+
+def cap_sentence(spec: Spec, counts: dict[str, float], cur: str) -> str | None:
+    """The cap, said in the headline when it changed some unit's revenue (it shrinks a real effect)."""
+    capped = int(counts.get("units_capped", 0) or 0)
+    if not spec.readout.revenue_cap or not capped:
+        return None
+    return (f"Revenue was capped at {money_text(counts.get('revenue_cap_value'), cur)} per unit (the pooled "
+            f"{spec.readout.revenue_cap:g} quantile) for {capped:,} unit(s): the cap lowers variance but also "
+            "shrinks a real effect toward zero.")
+
+
+def _holm_by_metric(effects: list[Effect]) -> None:
+    """Holm's step-down adjustment (Holm 1979) of each metric's p-values across the exposed arms,
+    each tested against the same holdout: the family-wise error per metric stays at alpha."""
+    groups: dict[tuple[str, str], list[Effect]] = {}
+    for e in effects:
+        if e.absolute.p is not None:
+            groups.setdefault((e.metric, e.method), []).append(e)
+    for group in groups.values():
+        for e, adj in zip(group, holm([e.absolute.p for e in group])):  # type: ignore[misc]
+            e.p_holm = float(adj)
 
 
 def _figures(m: Money, prim: Estimate, adj: Adjustment | None, d: Decision, failing: list[Check],

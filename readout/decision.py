@@ -28,6 +28,10 @@ from armlock.assign import Spec
 
 from .model import Decision, Interval
 
+# Our choice, from the calibration in docs/readout-decision.md: below this many buyers in the holdout
+# or in the exposed arms, heavy-tailed revenue makes the normal approximation of either interval too
+# optimistic (false "pays" at break-even 9-10% at 64 holdout buyers), so the answer waits.
+MIN_BUYERS = 50
 ANSWER_WORDS = {"pays": "PAYS", "does_not_pay": "DOES NOT PAY", "not_yet_known": "NOT YET KNOWN"}
 
 
@@ -97,7 +101,8 @@ def _r(v: float | None) -> str:
 
 
 def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, as_of: str, trustworthy: bool,
-           gate_problem: str, earlier: list[tuple[date, int]] = ()) -> Decision:  # type: ignore[assignment]
+           gate_problem: str, earlier: list[tuple[date, int]] = (),  # type: ignore[assignment]
+           buyers: int | None = None) -> Decision:
     """The decision at this look (see the module docstring for the rule)."""
     alpha = spec.readout.alpha
     level = round(100 * (1 - alpha))
@@ -121,6 +126,11 @@ def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, 
                         reason="No spend was given (--spend or --spend-file), so iROAS and the decision are not "
                                "computed.",
                         action="Give the channel's spend over the test and read again.")
+    if buyers is not None and buyers < MIN_BUYERS:
+        return Decision(answer="not_yet_known", withheld=False, **base,  # type: ignore[arg-type]
+                        reason=f"Too few buyers to judge: {buyers:,} in the smaller side (holdout or exposed), "
+                               f"fewer than {MIN_BUYERS}; with so few the interval is not yet reliable.",
+                        action="Keep the test running; the answer comes when both sides have enough buyers.")
     span = f"iROAS {_r(iroas.value)} ({which} {_r(lo)} to {_r(hi)})"
     when = f"; {st.why}" if st.why else ""
     if lo > target:
@@ -140,4 +150,4 @@ def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, 
     return Decision(answer=answer, withheld=False, reason=said, action=action, **base)  # type: ignore[arg-type]
 
 
-__all__ = ["ANSWER_WORDS", "Stage", "breakeven", "decide", "p_against", "stage"]
+__all__ = ["ANSWER_WORDS", "MIN_BUYERS", "Stage", "breakeven", "decide", "p_against", "stage"]

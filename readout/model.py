@@ -69,6 +69,8 @@ class Effect(BaseModel):
     absolute: Interval
     relative: Interval | None = None  # mean_exposed / mean_holdout - 1
     mde: float | None = None  # minimum detectable absolute effect at this size
+    # Holm-adjusted p across the exposed arms for this metric and method (equals p with one arm)
+    p_holm: float | None = None
 
 
 class Adjustment(BaseModel):
@@ -186,6 +188,7 @@ class ReadoutReport(BaseModel):
     trustworthy: bool
     headline: str
     reading_advice: str  # which interval a weekly reader should use
+    estimand: str = ""  # what is estimated, in one line (units, outcome, period)
     cautions: list[str] = Field(default_factory=list)
     gate: list[GateCheck] = Field(default_factory=list)
     not_checked: list[NotChecked] = Field(default_factory=list)

@@ -52,16 +52,18 @@ def arms_table(r: ReadoutReport) -> Table:
 
 def effects_table(r: ReadoutReport) -> Table:
     level = round(100 * (1 - r.settings.get("alpha", 0.05)))
+    holm = len({e.arm for e in r.effects}) > 1  # Holm across exposed arms only when there are several
     rows = []
     for e in r.effects:
         d = _digits(e.metric)
         rows.append([f"{e.label}{' *' if e.primary else ''}", f"{e.arm} vs {e.versus}", e.method,
                      num(e.absolute.value, d), span(e.absolute, lambda v, d=d: num(v, d)),
                      span(e.absolute, lambda v, d=d: num(v, d), anytime=True),
-                     pct(e.relative.value) if e.relative else "-", e.absolute.p, num(e.mde, d)])
+                     pct(e.relative.value) if e.relative else "-", e.absolute.p,
+                     *([e.p_holm] if holm else []), num(e.mde, d)])
     return Table(title="Effects (exposed - holdout); * = primary estimate",
                  columns=["metric", "arms", "method", "difference", f"{level}% interval", "anytime interval",
-                          "relative", "p", "MDE"], rows=rows)
+                          "relative", "p", *(["p (Holm, across arms)"] if holm else []), "MDE"], rows=rows)
 
 
 def money_table(r: ReadoutReport) -> Table:
@@ -93,9 +95,11 @@ def exposure_table(r: ReadoutReport) -> Table | None:
     if not r.exposure:
         return None
     rows = [[x.arm, pct(x.exposure_rate_exposed), pct(x.exposure_rate_holdout, 2), num(x.per_exposed_unit.value, 3),
-             span(x.per_exposed_unit, lambda v: num(v, 3)), x.per_exposed_unit.p] for x in r.exposure]
+             span(x.per_exposed_unit, lambda v: num(v, 3)), span(x.per_exposed_unit, lambda v: num(v, 3), anytime=True),
+             x.per_exposed_unit.p] for x in r.exposure]
     return Table(title="Effect on the exposed (Wald / complier average causal effect), revenue per exposed unit",
-                 columns=["arm", "exposed share", "holdout reached", "per exposed unit", "interval", "p"], rows=rows)
+                 columns=["arm", "exposed share", "holdout reached", "per exposed unit", "fixed interval",
+                          "anytime interval", "p"], rows=rows)
 
 
 def looks_table(r: ReadoutReport) -> Table:
@@ -157,7 +161,8 @@ def render_text(r: ReadoutReport) -> str:
         out.append("Audit checks that gate this readout:")
         out += [f"  [{MARK[g.status]}] {g.title}: {g.summary.split('; ')[0]}" for g in bad]
         out.append("")
-    out += [textwrap.fill(r.reading_advice, WIDTH), textwrap.fill(_adjust_line(r) or "", WIDTH), ""]
+    out += [textwrap.fill(r.estimand, WIDTH), textwrap.fill(r.reading_advice, WIDTH),
+            textwrap.fill(_adjust_line(r) or "", WIDTH), ""]
     if r.cautions:
         out.append("Cautions:")
         out += [textwrap.fill(c, WIDTH, initial_indent="  - ", subsequent_indent="    ") for c in r.cautions]
@@ -191,7 +196,7 @@ def render_markdown(r: ReadoutReport) -> str:
         out += ["**Audit checks that gate this readout**", ""]
         out += [f"- **{MARK[g.status]}** {_md(g.title)}: {_md(g.summary.split('; ')[0])}" for g in bad]
         out.append("")
-    out += [_md(r.reading_advice), "", _md(_adjust_line(r) or "")]
+    out += [_md(r.estimand), "", _md(r.reading_advice), "", _md(_adjust_line(r) or "")]
     if r.cautions:
         out += ["", "**Cautions**", ""] + [f"- {_md(c)}" for c in r.cautions]
     if r.input_notes:

@@ -250,7 +250,7 @@ def render_html(r: ReadoutReport) -> str:
 <div><span class="word">Audit gate: {esc(word)}</span><p class="headline">{esc(r.headline)}</p>
 {f'<ul class="gate">{gate_list}</ul>' if gate_list else ''}</div></div>
 <section class="check" id="money" data-section="money"><header><h2>Did it pay?</h2></header>
-<p class="summary">{esc(r.reading_advice)}</p>{_figures(r)}{roas}{_table(money_t)}</section>
+<p class="summary">{esc(r.estimand)}</p><p class="summary">{esc(r.reading_advice)}</p>{_figures(r)}{roas}{_table(money_t)}</section>
 <section class="check" id="over-time" data-section="over-time"><header><h2>The estimate over time</h2></header>
 <p class="summary">Each point is what a reader would have seen at the end of that day: the sand band is the fixed
 interval, the pale blue band the anytime interval. Only the anytime band may be read at every look.</p>{looks}{looks_t}</section>

@@ -78,6 +78,17 @@ def run_readout_and_audit(
                                split_changes=split_changes, has_exposures=exposures is not None)
 
 
+def _readout_note(note: str, as_of: object) -> str:
+    """The audit's "covers data through" note, said for the readout: visits end earlier, but
+    orders are counted through the as-of day."""
+    tail = "the report covers data through "
+    if tail not in note:
+        return note
+    last = note.rsplit(tail, 1)[1].removesuffix(" only")
+    return (note.rsplit(tail, 1)[0] + f"no unit first seen after {last} is in the test, and orders are counted "
+            f"through the end of {as_of}")
+
+
 def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None = None,
                         spend_file: PathLike | None = None, attributed_revenue: float | None = None,
                         split_changes: list[str] | None = None,
@@ -86,7 +97,7 @@ def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None =
     used = res.audit.as_of
     checks = checks_from_tables(spec, canonical(res.audit.tables), res.audit.counts, split_changes or [])
     audit = report_from_checks(spec, res.audit, used, checks)
-    notes = [*res.audit.notes, *res.notes]
+    notes = [_readout_note(n, used) for n in res.audit.notes] + list(res.notes)
     if spend_file is not None:
         spend = load_spend(spec, spend_file, used, notes)
     attributed = attributed_revenue if attributed_revenue is not None else res.tables.attributed

@@ -15,7 +15,7 @@ import numpy as np
 from scipy import stats as sps
 
 from .confseq import anytime_factor
-from .stats import cuped, welch
+from .stats import cuped, relative_lift, welch
 from .tables import Moments
 
 VALUE = (3.7, 0.8)  # buyers' revenue: lognormal, mean exp(3.7 + 0.32) ~ 55.7
@@ -133,12 +133,13 @@ class FalsePays:
     weeks: int
     units: int  # per test at the planned final look (both arms)
     rule: float  # anytime interval before the planned final look, fixed at it (the readout's rule)
+    rule_no_floor: float  # the same without the floor of buyers
     fixed_weekly: float  # the fixed interval read at every look (what the rule prevents)
     fixed_once: float  # the fixed interval read once, at the planned final look
 
 
 def false_pays(*, tests: int, weeks: int, per_week: int, p_holdout: float = 0.04, lift: float = 0.1,
-               holdout_share: float = 0.1, alpha: float = 0.05, seed: int = 0) -> FalsePays:
+               holdout_share: float = 0.1, alpha: float = 0.05, seed: int = 0, min_buyers: int = 0) -> FalsePays:
     """Simulate tests whose channel is exactly at break-even, read every week.
 
     The exposed arm's buyers buy at p_holdout (1 + lift) and spend is set so that the true iROAS
@@ -146,16 +147,19 @@ def false_pays(*, tests: int, weeks: int, per_week: int, p_holdout: float = 0.04
     true difference (iROAS is the difference times a positive constant, so the comparison is the
     same). The rule reads the anytime interval (readout.confseq, tuned to the planned size) at
     weeks 1 .. weeks-1 and the fixed-horizon Welch interval at the planned final week, as
-    `readout.decision` does; a test counts once, at its first "pays".
+    `readout.decision` does, and like it says nothing while an arm has fewer than `min_buyers`
+    buyers (`readout.decision.MIN_BUYERS`); a test counts once, at its first "pays".
     """
     rng = np.random.default_rng(seed)
     mv = mean_value()
     p_exposed = p_holdout * (1 + lift)
     truth = (p_exposed - p_holdout) * mv
     acc = np.zeros((2, 3, tests))
+    buyers_in = np.zeros((2, tests))
     z = float(sps.norm.isf(alpha / 2))
     t_opt = weeks * per_week
     rule = np.zeros(tests, bool)
+    bare = np.zeros(tests, bool)
     weekly = np.zeros(tests, bool)
     once = np.zeros(tests, bool)
     for week in range(1, weeks + 1):
@@ -167,17 +171,55 @@ def false_pays(*, tests: int, weeks: int, per_week: int, p_holdout: float = 0.04
             acc[arm, 0] += n
             acc[arm, 1] += np.bincount(owner, vals, minlength=tests)
             acc[arm, 2] += np.bincount(owner, vals * vals, minlength=tests)
+            buyers_in[arm] += buyers
         n0, s0, q0 = acc[0]
         n1, s1, q1 = acc[1]
         m0, m1 = s0 / n0, s1 / n1
         se = np.sqrt((q0 - s0 * m0) / (n0 - 1) / n0 + (q1 - s1 * m1) / (n1 - 1) / n1)
         diff = m1 - m0
+        judged = buyers_in.min(axis=0) >= min_buyers  # the rule's floor: below it, "not yet known"
         fixed_lo = diff - z * se
         weekly |= fixed_lo > truth
         if week < weeks:
             k = np.array([anytime_factor(float(t), t_opt=t_opt, alpha=alpha) for t in n0 + n1])
-            rule |= diff - k * se > truth
+            rule |= judged & (diff - k * se > truth)
+            bare |= diff - k * se > truth
         else:
-            rule |= fixed_lo > truth
+            rule |= judged & (fixed_lo > truth)
+            bare |= fixed_lo > truth
             once = fixed_lo > truth
-    return FalsePays(tests, weeks, t_opt, float(rule.mean()), float(weekly.mean()), float(once.mean()))
+    return FalsePays(tests, weeks, t_opt, float(rule.mean()), float(bare.mean()), float(weekly.mean()),
+                     float(once.mean()))
+
+
+@dataclass
+class RelativeCoverage:
+    """Share of simulated tests whose relative-lift interval covered the true relative lift."""
+
+    tests: int
+    units: int
+    holdout_share: float
+    raw: float
+    cuped: float
+    cuped_holdout_fixed: float  # the adjusted difference over the holdout mean taken as known
+
+
+def relative_coverage(*, tests: int, units: int, holdout_share: float = 0.1, lift: float = 0.1,
+                      alpha: float = 0.05, seed: int = 0) -> RelativeCoverage:
+    """Coverage of the relative-lift intervals (delta method, raw and CUPED) over simulated tests
+    (`unit_level_test`): the truth is `lift`, since buying probability scales by 1 + lift."""
+    rng = np.random.default_rng(seed)
+    hit = np.zeros(3)
+    for _ in range(tests):
+        arm, y, x, _truth = unit_level_test(rng, units, holdout_share=holdout_share, lift=lift)
+        data = np.c_[y, x]
+        a = Moments.of(("y", "x"), data[arm == 1])
+        b = Moments.of(("y", "x"), data[arm == 0])
+        r = relative_lift(a, b, "y", alpha)
+        c = cuped(a, b, "y", ["x"], alpha)
+        assert c.relative is not None
+        mu = b.mean("y")
+        old_lo, old_hi = c.estimate.lo / mu, c.estimate.hi / mu
+        hit += [r.lo <= lift <= r.hi, c.relative.lo <= lift <= c.relative.hi, old_lo <= lift <= old_hi]
+    raw, cu, old = hit / tests
+    return RelativeCoverage(tests, units, holdout_share, float(raw), float(cu), float(old))

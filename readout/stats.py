@@ -103,12 +103,9 @@ def ratio_diff(a: Moments, b: Moments, num: str, den: str, alpha: float = 0.05) 
 
 def relative_lift(a: Moments, b: Moments, var: str, alpha: float = 0.05) -> Estimate:
     """mean_a / mean_b - 1 with Var ~ Var(mean_a)/mu_b^2 + mu_a^2 Var(mean_b)/mu_b^4 (delta method)."""
-    mu_a, mu_b = a.mean(var), b.mean(var)
-    if not mu_b or a.n < 2 or b.n < 2:
+    if a.n < 2 or b.n < 2:
         return Estimate(NAN, NAN, NAN, NAN)
-    va, vb = a.var(var) / a.n, b.var(var) / b.n
-    v = va / mu_b**2 + mu_a**2 * vb / mu_b**4
-    return _normal(mu_a / mu_b - 1, math.sqrt(v), alpha)
+    return ratio_lift(a.mean(var), b.mean(var), a.var(var) / a.n, b.var(var) / b.n, alpha)
 
 
 # --- CUPED (Deng, Xu, Kohavi & Walker 2013, §3.2) ------------------------------------------------
@@ -120,6 +117,17 @@ class Cuped:
     estimate: Estimate
     theta: list[float]
     variance_reduction: float  # 1 - Var(adjusted difference) / Var(raw difference)
+    relative: Estimate | None = None  # adjusted mean_a / adjusted mean_b - 1 (delta method)
+
+
+def ratio_lift(mu_a: float, mu_b: float, va: float, vb: float, alpha: float = 0.05) -> Estimate:
+    """mu_a / mu_b - 1 for two independent means with variances va, vb (of the means), by the delta
+    method for a ratio of means: Var ~ va / mu_b^2 + mu_a^2 vb / mu_b^4 (Deng, Knoblich & Lu 2018,
+    "Applying the Delta Method in Metric Analytics", KDD, §3.3 percent change)."""
+    if not mu_b or not (math.isfinite(va) and math.isfinite(vb)):
+        return Estimate(NAN, NAN, NAN, NAN)
+    v = va / mu_b**2 + mu_a**2 * vb / mu_b**4
+    return _normal(mu_a / mu_b - 1, math.sqrt(v) if v >= 0 else NAN, alpha)
 
 
 def pooled_theta(m: Moments, y: str, xs: list[str]) -> np.ndarray:
@@ -157,7 +165,9 @@ def cuped(a: Moments, b: Moments, y: str, xs: list[str], alpha: float = 0.05) ->
     est = welch_from_parts(adj_mean(a) - adj_mean(b), va, vb, a.n, b.n, alpha)
     raw = a.var(y) / a.n + b.var(y) / b.n if a.n >= 2 and b.n >= 2 else NAN
     reduction = 1 - (va + vb) / raw if raw and math.isfinite(raw) and raw > 0 else NAN
-    return Cuped(est, [float(t) for t in theta], reduction)
+    # relative lift of the adjusted means: both arms' uncertainty, the holdout's included
+    rel = ratio_lift(adj_mean(a), adj_mean(b), va, vb, alpha)
+    return Cuped(est, [float(t) for t in theta], reduction, rel)
 
 
 # --- exposure: Wald / complier average causal effect (Angrist, Imbens & Rubin 1996) ------------

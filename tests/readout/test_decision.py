@@ -13,7 +13,7 @@ from scipy import stats as sps
 
 from armlock.assign import spec_from_dict
 from armlock.audit import synth
-from armlock.readout.decision import breakeven, decide, p_against, stage
+from armlock.readout.decision import MIN_BUYERS, breakeven, decide, p_against, stage
 from armlock.readout.model import Interval
 from armlock.readout.render import RENDERERS
 from armlock.readout.run import run_readout
@@ -156,7 +156,17 @@ def test_p_against_breakeven_equals_welch_on_shifted_data() -> None:
 def test_read_weekly_the_rule_says_pays_at_break_even_about_as_often_as_alpha_allows() -> None:
     # 1,000 simulated tests exactly at break-even, 10% holdout, 8 weekly looks, 160,000 units at the
     # planned end; the large run (scripts/readout_decision.py, docs/readout-decision.md) has more.
-    r = false_pays(tests=1000, weeks=8, per_week=20_000, holdout_share=0.1, seed=21)
+    r = false_pays(tests=1000, weeks=8, per_week=20_000, holdout_share=0.1, seed=21, min_buyers=MIN_BUYERS)
     assert r.rule <= 0.05  # the union bound: alpha / 2 over the anytime looks + alpha / 2 at the end
     assert r.rule <= r.fixed_once + 0.015  # the anytime looks add little to the one final look
     assert r.fixed_weekly >= 2 * r.rule  # what the rule prevents: the fixed interval read every week
+
+
+def test_the_floor_of_buyers_keeps_small_tests_near_alpha() -> None:
+    # 16,000 units, 10% holdout, about 64 holdout buyers at the end: without the floor the
+    # normal approximation says "pays" at break-even about 9-10% of the time (docs/readout-decision.md)
+    r = false_pays(tests=1000, weeks=8, per_week=2_000, holdout_share=0.1, seed=22, min_buyers=MIN_BUYERS)
+    assert r.rule <= 0.06 and r.rule_no_floor >= r.rule + 0.02
+    d = decide(_spec(planned_units=10), iroas=_iv(9.0, 5.0, 13.0, 4.0, 14.0), units=10, as_of="2026-02-01",
+               df=None, trustworthy=True, gate_problem="", buyers=MIN_BUYERS - 1)
+    assert d.answer == "not_yet_known" and "Too few buyers" in d.reason
