@@ -141,3 +141,24 @@ def test_without_consent_no_cookie_and_the_snippet_fails_closed(browser: Any, se
             assert p.errors == []
         finally:
             p.ctx.close()
+
+
+def test_a_visitor_exposed_before_login_stays_exposed_after_it(site: tuple[Any, str], opened: Any) -> None:
+    # the snippet in its own mode with a customer key (unwisely) among the id sources: the first
+    # id the browser had stays its unit when a later page names a customer
+    from .browser import write_page
+
+    spec = make_spec(arms=[("holdout", 5000, "holdout"), ("exposed", 5000, "exposed")],
+                     id_sources=[{"kind": "global", "name": "site.customer.key"}])
+    root = site[0]
+    write_page(root, "anonymous.html", spec)
+    p = opened().open("anonymous.html")
+    uid, arm = p.cookie()["value"], p.js("armlock.arm")
+    assert arm == arm_for(spec, uid)
+    other = "holdout" if arm == "exposed" else "exposed"
+    key = next(f"customer-{i}" for i in range(1000) if arm_for(spec, f"customer-{i}") == other)
+    write_page(root, "logged-in.html", spec, before=f"<script>window.site = {{customer: {{key: '{key}'}}}};</script>")
+    p.open("logged-in.html")
+    assert p.js("armlock.arm") == arm and p.cookie()["value"] == uid
+    assert p.js("window.vendorFired || 0") == (1 if arm == "exposed" else 0)
+    assert p.errors == []
