@@ -232,8 +232,8 @@ def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
                 false_win_rate=None if check is None else check.false_wins,
                 power_simulated=None if check is None else check.power,
                 false_win_rate_normal=None if check is None else check.false_wins_at_normal,
-                weeks_range=None if (spread is None or ww is None) else
-                (_whole_weeks(need * spread[0]), _whole_weeks(need * spread[1]))))
+                weeks_range=None if (spread is None or ww is None) else  # the sound weeks, scaled by the range
+                (_whole_weeks(ww * spread[0]), _whole_weeks(ww * spread[1]))))
 
     first_target = target_at(shares[0])
     plan = Plan(inputs=x, shares=shares, weeks=weeks, max_weeks=max_weeks, cells=cells,
@@ -349,7 +349,7 @@ def _sound_words(p: Plan, s: ShareSummary) -> str:
     if s.false_win_rate is None or s.power_simulated is None:
         return ""
     said = (f"simulated as the readout reads it (Welch's t on this revenue shape, {soundness.SIMS:,} tests): "
-            f"{s.power_simulated * 100:.0f}% power, {s.false_win_rate * 100:.1f}% false wins at alpha "
+            f"{s.power_simulated * 100:.1f}% power, {s.false_win_rate * 100:.1f}% false wins at alpha "
             f"{x.alpha * 100:g}%")
     if s.weeks_normal is not None and s.weeks is not None and s.weeks > s.weeks_normal:
         said += (f"; the normal arithmetic's {weeks_words(s.weeks_normal)} would not do "
@@ -430,8 +430,10 @@ def recommend(p: Plan) -> Recommendation:
     if sound:
         f = min(sound, key=lambda t: (t.weeks, t.share))
         assert f.weeks is not None and f.revenue_forgone is not None
+        rng = (f" (between {f.weeks_range[0]} and {f.weeks_range[1]} weeks given the pre-period's sampling error)"
+               if f.weeks_range and f.weeks_range[0] != f.weeks_range[1] else "")
         parts = [f"No holdout share tells {_target_words(p, f.share)}{question} within the {p.max_weeks} weeks "
-                 f"allowed; the fastest is {pct(f.share)} for {weeks_words(f.weeks)} ({how}, forgoing about "
+                 f"allowed; the fastest is {pct(f.share)} for {weeks_words(f.weeks)}{rng} ({how}, forgoing about "
                  f"{cash(p, f.revenue_forgone)} of revenue), or aim at a larger effect, reach more of the exposed "
                  "arm, or add a pre-period covariate."]
         sim = _sound_words(p, f)

@@ -87,6 +87,8 @@ def test_from_files(tmp_path: Path) -> None:
     assert "Estimated from the pre-period files:" in r.stdout
     assert "weekly new units: 500 (2,000 units first seen over 28 days" in r.stdout
     assert "pre-period correlation (rho)" in r.stdout
+    assert "95% range from the pre-period's sampling error" in r.stdout  # the weeks come with a range
+    assert "Order values were taken as constant" not in r.stdout  # the SD was measured, not assumed
     over = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv", "--lift", "0.1",
                    "--weekly-units", "9000", "--format", "json")
     d = json.loads(over.stdout)

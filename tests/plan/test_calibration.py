@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import pytest
 
 from armlock.plan.compute import make_plan
@@ -62,3 +63,56 @@ def test_cuped_power_matches_planned() -> None:
     # 500 unit-level tests (SE 1.8 points): three SEs and a little room; the script runs 1,000 at larger sizes
     assert abs(r.cuped_end - c.power_at_target) <= 0.06, r
     assert r.cuped_end > r.fixed_end, r  # the covariate buys power
+
+
+def _welch_and_weekly(p_buy: float, mu: float, sigma: float, weekly: int, share: float, weeks: int, diff: float,
+                      sims: int, seed: int) -> tuple[float, float]:
+    """Independent of plan/soundness.py: weekly cohorts, every order value drawn, Welch's t from scipy at the end,
+    the readout's anytime interval (readout.confseq) at every weekly look."""
+    from scipy import stats
+
+    from armlock.readout.confseq import anytime_factor
+
+    rng = np.random.default_rng(seed)
+    n_h = round(share * weekly)
+    n_e = weekly - n_h
+    q = (p_buy, p_buy + diff / math.exp(mu + sigma ** 2 / 2))
+    acc = np.zeros((2, 2, sims))
+    weekly_rej = np.zeros(sims, dtype=bool)
+    for k in range(weeks):
+        for arm, n in ((0, n_h), (1, n_e)):
+            b = rng.binomial(n, q[arm], sims)
+            vals = rng.lognormal(mu, sigma, int(b.sum()))
+            who = np.repeat(np.arange(sims), b)
+            acc[arm, 0] += np.bincount(who, vals, sims)
+            acc[arm, 1] += np.bincount(who, vals * vals, sims)
+        nh, ne = n_h * (k + 1), n_e * (k + 1)
+        mh, me = acc[0, 0] / nh, acc[1, 0] / ne
+        vh = (acc[0, 1] - acc[0, 0] * mh) / (nh - 1) / nh
+        ve = (acc[1, 1] - acc[1, 0] * me) / (ne - 1) / ne
+        se = np.sqrt(vh + ve)
+        weekly_rej |= np.abs(me - mh) > anytime_factor(nh + ne, t_opt=weekly * weeks, alpha=0.05) * se
+    df = (vh + ve) ** 2 / (vh ** 2 / (nh - 1) + ve ** 2 / (ne - 1))
+    fixed = np.abs((me - mh) / se) > stats.t.isf(0.025, df)
+    return float(fixed.mean()), float(weekly_rej.mean())
+
+
+def test_recommended_design_of_a_small_skewed_shop_keeps_level_and_power() -> None:
+    # the issue's case: a small shop (2,400 new units a week, revenue CV about 11) with a big target and 8 weeks
+    # allowed; the plan must recommend a design whose simulated Welch test has the power it states and alpha
+    x = PlanInputs(weekly_units=2_400, revenue_mean=7.0, revenue_sd=75.0, lift=1.5, exposure_rate=0.8)
+    p = make_plan(x, max_weeks=8)
+    rec = p.recommendation
+    assert rec.status == "pass" and rec.share is not None and rec.weeks is not None
+    s = p.summary(rec.share)
+    assert s.power_simulated is not None and s.false_win_rate is not None
+    assert f"{s.power_simulated * 100:.1f}% power" in rec.sentence
+    small = p.summary(0.05)  # a 5% holdout would have been unsound at its normal-arithmetic weeks
+    assert small.weeks is None or small.weeks > (small.weeks_normal or 0)
+    sp = p.shape
+    sims = 1500
+    power, _ = _welch_and_weekly(sp[0], sp[1], sp[2], 2_400, rec.share, rec.weeks, s.target_difference, sims, 31)
+    false, _ = _welch_and_weekly(sp[0], sp[1], sp[2], 2_400, rec.share, rec.weeks, 0.0, sims, 32)
+    # 1,500 tests: SE about 1 point for power, 0.6 at 5%; the plan's figure and the observed one within 3.5 points
+    assert abs(power - s.power_simulated) <= 0.035, (power, s.power_simulated)
+    assert power >= 0.8 - 0.035 and false <= 0.05 + 0.01 + 0.015, (power, false)
