@@ -10,6 +10,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import pytest
+
 from armlock.assign import spec_from_dict
 from armlock.audit.render import check_by_id
 from armlock.audit.run import run_audit
@@ -42,10 +44,12 @@ def test_server_set_ids_remove_the_churn_of_the_capped_browser(tmp_path: Path) -
     assert abs(server["webkit"] - server["chromium-based"]) < 0.01
 
 
-def test_demo_variant_with_server_ids(tmp_path: Path) -> None:
-    from armlock.cmd_demo import build_demo
+def test_demo_variant_with_server_ids(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from armlock import cmd_demo
 
-    res = build_demo(tmp_path / "demo", units=6_000, server_ids=True)
+    weeks = cmd_demo.weekly_as_of()
+    monkeypatch.setattr(cmd_demo, "weekly_as_of", lambda: weeks[-1:])  # only the last week's audit
+    res = cmd_demo.build_demo(tmp_path / "demo", units=6_000, server_ids=True)
     spec_text = (tmp_path / "demo" / "quillmoss-retargeting.toml").read_text(encoding="utf-8")
     assert 'id_from = "server"' in spec_text
     assert "server-set ids" in (tmp_path / "demo" / "README.txt").read_text(encoding="utf-8")
