@@ -98,6 +98,11 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
 
 def load_spend(spec: Spec, path: PathLike, as_of: date, notes: list[str]) -> float:
     """Total spend in the spend file on the test's days (start to as-of, UTC); other days noted."""
+    return float(sum(load_spend_days(spec, path, as_of, notes).values()))
+
+
+def load_spend_days(spec: Spec, path: PathLike, as_of: date, notes: list[str]) -> dict[date, float]:
+    """Spend per UTC day (all campaigns together) on the test's days (start to as-of); other days noted."""
     cs = spec.readout.spend
     mapped = read_mapped(path, "spend", "[readout.spend]", {"day": cs.day, "amount": cs.amount}, notes)
     src, table = mapped.src, mapped.table
@@ -118,7 +123,9 @@ def load_spend(spec: Spec, path: PathLike, as_of: date, notes: list[str]) -> flo
     if out:
         notes.append(f"{src.path.name}: {out:,} spend row(s) outside the test's days ({spec.start.date()} to "
                      f"{as_of}), {float(amount[~inside].sum()):,.2f} in total, were left out")
-    return float(amount[inside].sum())
+    days = day[inside].dt.date.to_numpy()
+    by_day = pd.Series(amount[inside].to_numpy(dtype=np.float64)).groupby(days).sum()
+    return {d: float(v) for d, v in by_day.items()}
 
 
 def attach_covariates(spec: Spec, path: PathLike, visits: pd.DataFrame, notes: list[str]) -> None:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from datetime import date, timedelta
 
 from .stats import NAN, Estimate
 
@@ -58,4 +59,25 @@ def money(*, revenue_per_unit: Estimate, buyers_per_unit: Estimate, exposed_unit
     )
 
 
-__all__ = ["MoneyFigures", "cost_per_buyer", "money", "NAN"]
+def window_spend(spend_by_day: dict[date, float], new_units: dict[date, int], window: int, as_of: date) -> float:
+    """The spend that belongs to the units and days a `window`-day readout measures.
+
+    The readout counts each included unit's revenue over its own window (first-seen day f to
+    f + window, units with f <= as_of - window), so spend is allocated the same way: each day's
+    spend is shared equally among the exposed units seen so far (a unit-day share, common
+    practice for always-on retargeting), and the shares of included units inside their window
+    are summed. `new_units` is the exposed arms' new units per first-seen day. With the
+    "to_as_of" window every unit counts every day, and the whole spend is kept.
+    """
+    last_included = as_of - timedelta(days=window)
+    total = 0.0
+    for d, amount in spend_by_day.items():
+        seen = sum(n for f, n in new_units.items() if f <= d)
+        if not seen:
+            continue
+        inside = sum(n for f, n in new_units.items() if f <= min(d, last_included) and d < f + timedelta(days=window))
+        total += amount * inside / seen
+    return total
+
+
+__all__ = ["MoneyFigures", "cost_per_buyer", "money", "window_spend", "NAN"]

@@ -8,7 +8,7 @@ and serve both.
 from __future__ import annotations
 
 from collections.abc import Callable
-from datetime import date
+from datetime import date, timedelta
 from pathlib import Path
 
 from armlock.assign import InputError, Spec
@@ -17,7 +17,8 @@ from armlock.audit.model import AuditReport
 from armlock.audit.run import checks_from_tables, report_from_checks
 
 from .analyze import analyze
-from .load import load_spend
+from .load import load_spend_days
+from .money import window_spend
 from .model import ReadoutReport
 
 PathLike = str | Path
@@ -98,8 +99,25 @@ def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None =
     checks = checks_from_tables(spec, canonical(res.audit.tables), res.audit.counts, split_changes or [])
     audit = report_from_checks(spec, res.audit, used, checks)
     notes = [_readout_note(n, used) for n in res.audit.notes] + list(res.notes)
-    if spend_file is not None:
-        spend = load_spend(spec, spend_file, used, notes)
+    window = spec.readout.window
+    if spend_file is not None or (spend is not None and window != "to_as_of"):
+        if spend_file is not None:
+            by_day = load_spend_days(spec, spend_file, used, notes)
+        else:  # one amount: taken as spent evenly over the test's days to the as-of
+            first = spec.start.date()
+            n_days = max((used - first).days + 1, 1)
+            by_day = {first + timedelta(days=i): float(spend) / n_days for i in range(n_days)}  # type: ignore[arg-type]
+        spend = float(sum(by_day.values()))
+        if window != "to_as_of":
+            daily = res.audit.tables.split.daily
+            exposed = [a for a in spec.exposed_arms if a in daily.columns]
+            new = {date.fromisoformat(str(d)): int(n) for d, n in daily[exposed].sum(axis=1).items()}
+            kept = window_spend(by_day, new, int(window), used)
+            notes.append(f"spend: {kept:,.2f} of {spend:,.2f} belongs to the units and days a {window}-day window "
+                         f"measures (each day's spend shared among the exposed units seen so far"
+                         f"{'' if spend_file is not None else '; --spend taken as spent evenly over the days'}); "
+                         "iROAS, ROI and cost per buyer use it")
+            spend = kept
     attributed = attributed_revenue if attributed_revenue is not None else res.tables.attributed
     report = analyze(spec, res.tables, as_of=used.isoformat(), checks=checks, spend=spend, attributed=attributed,
                      notes=notes, has_exposures=has_exposures)

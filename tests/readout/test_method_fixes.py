@@ -117,3 +117,43 @@ def test_estimand_cap_and_as_of_wording(small_run) -> None:
     said = " ".join(rep.input_notes)
     assert "covers data through" not in said
     assert "orders are counted through the end of 2026-02-10" in said
+
+
+def test_window_spend_covers_the_same_units_and_days_as_the_window() -> None:
+    # By hand: 100 new exposed units a day for 28 days, spend s per unit seen so far and day, a
+    # 7-day window read on day 27: units first seen on days 0..20 are included, each with 7 days in
+    # its window, so their spend is s x 2,100 x 7; their incremental revenue at c per unit-day is
+    # c x 2,100 x 7, so iROAS = c / s. The whole spend, s x 100 x (1 + ... + 28) = s x 40,600, would
+    # give 0.36 c / s (the bias the allocation removes).
+    from datetime import date, timedelta
+
+    from armlock.readout.money import window_spend
+
+    start, s, c = date(2026, 1, 5), 2.0, 5.0
+    new = {start + timedelta(days=i): 100 for i in range(28)}
+    spend = {start + timedelta(days=i): s * 100 * (i + 1) for i in range(28)}
+    kept = window_spend(spend, new, 7, start + timedelta(days=27))
+    assert kept == pytest.approx(s * 2_100 * 7)
+    assert (c * 2_100 * 7) / kept == pytest.approx(c / s)
+    assert sum(spend.values()) == pytest.approx(s * 40_600)
+
+
+def test_window_readout_uses_the_window_spend(tmp_path: Path) -> None:
+    from datetime import date
+
+    import pandas as pd
+
+    spec = spec_from_dict({"name": "shop", "salt": "fixes-salt", "start": "2026-01-05T00:00:00Z",
+                           "arms": [{"name": "holdout", "weight": 2000}, {"name": "exposed", "weight": 8000}],
+                           "readout": {"covariates": [], "window": 7}})
+    logs = synth.generate(spec, units=3000, days=DAYS, seed=41)
+    orders = synth.generate_orders(spec, logs, days=DAYS, seed=42, uplift=0.8, base_rate=0.2)
+    paths = synth.write_logs(logs, tmp_path, fmt="parquet")
+    paths["orders"] = synth.write_orders(orders, tmp_path, fmt="parquet")
+    days = pd.date_range("2026-01-05", periods=DAYS, freq="D")
+    sf = tmp_path / "spend.csv"
+    pd.DataFrame({"day": days.strftime("%Y-%m-%d"), "amount": 100.0, "campaign": "c1"}).to_csv(sf, index=False)
+    rep = run_readout(spec, visits=paths["visits"], orders=paths["orders"], exposures=paths["exposures"],
+                      spend_file=sf, as_of=date(2026, 2, 1))
+    assert rep.money.spend is not None and 0 < rep.money.spend < 100.0 * DAYS
+    assert any("7-day window measures" in n for n in rep.input_notes)
