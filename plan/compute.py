@@ -445,7 +445,7 @@ def recommend(p: Plan) -> Recommendation:
     target = p.summary(best_share).target_difference
     return Recommendation("fail", None, None,
                           f"No holdout share up to {pct(best_share)} tells {_target_words(p, best_share)}{question} "
-                          f"within {weeks_words(math.inf)} in a sound design: at {weeks_words(max(p.weeks))} "
+                          f"within {MAX_WEEKS // 52} years in a sound design: at {weeks_words(max(p.weeks))} "
                           f"the {pct(best_share)} holdout can only tell apart {cash(p, best.mde_per_exposed)} per "
                           f"reached unit, {best.mde_cuped / target:.1f} times the target; as planned the test would "
                           "most likely end inconclusive, so aim at a larger effect, reach more of the exposed arm, or "

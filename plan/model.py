@@ -124,6 +124,13 @@ class PlanInputs:
         if self.effect is not None and self.effect > MAX_LIFT * self.revenue_mean:
             raise _bad("effect", f"{self.effect:g} per reached unit is more than {MAX_LIFT:g} times revenue per unit "
                        f"({self.revenue_mean:g}); the effect is extra revenue per reached unit, in currency")
+        if self.target_iroas is not None and self.weekly_spend is not None:
+            implied = self.target_iroas * self.weekly_spend / (self.weekly_units * self.exposure_rate)
+            if implied > MAX_LIFT * self.revenue_mean:
+                raise _bad("target_iroas", f"{self.target_iroas:g} at a weekly spend of {self.weekly_spend:g} means at "
+                           f"least {implied:,.6g} of extra revenue per reached unit, more than {MAX_LIFT:g} times revenue "
+                           f"per unit ({self.revenue_mean:g}); check --weekly-spend (the whole spend a week) and "
+                           "--weekly-units")
         if self.weekly_spend is not None and self.weekly_spend <= 0:
             raise _bad("weekly_spend", f"must be positive, got {self.weekly_spend:g}")
         if self.target_iroas is not None and self.weekly_spend is None:
@@ -149,6 +156,10 @@ class PlanInputs:
             raise _bad("order_value", f"must be positive, got {order_value:g}")
         if order_value_sd < 0:
             raise _bad("order_value_sd", f"must not be negative, got {order_value_sd:g}")
+        for name, v in (("order_value", order_value), ("order_value_sd", order_value_sd), ("conversion", conversion)):
+            lo, hi, what = RANGES[name]
+            if not lo <= v <= hi:
+                raise _bad(name, f"{v:g} is out of range: {what}")
         mean = conversion * order_value
         var = conversion * (order_value_sd ** 2 + order_value ** 2) - mean ** 2
         return cls(revenue_mean=mean, revenue_sd=math.sqrt(var), conversion=conversion, order_value=order_value,

@@ -27,10 +27,13 @@ MAX_LOOKS = 104  # beyond two years of weekly looks the boundary is used with 10
 # so the figure errs on the safe side)
 
 
-@lru_cache(maxsize=256)
-def _first_crossing_drift(looks: int, alpha: float, paths: int = PATHS, seed: int = 0) -> np.ndarray:
+def _first_crossing_drift(looks: int, alpha: float) -> np.ndarray:
     """Sorted drifts (in end standard errors) at which each simulated path first leaves the anytime boundary."""
-    k = min(max(int(looks), 1), MAX_LOOKS)
+    return _crossings(min(max(int(looks), 1), MAX_LOOKS), alpha)
+
+
+@lru_cache(maxsize=256)
+def _crossings(k: int, alpha: float, paths: int = PATHS, seed: int = 0) -> np.ndarray:
     rng = np.random.default_rng(np.random.SeedSequence([seed, k]))
     t = np.arange(1, k + 1) / k
     f = np.array([anytime_factor(tk, t_opt=1.0, alpha=alpha) for tk in t])  # scale-free: only t / t_opt matters

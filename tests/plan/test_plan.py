@@ -96,7 +96,7 @@ def test_recommendation_warn_fail_and_skipped() -> None:
     assert warn.recommendation.weeks > 4
     fail = make_plan(PlanInputs(weekly_units=200, revenue_mean=7.0, revenue_sd=75.0, lift=0.05))
     assert fail.recommendation.status == "fail" and fail.recommendation.share is None
-    assert "inconclusive" in fail.recommendation.sentence and "more than 10 years" in fail.recommendation.sentence
+    assert "inconclusive" in fail.recommendation.sentence and "within 10 years" in fail.recommendation.sentence
     none = make_plan(PlanInputs(weekly_units=2_000, revenue_mean=7.0, revenue_sd=75.0))
     assert none.recommendation.status == "skipped" and none.summaries == []
     assert all(c.revenue_forgone is None for c in none.cells)
