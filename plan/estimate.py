@@ -92,8 +92,10 @@ def _visits(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Da
     src, table = mapped.src, mapped.table
     covs = [c for k, c in mapped.columns.items() if k.startswith("covariate ")]
     ids, empty = read_ids(src, table, cols.unit_id, notes)
+    where = cols.named_by.get("first_seen", "")  # quote the spec's setting only when a spec named the columns
+    fmt_setting = where.split(": ")[0] + ": [audit.visits] first_seen_format" if ": [audit.visits]" in where else ""
     frame = pd.DataFrame({"unit": ids, "time": read_times(src, table, cols.first_seen, notes, cols.first_seen_format,
-                                                          "[audit.visits] first_seen_format")})
+                                                          fmt_setting)})
     for c in covs:
         frame[c] = read_numbers(src, table, c).to_numpy()
     _set_aside(src, empty, f"with an empty '{cols.unit_id}'", notes)

@@ -292,6 +292,12 @@ class Plan:
             "weekly_reading": {
                 "anytime_factor": self.anytime_factor, "fixed_factor": self.z_alpha,
                 "width_ratio": self.anytime_factor / self.z_alpha,
+                # weeks read every week / weeks read once, at the readout's boundary (simulated), for the
+                # recommended share (else the first); per share in by_share[].weekly_factor
+                "weeks_factor": next((s.weekly_factor for s in self.summaries
+                                      if self.recommendation.share is not None
+                                      and math.isclose(s.share, self.recommendation.share)),
+                                     self.summaries[0].weekly_factor if self.summaries else None),
             },
             "against": self.inputs.against,
             "prefer": self.prefer,

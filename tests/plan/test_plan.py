@@ -190,6 +190,7 @@ def test_json_form_is_versioned_and_complete() -> None:
     assert d["recommendation"]["status"] in {"pass", "warn", "fail", "skipped"}
     assert d["target"]["difference_per_unit"] == pytest.approx(0.3)
     assert d["inputs"]["rho"] == 0.4 and d["cuped"] is True
+    assert 1.6 < d["weekly_reading"]["weeks_factor"] < 1.9 and d["prefer"] == "balanced" and d["against"] == "zero"
     assert units_needed(0.3, 30.0 * math.sqrt(1 - 0.16), 0.1) / 50_000 == pytest.approx(d["by_share"][0]["weeks_needed"])
 
 
