@@ -54,7 +54,7 @@ def finish(command: str, experiment: str, as_of: str, verdict: str, checks: list
         raise typer.Exit(code)
 
 
-def _previous_run(hist: Path, report: AuditReport) -> dict | None | bool:
+def _previous_run(hist: Path | str, report: AuditReport) -> dict | None | bool:
     """The run an alert compares with (None: no earlier run); False, with a note, when the history
     cannot be read (then no alert is judged, rather than a wrong one sent)."""
     from armlock.assign import ArmlockError
@@ -123,7 +123,7 @@ def audit_cmd(
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is WARN (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
-    history_path: Path = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite)."),
+    history_path: str = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite), or a PostgreSQL URL postgresql://USER@HOST/DB that every runner shares (needs pip install 'armlock[postgres]')."),
     alongside: list[Path] = typer.Option(None, "--alongside", metavar="SPEC|FOLDER", help="A concurrent test's spec file, or a folder of specs (every other spec in it; repeatable): adds the check that the two splits are independent on their shared units (a copied salt fails it)."),
     alert: str = typer.Option(None, "--alert", metavar="URL", help="A webhook (chat or e-mail relay) to post a short message to (JSON, its text at most 500 characters) when the verdict got worse since the previous recorded run, a feed went stale, or the test reached its planned end; never for an unchanged PASS. A webhook that is down never changes the result."),
     alert_link: str = typer.Option(None, "--alert-link", metavar="URL", help="The link the alert ends with, e.g. where the report is published (default: the --out file)."),
@@ -174,7 +174,7 @@ def audit_cmd(
                            engine=eng, alongside=siblings)
     from armlock.audit import history
 
-    hist = history_path or history.default_history_path(spec_path)
+    hist = history.target(history_path) if history_path else history.default_history_path(spec_path)
     before = _previous_run(hist, report) if alert is not None else None
     if record:
         history.record(hist, report)

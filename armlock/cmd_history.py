@@ -8,7 +8,7 @@ from typing import Any
 
 import typer
 
-from armlock.audit.history import changes, default_history_path, load, load_readouts, not_passing, trend_keys
+from armlock.audit.history import changes, default_history_path, load, load_readouts, not_passing, target, trend_keys
 from armlock.audit.words import NOTHING_CHANGED, format_value, status_word
 
 from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
@@ -90,7 +90,7 @@ def readout_table(readouts: list[dict[str, Any]]) -> str:
 
 def history_cmd(
     spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    history_path: Path = typer.Option(None, "--history", help="The history file (default: beside the spec, SPEC.history.sqlite)."),
+    history_path: str = typer.Option(None, "--history", help="The history file (default: beside the spec, SPEC.history.sqlite), or a PostgreSQL URL postgresql://USER@HOST/DB that every runner shares (needs pip install 'armlock[postgres]')."),
     fmt: str = typer.Option("text", "--format", "-f", metavar="<text|json>", help="text (a table and sentences) or json."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
@@ -104,12 +104,15 @@ def history_cmd(
         raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
                                  param_hint="--format")
     spec = open_spec(spec_path, accept_changed_split=accept)
-    path = history_path or default_history_path(spec_path)
+    path = target(history_path) if history_path else default_history_path(spec_path)
+    from armlock.audit.history_pg import shown
+
+    name = shown(path) if isinstance(path, str) else str(path)  # a URL's password is never printed
     runs = load(path, spec.fingerprint)
     readouts = load_readouts(path, spec.fingerprint)
     said = changes(runs[-2], runs[-1], spec.audit.thresholds) if len(runs) >= 2 else []
     if fmt == "json":
-        typer.echo(json.dumps({"history": str(path), "experiment": spec.name,
+        typer.echo(json.dumps({"history": name, "experiment": spec.name,
                                "fingerprint": spec.fingerprint, "runs": runs,
                                "changes_since_previous": said, "readouts": readouts},
                               indent=2, ensure_ascii=False))
@@ -120,11 +123,12 @@ def history_cmd(
         typer.echo(readout_table(readouts))
         typer.echo("")
     if not runs:
-        where = "does not exist yet" if not path.exists() else f"has no run of fingerprint {spec.fingerprint}"
-        err(f"No audit runs recorded for {spec.name!r}: {path} {where}. "
+        where = ("does not exist yet" if isinstance(path, Path) and not path.exists()
+                 else f"has no run of fingerprint {spec.fingerprint}")
+        err(f"No audit runs recorded for {spec.name!r}: {name} {where}. "
             "Record one with `armlock audit --spec ... --record`.")
         return
-    typer.echo(f"Audit history of {spec.name!r} (fingerprint {spec.fingerprint}), {len(runs)} run(s), from {path}")
+    typer.echo(f"Audit history of {spec.name!r} (fingerprint {spec.fingerprint}), {len(runs)} run(s), from {name}")
     typer.echo("")
     typer.echo(trend_table(runs))
     typer.echo("")

@@ -15,7 +15,7 @@ from .common import emit
 def overview_cmd(
     folder: Path = typer.Argument(..., help="The folder of spec files (*.toml) to show."),
     out: Path = typer.Option(None, "--out", "-o", help="The HTML page to write (default FOLDER/overview.html); the JSON is written beside it with the suffix .json."),
-    history_dir: Path = typer.Option(None, "--history-dir", help="The folder of the history files (default: beside each spec, SPEC.history.sqlite)."),
+    history: str = typer.Option(None, "--history", metavar="DIR|URL", help="Where the histories are: a folder of history files (default: beside each spec, SPEC.history.sqlite), or the PostgreSQL URL the audits record into."),
 ) -> None:
     """Write one page for all tests of a folder: each test's latest verdict and what failed, weeks and
     units against its plan, its latest readout decision, and links to its reports.
@@ -37,7 +37,7 @@ def overview_cmd(
         raise InputError(f"--out {page}: is a folder; give the page's file name, e.g. --out {page / 'overview.html'}")
     if not page.parent.is_dir():
         raise InputError(f"--out {page}: folder {page.parent} does not exist")
-    doc = build_overview(folder, page.parent, history_dir)
+    doc = build_overview(folder, page.parent, history)
     data = page.with_suffix(".json")
     emit(json.dumps(doc, indent=2, ensure_ascii=False) + "\n", data, what="the overview's JSON",
          done=f"Wrote {data}")

@@ -38,7 +38,7 @@ def readout_cmd(
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the audit gate warns (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
-    history_path: Path = typer.Option(None, "--history", help="The history file for --record (default: beside the spec, SPEC.history.sqlite)."),
+    history_path: str = typer.Option(None, "--history", help="The history file for --record (default: beside the spec, SPEC.history.sqlite), or a PostgreSQL URL postgresql://USER@HOST/DB that every runner shares (needs pip install 'armlock[postgres]')."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
     engine: str = ENGINE,
     spark_master: str = SPARK_MASTER,
@@ -90,7 +90,7 @@ def readout_cmd(
                              advance=advance, split_changes=changes_after_start(lock), engine=eng)
     from armlock.audit import history
 
-    hist = history_path or history.default_history_path(spec_path)
+    hist = history.target(history_path) if history_path else history.default_history_path(spec_path)
     if record:
         history.record_readout(hist, fingerprint=report.fingerprint, as_of=report.as_of,
                                experiment=report.experiment, status=report.status,

@@ -58,12 +58,16 @@ def _progress(spec: Any, as_of: str | None) -> dict[str, Any]:
             "reached_end": ended}
 
 
-def entry_of(spec_path: Path, page_dir: Path, history_dir: Path | None = None) -> dict[str, Any]:
-    """One test's line of the page: everything the HTML shows, as plain JSON values."""
+def entry_of(spec_path: Path, page_dir: Path, history: str | None = None) -> dict[str, Any]:
+    """One test's line of the page: everything the HTML shows, as plain JSON values. `history` is a
+    folder of history files, or a PostgreSQL URL (default: the file beside the spec)."""
     from armlock.audit.history import changes, default_history_path, load, load_readouts, not_passing
+    from armlock.audit.history_pg import is_url, shown
 
     spec = load_spec(spec_path)
-    hist = (history_dir / default_history_path(spec_path).name) if history_dir else default_history_path(spec_path)
+    hist: Path | str = (history if is_url(history) else Path(history) / default_history_path(spec_path).name
+                        ) if history else default_history_path(spec_path)
+    hist_name = shown(hist) if isinstance(hist, str) else hist.name
     entry: dict[str, Any] = {
         "experiment": spec.name, "spec": Path(os.path.relpath(spec_path.resolve(), page_dir.resolve())).as_posix(),
         "fingerprint": spec.fingerprint, "start": _day(spec.start), "end": _day(spec.end),
@@ -79,7 +83,7 @@ def entry_of(spec_path: Path, page_dir: Path, history_dir: Path | None = None) -
         entry["notes"].append(str(exc))
         runs, readouts = [], []
     if not runs and entry["status"] == "none":
-        entry["notes"].append(f"no audit recorded in {hist.name} (record one with armlock audit --record)")
+        entry["notes"].append(f"no audit recorded in {hist_name} (record one with armlock audit --record)")
     if runs:
         last = runs[-1]
         entry.update(status=last["verdict"], as_of=last["as_of"], not_passing=not_passing(last),
@@ -99,7 +103,7 @@ def entry_of(spec_path: Path, page_dir: Path, history_dir: Path | None = None) -
     return entry
 
 
-def build_overview(folder: Path, page_dir: Path, history_dir: Path | None = None) -> dict[str, Any]:
+def build_overview(folder: Path, page_dir: Path, history: str | None = None) -> dict[str, Any]:
     """The whole page as JSON: every spec of `folder` (by file name), salt clashes and notes."""
     from armlock.assign.portfolio import SPEC_SUFFIX
 
@@ -108,7 +112,7 @@ def build_overview(folder: Path, page_dir: Path, history_dir: Path | None = None
     tests = []
     for s in sibs:
         try:
-            tests.append(entry_of(s.path, page_dir, history_dir))
+            tests.append(entry_of(s.path, page_dir, history))
         except ArmlockError as exc:  # an invalid spec is shown as such, never left out
             tests.append({"experiment": s.name, "spec": s.path.name, "status": "unreadable",
                           "notes": [str(exc)], "checks": [], "changes": [], "reports": [], "arms": []})

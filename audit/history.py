@@ -1,4 +1,4 @@
-"""Week-by-week history of audit runs in one SQLite file, and what changed between two runs.
+"""Week-by-week history of audit runs in one SQLite file (or a PostgreSQL database), and what changed between two runs.
 
 One row per (spec fingerprint, as-of date): a rerun for the same date replaces its row. The file
 is never deleted or recreated once it exists; a corrupt, locked or newer-schema file is refused
@@ -43,6 +43,13 @@ _UPSERT = (
 )
 
 
+def target(value: str | Path) -> str | Path:
+    """A --history value: a PostgreSQL URL (postgresql://...) stays text, anything else is a file path."""
+    from .history_pg import is_url
+
+    return value if is_url(value) else Path(value)
+
+
 def default_history_path(spec_path: str | Path) -> Path:
     """The history file beside the spec: `trial.toml` -> `trial.toml.history.sqlite`."""
     p = Path(spec_path)
@@ -65,7 +72,12 @@ def _locked(path: Path) -> InputError:
     return InputError(f"history file {path} is locked by another armlock run; retry in a moment")
 
 
-def _corrupt(path: Path, detail: str) -> InputError:
+def _corrupt(path: Path | str, detail: str) -> InputError:
+    if isinstance(path, str):  # a PostgreSQL URL: never print its password
+        from .history_pg import shown
+
+        return InputError(f"history database {shown(path)} is not a readable armlock history ({detail}); "
+                          "it was left untouched")
     return InputError(
         f"history file {path} is not a readable armlock history ({detail}); it was left untouched. "
         "Move it aside or pass another --history PATH")
@@ -115,12 +127,17 @@ def _db_error(exc: sqlite3.Error, path: Path) -> InputError:
     return InputError(f"history file {path}: {exc}")
 
 
-def _upsert(path: Path, ddls: tuple[str, ...], sql: str, params: tuple[Any, ...]) -> None:
+def _upsert(path: Path | str, ddls: tuple[str, ...], sql: str, params: tuple[Any, ...]) -> None:
     """One write to the history file: create what is missing, check the version, upsert one row.
 
     Refuses a file that is not an armlock history (header, meta table) and turns SQLite's errors
     (locked, corrupt) into input errors naming the file; the write is one IMMEDIATE transaction.
+    A PostgreSQL URL goes to `history_pg` (same tables, same rules).
     """
+    if isinstance(path, str):
+        from . import history_pg
+
+        return history_pg.upsert(path, ddls, sql, params, SCHEMA_VERSION)
     if path.exists():
         _check_header(path)
     elif not path.parent.is_dir():
@@ -151,9 +168,13 @@ def _upsert(path: Path, ddls: tuple[str, ...], sql: str, params: tuple[Any, ...]
         conn.close()
 
 
-def _select(path: Path, optional_table: str | None, sql: str, params: tuple[Any, ...]) -> list[tuple[Any, ...]]:
+def _select(path: Path | str, optional_table: str | None, sql: str, params: tuple[Any, ...]) -> list[tuple[Any, ...]]:
     """Rows of one query on the history file, read-only; `[]` when the file does not exist, or when
     `optional_table` (a table added after the file's format, created on first use) is not there yet."""
+    if isinstance(path, str):
+        from . import history_pg
+
+        return history_pg.select(path, optional_table, sql, params, SCHEMA_VERSION)
     if not path.exists():
         return []
     _check_header(path)
@@ -182,13 +203,13 @@ def _now() -> str:
 def record(path: str | Path, report: AuditReport) -> None:
     """Keep one run's verdict, check statuses and figures; replaces the row of the same as-of date."""
     row = row_from_report(report)
-    _upsert(Path(path), _DDL, _UPSERT, (report.fingerprint, row["as_of"], row["experiment"], row["verdict"],
+    _upsert(target(path), _DDL, _UPSERT, (report.fingerprint, row["as_of"], row["experiment"], row["verdict"],
                                         _now(), json.dumps(row["checks"]), json.dumps(row["figures"])))
 
 
 def load(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
     """Every recorded run of one spec, oldest as-of first; `[]` when the file does not exist."""
-    path = Path(path)
+    path = target(path)
     rows = _select(path, None, "SELECT as_of, experiment, verdict, recorded_at, checks, figures FROM runs"
                                  " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,))
     out = []
@@ -353,13 +374,13 @@ def record_readout(path: str | Path, *, fingerprint: str, as_of: str, experiment
                    figures: dict[str, dict[str, Any]]) -> None:
     """Keep one readout's gate status and headline figures ({key: {label, value, unit}}); a rerun
     for the same as-of date replaces its row. Same file, locking and refusals as `record`."""
-    _upsert(Path(path), (*_DDL, _READOUT_DDL), _READOUT_UPSERT,
+    _upsert(target(path), (*_DDL, _READOUT_DDL), _READOUT_UPSERT,
             (fingerprint, as_of, experiment, status, _now(), json.dumps(figures)))
 
 
 def load_readouts(path: str | Path, fingerprint: str) -> list[dict[str, Any]]:
     """Every recorded readout of one spec, oldest as-of first; `[]` when there is none."""
-    path = Path(path)
+    path = target(path)
     rows = _select(path, "readouts", "SELECT as_of, experiment, status, recorded_at, figures FROM readouts"
                                      " WHERE fingerprint = ? ORDER BY as_of", (fingerprint,))
     out = []
