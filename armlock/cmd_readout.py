@@ -6,7 +6,7 @@ from pathlib import Path
 
 import typer
 
-from .cmd_audit import _as_of, finish
+from .cmd_audit import _as_of, concurrent_specs, finish
 from .common import (
     ACCEPT_CHANGED_SPLIT,
     ENGINE,
@@ -39,6 +39,7 @@ def readout_cmd(
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the audit gate warns (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
     history_path: str = typer.Option(None, "--history", help="The history file for --record (default: beside the spec, SPEC.history.sqlite), or a PostgreSQL URL postgresql://USER@HOST/DB that every runner shares (needs pip install 'armlock[postgres]')."),
+    alongside: list[Path] = typer.Option(None, "--alongside", metavar="SPEC|FOLDER", help="A concurrent holdout test's spec (or a folder of specs; repeatable): adds the 2x2 readout of the two tests on their shared units, each channel's effect on revenue per unit and their interaction (embedded engines)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
     engine: str = ENGINE,
     spark_master: str = SPARK_MASTER,
@@ -87,7 +88,8 @@ def readout_cmd(
     with progress(total, "reading logs") as advance:
         report = run_readout(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,
                              spend=spend, spend_file=spend_file, attributed_revenue=attributed, as_of=day,
-                             advance=advance, split_changes=changes_after_start(lock), engine=eng)
+                             advance=advance, split_changes=changes_after_start(lock), engine=eng,
+                             alongside=[s for _, s in concurrent_specs(spec_path, alongside or [])])
     from armlock.audit import history
 
     hist = history.target(history_path) if history_path else history.default_history_path(spec_path)
@@ -99,10 +101,20 @@ def readout_cmd(
         from armlock.readout.report_html import render_html
 
         text = render_html(report)
+        if report.two_holdouts:
+            from armlock.readout.factorial import render_two_holdouts
+            from armlock.audit.report_html import esc
+
+            extra = f'<section class="check"><pre>{esc(render_two_holdouts(report.two_holdouts, "text"))}</pre></section>'
+            text = text.replace("</main>", extra + "</main>", 1)
     else:
         from armlock.readout.render import RENDERERS
 
         text = RENDERERS[fmt](report)
+        if report.two_holdouts and fmt in ("text", "markdown"):
+            from armlock.readout.factorial import render_two_holdouts
+
+            text += render_two_holdouts(report.two_holdouts, fmt)
     emit(text, out, what="the report", done=f"Wrote the {fmt} readout to {out}: {report.headline}")
     finish("readout", report.experiment, report.as_of, report.status,
            [(c.id, c.status) for c in report.gate], strict)

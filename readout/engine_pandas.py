@@ -219,4 +219,4 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
         r = revenue if lim >= cutoff else unit_sums(lim)[0]
         looks.append((d.isoformat(), moments(look_names(covs), keep, [capped_(r), *xs])))
     return ReadoutTables(arms=arms, covariates=covs, final=final, looks=looks, attributed=attributed,
-                         counts=counts)
+                         counts=counts, units=(v[UNIT][included], v[TIME][included], capped_(revenue)[included]))

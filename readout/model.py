@@ -172,6 +172,21 @@ class GateCheck(BaseModel):
     summary: str
 
 
+class TwoHoldouts(BaseModel):
+    """The 2x2 readout with a concurrent test (`readout/factorial.py`): each channel's effect on
+    revenue per unit and their interaction, on the units both tests shared. `effects` rows:
+    {label, estimate, se, lo, hi, p} (fixed-horizon 95% intervals); `cells` rows: {this, other,
+    units, revenue_per_unit}. `note` says why there are no effects when there are none."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    with_test: str
+    shared_units: int
+    cells: list[dict[str, Any]] = Field(default_factory=list)
+    effects: list[dict[str, Any]] = Field(default_factory=list)
+    note: str | None = None
+
+
 class ReadoutReport(BaseModel):
     """The whole readout: `status` is the audit gate's verdict; the headline says what it means."""
 
@@ -201,6 +216,7 @@ class ReadoutReport(BaseModel):
     settings: dict[str, Any] = Field(default_factory=dict)
     input_notes: list[str] = Field(default_factory=list)
     figures: dict[str, Figure] = Field(default_factory=dict)  # the headline numbers kept in the history
+    two_holdouts: list[TwoHoldouts] = Field(default_factory=list)  # with --alongside: the 2x2 readouts
 
     def to_json_dict(self) -> dict[str, Any]:
         return self.model_dump(mode="json", by_alias=True)

@@ -7,7 +7,7 @@ and serve both.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from datetime import date, timedelta
 from pathlib import Path
 
@@ -38,11 +38,13 @@ def run_readout(
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
     engine: Engine | str = "pandas",
+    alongside: Sequence[Spec] = (),
 ) -> ReadoutReport:
     """Read out a test as of the end of `as_of`; see `run_readout_and_audit`."""
     return run_readout_and_audit(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,
                                  spend=spend, spend_file=spend_file, attributed_revenue=attributed_revenue,
-                                 as_of=as_of, advance=advance, split_changes=split_changes, engine=engine)[0]
+                                 as_of=as_of, advance=advance, split_changes=split_changes, engine=engine,
+                                 alongside=alongside)[0]
 
 
 def run_readout_and_audit(
@@ -59,6 +61,7 @@ def run_readout_and_audit(
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
     engine: Engine | str = "pandas",
+    alongside: Sequence[Spec] = (),
 ) -> tuple[ReadoutReport, AuditReport]:
     """Read out a test as of the end of `as_of` (UTC; default: the last first-seen day).
 
@@ -75,8 +78,15 @@ def run_readout_and_audit(
         raise InputError(f"--spend must not be negative, got {spend}")
     eng = select_engine(engine) if isinstance(engine, str) else engine
     res = eng.readout(spec, Inputs(visits, exposures, identities, orders), as_of, advance or (lambda n: None))
-    return reports_from_result(spec, res, spend=spend, spend_file=spend_file, attributed_revenue=attributed_revenue,
-                               split_changes=split_changes, has_exposures=exposures is not None)
+    report, audit = reports_from_result(spec, res, spend=spend, spend_file=spend_file,
+                                        attributed_revenue=attributed_revenue, split_changes=split_changes,
+                                        has_exposures=exposures is not None)
+    if alongside:  # the 2x2 readout with each concurrent test (`alongside`: their specs)
+        from .factorial import concurrent_readout
+        from .model import TwoHoldouts
+
+        report.two_holdouts = [TwoHoldouts(**concurrent_readout(spec, s, res.tables.units)) for s in alongside]
+    return report, audit
 
 
 def _readout_note(note: str, as_of: object) -> str:

@@ -111,3 +111,7 @@ class ReadoutTables:
     looks: list[tuple[str, dict[str, Moments]]] = field(default_factory=list)
     attributed: float | None = None
     counts: dict[str, float] = field(default_factory=dict)
+    # Per unit, embedded engines only (pandas, DuckDB): (ids, first-seen times, outcome revenue) of
+    # the units in `final`, for the 2x2 readout with a concurrent test (`readout/factorial.py`).
+    # A distributed engine leaves it None, and that readout says it needs an embedded engine.
+    units: tuple[object, object, object] | None = None
