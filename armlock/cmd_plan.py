@@ -341,7 +341,9 @@ def plan_cmd(
                      f"(x {spread[0]:.2f} to x {spread[1]:.2f}; large-sample moments of the sample variance and "
                      "mean, the delta method, Casella & Berger 2002, §5.5.4).")
     plan = make_plan(inputs, shares=shares, weeks=week_list, max_weeks=max_weeks, estimates=estimates, notes=notes,
-                     prefer=prefer, spread=spread)
+                     prefer=prefer, spread=spread,
+                     revenue_sample=pre.revenue_per_unit if found and not ({"revenue_mean", "revenue_sd"} & set(given))
+                     and the_conversion is None else None)
     if write_spec is not None and plan.recommendation.share is None:
         raise InputError(f"--write-spec: no spec written, because there is no recommended share "
                          f"({plan.recommendation.status}): {plan.recommendation.sentence}")

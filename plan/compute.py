@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
+import numpy as np
+
 from armlock.assign import InputError
 from armlock.readout.confseq import anytime_factor
 
@@ -90,7 +92,8 @@ BALANCED_EXTRA = 0.25  # --prefer balanced: pay up to 25% more forgone revenue t
 def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
               weeks: Sequence[int] = DEFAULT_WEEKS, max_weeks: int = DEFAULT_MAX_WEEKS,
               estimates: Sequence[Estimate] = (), notes: Sequence[str] = (), prefer: str = "balanced",
-              spread: tuple[float, float] | None = None, simulate: bool = True) -> Plan:
+              spread: tuple[float, float] | None = None, simulate: bool = True,
+              revenue_sample: Sequence[float] | None = None) -> Plan:
     """Plan a holdout test: the detectable effect for each share and duration, and what each choice costs.
 
     Everything is planned on the arm-level difference in revenue per unit (what the arms will show): an
@@ -206,7 +209,10 @@ def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
                     (target - null_at(h)) / se_alt(var_plan, n_h, n_e, target), w, x.alpha),
             ))
 
-    shape = soundness.shape_of(mu, sd, x.conversion, x.order_value_sd)
+    largest = max([(t or 0.0) / mu for t in map(target_at, shares)] + [null_at(h) / mu for h in shares]) / math.sqrt(k)
+    shape: soundness.Shape | soundness.Empirical = soundness.shape_of(mu, sd, x.conversion, x.order_value_sd, largest)
+    if revenue_sample is not None:  # the pre-period's own revenue per unit, resampled (when it makes room)
+        shape = soundness.empirical(np.asarray(revenue_sample, dtype=float), largest) or shape
     summaries: list[ShareSummary] = []
     if target_at(shares[0]) is not None:
         for h in shares:
@@ -242,6 +248,7 @@ def make_plan(inputs: PlanInputs, *, shares: Sequence[float] = DEFAULT_SHARES,
                 break_even_iroas=break_even, anytime_factor=f_any, z_alpha=z_a, summaries=summaries,
                 recommendation=Recommendation("skipped", None, None, ""), estimates=list(estimates),
                 notes=list(notes), prefer=prefer, shape=(shape.p, shape.mu, shape.sigma))
+    plan.resampled = isinstance(shape, soundness.Empirical)
     plan.recommendation = recommend(plan)
     rec = plan.summary(plan.recommendation.share) if plan.recommendation.share is not None else None
     if rec is not None:  # the headline target is the recommended share's (an iROAS target differs by share)
@@ -264,16 +271,13 @@ LEVEL_SLACK = 0.01  # a design is sound when simulated false wins are at most al
 POWER_SLACK = 0.01  # ... and simulated power at most 1 point under the planned power (about one Monte Carlo SE)
 
 
-def _sound_weeks(x: PlanInputs, shape: soundness.Shape, h: float, need: float, target: float, null: float,
+def _sound_weeks(x: PlanInputs, shape: soundness.Shape | soundness.Empirical, h: float, need: float, target: float, null: float,
                  k: float) -> _Check | None:
     """Starting at the normal arithmetic's whole weeks, the fewest whole weeks at which the simulated readout
     test (Welch, this revenue shape) keeps its level and power; None when not within MAX_WEEKS."""
     if not math.isfinite(need) or need > MAX_WEEKS:
         return None
     scale = 1 / math.sqrt(k)  # CUPED: the adjusted values, revenue's shape with (1 - rho^2) of its variance
-    need_room = max(target, null) * scale / x.revenue_mean
-    if shape.p * (1 + need_room) > 0.999:
-        shape = soundness.shape_of(x.revenue_mean, x.revenue_sd, x.conversion, x.order_value_sd, need_room)
 
     def rates(w: int) -> tuple[float, float]:
         n = x.weekly_units * w
@@ -348,7 +352,8 @@ def _sound_words(p: Plan, s: ShareSummary) -> str:
     x = p.inputs
     if s.false_win_rate is None or s.power_simulated is None:
         return ""
-    said = (f"simulated as the readout reads it (Welch's t on this revenue shape, {soundness.SIMS:,} tests): "
+    on = "the pre-period's own revenue, resampled" if p.resampled else "this revenue shape"
+    said = (f"simulated as the readout reads it (Welch's t on {on}, {soundness.SIMS:,} tests): "
             f"{s.power_simulated * 100:.1f}% power, {s.false_win_rate * 100:.1f}% false wins at alpha "
             f"{x.alpha * 100:g}%")
     if s.weeks_normal is not None and s.weeks is not None and s.weeks > s.weeks_normal:
@@ -464,10 +469,12 @@ def _assumptions(p: Plan) -> list[str]:
          "Welch interval does)")
         + "; the normal arithmetic gives each share's weeks, two-sided at alpha.",
         f"The readout reads revenue per unit with Welch's t-test{' on the CUPED-adjusted values' if p.cuped else ''};"
-        f" every recommended design is that test simulated ({soundness.SIMS:,} seeded tests) on zero-inflated "
-        f"lognormal revenue with the inputs' mean and SD ({pct(sp[0])} of units buy; order values lognormal, "
-        f"sigma {sp[2]:.2f}{'' if x.conversion is not None else ', the share at which order values have a CV of 1'})"
-        f", and kept only where false wins stay within alpha + {LEVEL_SLACK * 100:g} point and power within "
+        f" every recommended design is that test simulated ({soundness.SIMS:,} seeded tests) on "
+        + (f"the pre-period's own revenue per unit, resampled ({pct(sp[0])} of units with revenue)" if p.resampled else
+           f"zero-inflated lognormal revenue with the inputs' mean and SD ({pct(sp[0])} of units buy; order values "
+           f"lognormal, sigma {sp[2]:.2f}"
+           f"{'' if x.conversion is not None else ', the share at which order values have a CV of 1'})")
+        + f", and kept only where false wins stay within alpha + {LEVEL_SLACK * 100:g} point and power within "
         f"{POWER_SLACK * 100:g} point of the plan.",
         f"Only reached units respond: the arm-level difference is the effect per reached unit times the "
         f"exposure rate ({pct(x.exposure_rate)} of the exposed arm reached).",

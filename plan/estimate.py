@@ -59,6 +59,7 @@ class PrePeriod:
     # weeks a target needs scale with the first (a --lift target) or the second (--effect, --target-iroas)
     cv2_range: tuple[float, float] = (1.0, 1.0)
     variance_range: tuple[float, float] = (1.0, 1.0)
+    revenue_per_unit: np.ndarray | None = None  # each unit's revenue (0 without orders), for the soundness check
 
 
 def _set_aside(src: Source, mask: np.ndarray, what: str, notes: list[str]) -> None:
@@ -198,7 +199,8 @@ def estimate_pre_period(visits: str | Path, orders: str | Path, columns: PrePeri
         values["rho"] = rho[0]
         est.append(Estimate("pre-period correlation (rho)", rho[0], rho[1], rho[2]))
     cv2, var = sampling_ranges(y)
-    values_range = PrePeriod(values=values, estimates=est, notes=notes, cv2_range=cv2, variance_range=var)
+    values_range = PrePeriod(values=values, estimates=est, notes=notes, cv2_range=cv2, variance_range=var,
+                             revenue_per_unit=y)
     notes.append("Revenue per unit is each unit's revenue from its first visit to the end of the orders file; "
                  "a test's window per unit may differ, so check the mean against the test you plan.")
     return values_range

@@ -255,6 +255,7 @@ class Plan:
     assumptions: list[str] = field(default_factory=list)
     prefer: str = "balanced"  # how the recommendation weighs weeks against revenue forgone
     shape: tuple[float, float, float] = (0.0, 0.0, 0.0)  # simulated revenue: share buying, lognormal mu, sigma
+    resampled: bool = False  # True: the soundness check resampled the pre-period's own revenue per unit
 
     def summary(self, share: float) -> ShareSummary:
         for s in self.summaries:
@@ -302,7 +303,7 @@ class Plan:
             "against": self.inputs.against,
             "prefer": self.prefer,
             "simulated_revenue": {"buying_share": self.shape[0], "order_value_log_mean": self.shape[1],
-                                  "order_value_log_sd": self.shape[2]},
+                                  "order_value_log_sd": self.shape[2], "resampled_pre_period": self.resampled},
             "max_weeks": self.max_weeks,
             "shares": self.shares,
             "weeks": self.weeks,

@@ -8,8 +8,9 @@ recommends is first simulated as the readout would read it.
 
 Revenue per unit is zero-inflated lognormal: a share p of units buy, once, an order value lognormal with
 the order values' mean and SD (from --conversion and the order values, or from the pre-period files;
-without them, the p at which order values have a coefficient of variation of 1, a modelling choice). The
-ad raises the exposed arm's buying share so its mean rises by the arm-level difference. Per simulated test
+without them, the p at which order values have a coefficient of variation of 1, a modelling choice). From
+the pre-period files the shop's own revenue is resampled instead (`Empirical`: the share of units with
+revenue, and those units' revenues), when the mean and SD are the files' own. The ad raises the exposed arm's buying share so its mean rises by the arm-level difference. Per simulated test
 each arm needs only its sum and sum of squares: buyers ~ Binomial(units, share); with at most EXACT_BUYERS
 expected buyers every order value is drawn; above that, the order values above a high threshold (about
 TAIL_DRAWS a test, the rare large orders that make revenue skewed) are drawn exactly and the sum and sum of
@@ -22,6 +23,7 @@ effect scaled by 1 / sqrt(1 - rho^2): the adjusted values are taken to have reve
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -46,12 +48,72 @@ class Shape:
     def order_mean(self) -> float:
         return math.exp(self.mu + self.sigma ** 2 / 2)
 
+    def draw(self, rng: np.random.Generator, size: int) -> np.ndarray:
+        return rng.lognormal(self.mu, self.sigma, size)
+
+    def split(self, tail: float) -> tuple[float, Callable[[np.random.Generator, int], np.ndarray], list[float]]:
+        """Above a threshold with probability `tail`: (that probability, a sampler of the values above it, the
+        first four moments of the values below it)."""
+        a = -N01.inv_cdf(tail)
+        c = math.exp(self.mu + self.sigma * a)
+
+        def above(rng: np.random.Generator, size: int) -> np.ndarray:
+            return np.exp(self.mu + self.sigma * _tail_normals(rng, a, size))
+
+        return tail, above, [self.moment(j, c) / (1 - tail) for j in (1, 2, 3, 4)]
+
     def moment(self, k: int, below: float = math.inf) -> float:
         """E[V^k; V < below] of one order value V (the whole moment when below is infinite)."""
         full = math.exp(k * self.mu + k * k * self.sigma ** 2 / 2)
         if math.isinf(below):
             return full
         return full * N01.cdf((math.log(below) - self.mu - k * self.sigma ** 2) / self.sigma)
+
+
+@dataclass(frozen=True)
+class Empirical:
+    """The pre-period's own revenue: a share `p` of units have non-zero revenue, resampled from `values`
+    (the non-zero per-unit revenues, sorted)."""
+
+    p: float
+    values: np.ndarray
+
+    @property
+    def mu(self) -> float:
+        return math.nan
+
+    @property
+    def sigma(self) -> float:
+        return math.nan
+
+    @property
+    def order_mean(self) -> float:
+        return float(self.values.mean())
+
+    def draw(self, rng: np.random.Generator, size: int) -> np.ndarray:
+        return self.values[rng.integers(0, len(self.values), size)]
+
+    def split(self, tail: float) -> tuple[float, Callable[[np.random.Generator, int], np.ndarray], list[float]]:
+        n = len(self.values)
+        m = min(n - 1, max(1, round(tail * n)))  # the m largest values are drawn exactly
+        top, rest = self.values[n - m:], self.values[:n - m]
+
+        def above(rng: np.random.Generator, size: int) -> np.ndarray:
+            return top[rng.integers(0, m, size)]
+
+        return m / n, above, [float(np.mean(rest ** j)) for j in (1, 2, 3, 4)]
+
+
+def empirical(per_unit: np.ndarray, largest_lift: float = 0.0) -> Empirical | None:
+    """The resampled shape from per-unit revenue (None with fewer than 30 buyers: too few to resample)."""
+    y = np.asarray(per_unit, dtype=float)
+    nz = np.sort(y[y != 0])
+    if len(nz) < 30 or nz.mean() <= 0:
+        return None
+    p = len(nz) / len(y)
+    if p * (1 + max(largest_lift, 0.0)) > 0.999:
+        return None  # no room to raise the buying share: the parametric shape makes room
+    return Empirical(p=p, values=nz)
 
 
 def shape_of(mean: float, sd: float, conversion: float | None = None, order_value_sd: float | None = None,
@@ -99,25 +161,20 @@ def _tail_normals(rng: np.random.Generator, a: float, size: int) -> np.ndarray:
     return out
 
 
-def _arm(rng: np.random.Generator, n: int, q: float, s: Shape, sims: int) -> tuple[np.ndarray, np.ndarray]:
+def _arm(rng: np.random.Generator, n: int, q: float, s: Shape | Empirical, sims: int) -> tuple[np.ndarray, np.ndarray]:
     """Per simulated test: the arm's revenue sum and sum of squares over n units buying with share q."""
     k = rng.binomial(n, min(max(q, 0.0), 1.0), sims)
     idx = np.arange(sims)
     if n * q <= EXACT_BUYERS:
-        vals = rng.lognormal(s.mu, s.sigma, int(k.sum()))
+        vals = s.draw(rng, int(k.sum()))
         who = np.repeat(idx, k)
         return np.bincount(who, vals, sims), np.bincount(who, vals * vals, sims)
-    tail = TAIL_DRAWS / (n * q)
-    a = -N01.inv_cdf(tail)
-    c = math.exp(s.mu + s.sigma * a)
+    tail, above, (m1, m2, m3, m4) = s.split(TAIL_DRAWS / (n * q))
     big = rng.binomial(k, tail)
-    z = _tail_normals(rng, a, int(big.sum()))
-    vals = np.exp(s.mu + s.sigma * z)
+    vals = above(rng, int(big.sum()))
     who = np.repeat(idx, big)
     S = np.bincount(who, vals, sims)
     Q = np.bincount(who, vals * vals, sims)
-    below = 1 - tail
-    m1, m2, m3, m4 = (s.moment(j, c) / below for j in (1, 2, 3, 4))
     small = (k - big).astype(float)
     cov = np.array([[m2 - m1 * m1, m3 - m1 * m2], [m3 - m1 * m2, m4 - m2 * m2]])
     try:
@@ -145,7 +202,7 @@ def t_quantile(p: float, df: np.ndarray) -> np.ndarray:
     return z + g1 / v + g2 / v ** 2 + g3 / v ** 3 + g4 / v ** 4
 
 
-def rejection_rate(s: Shape, n_h: int, n_e: int, diff: float, *, alpha: float, null: float = 0.0,
+def rejection_rate(s: Shape | Empirical, n_h: int, n_e: int, diff: float, *, alpha: float, null: float = 0.0,
                    sims: int = SIMS, seed: int = SEED) -> float:
     """Share of simulated tests in which the readout's Welch test rejects 'the arm difference is `null`'
     (two-sided, level alpha) when the true arm-level difference in revenue per unit is `diff`."""

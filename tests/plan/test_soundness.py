@@ -44,3 +44,20 @@ def test_welch_keeps_its_level_on_mild_revenue_and_not_with_a_small_skewed_holdo
     skewed = shape_of(7.0, 75.0)
     small = rejection_rate(skewed, 480, 9_120, 0.0, alpha=0.05, sims=2000, seed=8)
     assert small > 0.08, small  # about 11%: why small holdouts on skewed revenue are not recommended
+
+
+def test_from_files_the_pre_periods_own_revenue_is_resampled() -> None:
+    from armlock.plan import PlanInputs, make_plan
+
+    rng = np.random.default_rng(12)
+    y = np.where(rng.random(20_000) < 0.04, rng.pareto(2.5, 20_000) * 60 + 5, 0.0)  # a heavier tail than lognormal
+    e = soundness.empirical(y)
+    assert e is not None and e.p == pytest.approx(np.mean(y != 0))
+    assert e.p * e.order_mean == pytest.approx(y.mean())  # the resampled mean is the data's
+    tail, above, moments = e.split(0.01)
+    assert moments[0] < e.order_mean < float(np.mean(above(rng, 1000)))
+    x = PlanInputs(weekly_units=5_000, revenue_mean=float(y.mean()), revenue_sd=float(y.std(ddof=1)), lift=0.3)
+    p = make_plan(x, shares=[0.2], weeks=[4], revenue_sample=y)
+    assert p.resampled and "resampled" in p.recommendation.sentence
+    s = p.summaries[0]
+    assert s.false_win_rate is not None and s.false_win_rate <= 0.06
