@@ -185,7 +185,7 @@ def audit_cmd(
             else FORMATS[fmt](report))
     emit(text, out, what="the report",
          done=f"Wrote the {fmt} report to {out}: verdict {status_word(report.verdict)} ({report.verdict_text})")
-    if alert is not None and before is not False:
+    if alert is not None and not isinstance(before, bool):  # False: the history could not be read (said)
         send_alert(alert, spec, report, before, alert_link or (str(out) if out else None))
     finish("audit", report.experiment, report.as_of, report.verdict,
            [(c.id, c.status) for c in report.checks], strict)

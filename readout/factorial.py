@@ -20,9 +20,12 @@ simulation with skewed revenue (docs/portfolio.md). Pure: cell sums in, estimate
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 from statistics import NormalDist
 
 import numpy as np
+
+from armlock.assign import Spec, assign_many
 
 CELLS = ((0, 0), (1, 0), (0, 1), (1, 1))  # (exposed by A, exposed by B)
 MIN_CELL = 2  # units per cell for a variance; fewer and the analysis cannot judge
@@ -101,36 +104,38 @@ def two_holdouts(cells: dict[tuple[int, int], CellStats], name_a: str, name_b: s
     ]
 
 
-def exposed_flags(spec: object, ids: list[str]) -> np.ndarray:
+def exposed_share(spec: Spec) -> float:
+    """The planned share of units in the spec's exposed arms."""
+    return sum(a.weight for a in spec.arms if a.role == "exposed") / 10_000
+
+
+def exposed_flags(spec: Spec, ids: list[str]) -> np.ndarray:
     """Per unit: True when the spec's frozen split puts it in an exposed arm (any arm of role exposed)."""
-    from armlock.assign import assign_many
-
-    roles = {a.name: a.role for a in spec.arms}  # type: ignore[attr-defined]
-    return np.array([roles.get(arm) == "exposed" for arm in assign_many(spec, ids)], dtype=bool)  # type: ignore[arg-type]
+    roles = {a.name: a.role for a in spec.arms}
+    return np.array([roles.get(arm or "") == "exposed" for arm in assign_many(spec, ids)], dtype=bool)
 
 
-def two_holdouts_from_units(spec_a: object, spec_b: object, ids: list[str], y: np.ndarray,
+def two_holdouts_from_units(spec_a: Spec, spec_b: Spec, ids: list[str], y: np.ndarray,
                             level: float = 0.95) -> list[Contrast] | None:
     """The 2x2 readout of per-unit outcomes `y` of units `ids`, both arms recomputed from the specs."""
-    share = lambda s: sum(a.weight for a in s.arms if a.role == "exposed") / 10_000  # type: ignore[attr-defined]  # noqa: E731
     cells = cell_stats(exposed_flags(spec_a, ids), exposed_flags(spec_b, ids), y)
-    return two_holdouts(cells, spec_a.name, spec_b.name, share(spec_a), share(spec_b), level)  # type: ignore[attr-defined]
+    return two_holdouts(cells, spec_a.name, spec_b.name, exposed_share(spec_a), exposed_share(spec_b), level)
 
 
-def concurrent_readout(spec: object, sibling: object, units: tuple[object, object, object] | None) -> dict:
+def concurrent_readout(spec: Spec, sibling: Spec, units: tuple[Any, Any, Any] | None) -> dict[str, Any]:
     """The `TwoHoldouts` fields for one concurrent test, from the engine's per-unit outcome table.
 
     Shared units are those first seen while the other test ran (as the audit's independence check).
     """
     from armlock.audit.overlap import shared_mask
 
-    name = sibling.name  # type: ignore[attr-defined]
+    name = sibling.name
     if units is None:
         return {"with_test": name, "shared_units": 0,
                 "note": "The 2x2 readout needs per-unit outcomes, which only the embedded engines keep "
                         "(--engine pandas or duckdb); it was not computed."}
     ids, times, y = units
-    keep = shared_mask(times, sibling)  # type: ignore[arg-type]
+    keep = shared_mask(times, sibling)
     id_list = list(np.asarray(ids)[keep])
     yy = np.asarray(y, dtype=np.float64)[keep]
     a, b = exposed_flags(spec, id_list), exposed_flags(sibling, id_list)
@@ -138,8 +143,7 @@ def concurrent_readout(spec: object, sibling: object, units: tuple[object, objec
     rows = [{"this": "exposed" if ca else "holdout", "other": "exposed" if cb else "holdout",
              "units": cells[(ca, cb)].n,
              "revenue_per_unit": cells[(ca, cb)].mean if cells[(ca, cb)].n else None} for ca, cb in CELLS]
-    share = lambda s: sum(x.weight for x in s.arms if x.role == "exposed") / 10_000  # type: ignore[attr-defined]  # noqa: E731
-    res = two_holdouts(cells, spec.name, name, share(spec), share(sibling))  # type: ignore[attr-defined]
+    res = two_holdouts(cells, spec.name, name, exposed_share(spec), exposed_share(sibling))
     if res is None:
         return {"with_test": name, "shared_units": len(id_list), "cells": rows,
                 "note": f"Cannot judge: a cell has fewer than {MIN_CELL} shared units."}
@@ -148,7 +152,7 @@ def concurrent_readout(spec: object, sibling: object, units: tuple[object, objec
                         for c in res]}
 
 
-def render_two_holdouts(blocks: list, fmt: str) -> str:
+def render_two_holdouts(blocks: list[Any], fmt: str) -> str:
     """The 2x2 readouts as a text or markdown section (appended to the readout's report)."""
     out = []
     for t in blocks:

@@ -22,6 +22,7 @@ cross-products from exact sums), so their tables agree bit for bit.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -114,4 +115,4 @@ class ReadoutTables:
     # Per unit, embedded engines only (pandas, DuckDB): (ids, first-seen times, outcome revenue) of
     # the units in `final`, for the 2x2 readout with a concurrent test (`readout/factorial.py`).
     # A distributed engine leaves it None, and that readout says it needs an embedded engine.
-    units: tuple[object, object, object] | None = None
+    units: tuple[Any, Any, Any] | None = None
