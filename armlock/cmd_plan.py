@@ -32,9 +32,11 @@ def parse_fraction(text: str | None, flag: str, *, lift: bool = False) -> float 
     if text is None:
         return None
     t = text.strip()
+    v = _number(t[:-1].strip(), flag) / 100 if t.endswith("%") else _number(t, flag)
+    if v <= 0:
+        raise InputError(f"{flag}: must be positive, got {t}")
     if t.endswith("%"):
-        return _number(t[:-1].strip(), flag) / 100
-    v = _number(t, flag)
+        return v
     if v > 1:
         if lift:
             raise InputError(f"{flag}: {t} would mean +{v * 100:,.6g}%; did you mean {t}%? Write {t}% or "

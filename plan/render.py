@@ -148,6 +148,12 @@ def _text_table(t: Table) -> str:
     return "\n".join([*textwrap.wrap(t.title, WIDTH), fmt(t.header).rstrip(), *(fmt(r).rstrip() for r in t.rows)])
 
 
+def _estimate_value(name: str, v: float) -> str:
+    if name == "conversion":
+        return _rate(v)
+    return money(v) if abs(v) >= 1 else f"{v:.4g}"
+
+
 def render_text(p: Plan, *, full: bool = False) -> str:
     """The terminal plan: short by default (the recommendation, its alternatives, one table); `full` adds every
     share x weeks grid and the assumptions."""
@@ -157,8 +163,7 @@ def render_text(p: Plan, *, full: bool = False) -> str:
              *wrap(f"{STATUS_WORDS[rec.status]}: {rec.sentence}"), ""]
     if p.estimates:
         parts += ["Estimated from the pre-period files:",
-                  *(f"  {e.name}: {money(e.value) if abs(e.value) >= 1 else f'{e.value:.4g}'} ({e.how})"
-                    for e in p.estimates), ""]
+                  *(f"  {e.name}: {_estimate_value(e.name, e.value)} ({e.how})" for e in p.estimates), ""]
     shown = tables(p, compact=True) if full else [t for t in [choices(p)] if t is not None]
     for t in shown:
         parts += [_text_table(t), ""]
