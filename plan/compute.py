@@ -353,9 +353,8 @@ def _sound_words(p: Plan, s: ShareSummary) -> str:
     if s.false_win_rate is None or s.power_simulated is None:
         return ""
     on = "the pre-period's own revenue, resampled" if p.resampled else "this revenue shape"
-    said = (f"simulated as the readout reads it (Welch's t on {on}, {soundness.SIMS:,} tests): "
-            f"{s.power_simulated * 100:.1f}% power, {s.false_win_rate * 100:.1f}% false wins at alpha "
-            f"{x.alpha * 100:g}%")
+    said = (f"that power is the readout's test simulated (Welch's t on {on}, {soundness.SIMS:,} tests), with "
+            f"{s.false_win_rate * 100:.1f}% false wins at alpha {x.alpha * 100:g}%")
     if s.weeks_normal is not None and s.weeks is not None and s.weeks > s.weeks_normal:
         said += (f"; the normal arithmetic's {weeks_words(s.weeks_normal)} would not do "
                  f"({s.false_win_rate_normal * 100:.1f}% false wins or too little power with "
@@ -400,7 +399,11 @@ def recommend(p: Plan) -> Recommendation:
         return Recommendation("skipped", None, None,
                               "No target effect was given, so there is no recommendation: give --effect, --lift "
                               "or --target-iroas (with --weekly-spend) to see how long each holdout share needs.")
-    how = f"with {x.power * 100:.3g}% power at alpha {x.alpha * 100:g}%" + (" using CUPED" if p.cuped else "")
+    def how(s: ShareSummary) -> str:  # the power the design has (simulated), and what was asked for
+        had = (f"with {s.power_simulated * 100:.1f}% power ({x.power * 100:.3g}% asked for)"
+               if s.power_simulated is not None else f"with {x.power * 100:.3g}% power")
+        return had + f" at alpha {x.alpha * 100:g}%" + (" using CUPED" if p.cuped else "")
+
     question = " from break-even" if x.against == "break-even" else ""
     sound = [s for s in p.summaries if s.weeks is not None]
     in_time = [s for s in sound if s.weeks <= p.max_weeks]
@@ -410,7 +413,7 @@ def recommend(p: Plan) -> Recommendation:
         parts = [f"Hold out {pct(s.share)} of new units for {weeks_words(s.weeks)}"
                  + (f" (between {s.weeks_range[0]} and {s.weeks_range[1]} weeks given the pre-period's sampling "
                     "error)" if s.weeks_range and s.weeks_range[0] != s.weeks_range[1] else "")
-                 + f": that tells {_target_words(p, s.share)}{question} {how}, and forgoes about "
+                 + f": that tells {_target_words(p, s.share)}{question} {how(s)}, and forgoes about "
                  f"{cash(p, s.revenue_forgone)} of revenue if the channel works that well."]
         sim = _sound_words(p, s)
         if sim:
@@ -431,20 +434,20 @@ def recommend(p: Plan) -> Recommendation:
         dec = _decision_words(p, s.share, s.weeks)
         if dec:
             parts.append(dec)
-        return Recommendation("pass", s.share, s.weeks, " ".join(parts))
+        return Recommendation("pass", s.share, s.weeks, " ".join(parts), s.power_simulated, s.false_win_rate)
     if sound:
         f = min(sound, key=lambda t: (t.weeks, t.share))
         assert f.weeks is not None and f.revenue_forgone is not None
         rng = (f" (between {f.weeks_range[0]} and {f.weeks_range[1]} weeks given the pre-period's sampling error)"
                if f.weeks_range and f.weeks_range[0] != f.weeks_range[1] else "")
         parts = [f"No holdout share tells {_target_words(p, f.share)}{question} within the {p.max_weeks} weeks "
-                 f"allowed; the fastest is {pct(f.share)} for {weeks_words(f.weeks)}{rng} ({how}, forgoing about "
+                 f"allowed; the fastest is {pct(f.share)} for {weeks_words(f.weeks)}{rng} ({how(f)}, forgoing about "
                  f"{cash(p, f.revenue_forgone)} of revenue), or aim at a larger effect, reach more of the exposed "
                  "arm, or add a pre-period covariate."]
         sim = _sound_words(p, f)
         if sim:
             parts.append(sim[0].upper() + sim[1:] + ".")
-        return Recommendation("warn", f.share, f.weeks, " ".join(parts))
+        return Recommendation("warn", f.share, f.weeks, " ".join(parts), f.power_simulated, f.false_win_rate)
     best_share = max(p.shares)
     best = p.cell(best_share, max(p.weeks))
     target = p.summary(best_share).target_difference

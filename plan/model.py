@@ -231,6 +231,8 @@ class Recommendation:
     share: float | None
     weeks: int | None
     sentence: str
+    power: float | None = None  # the design's power against the target, as simulated for the readout's test
+    false_win_rate: float | None = None  # its simulated false 'the channel works' rate (the plan's alpha)
 
 
 @dataclass

@@ -106,7 +106,8 @@ def test_recommended_design_of_a_small_skewed_shop_keeps_level_and_power() -> No
     assert rec.status == "pass" and rec.share is not None and rec.weeks is not None
     s = p.summary(rec.share)
     assert s.power_simulated is not None and s.false_win_rate is not None
-    assert f"{s.power_simulated * 100:.1f}% power" in rec.sentence
+    assert f"with {s.power_simulated * 100:.1f}% power (80% asked for)" in rec.sentence
+    assert rec.power == s.power_simulated and rec.false_win_rate == s.false_win_rate
     small = p.summary(0.05)  # a 5% holdout would have been unsound at its normal-arithmetic weeks
     assert small.weeks is None or small.weeks > (small.weeks_normal or 0)
     sp = p.shape
