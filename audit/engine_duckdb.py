@@ -16,8 +16,10 @@ with an `Error:` that says so.
 
 from __future__ import annotations
 
+import queue
 import shutil
 import tempfile
+import threading
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from datetime import date
@@ -33,7 +35,7 @@ from armlock.assign import InputError, Spec
 from . import engine_pandas
 from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path
 from .engine_duckdb_read import STREAM_SCHEMA, ExposureReader, ExposureScan, Unsorted
-from .engine_pandas import NS_DAY, VisitArms, _unseen_diagnostics, hash_arms
+from .engine_pandas import NS_DAY, VisitArms, _unseen_diagnostics
 from .keys import arrow_ids
 from .load import load_identities, load_visits
 from .read import TIME, UNIT, Frames
@@ -53,7 +55,10 @@ def connect(memory_limit: str | None, temp_directory: str | None) -> Iterator[An
     made = None
     if temp_directory is None:
         made = tempfile.mkdtemp(prefix="armlock-duckdb-")
-    config = {"temp_directory": temp_directory or made, "preserve_insertion_order": False}
+    # The exposure stream's size is unknown to DuckDB's planner, which may then build a join's hash
+    # table on it (all the rows) rather than on the units: the join order is fixed as written.
+    config = {"temp_directory": temp_directory or made, "preserve_insertion_order": False,
+              "disabled_optimizers": "join_order,build_side_probe_side"}
     if memory_limit:
         config["memory_limit"] = memory_limit
     try:
@@ -73,6 +78,29 @@ def arrow_of(rel: Any) -> pa.Table:
     """A DuckDB relation as an Arrow table (DuckDB 2 names the call `to_arrow_table`, 1.x `arrow`)."""
     fetch = getattr(rel, "to_arrow_table", None) or rel.arrow
     return fetch()
+
+
+def contract_arms(spec: Spec, ids: pd.Series) -> np.ndarray:
+    """The contract's arm index of every id (as `engine_pandas.hash_arms`), hashed from the Arrow buffers.
+
+    XXH64 (the xxhash package, seed 42) of salt + ":" + the id's UTF-8 bytes, sliced straight from
+    the Arrow data buffer (no Python string per id), then the arm by the contract's thresholds on
+    the raw hash (`assign.contract.hash_thresholds`), for all ids at once in numpy. Empty ids have
+    no arm and never reach here (the loader sets them aside)."""
+    import xxhash
+
+    from armlock.assign.contract import SEED, SEPARATOR, hash_thresholds
+
+    arr = arrow_ids(ids).cast(pa.large_string()).combine_chunks()
+    if not len(arr):
+        return np.zeros(0, np.int16)
+    offsets = np.frombuffer(arr.buffers()[1], dtype=np.int64)[arr.offset:arr.offset + len(arr) + 1].tolist()
+    data = arr.buffers()[2].to_pybytes() if arr.buffers()[2] is not None else b""
+    prefix, h = (spec.salt + SEPARATOR).encode(), xxhash.xxh64_intdigest
+    hashes = np.fromiter((h(prefix + data[a:b], SEED) for a, b in zip(offsets, offsets[1:])), dtype=np.uint64,
+                         count=len(arr))
+    cuts = np.array(hash_thresholds(spec.cumulative)[:-1], dtype=np.uint64)  # the last is 2**64: every hash
+    return np.searchsorted(cuts, hashes, side="right").astype(np.int16)
 
 
 def _floor_div(expr: str, d: int) -> str:
@@ -112,7 +140,7 @@ class DuckDBEngine:
         identities = local_path(inputs.identities, "--identities")
         fr = Frames(visits=None)  # type: ignore[arg-type]
         used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
-        early = engine_pandas.start_visit_arms(spec, fr.visits)
+        early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)
         advance(file_bytes(visits))
         link_notes: list[str] = []
         if identities is not None:  # read while the ids are hashed; its notes follow the exposures'
@@ -154,13 +182,7 @@ class DuckDBEngine:
 
         scan = ExposureScan()
 
-        def rows() -> Iterator[pa.RecordBatch]:
-            try:
-                yield from reader.stream(scan, sorted_mode)
-            except BaseException as exc:  # DuckDB would swallow the type: keep it, end the stream
-                scan.error = exc
-
-        stream = pa.RecordBatchReader.from_batches(STREAM_SCHEMA, rows())
+        stream = pa.RecordBatchReader.from_batches(STREAM_SCHEMA, ahead(reader.stream(scan, sorted_mode), scan))
         con.register("ev", stream)
         events = "ev" if sorted_mode else \
             "(SELECT id, t, camp, kl, min(kind) AS kind, sum(n) AS n FROM ev GROUP BY id, t, camp, kl)"
@@ -184,6 +206,47 @@ class DuckDBEngine:
         return scan
 
 
+_DONE = object()
+
+
+def ahead(batches: Iterator[pa.RecordBatch], scan: ExposureScan, depth: int = 2) -> Iterator[pa.RecordBatch]:
+    """The slices made on a worker thread, up to `depth` ahead, while DuckDB joins and groups the last
+    ones (Arrow and numpy release Python's lock, so on two cores the reading and the counting overlap).
+    An error while reading is kept in `scan.error` and ends the stream (DuckDB would lose its type)."""
+    q: queue.Queue[Any] = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def work() -> None:
+        try:
+            for b in batches:
+                while not stop.is_set():
+                    try:
+                        q.put(b, timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    return
+        except BaseException as exc:  # noqa: BLE001 - handed to the caller through scan.error
+            scan.error = exc
+        finally:
+            q.put(_DONE)
+
+    worker = threading.Thread(target=work, name="armlock-exposures", daemon=True)
+    worker.start()
+    try:
+        while (b := q.get()) is not _DONE:
+            yield b
+    finally:
+        stop.set()
+        while worker.is_alive():  # let the worker see the stop and end
+            try:
+                q.get(timeout=0.1)
+            except queue.Empty:
+                pass
+        worker.join()
+
+
 def _out_of_memory(limit: str | None, exc: BaseException) -> str:
     said = f"--memory-limit {limit}" if limit else "DuckDB's default memory limit (80% of this machine's memory)"
     return (f"the DuckDB engine ran out of memory under {said}, even spilling to its temporary folder "
@@ -191,13 +254,15 @@ def _out_of_memory(limit: str | None, exc: BaseException) -> str:
             "more room, or run on a cluster with --engine spark")
 
 
-# One row per exposed unit (pos), per unseen id (uid), and per leaked (unit, campaign, week): rows
-# with no leak have lcamp and lweek NULL. Every count is of distinct events (a row logged twice is
-# one event; n - 1 extra copies are counted in dups).
+# One row per exposed unit (pos), per unseen id (uid), and per leaked (unit, campaign code, week):
+# rows with no leak have lcamp and lweek NULL. Counts are of distinct events (a row logged n times
+# is one event; `copies` sums n). flags of a unit: 1 an exposure during the test, 2 one before it
+# (before the start or before the unit's first visit), 4 one before the start, 8 one after the
+# start but before the first visit. pre_rows, imps, clks and flags mean nothing for unseen ids.
 _CELLS_SQL = """
 CREATE TEMP TABLE cells AS
 WITH j AS (
-  SELECT e.id, e.t, e.camp, e.kind, e.n, v.pos, v.fs, v.eff, v.hold,
+  SELECT e.id, e.t, e.camp, e.kind, e.n, v.pos, v.fs, v.hold,
          e.t < {start} AS bs, e.t >= {start} AND e.t >= v.fs AS dur
   FROM {events} e LEFT JOIN v ON e.id = v.id
 )
@@ -205,16 +270,12 @@ SELECT pos,
        CASE WHEN pos IS NULL THEN id END AS uid,
        CASE WHEN dur AND hold THEN camp END AS lcamp,
        CASE WHEN dur AND hold THEN {week} END AS lweek,
-       any_value(eff) AS eff,
        count(*) AS events,
-       sum(n - 1) AS dups,
-       count(*) FILTER (WHERE NOT dur) AS pre_rows,
-       count(*) FILTER (WHERE dur AND kind = 0) AS imps,
-       count(*) FILTER (WHERE dur AND kind = 1) AS clks,
-       bool_or(dur) AS dur_any,
-       bool_or(NOT dur) AS pre_any,
-       bool_or(bs) AS bs_any,
-       bool_or(NOT bs AND t < fs) AS ba_any,
+       sum(n) AS copies,
+       sum(CASE WHEN dur THEN 0 ELSE 1 END) AS pre_rows,
+       sum(CASE WHEN dur AND kind = 0 THEN 1 ELSE 0 END) AS imps,
+       sum(CASE WHEN dur AND kind = 1 THEN 1 ELSE 0 END) AS clks,
+       bit_or(CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END) AS flags,
        min(t) AS t_min
 FROM j
 GROUP BY 1, 2, 3, 4
@@ -245,43 +306,46 @@ def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: Expo
                         va: VisitArms) -> LeakageTables:
     """The leakage tables from DuckDB's `cells` (small queries; per-unit flags come back as arrays)."""
     arms, k = list(spec.arm_names), len(spec.arms)
-    rows, dups, unseen_rows, pre_rows = (int(x or 0) for x in con.execute(
-        "SELECT sum(events), sum(dups), sum(events) FILTER (WHERE pos IS NULL), "
+    rows, copies, unseen_rows, pre_rows = (int(x or 0) for x in con.execute(
+        "SELECT sum(events), sum(copies), sum(events) FILTER (WHERE pos IS NULL), "
         "sum(pre_rows) FILTER (WHERE pos IS NOT NULL) FROM cells").fetchone())
-    reader.finish(scan, dups, fr.notes, fr.counts)
+    reader.finish(scan, copies - rows + scan.duplicates, fr.notes, fr.counts)
     nv = len(fr.visits)
     eff = effective_arms(va)
-    pu = con.execute("SELECT pos, bool_or(dur_any) AS d, bool_or(pre_any) AS p, bool_or(bs_any) AS bs, "
-                     "bool_or(ba_any) AS ba FROM cells WHERE pos IS NOT NULL GROUP BY pos").fetchnumpy()
+    pu = con.execute("SELECT pos, bit_or(flags) AS f, sum(imps) AS i, sum(clks) AS c FROM cells "
+                     "WHERE pos IS NOT NULL GROUP BY pos").fetchnumpy()
     pos = np.asarray(pu["pos"], dtype=np.int64)
+    bits = np.asarray(pu["f"], dtype=np.int64)
 
-    def flag(name: str) -> np.ndarray:
+    def flag(bit: int) -> np.ndarray:
         out = np.zeros(nv, dtype=bool)
-        out[pos[np.asarray(pu[name], dtype=bool)]] = True
+        out[pos[(bits & bit) != 0]] = True
         return out
 
-    exposed_u, pre_u, bs_u, ba_u = flag("d"), flag("p"), flag("bs"), flag("ba")
-    kinds = dict.fromkeys(range(k), (0, 0))
-    for a, i, c in con.execute("SELECT eff, sum(imps), sum(clks) FROM cells WHERE pos IS NOT NULL "
-                               "GROUP BY eff").fetchall():
-        kinds[int(a)] = (int(i), int(c))
+    exposed_u, pre_u, bs_u, ba_u = flag(1), flag(2), flag(4), flag(8)
+    arm_of = eff[pos]
+
+    def per_arm(col: str) -> np.ndarray:  # exact: the float weights are integers below 2**53
+        return np.bincount(arm_of, weights=np.asarray(pu[col], dtype=np.float64), minlength=k).astype(np.int64)
+
     by_arm = pd.DataFrame({
         "units": np.bincount(eff, minlength=k),
         "exposed_units": np.bincount(eff[exposed_u], minlength=k),
         "pre_exposed_units": np.bincount(eff[pre_u], minlength=k),
-        "impressions": [kinds[a][0] for a in range(k)],
-        "clicks": [kinds[a][1] for a in range(k)],
+        "impressions": per_arm("i"),
+        "clicks": per_arm("c"),
     }, index=pd.Index(arms, name="arm"))
+    names = list(reader.levels)
     camp = con.execute("SELECT lcamp, count(DISTINCT pos), sum(imps), sum(clks) FROM cells "
                        "WHERE lcamp IS NOT NULL GROUP BY lcamp").fetchall()
-    by_campaign = _frame([r[1:] for r in camp], [r[0] for r in camp], "campaign")
+    by_campaign = _frame([r[1:] for r in camp], [names[int(r[0])] for r in camp], "campaign")
     wk = con.execute("SELECT lweek, count(DISTINCT pos), sum(imps), sum(clks), min(t_min) FROM cells "
                      "WHERE lweek IS NOT NULL GROUP BY lweek ORDER BY lweek").fetchall()
     by_week = _frame([r[1:4] for r in wk], [_day((int(r[0]) * 7 - 3) * US_DAY) for r in wk], "week")
     first = _day(min(int(r[4]) for r in wk)) if wk else None
     uids = arrow_of(con.sql("SELECT uid FROM cells WHERE pos IS NULL"))
     uniq = pd.Series(uids.column("uid").to_pandas() if uids.num_rows else [], dtype="str")
-    ua = hash_arms(spec, uniq) if len(uniq) else np.zeros(0, np.int16)
+    ua = contract_arms(spec, uniq)
     v = fr.visits
     diag = _unseen_diagnostics(uniq, v[UNIT], arrow_ids(v[UNIT]).combine_chunks())
     return LeakageTables(

@@ -29,11 +29,14 @@ import pyarrow.parquet as pq
 
 from armlock.assign import InputError, Spec
 
+from .keys import duplicate_rows
 from .load import cutoff_of
 from .read import (
     MISSING_LEVEL,
     SHOW_ROWS,
     _READ_ERRORS,
+    T_MAX_US,
+    T_MIN_US,
     ParsedTimes,
     Source,
     _header,
@@ -52,7 +55,8 @@ from .read import (
 BATCH_ROWS = 1 << 20  # rows per Parquet slice: a few tens of MB of Arrow buffers at a time
 CSV_BLOCK = 1 << 24  # bytes per CSV slice (as the pandas reader's blocks)
 KINDS = ("impression", "click", "other")
-STREAM_SCHEMA = pa.schema([("id", pa.string()), ("t", pa.int64()), ("camp", pa.string()), ("kl", pa.string()),
+# camp and kl are codes of `ExposureReader.levels` (one numbering for the whole file)
+STREAM_SCHEMA = pa.schema([("id", pa.string()), ("t", pa.int64()), ("camp", pa.int32()), ("kl", pa.int32()),
                            ("kind", pa.int8()), ("n", pa.int64())])
 
 
@@ -89,18 +93,55 @@ class ExposureScan:
     shown: list[str] = field(default_factory=list)
     far: _Rows = field(default_factory=_Rows)
     far_first: object = None
+    duplicates: int = 0  # exact repeats removed while streaming (sorted mode)
     flags: ParsedTimes | None = None  # the notes' flags, summed over the slices
     error: BaseException | None = None  # an error raised while DuckDB pulled the rows
 
 
-def labels(arr: pa.Array | pa.ChunkedArray) -> pa.Array | pa.ChunkedArray:
-    """`read.read_labels`' levels as text: empty or null is MISSING_LEVEL, other types their text."""
-    if pa.types.is_dictionary(arr.type):
-        arr = arr.cast(arr.type.value_type)
-    if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
-        arr = arr.cast(pa.string())
-    arr = pc.fill_null(arr, "")
-    return pc.if_else(pc.equal(arr, ""), MISSING_LEVEL, arr).cast(pa.string())
+def labels(arr: pa.Array) -> pa.DictionaryArray:
+    """`read.read_labels`' levels, dictionary-encoded: empty or null is MISSING_LEVEL, other types their text.
+
+    Only the (small) dictionary is rewritten; the rows keep their integer codes."""
+    if not pa.types.is_dictionary(arr.type):
+        if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+            arr = arr.cast(pa.string())
+        arr = pc.dictionary_encode(arr)
+    words = [MISSING_LEVEL if v is None or v == "" else str(v) for v in arr.dictionary.to_pylist()]
+    levels = list(dict.fromkeys([*words, MISSING_LEVEL]))
+    lut = np.array([levels.index(w) for w in words] + [levels.index(MISSING_LEVEL)], dtype=np.int32)
+    idx = arr.indices
+    codes = pc.fill_null(idx, len(words)) if idx.null_count else idx
+    return pa.DictionaryArray.from_arrays(pa.array(lut[codes.to_numpy(zero_copy_only=False)]),
+                                          pa.array(levels, pa.string()))
+
+
+@dataclass
+class _Zoned(ParsedTimes):
+    """Zoned timestamps read without pandas: microseconds and the empty cells."""
+
+    us: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    nat: np.ndarray = field(default_factory=lambda: np.zeros(0, bool))
+
+
+_UNIT_US = {"s": (10**6, 1), "ms": (1000, 1), "us": (1, 1), "ns": (1, 1000)}
+
+
+def zoned_micros(arr: pa.Array) -> _Zoned | None:
+    """Zoned timestamps inside 1678-2261 as whole microseconds, exactly as `parse_times` gives them
+    (digits below the microsecond dropped, rounding down); None for any other column or slice."""
+    if not (pa.types.is_timestamp(arr.type) and arr.type.tz is not None):
+        return None
+    mul, div = _UNIT_US[arr.type.unit]
+    nat = np.asarray(arr.is_null().to_numpy(zero_copy_only=False), dtype=bool)
+    raw = pc.fill_null(arr.cast(pa.int64()), 0).to_numpy(zero_copy_only=False)
+    if mul > 1 and len(raw) and np.abs(raw).max() > (T_MAX_US // mul):
+        return None
+    us = raw * mul if mul > 1 else (raw // div if div > 1 else raw)  # numpy's // rounds down
+    live = us[~nat]
+    if len(live) and (live.min() < T_MIN_US or live.max() >= T_MAX_US):
+        return None  # out of range: the general reader says where
+    empty = np.zeros(0, np.int64)
+    return _Zoned(None, empty, [], empty, us=us, nat=nat)  # type: ignore[arg-type]
 
 
 class ExposureReader:
@@ -118,6 +159,13 @@ class ExposureReader:
         self.columns = list(dict.fromkeys(wanted.values()))
         self.cut_us = cutoff_of(as_of).value // 1000
         self.imp, self.clk = set(ce.impression_values), set(ce.click_values)
+        self.levels: dict[str, int] = {}  # every campaign and kind label seen -> its code in the stream
+
+    def codes(self, arr: pa.DictionaryArray) -> np.ndarray:
+        """The file-wide codes (`levels`) of a slice's labels."""
+        lut = np.array([self.levels.setdefault(w, len(self.levels)) for w in arr.dictionary.to_pylist()],
+                       dtype=np.int32)
+        return lut[arr.indices.to_numpy(zero_copy_only=False)] if len(lut) else np.zeros(len(arr), np.int32)
 
     def _slices(self) -> Iterator[pa.RecordBatch]:
         src = self.src
@@ -138,7 +186,14 @@ class ExposureReader:
             else:
                 pf = pq.ParquetFile(src.path)
                 _scalar_only(src, pf.schema_arrow.empty_table(), self.wanted, "[audit.exposures]")
-                yield from pf.iter_batches(batch_size=BATCH_ROWS, columns=self.columns)
+                md = pf.metadata
+                if all(md.row_group(i).num_rows <= 4 * BATCH_ROWS for i in range(md.num_row_groups)):
+                    # a row group at a time: Arrow decodes its columns on threads, and holds one group only
+                    for i in range(md.num_row_groups):
+                        yield from pf.read_row_group(i, columns=self.columns).to_batches(max_chunksize=BATCH_ROWS)
+                else:  # large row groups: slices without read-ahead (pre-buffering would hold several)
+                    pf = pq.ParquetFile(src.path, pre_buffer=False, buffer_size=1 << 20)
+                    yield from pf.iter_batches(batch_size=BATCH_ROWS, columns=self.columns)
         except _READ_ERRORS as exc:
             raise InputError(f"{src.path}: cannot read the {src.role} file: {_why(exc)}") from None
 
@@ -169,7 +224,9 @@ class ExposureReader:
                     ce.time_format not in ("epoch_seconds", "epoch_milliseconds"):
                 raise numeric_times_error(src, ce.time, ttype, self._first_number(ce.time), ce.time_format,
                                           "[audit.exposures] time_format")
-            p = parse_times(src, tcol, ce.time, ce.time_format, "[audit.exposures] time_format")
+            fast = zoned_micros(tcol)
+            p = fast if fast is not None else parse_times(src, tcol, ce.time, ce.time_format,
+                                                          "[audit.exposures] time_format")
             if len(p.bad):
                 scan.bad.add(p.bad, base)
                 scan.shown += p.shown[:100 - len(scan.shown)]
@@ -179,33 +236,38 @@ class ExposureReader:
                 scan.far.add(p.far, base)
             f = scan.flags
             if f is None:
-                scan.flags = ParsedTimes(p.values[:0], p.bad[:0], [], p.far[:0], dates=p.dates, naive=p.naive,
+                scan.flags = ParsedTimes(None, p.bad[:0], [], p.far[:0], dates=p.dates, naive=p.naive,  # type: ignore[arg-type]
                                          naive_text=p.naive_text, fmt_naive=p.fmt_naive)
             else:
                 f.dates |= p.dates
                 f.naive |= p.naive
                 f.naive_text += p.naive_text
                 f.fmt_naive |= p.fmt_naive
-            kl = labels(batch.column(ce.kind))
-            is_imp = pc.is_in(kl, value_set=pa.array(sorted(self.imp), pa.string()))
-            is_clk = pc.is_in(kl, value_set=pa.array(sorted(self.clk), pa.string()))
-            kind = np.where(is_imp.to_numpy(zero_copy_only=False), 0,
-                            np.where(is_clk.to_numpy(zero_copy_only=False), 1, 2)).astype(np.int8)
+            raw_kind = batch.column(ce.kind)
+            kl = labels(raw_kind)
+            words = kl.dictionary.to_pylist()
+            kind_of = np.array([0 if w in self.imp else 1 if w in self.clk else 2 for w in words], dtype=np.int8)
+            kl_codes = kl.indices.to_numpy()
+            kind = kind_of[kl_codes]
             other = kind == 2
             if other.any():
                 scan.other += int(other.sum())
-                for v in pc.unique(kl.filter(pa.array(other))).to_pylist():
-                    scan.other_levels.setdefault(v, None)
+                used, first = np.unique(kl_codes[other], return_index=True)
+                # the pandas reader's order of levels: a dictionary column's own, else first appearance
+                for c in (used if pa.types.is_dictionary(raw_kind.type) else used[np.argsort(first)]):
+                    scan.other_levels.setdefault(words[int(c)], None)
             empty = np.asarray(pc.equal(ids, "").to_numpy(zero_copy_only=False), dtype=bool)
             scan.empty.add(np.flatnonzero(empty), base)
             if scan.bad.n or scan.far.n:  # an error at the end: only keep counting
                 base += n
                 continue
-            ns = p.values.array.asi8
-            nat = np.asarray(p.values.isna().to_numpy(), dtype=bool)
+            if isinstance(p, _Zoned):
+                t, nat = p.us, p.nat
+            else:
+                t = p.values.array.asi8 // 1000  # whole microseconds (the reader dropped the digits below)
+                nat = np.asarray(p.values.isna().to_numpy(), dtype=bool)
             no_time = nat & ~empty
             scan.no_time.add(np.flatnonzero(no_time), base)
-            t = ns // 1000  # whole microseconds (the reader dropped the digits below)
             late = ~nat & (t >= self.cut_us) & ~empty
             scan.late += int(late.sum())
             keep = ~(empty | nat | late)
@@ -218,23 +280,48 @@ class ExposureReader:
                 if (last_t is not None and tk[0] < last_t) or bool((tk[1:] < tk[:-1]).any()):
                     raise Unsorted()
                 last_t = int(tk[-1])
-            camp = labels(batch.column(ce.campaign))
-            taken = pa.array(idx)
-            rows = pa.table([ids.take(taken).cast(pa.string()), pa.array(tk, pa.int64()), camp.take(taken),
-                             kl.take(taken), pa.array(kind[idx], pa.int8()), pa.array(np.ones(len(idx), np.int64))],
-                            schema=STREAM_SCHEMA)
+            camp = self.codes(labels(batch.column(ce.campaign)))
+            klc = self.codes(kl)
+            if len(idx) == n:
+                cols = [ids, camp, klc, kind]
+            else:
+                cols = [ids.take(pa.array(idx)), camp[idx], klc[idx], kind[idx]]
+            rows = pa.table([cols[0].cast(pa.string()), pa.array(tk, pa.int64()), pa.array(cols[1], pa.int32()),
+                             pa.array(cols[2], pa.int32()), pa.array(cols[3], pa.int8()),
+                             pa.array(np.ones(len(idx), np.int64))], schema=STREAM_SCHEMA)
             if not sorted_mode:
                 yield from rows.to_batches()
                 continue
-            if carry is not None:
+            if carry is not None and carry.num_rows:
                 rows = pa.concat_tables([carry, rows])
             tt = rows.column("t").to_numpy()
             cut = int(np.searchsorted(tt, tt[-1], side="left"))  # the last run of one time may go on
             carry = rows.slice(cut)
             if cut:
-                yield from _deduplicated(rows.slice(0, cut)).to_batches()
+                yield from self._once(rows.slice(0, cut), tt[:cut], scan).to_batches()
         if carry is not None and carry.num_rows:
-            yield from _deduplicated(carry).to_batches()
+            yield from self._once(carry, carry.column("t").to_numpy(), scan).to_batches()
+
+    @staticmethod
+    def _once(rows: pa.Table, t: np.ndarray, scan: ExposureScan) -> pa.Table:
+        """Rows sorted by time without their exact repeats (counted in `scan.duplicates`): only rows
+        that share a time are compared, on integer codes of their id, campaign and kind."""
+        if len(t) < 2:
+            return rows
+        tie = t[1:] == t[:-1]
+        if not tie.any():
+            return rows
+        cand = np.flatnonzero(np.concatenate([tie, [False]]) | np.concatenate([[False], tie]))
+        sub = rows.take(pa.array(cand))
+        ids = pc.dictionary_encode(sub.column("id")).combine_chunks().indices.to_numpy(zero_copy_only=False)
+        dup = duplicate_rows(t[cand], ids.astype(np.int64), *(sub.column(c).to_numpy().astype(np.int64)
+                                                             for c in ("camp", "kl")))
+        if not dup.any():
+            return rows
+        scan.duplicates += int(dup.sum())
+        keep = np.ones(len(t), dtype=bool)
+        keep[cand[dup]] = False
+        return rows.filter(pa.array(keep))
 
     def finish(self, scan: ExposureScan, duplicates: int, notes: list[str], counts: dict[str, int]) -> None:
         """Raise the whole file's time errors, else write the notes and counts `load_exposures` writes."""
@@ -272,20 +359,3 @@ def _note(src: Source, col: str, rows: _Rows, what: str, notes: list[str]) -> in
         notes.append(f"{src.path.name}: {rows.n:,} row(s) with an empty or null '{col}' ({src.rows(rows.first, rows.n)}) "
                      f"were set aside: {what}")
     return rows.n
-
-
-def _deduplicated(rows: pa.Table) -> pa.Table:
-    """Rows sorted by time with exact repeats merged (n = copies): only rows that share a time are grouped."""
-    t = rows.column("t").to_numpy()
-    if len(t) < 2:
-        return rows
-    tie = t[1:] == t[:-1]
-    if not tie.any():
-        return rows
-    in_run = np.concatenate([tie, [False]]) | np.concatenate([[False], tie])
-    alone = rows.filter(pa.array(~in_run))
-    g = (rows.filter(pa.array(in_run)).group_by(["id", "t", "camp", "kl"], use_threads=False)
-         .aggregate([("kind", "min"), ("n", "sum")]))
-    grouped = pa.table([g.column("id"), g.column("t"), g.column("camp"), g.column("kl"), g.column("kind_min"),
-                        g.column("n_sum")], schema=STREAM_SCHEMA)
-    return pa.concat_tables([alone, grouped])

@@ -365,16 +365,19 @@ class VisitArms:
     moments: dict[str, list[dict[str, object]]]  # covariate -> numeric_moments rows
 
 
-def visit_arms(spec: Spec, ids: pd.Series, recorded: pd.Series, covariates: dict[str, np.ndarray]) -> VisitArms:
-    """`VisitArms` of the given visits columns (pure: it reads only its arguments)."""
-    hashed = hash_arms(spec, ids).astype(np.int64)
+def visit_arms(spec: Spec, ids: pd.Series, recorded: pd.Series, covariates: dict[str, np.ndarray],
+               hasher: Callable[[Spec, pd.Series], np.ndarray] = hash_arms) -> VisitArms:
+    """`VisitArms` of the given visits columns (pure: it reads only its arguments; `hasher` gives the
+    contract's arm of each id, `hash_arms` unless an engine has a faster equal one)."""
+    hashed = hasher(spec, ids).astype(np.int64)
     rec, unknown, missing = _recorded_codes(spec, recorded)
     rec = rec.astype(np.int64)
     k = len(spec.arms)
     return VisitArms(hashed, rec, unknown, missing, {c: numeric_moments(x, rec, k) for c, x in covariates.items()})
 
 
-def start_visit_arms(spec: Spec, visits: pd.DataFrame) -> Future[VisitArms]:
+def start_visit_arms(spec: Spec, visits: pd.DataFrame,
+                     hasher: Callable[[Spec, pd.Series], np.ndarray] = hash_arms) -> Future[VisitArms]:
     """`visit_arms` on a worker thread, over its own copy of the columns it needs.
 
     The engine starts it as soon as the visits are loaded, so it runs while the exposures and
@@ -384,7 +387,7 @@ def start_visit_arms(spec: Spec, visits: pd.DataFrame) -> Future[VisitArms]:
     covs = {c: visits[c].to_numpy(dtype=np.float64, copy=True) for c in spec.audit.covariates}
     pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="armlock-visits")
     try:
-        return pool.submit(visit_arms, spec, visits[UNIT].copy(), visits[ARM].copy(), covs)
+        return pool.submit(visit_arms, spec, visits[UNIT].copy(), visits[ARM].copy(), covs, hasher)
     finally:
         pool.shutdown(wait=False)  # the task runs to its end; the pool takes no more
 

@@ -260,3 +260,35 @@ def test_memory_limit_too_small_is_an_error(tmp_path: Path) -> None:
         DuckDBEngine(memory_limit="1MB").compute(spec, Inputs(paths["visits"], paths["exposures"]), None,
                                                  lambda n: None)
     assert "--memory-limit" in str(exc.value) and "DuckDB" in str(exc.value)
+
+
+def test_contract_arms_from_arrow_buffers_match_the_frozen_vectors() -> None:
+    """The DuckDB engine hashes ids straight from Arrow buffers; its arms equal the frozen vectors
+    (shared/vectors/assignment_vectors.json: XXH64 per the xxHash spec, seed 42, every layout) and
+    the pandas engine's `hash_arms` on a sliced, non-ASCII column."""
+    from armlock.audit.engine_duckdb import contract_arms
+    from armlock.audit.engine_pandas import hash_arms
+
+    from ..conftest import layout_spec, load_vectors
+
+    checked = 0
+    for layout in load_vectors()["layouts"]:
+        spec = layout_spec(layout)
+        # ids a file can hold: not empty, valid UTF-8 (the vectors' lone surrogates cannot be in Arrow text)
+        cases = [c for c in layout["cases"] if c["id"] and c.get("arm") and _utf8(c["id"])]
+        ids = pd.Series([c["id"] for c in cases], dtype="str")
+        names = list(spec.arm_names)
+        assert [names[i] for i in contract_arms(spec, ids)] == [c["arm"] for c in cases], layout["name"]
+        checked += len(cases)
+    assert checked > 50
+    spec = _spec("three_arms")
+    ids = pd.Series([f"v-{i}-\u00e9\U0001F600" for i in range(3000)], dtype="str").iloc[7:2900]
+    assert np.array_equal(contract_arms(spec, ids), hash_arms(spec, ids))
+
+
+def _utf8(text: str) -> bool:
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return True
