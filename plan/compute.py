@@ -356,10 +356,14 @@ def _sound_words(p: Plan, s: ShareSummary) -> str:
     said = (f"that power is the readout's test simulated (Welch's t on {on}, {soundness.SIMS:,} tests), with "
             f"{s.false_win_rate * 100:.1f}% false wins at alpha {x.alpha * 100:g}%")
     if s.weeks_normal is not None and s.weeks is not None and s.weeks > s.weeks_normal:
-        said += (f"; the normal arithmetic's {weeks_words(s.weeks_normal)} would not do "
-                 f"({s.false_win_rate_normal * 100:.1f}% false wins or too little power with "
-                 f"{money(s.share * x.weekly_units * s.weeks_normal)} holdout units)"
-                 if s.false_win_rate_normal is not None else "")
+        units = money(s.share * x.weekly_units * s.weeks_normal)
+        fw = s.false_win_rate_normal
+        if fw is not None and fw > x.alpha + LEVEL_SLACK:
+            said += (f"; the normal arithmetic's {weeks_words(s.weeks_normal)} would not do: with {units} holdout "
+                     f"units the readout's test claims a false win {fw * 100:.1f}% of the time")
+        elif fw is not None:
+            said += (f"; the normal arithmetic's {weeks_words(s.weeks_normal)} would not do: with {units} holdout "
+                     f"units the readout's test has too little power on this skewed revenue")
     return said
 
 

@@ -241,3 +241,14 @@ def test_docstring_examples() -> None:
     for mod in (armlock.plan.compute, armlock.plan.power):
         result = doctest.testmod(mod)
         assert result.attempted > 0 and result.failed == 0, mod.__name__
+
+
+def test_a_small_skewed_holdout_gets_the_weeks_where_the_readouts_test_keeps_its_level() -> None:
+    # 2,400 new units a week, revenue CV about 11: a 5% holdout at the normal arithmetic's weeks has a few
+    # hundred holdout units, where Welch's test claims false wins about twice as often as alpha (simulated)
+    x = PlanInputs(weekly_units=2_400, revenue_mean=7.0, revenue_sd=75.0, lift=1.5, exposure_rate=0.8)
+    p = make_plan(x, shares=[0.05], max_weeks=60)
+    s = p.summaries[0]
+    assert s.weeks_normal is not None and s.false_win_rate_normal is not None and s.false_win_rate_normal > 0.07
+    assert s.weeks is not None and s.weeks > 2 * s.weeks_normal and s.false_win_rate <= 0.06
+    assert "would not do" in p.recommendation.sentence and "claims a false win" in p.recommendation.sentence
