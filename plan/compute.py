@@ -445,8 +445,8 @@ def recommend(p: Plan) -> Recommendation:
         rng = (f" (between {f.weeks_range[0]} and {f.weeks_range[1]} weeks given the pre-period's sampling error)"
                if f.weeks_range and f.weeks_range[0] != f.weeks_range[1] else "")
         parts = [f"No holdout share tells {_target_words(p, f.share)}{question} within the {p.max_weeks} weeks "
-                 f"allowed; the fastest is {pct(f.share)} for {weeks_words(f.weeks)}{rng} ({how(f)}, forgoing about "
-                 f"{cash(p, f.revenue_forgone)} of revenue), or aim at a larger effect, reach more of the exposed "
+                 f"allowed; the fastest is {pct(f.share)} for {weeks_words(f.weeks)}{rng}, {how(f)}, forgoing about "
+                 f"{cash(p, f.revenue_forgone)} of revenue; or aim at a larger effect, reach more of the exposed "
                  "arm, or add a pre-period covariate."]
         sim = _sound_words(p, f)
         if sim:
