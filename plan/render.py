@@ -139,7 +139,10 @@ def weekly_reading_line(p: Plan) -> str:
                 f" instead of {_weeks_cell(s.weeks_needed)})")
     return (f"Reading the result every week: the readout's anytime-valid interval is {ratio:.2f} times as wide as "
             f"the fixed-horizon one at the planned end ({p.anytime_factor:.3g} vs {p.z_alpha:.3g} standard errors)"
-            f"{more}. Reading only once, at the planned end, keeps the fixed-horizon width.")
+            f"{more}: that is the price of deciding on the anytime interval alone (a readout without a planned "
+            "size, or stopping before it). With the planned size in the spec (--write-spec sets planned_units), the "
+            "readout decides at the planned final look on the fixed-horizon interval, so weekly looks before it "
+            "cost no weeks.")
 
 
 def _text_table(t: Table) -> str:
