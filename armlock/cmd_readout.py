@@ -21,7 +21,7 @@ from .common import (
     progress,
 )
 
-FORMATS = ("text", "markdown", "json", "html")
+FORMATS = ("text", "markdown", "json", "html", "finance")
 
 
 def readout_cmd(
@@ -34,7 +34,7 @@ def readout_cmd(
     spend_file: Path = typer.Option(None, "--spend-file", help="Spend per campaign and day (columns: [readout.spend]; a local file, read on this machine); days outside the test are left out."),
     attributed: float = typer.Option(None, "--attributed-revenue", help="Revenue the attribution report credited to the channel over the test (overrides the orders' attributed column)."),
     as_of: str = typer.Option(None, "--as-of", help="Read out as of the end of this UTC day (YYYY-MM-DD). Default: the last first-seen day."),
-    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Report format: {', '.join(FORMATS)}."),
+    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Report format: {', '.join(FORMATS)} (finance: one printable HTML page for the finance lead)."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the audit gate warns (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
@@ -107,6 +107,10 @@ def readout_cmd(
 
             extra = f'<section class="check"><pre>{esc(render_two_holdouts(report.two_holdouts, "text"))}</pre></section>'
             text = text.replace("</main>", extra + "</main>", 1)
+    elif fmt == "finance":  # one printable A4 page: the decision, net contribution, the design
+        from armlock.readout.report_finance import render_finance
+
+        text = render_finance(report)
     else:
         from armlock.readout.render import RENDERERS
 

@@ -163,14 +163,15 @@ def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], c
         lo = min(min(share), theta * 100 - se[-1] * 4)
         hi = max(max(share), theta * 100 + se[-1] * 4)
         ax.set_ylim(lo - 0.05 * (hi - lo), hi + (0.05 if narrow else 0.3) * (hi - lo))  # room for the legend
-        ax.set_ylabel(f"% of all units (last day: {totals[-1]:,})" if narrow else f"share % of all units (last day: {totals[-1]:,})",
-                      fontsize=8)
+        ax.set_ylabel("%", fontsize=8)  # one short unit per panel; the full label is said once, for all panels
         if narrow:
             ax.set_title(f"arm {name}", loc="right", fontsize=9)
         else:
             ax.set_title(f"arm {name}", loc="left")
         _legend(ax, narrow)
     _date_axis(axes[-1, 0])
+    # one y label for the stacked panels: a label per panel was longer than its panel and collided
+    fig.supylabel(f"share % of all units (last day: {totals[-1]:,})", fontsize=8)
     fig.tight_layout()
     return _svg(fig, chart_id, "Cumulative arm share by day against the expected share")
 
@@ -199,8 +200,10 @@ def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, ch
     return _svg(fig, chart_id, "SRM p-value paths, fixed-horizon and anytime-valid, on a log scale")
 
 
-def chart_leakage(rows: list[dict[str, Any]], chart_id: str, narrow: bool = False) -> str:
-    """Share of holdout units reached by the vendor, week by week (bars labelled with the units)."""
+def chart_leakage(rows: list[dict[str, Any]], warn_at: float, fail_at: float, chart_id: str,
+                  narrow: bool = False) -> str:
+    """Share of holdout units reached by the vendor, week by week (bars labelled with the units), with
+    the warn and fail thresholds of the holdout leak share as lines."""
     weeks = [str(r["week"])[:10] for r in rows]
     share = [float(r.get("holdout_share") or 0) * 100 for r in rows]
     sizes = [round(r["holdout_units"] / r["holdout_share"]) for r in rows
@@ -215,10 +218,14 @@ def chart_leakage(rows: list[dict[str, Any]], chart_id: str, narrow: bool = Fals
     ax.set_xticks(range(len(weeks)), [w[5:] for w in weeks], rotation=90 if narrow else 0, fontsize=8)
     ax.set_xlabel("week starting (month-day)")
     ax.set_ylabel("% of holdout reached" + (f"\n(of {max(sizes):,} holdout units)" if sizes else ""), fontsize=8)
-    ax.set_ylim(0, max(max(share, default=0) * 1.25, 0.5))
+    if warn_at > 0:  # at 0 (the default) any reached holdout unit warns: the axis itself is the line
+        ax.axhline(warn_at * 100, color=MUTED, lw=1, ls=(0, (4, 3)), label=f"warn above {warn_at * 100:g}%")
+    ax.axhline(fail_at * 100, color=INK, lw=1.2, ls="-.", label=f"fail above {fail_at * 100:g}%")
+    ax.set_ylim(0, max(max(share, default=0) * 1.25, fail_at * 100 * 1.3, 0.5))
     ax.grid(axis="x", visible=False)
+    _legend(ax, narrow)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Holdout leakage by week: share of holdout units the vendor reached")
+    return _svg(fig, chart_id, "Holdout leakage by week: share of holdout units the vendor reached, with thresholds")
 
 
 def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str, narrow: bool = False) -> str:
@@ -353,13 +360,25 @@ def _cell(v: Any, unit: str = "number") -> str:
         return esc(f"{v:.4g}" if abs(v) >= 1e-4 or v == 0 else f"{v:.2e}")
     if isinstance(v, int) and not isinstance(v, bool):
         return esc(f"{v:,}")
+    if isinstance(v, str) and _SEPARATOR.search(v):
+        # lists and segment values wrap after a separator, never mid-word (a thousands comma never)
+        return _SEPARATOR.sub(lambda m: m.group(0) + "<wbr>", esc(v))
     return esc("" if v is None else v)
+
+
+_SEPARATOR = re.compile(r"[=/]|,(?!\d)")
+
+
+def _words(v: Any) -> bool:
+    return isinstance(v, str) and (" " in v or bool(_SEPARATOR.search(v)))
 
 
 def _table(t: Any) -> str:
     head = "".join(f"<th scope=\"col\">{esc(c)}</th>" for c in t.columns)
     units = [column_unit(str(c)) for c in t.columns]
-    body = "".join("<tr>" + "".join(f"<td>{_cell(v, u)}</td>" for v, u in zip(row, units)) + "</tr>" for row in t.rows)
+    # words may wrap (a table reflows before it scrolls); numbers and intervals' ends never break
+    body = "".join("<tr>" + "".join(f"<td{' class=words' if _words(v) else ''}>{_cell(v, u)}</td>"
+                                    for v, u in zip(row, units)) + "</tr>" for row in t.rows)
     # the title sits above the scrolling box, so a wide table never cuts it off on a phone
     return (f'<p class="tabletitle">{esc(t.title)}</p><div class="tablewrap"><table aria-label="{esc(t.title)}">'
             f"<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>")
@@ -397,7 +416,7 @@ def _charts_for(check: Check, report: AuditReport, th: AuditThresholds) -> list[
         if all("p_fixed" in r and "p_anytime" in r for r in s["daily"]):
             out.append(_both(chart_srm_p, s["daily"], th.srm_p, th.srm_anytime_p, "srm-p"))
     elif cid == "leakage" and s.get("weekly"):
-        out.append(_both(chart_leakage, s["weekly"], "leakage"))
+        out.append(_both(chart_leakage, s["weekly"], th.leak_warn, th.leak_fail, "leakage"))
     elif cid == "balance" and s.get("smd"):
         out.append(_both(chart_love, s["smd"], th.smd_fail, "love"))
     elif cid == "churn" and s.get("by_browser"):
@@ -440,7 +459,7 @@ CSS = f"""
 :root {{ color-scheme: light; }}
 * {{ box-sizing: border-box; }}
 body {{ margin: 0; background: {PAPER}; color: {INK}; font: 16px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif; }}
-main {{ max-width: 56rem; margin: 0 auto; padding: 1rem; }}
+main {{ max-width: 72rem; margin: 0 auto; padding: 1rem; }}
 .top {{ border-left: 6px solid {ACCENT}; padding: .25rem 0 .25rem 1rem; margin: .5rem 0 1rem; }}
 .top h1 {{ font-size: 1.5rem; margin: 0; overflow-wrap: anywhere; }}
 .top p {{ margin: .2rem 0; color: {MUTED}; overflow-wrap: anywhere; }}
@@ -473,11 +492,21 @@ figure {{ margin: .8rem 0; overflow-x: auto; }}
 svg.chart {{ width: 100%; height: auto; display: block; }}
 .chart-narrow {{ display: none; }}
 @media (max-width: 34rem) {{ .chart-wide {{ display: none; }} .chart-narrow {{ display: block; }} }}
-.tablewrap {{ overflow-x: auto; margin: .6rem 0; }}
+.tablewrap {{ overflow-x: auto; margin: .6rem 0; max-width: 100%; }}
+/* a table wider than its box scrolls inside it, and the box shows it: a rule around it, shadows at
+   the edge that has more columns (pure CSS: local backgrounds cover the shadows at the ends), and
+   the first column kept in view */
+.tablewrap {{ border: 1px solid {RULE}; border-radius: 4px; padding: 0 .3rem;
+  background: linear-gradient(to right, #fff 30%, rgba(255,255,255,0)) left / 2rem 100% no-repeat local,
+              linear-gradient(to left, #fff 30%, rgba(255,255,255,0)) right / 2rem 100% no-repeat local,
+              radial-gradient(farthest-side at 0 50%, rgba(0,0,0,.25), rgba(0,0,0,0)) left / .8rem 100% no-repeat scroll,
+              radial-gradient(farthest-side at 100% 50%, rgba(0,0,0,.25), rgba(0,0,0,0)) right / .8rem 100% no-repeat scroll,
+              #fff; }}
 table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
 caption, .tabletitle {{ text-align: left; font-weight: 600; padding: .2rem 0; margin: .8rem 0 0; }}
 th, td {{ border-bottom: 1px solid {RULE}; padding: .3rem .7rem .3rem 0; text-align: left; vertical-align: top; overflow-wrap: break-word; }}
-td {{ white-space: nowrap; }} td:first-child {{ white-space: normal; }}
+td {{ white-space: nowrap; }} td:first-child, td.words {{ white-space: normal; }}
+td.words {{ min-width: 5.5rem; }}
 th {{ color: {MUTED}; font-weight: 600; }}
 .changes li {{ margin: .15rem 0; }}
 .notes {{ color: {MUTED}; font-size: .9rem; }}

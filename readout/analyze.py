@@ -14,12 +14,14 @@ from .model import (
     Adjustment,
     ArmRow,
     Decision,
+    Design,
     Effect,
     ExposureEffect,
     GateCheck,
     Interval,
     Look,
     Money,
+    NOT_COVERED,
     ReadoutReport,
 )
 from .decision import ANSWER_WORDS, decide
@@ -213,6 +215,13 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
         return Interval(value=_f(e.value), se=_f(e.se), lo=_f(e.lo), hi=_f(e.hi), p=_f(e.p),
                         anytime_lo=_f(k * lo_a + shift), anytime_hi=_f(k * hi_a + shift))
 
+    days = (date.fromisoformat(as_of) - spec.start.date()).days + 1
+    net = net_year = None
+    if spend:
+        net_est = mf.incremental_profit.scaled(1.0, shift=-spend)
+        net = scaled_iv(net_est, ex.n * cfg.margin, -spend)
+        f = 365.0 / max(days, 1)
+        net_year = scaled_iv(net_est.scaled(f), ex.n * cfg.margin * f, -spend * f)
     cpb = None
     if mf.cost_per_incremental_buyer is not None:
         v, lo, hi = mf.cost_per_incremental_buyer
@@ -226,6 +235,7 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
         incremental_buyers=interval(mf.incremental_buyers),
         cost_per_incremental_buyer=cpb, attributed_revenue=attributed, attributed_roas=_f(mf.attributed_roas),
         incremental_to_attributed=scaled_iv(mf.incremental_to_attributed, ex.n / attributed) if attributed else None,
+        net_contribution=net, net_contribution_per_year=net_year, days=days,
     )
     if spend is None:
         cautions.append("No spend was given (--spend or --spend-file): iROAS, ROI and cost per incremental buyer "
@@ -268,7 +278,11 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
         armlock_version=__version__, status=status, trustworthy=trusted,
         headline=" ".join(x for x in (headline(m, decision, status, failing, level, missing),
                                       cap_sentence(spec, tables.counts, cfg.currency)) if x),
-        reading_advice=READING, estimand=estimand(spec, as_of), cautions=cautions,
+        reading_advice=READING, estimand=estimand(spec, as_of), cautions=cautions, not_covered=NOT_COVERED,
+        design=Design(start=spec.start.date().isoformat(), as_of=as_of, planned_end=decision.planned_end, days=days,
+                      holdout_share=sum(a.weight for a in spec.arms if a.role == "holdout") / 10_000,
+                      arms={a.name: a.role for a in spec.arms}, units=units_total,
+                      planned_units=cfg.planned_units or None),
         gate=[GateCheck(id=c.id, title=c.title, status=c.status, summary=c.summary) for c in checks],
         not_checked=missing,
         arms=rows, effects=effects, adjustment=adjustment, exposure=exposure, money=m, looks=looks,

@@ -64,32 +64,60 @@ def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: l
     no_time = F.col("_t").isNull() & ~empty
     no_rev = (F.col("_rev").isNull() | F.isnan("_rev")) & ~empty & ~no_time
     keep = ~(empty | no_time | no_rev)
-    late = keep & (F.col("_t") >= as_of_cut(as_of))
-    c = rows.agg(F.count(F.lit(1)).alias("n"), *[F.sum(f.cast("long")).alias(a) for a, f in
-                                                  (("e", empty), ("t", no_time), ("r", no_rev), ("l", late))]
-                 ).collect()[0]
-    counts["order_rows"] = int(c["n"])
-    counts["order_empty_keys"] = _set_aside(src, rows, empty, int(c["e"] or 0), key,
+    c0 = rows.agg(F.count(F.lit(1)).alias("n"), *[F.sum(f.cast("long")).alias(a) for a, f in
+                                                   (("e", empty), ("t", no_time), ("r", no_rev))]).collect()[0]
+    counts["order_rows"] = int(c0["n"])
+    counts["order_empty_keys"] = _set_aside(src, rows, empty, int(c0["e"] or 0), key,
                                             "an order needs a key to find its unit", notes)
-    counts["order_missing_time"] = _set_aside(src, rows, no_time, int(c["t"] or 0), co.time, "an order needs a time",
+    counts["order_missing_time"] = _set_aside(src, rows, no_time, int(c0["t"] or 0), co.time, "an order needs a time",
                                               notes)
-    counts["order_missing_revenue"] = _set_aside(src, rows, no_rev, int(c["r"] or 0), co.revenue,
+    counts["order_missing_revenue"] = _set_aside(src, rows, no_rev, int(c0["r"] or 0), co.revenue,
                                                  "an order needs revenue", notes)
-    n_late = int(c["l"] or 0)
+    dup = F.lit(False)
+    if "order_id" in optional:
+        # `readout.load._order_ids`: a sale repeats the first sale row of its id (over every row read);
+        # a refund repeats only an earlier refund of the same id, time and amount; a refund whose id
+        # is a usable sale's is dated at that sale
+        is_ref = F.coalesce(F.col("_rev") < 0, F.lit(False))
+        has = F.col("_oid") != ""
+        rows = rows.withColumn("_ref", is_ref).withColumn("_ok", keep)
+        sale_first = (rows.where(has & ~F.col("_ref")).groupBy("_oid")
+                      .agg(F.min(F.struct(*POS)).alias("_first_sale")))
+        ref_first = (rows.where(has & F.col("_ref")).groupBy("_oid", "_t", "_rev")
+                     .agg(F.min(F.struct(*POS)).alias("_first_ref")))
+        rows = rows.join(sale_first, "_oid", "left").join(ref_first, ["_oid", "_t", "_rev"], "left")
+        sale_dup = has & ~F.col("_ref") & (F.struct(*POS) != F.col("_first_sale"))
+        ref_dup = has & F.col("_ref") & (F.struct(*POS) != F.col("_first_ref"))
+        rows = rows.withColumn("_dup", sale_dup | ref_dup)
+        sale_t = (rows.where(has & ~F.col("_ref") & ~F.col("_dup") & F.col("_ok"))
+                  .select(F.col("_oid"), F.col("_t").alias("_sale_t")))
+        rows = rows.join(sale_t, "_oid", "left")
+        moved = F.col("_ref") & has & F.col("_sale_t").isNotNull()
+        m = rows.agg(F.sum((moved & ~F.col("_dup") & F.col("_ok")).cast("long")).alias("n"),
+                     F.sum((moved & ~F.col("_dup") & F.col("_ok") & (F.col("_t") >= as_of_cut(as_of)))
+                           .cast("long")).alias("late")).collect()[0]
+        n_moved = int(m["n"] or 0)
+        counts["refunds_dated_at_order"] = n_moved
+        if n_moved:
+            notes.append(f"{src.path.name}: {n_moved:,} refund row(s) reuse their order's id and were dated at "
+                         f"their order ({int(m['late'] or 0):,} of them dated after the as-of {as_of}): a refund is "
+                         "netted in the window of the order it refunds")
+        rows = rows.withColumn("_t", F.when(moved, F.col("_sale_t")).otherwise(F.col("_t")))
+        dup = F.col("_dup")
+    late = keep & (F.col("_t") >= as_of_cut(as_of))
+    n_late = int(rows.agg(F.sum(late.cast("long")).alias("l")).collect()[0]["l"] or 0)
     counts["orders_after_as_of"] = n_late
     if n_late:
         notes.append(f"{src.path.name}: {n_late:,} order(s) after the as-of date {as_of} are ignored")
     keep = keep & ~late
     if "order_id" in optional:
-        # the first row of each order id in the file, over every row read (as pandas' duplicated(keep="first"))
-        firsts = rows.where(F.col("_oid") != "").groupBy("_oid").agg(F.min(F.struct(*POS)).alias("_first"))
-        rows = rows.join(firsts, "_oid", "left")
-        dup = (F.col("_oid") != "") & (F.struct(*POS) != F.col("_first")) & keep
+        dup = dup & keep
         n_dup = int(rows.where(dup).count())
         counts["duplicate_orders"] = n_dup
         if n_dup:
             notes.append(f"{src.path.name}: {n_dup:,} row(s) repeat an order id already seen "
-                         f"({src.rows(positions(rows, dup), n_dup)}); each order id was counted once")
+                         f"({src.rows(positions(rows, dup), n_dup)}); each order id was counted once (a refund "
+                         "repeats only with the same id, time and amount)")
         keep = keep & ~dup
     cols = ["_key", "_t", "_rev"] + (["_attr"] if "attributed" in optional else [])
     kept = rows.where(keep).select(*cols).cache()

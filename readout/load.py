@@ -74,17 +74,29 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
     no_rev = frame[REV].isna().to_numpy() & ~empty & ~no_time
     counts["order_missing_revenue"] = _set_aside(src, co.revenue, no_rev, "an order needs revenue", notes)
     keep = ~(empty | no_time | no_rev)
+    if oid is not None:
+        dup, redate = _order_ids(frame, oid, no_oid, keep)
+        moved = redate.notna().to_numpy() & ~dup & keep
+        n_redated = int(moved.sum())
+        late_before = int(((frame[TIME] >= cutoff_of(as_of)).to_numpy() & moved).sum())
+        frame[TIME] = frame[TIME].where(redate.isna(), redate)
+        counts["refunds_dated_at_order"] = n_redated
+        if n_redated:
+            notes.append(f"{src.path.name}: {n_redated:,} refund row(s) reuse their order's id and were dated at "
+                         f"their order ({late_before:,} of them dated after the as-of {as_of}): a refund is netted "
+                         "in the window of the order it refunds")
     late = (frame[TIME] >= cutoff_of(as_of)).to_numpy() & keep
     counts["orders_after_as_of"] = int(late.sum())
     if late.any():
         notes.append(f"{src.path.name}: {int(late.sum()):,} order(s) after the as-of date {as_of} are ignored")
     keep &= ~late
     if oid is not None:
-        dup = (oid.duplicated(keep="first").to_numpy() & ~no_oid) & keep
+        dup &= keep
         counts["duplicate_orders"] = int(dup.sum())
         if dup.any():
             notes.append(f"{src.path.name}: {int(dup.sum()):,} row(s) repeat an order id already seen "
-                         f"({src.rows(np.flatnonzero(dup))}); each order id was counted once")
+                         f"({src.rows(np.flatnonzero(dup))}); each order id was counted once (a refund "
+                         "repeats only with the same id, time and amount)")
         keep &= ~dup
     frame = frame[keep] if not keep.all() else frame
     refunds = frame[REV].to_numpy() < 0
@@ -94,6 +106,31 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
         notes.append(f"{src.path.name}: {int(refunds.sum()):,} refund row(s) (negative revenue, "
                      f"{-counts['refund_total']:,.2f} in total) were kept: revenue is net of refunds")
     return frame.sort_values(TIME, kind="stable").reset_index(drop=True)
+
+
+def _order_ids(frame: pd.DataFrame, oid: pd.Series, no_oid: np.ndarray,
+               keep: np.ndarray) -> tuple[np.ndarray, pd.Series]:
+    """Repeated rows, and the time each refund takes from its order.
+
+    A sale (revenue >= 0) repeating an order id seen earlier in the file is a repeat. A refund
+    (revenue < 0) is a repeat only when its order id, time and amount all repeat an earlier
+    refund: exports often give a refund its order's id, and partial refunds share it. A refund whose
+    order id is a sale's gets that sale's time (the first sale row of the id, when it is usable), so
+    it is netted in the order's window whatever its own date.
+    """
+    is_ref = (frame[REV] < 0).to_numpy()
+    ids = pd.Series(oid.to_numpy(), dtype=object)
+    has = ~np.asarray(no_oid)
+    sale_dup = ids.where(~is_ref).duplicated(keep="first").to_numpy() & has & ~is_ref
+    ref_key = pd.DataFrame({"o": ids, "t": frame[TIME].to_numpy(), "r": frame[REV].to_numpy()})
+    ref_dup = ref_key.where(pd.Series(is_ref)).duplicated(keep="first").to_numpy() & has & is_ref
+    sales = has & ~is_ref & ~sale_dup
+    first_sale = pd.Series(frame[TIME].to_numpy()[sales], index=ids[sales].to_numpy())
+    usable = pd.Series(keep[sales], index=ids[sales].to_numpy())
+    first_sale = first_sale[usable.to_numpy()]
+    when = ids.map(first_sale).where(pd.Series(is_ref & has))
+    redate = pd.Series(pd.to_datetime(when, utc=True), index=frame.index)
+    return sale_dup | ref_dup, redate
 
 
 def load_spend(spec: Spec, path: PathLike, as_of: date, notes: list[str]) -> float:

@@ -115,6 +115,11 @@ class Money(BaseModel):
     attributed_revenue: float | None
     attributed_roas: float | None
     incremental_to_attributed: Interval | None
+    # incremental profit - spend: what the channel earned after its media cost (None without spend)
+    net_contribution: Interval | None = None
+    # the net contribution scaled to 365 days at the test's daily rate (current spend, same effect)
+    net_contribution_per_year: Interval | None = None
+    days: int | None = None  # the test's days from its start to the as-of
 
 
 class Look(BaseModel):
@@ -161,6 +166,29 @@ class Decision(BaseModel):
     units: int
 
 
+class Design(BaseModel):
+    """The test's design in one place, for the page a finance lead reads."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    start: str
+    as_of: str
+    planned_end: str | None
+    days: int
+    holdout_share: float  # share of units the split holds out (from the arm weights)
+    arms: dict[str, str]  # name -> role
+    units: int
+    planned_units: int | None
+
+
+NOT_COVERED = [
+    "Sales in the shop's app, by phone or in stores: only the orders file's orders are counted.",
+    "Effects after the as-of date or beyond the outcome window (longer-term loyalty, repeat buying later).",
+    "What happens at another spend level: the figures hold at the spend of this test.",
+    "Visitors the split never saw (no first visit recorded): they are in neither arm.",
+]
+
+
 class GateCheck(BaseModel):
     """One audit check as the readout's gate reads it."""
 
@@ -204,6 +232,8 @@ class ReadoutReport(BaseModel):
     headline: str
     reading_advice: str  # which interval a weekly reader should use
     estimand: str = ""  # what is estimated, in one line (units, outcome, period)
+    design: Design | None = None
+    not_covered: list[str] = Field(default_factory=list)  # what the test does not measure
     cautions: list[str] = Field(default_factory=list)
     gate: list[GateCheck] = Field(default_factory=list)
     not_checked: list[NotChecked] = Field(default_factory=list)

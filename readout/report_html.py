@@ -176,23 +176,27 @@ def _range(iv: Interval | None, f: Any, anytime: bool = False) -> str:
 def _figures(r: ReadoutReport) -> str:
     m, cur = r.money, r.money.currency
     level = round(100 * (1 - r.settings.get("alpha", 0.05)))
+    at = r.decision.basis == "anytime"  # the interval the decision reads, on the figures too
+    word = f"{level}% anytime" if at else f"{level}%"
     ratio = lambda v: "n/a" if v is None or not math.isfinite(v) else f"{v:.2f}"  # noqa: E731
     pct = lambda v: "n/a" if v is None or not math.isfinite(v) else f"{v * 100:.0f}%"  # noqa: E731
     items = [
-        ("incremental revenue", _money(m.incremental_revenue.value, cur), _range(m.incremental_revenue, lambda v: _money(v, cur))),
-        ("incremental profit", _money(m.incremental_profit.value, cur), _range(m.incremental_profit, lambda v: _money(v, cur))),
+        ("incremental revenue", _money(m.incremental_revenue.value, cur), _range(m.incremental_revenue, lambda v: _money(v, cur), at)),
+        ("incremental profit", _money(m.incremental_profit.value, cur), _range(m.incremental_profit, lambda v: _money(v, cur), at)),
+        ("net contribution after spend", _money(m.net_contribution.value, cur) if m.net_contribution else "n/a",
+         _range(m.net_contribution, lambda v: _money(v, cur), at)),
         ("spend", _money(m.spend, cur), ""),
-        ("iROAS", ratio(m.iroas.value) if m.iroas else "n/a", _range(m.iroas, ratio)),
-        ("ROI", pct(m.roi.value) if m.roi else "n/a", _range(m.roi, pct)),
+        ("iROAS", ratio(m.iroas.value) if m.iroas else "n/a", _range(m.iroas, ratio, at)),
+        ("ROI", pct(m.roi.value) if m.roi else "n/a", _range(m.roi, pct, at)),
         ("cost per incremental buyer", _money(m.cost_per_incremental_buyer.value, cur, 2) if m.cost_per_incremental_buyer else "n/a",
-         _range(m.cost_per_incremental_buyer, lambda v: _money(v, cur, 2))),
+         _range(m.cost_per_incremental_buyer, lambda v: _money(v, cur, 2), at)),
         ("attributed revenue", _money(m.attributed_revenue, cur), ""),
         ("attributed ROAS", ratio(m.attributed_roas), ""),
         ("incremental ÷ attributed", ratio(m.incremental_to_attributed.value) if m.incremental_to_attributed else "n/a",
-         _range(m.incremental_to_attributed, ratio)),
+         _range(m.incremental_to_attributed, ratio, at)),
     ]
     cells = "".join(f"<div><dt>{esc(label)}</dt><dd>{esc(value)}</dd>"
-                    + (f'<dd class="range">{level}%: {esc(rng)}</dd>' if rng else "") + "</div>"
+                    + (f'<dd class="range">{word}: {esc(rng)}</dd>' if rng else "") + "</div>"
                     for label, value, rng in items)
     return f'<dl class="figures">{cells}</dl>'
 
@@ -247,10 +251,10 @@ def render_html(r: ReadoutReport) -> str:
 {decision_box(r)}
 <div class="verdict" data-verdict="{esc(r.status)}" style="color:{fg};background:{bg}" role="status">
 <svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{icon}</svg>
-<div><span class="word">Audit gate: {esc(word)}</span><p class="headline">{esc(r.headline)}</p>
+<div><span class="word">Audit gate: {esc(word)}</span>
 {f'<ul class="gate">{gate_list}</ul>' if gate_list else ''}</div></div>
 <section class="check" id="money" data-section="money"><header><h2>Did it pay?</h2></header>
-<p class="summary">{esc(r.estimand)}</p><p class="summary">{esc(r.reading_advice)}</p>{_figures(r)}{roas}{_table(money_t)}</section>
+<p class="headline">{esc(r.headline)}</p><p class="summary">{esc(r.estimand)}</p><p class="summary">{esc(r.reading_advice)}</p>{_figures(r)}{roas}{_table(money_t)}</section>
 <section class="check" id="over-time" data-section="over-time"><header><h2>The estimate over time</h2></header>
 <p class="summary">Each point is what a reader would have seen at the end of that day: the sand band is the fixed
 interval, the pale blue band the anytime interval. Only the anytime band may be read at every look.</p>{looks}{looks_t}</section>

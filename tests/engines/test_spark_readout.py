@@ -52,7 +52,14 @@ def _files(spec: Spec, directory: Path, fmt: str, seed: int, by_customer: bool =
     early = o.iloc[3:5].copy()
     early["order_time"] = pd.Timestamp("2026-01-01T00:00:00Z")
     extra["order_id"], early["order_id"] = ["x-1", "x-2", "x-3"], ["x-4", "x-5"]
-    o = pd.concat([o, extra, early], ignore_index=True)
+    # refunds that reuse their order's id (readout.load._order_ids): partial, dated after the as-of,
+    # and one exact repeat
+    sales = o[o["revenue"] > 0].iloc[10:16]
+    reused = sales.copy()
+    reused["revenue"] = -5.0
+    reused["order_time"] = [pd.Timestamp("2026-03-01T00:00:00Z")] * 3 + \
+        list(pd.to_datetime(sales["order_time"].iloc[3:], utc=True) + pd.Timedelta(days=1))
+    o = pd.concat([o, extra, early, reused, reused.iloc[-1:]], ignore_index=True)
     logs.visits.loc[logs.visits.index % 17 == 0, "pre_revenue"] = np.nan
     if by_customer:  # orders carry the customer key of their unit's link (units without one keep their id)
         links = logs.identities.drop_duplicates("unit_id").set_index("unit_id")["customer_key"]
@@ -104,6 +111,7 @@ def test_two_arms_by_unit_with_window_and_cap_parquet(spark: Any, tmp_path: Path
     assert c["units_capped"] > 0 and c["orders_after_window"] > 0 and c["units_window_incomplete"] > 0
     assert c["orders_unmatched"] == 3 and c["orders_before_first_seen"] == 2 and c["duplicate_orders"] > 0
     assert c["refund_rows"] > 0 and any("pooled mean" in n for n in p.notes)
+    assert c["refunds_dated_at_order"] >= 3 and any("dated after the as-of" in n for n in p.notes)
     assert sum(m.n for m in p.tables.final.values()) > 400 and len(p.tables.looks) >= 3
     assert_readout_parity(p, s)
     assert _json(spec, p) == _json(spec, s)

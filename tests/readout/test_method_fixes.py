@@ -6,6 +6,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from armlock.assign import spec_from_dict
@@ -141,7 +142,6 @@ def test_window_spend_covers_the_same_units_and_days_as_the_window() -> None:
 def test_window_readout_uses_the_window_spend(tmp_path: Path) -> None:
     from datetime import date
 
-    import pandas as pd
 
     spec = spec_from_dict({"name": "shop", "salt": "fixes-salt", "start": "2026-01-05T00:00:00Z",
                            "arms": [{"name": "holdout", "weight": 2000}, {"name": "exposed", "weight": 8000}],
@@ -157,3 +157,35 @@ def test_window_readout_uses_the_window_spend(tmp_path: Path) -> None:
                       spend_file=sf, as_of=date(2026, 2, 1))
     assert rep.money.spend is not None and 0 < rep.money.spend < 100.0 * DAYS
     assert any("7-day window measures" in n for n in rep.input_notes)
+
+
+def test_refunds_are_netted_whatever_their_id_and_date(tmp_path: Path) -> None:
+    # By hand: unit u000 buys 100 (order A, repeated once by the export), gets a 30 refund under
+    # order A's own id dated after the as-of, and a 20 partial refund under A's id (given twice,
+    # an exact repeat); u002 buys 50 (order B) and gets a 10 refund under its own id "R1". Net:
+    # u000 100 - 30 - 20 = 50; u002 40. Formerly A's refunds were dropped as repeats of A.
+    from armlock.readout.engine_pandas import readout as pandas_readout
+    from armlock.audit.engine import Inputs
+
+    from .helpers import small_spec, visits_frame, write
+
+    spec = small_spec(covariates=[])
+    v = visits_frame(spec, 10)
+    orders = pd.DataFrame([
+        {"unit_id": "u000", "order_time": "2026-01-05T08:00:00Z", "revenue": 100.0, "order_id": "A"},
+        {"unit_id": "u000", "order_time": "2026-01-05T08:00:00Z", "revenue": 100.0, "order_id": "A"},
+        {"unit_id": "u000", "order_time": "2026-02-20T09:00:00Z", "revenue": -30.0, "order_id": "A"},
+        {"unit_id": "u000", "order_time": "2026-01-07T09:00:00Z", "revenue": -20.0, "order_id": "A"},
+        {"unit_id": "u000", "order_time": "2026-01-07T09:00:00Z", "revenue": -20.0, "order_id": "A"},
+        {"unit_id": "u002", "order_time": "2026-01-06T10:00:00Z", "revenue": 50.0, "order_id": "B"},
+        {"unit_id": "u002", "order_time": "2026-01-08T10:00:00Z", "revenue": -10.0, "order_id": "R1"},
+    ])
+    inputs = Inputs(write(tmp_path / "v.csv", v), None, None, write(tmp_path / "o.csv", orders))
+    from datetime import date
+
+    res = pandas_readout(spec, inputs, date(2026, 1, 10), lambda n: None)
+    total = sum(m.total("revenue") for m in res.tables.final.values())
+    assert total == pytest.approx(50.0 + 40.0)
+    said = " ".join(res.notes)
+    assert "2 refund row(s) reuse their order's id" in said and "1 of them dated after the as-of" in said
+    assert "2 row(s) repeat an order id already seen" in said

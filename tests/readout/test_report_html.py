@@ -47,7 +47,8 @@ def test_failing_gate_is_on_top(report) -> None:
                                     "headline": "NOT TRUSTWORTHY: the split audit fails (x)."})
     page = render_html(bad)
     top = page.split('<section', 1)[0]
-    assert 'data-verdict="fail"' in top and "FAIL: not trustworthy" in top and "NOT TRUSTWORTHY" in top
+    assert 'data-verdict="fail"' in top and "FAIL: not trustworthy" in top and "NOT TRUSTWORTHY" in page
+    assert top.index('id="decision"') < top.index('data-verdict="fail"')  # the answer comes first
 
 
 def test_without_spend_no_roas_chart(report) -> None:
