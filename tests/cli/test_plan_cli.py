@@ -249,3 +249,19 @@ def test_readme_example_is_the_live_output(tmp_path: Path) -> None:
         while i < len(out) and out[i] != line:
             i += 1
         assert i < len(out), f"README line not in the live output (or out of order): {line!r}"
+
+
+def test_visits_column_options_without_a_spec(tmp_path: Path) -> None:
+    (tmp_path / "v.csv").write_text("vid,ts,pre_revenue\n" + "".join(
+        f"u{i},2026-10-{1 + i % 14:02d}T10:00:00Z,{(i * 7) % 30}\n" for i in range(600)))
+    (tmp_path / "o.csv").write_text("unit_id,revenue\n" + "".join(f"u{i},{10 + (i * 7) % 30}\n" for i in range(0, 600, 5)))
+    r = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv", "--visits-unit-column", "vid",
+                "--visits-time-column", "ts", "--lift", "20%", "--currency", "EUR", "--format", "json")
+    assert r.returncode == 0, r.stderr
+    d = json.loads(r.stdout)
+    assert d["inputs"]["weekly_units"] == pytest.approx(300.0) and d["inputs"]["currency"] == "EUR"
+    assert d["simulated_revenue"]["resampled_pre_period"] is True  # the shop's own revenue, resampled
+    bad = run_cli(tmp_path, "plan", "--visits", "v.csv", "--orders", "o.csv", "--lift", "20%")
+    assert bad.returncode == 4
+    assert "column 'unit_id' (the default name; --visits-unit-column names another) not found" in bad.stderr
+    assert "spec" not in bad.stderr
