@@ -65,7 +65,8 @@ def alert_message(report: AuditReport, reasons: list[str], previous: dict[str, A
     """One message of at most MAX_CHARS: test, status, what changed, the link (never cut)."""
     head = f"armlock: {report.experiment} is {status_word(report.verdict)} as of {report.as_of}"
     failing = [c.title for c in report.checks if c.status == "fail"]
-    said = changes(previous, row_from_report(report)) if previous else []
+    said = [x for x in (changes(previous, row_from_report(report)) if previous else [])
+            if not x.startswith("the verdict went")]  # the verdict is already said in the reasons
     parts = ["; ".join(reasons)]
     if failing:
         parts.append("failing: " + ", ".join(failing))
