@@ -80,7 +80,8 @@ def choices(p: Plan) -> Table | None:
         (["profit"] if has_profit else []) + ["power", "false wins", ""]
     rows = []
     for s in p.summaries:
-        mark = "<- recommended" if p.recommendation.share is not None and s.share == p.recommendation.share else ""
+        chosen = p.recommendation.share is not None and s.share == p.recommendation.share
+        mark = ("<- recommended" if p.recommendation.status == "pass" else "<- fastest") if chosen else ""
         if s.weeks is not None and s.weeks > p.max_weeks and not mark:
             mark = "too long"
         row = [pct(s.share), weeks_words(s.weeks).replace(" weeks", "") if s.weeks is not None else weeks_words(math.inf),
@@ -89,8 +90,9 @@ def choices(p: Plan) -> Table | None:
                money(s.revenue_forgone) if s.revenue_forgone is not None else ""]
         if has_profit:
             row.append(money(s.profit_forgone) if s.profit_forgone is not None else "")
-        row += [f"{s.power_simulated * 100:.1f}%" if s.power_simulated is not None else "",
-                f"{s.false_win_rate * 100:.1f}%" if s.false_win_rate is not None else "", mark]
+        shown = s.weeks is not None  # a share with no sound design has no rates to show
+        row += [f"{s.power_simulated * 100:.1f}%" if shown and s.power_simulated is not None else "",
+                f"{s.false_win_rate * 100:.1f}%" if shown and s.false_win_rate is not None else "", mark]
         rows.append(row)
     cur = f" in {x.currency}" if x.currency else ""
     return Table(f"Each holdout share: weeks = the whole weeks where the readout's test keeps its level and power "
