@@ -409,6 +409,14 @@ def recommend(p: Plan) -> Recommendation:
         return had + f" at alpha {x.alpha * 100:g}%" + (" using CUPED" if p.cuped else "")
 
     question = " from break-even" if x.against == "break-even" else ""
+    if x.against == "break-even" and all(not math.isfinite(s.weeks_needed) for s in p.summaries):
+        t = p.summaries[-1]
+        assert x.weekly_spend is not None and p.break_even_iroas is not None
+        iroas = t.target_difference * (1 - t.share) * x.weekly_units / x.weekly_spend
+        return Recommendation("fail", None, None,
+                              f"The target's iROAS ({num(iroas)} at a {pct(t.share)} holdout) is not above break-even "
+                              f"({num(p.break_even_iroas)} = 1 / margin): there is no paying channel to tell from "
+                              "break-even; aim at a higher target, or plan with --against zero.")
     sound = [s for s in p.summaries if s.weeks is not None]
     in_time = [s for s in sound if s.weeks <= p.max_weeks]
     if in_time:

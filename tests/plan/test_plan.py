@@ -58,6 +58,8 @@ def test_against_break_even_sizes_for_the_gap_above_break_even() -> None:
     assert pays.summaries[0].weeks_needed / zero.summaries[0].weeks_needed == pytest.approx((4.0 / 1.5) ** 2, rel=1e-9)
     with pytest.raises(InputError, match="--against: break-even needs --margin"):
         PlanInputs(**BASE, lift=0.1, against="break-even")
+    below = make_plan(PlanInputs(**dict(kw, target_iroas=2.0), against="break-even"), shares=[0.2], weeks=[6])
+    assert below.recommendation.status == "fail" and "not above break-even" in below.recommendation.sentence
     rec = make_plan(PlanInputs(**kw, against="break-even"), max_weeks=52).recommendation.sentence
     assert "Against break-even (iROAS 2.50" in rec and "shows the channel pays when its iROAS is" in rec
 
