@@ -38,7 +38,7 @@ def arm_for(spec: Spec, unit_id: str) -> str | None:
 def _keys_careful(salt: str, ids: Sequence[object]) -> list[bytes]:
     """The slow path: lone surrogates as U+FFFD; missing ids get a placeholder key."""
     _missing_positions(ids)  # raises TypeError for ids that are neither str nor missing
-    return [key_bytes(salt, u) if u.__class__ is str else b"" for u in ids]  # type: ignore[arg-type]
+    return [key_bytes(salt, u) if u.__class__ is str else b"" for u in ids]
 
 
 def _missing_positions(ids: Sequence[object]) -> list[int]:
@@ -59,7 +59,7 @@ def hashes_many(salt: str, ids: Sequence[str]) -> list[int]:
     """XXH64 (seed 42) of every salted key; meaningless for missing ids (see assign_many)."""
     h, prefix, seed = _hash, salt + SEPARATOR, SEED
     try:
-        return [h((prefix + u).encode(), seed) for u in ids]  # type: ignore[operator]
+        return [h((prefix + u).encode(), seed) for u in ids]
     except (TypeError, UnicodeEncodeError):
         return list(map(_hash, _keys_careful(salt, ids), repeat(SEED)))
 
@@ -106,6 +106,7 @@ def buckets_and_arms(spec: Spec, ids: Sequence[str | None]) -> tuple[list[int | 
     """Bucket and arm of every id (None for missing ids), for the `assign` command's output."""
     buckets: list[int | None] = [bucket_of_hash(h) for h in hashes_many(spec.salt, ids)]  # type: ignore[arg-type]
     cum, names = spec.cumulative, spec.arm_names
-    arms: list[str | None] = [names[bisect_right(cum, b)] for b in buckets]  # type: ignore[arg-type]
+    # every bucket is an int here (a missing id hashed a placeholder key); _blank_missing clears them below
+    arms: list[str | None] = [names[bisect_right(cum, b)] for b in buckets]  # type: ignore[type-var]
     _blank_missing(ids, buckets, arms)
     return buckets, arms

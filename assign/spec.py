@@ -9,7 +9,7 @@ from datetime import datetime, timezone
 from decimal import Decimal, InvalidOperation
 from functools import cached_property
 from pathlib import Path
-from typing import Any, Literal
+from typing import Any, Final, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
@@ -19,7 +19,7 @@ from .spec_audit import AuditSettings
 from .spec_readout import ReadoutSettings
 from .spec_snippet import SnippetSettings
 
-SPEC_FORMAT = 1
+SPEC_FORMAT: Final = 1
 CONTRACT = "armlock-assign-1"  # name of the frozen contract (shared/CONTRACT.md); part of the fingerprint
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_]{0,63}$"
 EXPERIMENT_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.\-]{0,99}$"
@@ -206,7 +206,7 @@ def _model_at(loc: tuple[int | str, ...]) -> type[BaseModel] | None:
     for part in loc[:-1]:
         if isinstance(part, int):
             continue
-        field = model.model_fields.get(part) if isinstance(model, type) else None
+        field = model.model_fields.get(part) if isinstance(model, type) and issubclass(model, BaseModel) else None
         if field is None:
             return None
         ann = field.annotation
