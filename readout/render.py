@@ -103,11 +103,19 @@ def exposure_table(r: ReadoutReport) -> Table | None:
 
 
 def looks_table(r: ReadoutReport) -> Table:
-    rows = [[lk.date, sum(lk.units.values()), num(lk.difference, 3), span(Interval(value=None, lo=lk.lo, hi=lk.hi),
-             lambda v: num(v, 3)), span(Interval(value=None, anytime_lo=lk.anytime_lo, anytime_hi=lk.anytime_hi),
-                                        lambda v: num(v, 3), anytime=True)] for lk in r.looks]
+    """Each look's estimate with its anytime interval; the fixed interval only at the planned final look
+    (the one look where it is valid, as the decision and the history read it)."""
+    def fixed(lk: Any) -> str:
+        if not (r.decision.final_look and lk.date == r.as_of):
+            return "-"
+        return span(Interval(value=None, lo=lk.lo, hi=lk.hi), lambda v: num(v, 3))
+
+    rows = [[lk.date, sum(lk.units.values()), num(lk.difference, 3),
+             span(Interval(value=None, anytime_lo=lk.anytime_lo, anytime_hi=lk.anytime_hi), lambda v: num(v, 3),
+                  anytime=True), fixed(lk)] for lk in r.looks]
     return Table(title="Revenue per unit difference at each look (primary estimate)",
-                 columns=["as of", "units", "difference", "fixed interval", "anytime interval"], rows=rows)
+                 columns=["as of", "units", "difference", "anytime interval", "fixed interval (final look only)"],
+                 rows=rows)
 
 
 def tables(r: ReadoutReport) -> list[Table]:
