@@ -68,6 +68,8 @@ Files
       the readout of the last week: did the channel cause sales, and did it pay?
   readout.json
       the same readout as JSON
+  readout-finance.html
+      the readout on one printable page for a finance lead: the answer, net contribution, the design
 
 The logs are Parquet, as warehouses export them. To peek at one:
   python -c "import pandas as pd; print(pd.read_parquet('logs/visits.parquet').head())"
@@ -149,6 +151,7 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS, server_
     from armlock.audit import synth
     from armlock.audit.history import default_history_path, load, record, record_readout
     from armlock.audit.report_html import render_html
+    from armlock.readout.report_finance import render_finance
     from armlock.readout.report_html import render_html as render_readout_html
     from armlock.readout.run import run_readout_and_audit
 
@@ -194,6 +197,7 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS, server_
     (folder / "readout.json").write_text(json.dumps(readout.to_json_dict(), indent=2, ensure_ascii=False),
                                          encoding="utf-8")
     (folder / "readout.html").write_text(render_readout_html(readout), encoding="utf-8")
+    (folder / "readout-finance.html").write_text(render_finance(readout), encoding="utf-8")
     (folder / "report.json").write_text(json.dumps(report.to_json_dict(), indent=2, ensure_ascii=False),
                                         encoding="utf-8")
     (folder / "report.html").write_text(render_html(report, load(history, spec.fingerprint),
@@ -204,7 +208,8 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS, server_
                  "identities": paths["identities"], "snippet (html)": folder / "snippet" / "armlock-tag.html",
                  "snippet (js)": folder / "snippet" / "armlock.js", "report (html)": folder / "report.html",
                  "report (json)": folder / "report.json", "orders": paths["orders"],
-                 "readout (html)": folder / "readout.html", "readout (json)": folder / "readout.json"}
+                 "readout (html)": folder / "readout.html", "readout (json)": folder / "readout.json",
+                 "finance page": folder / "readout-finance.html"}
     res.readout_headline, res.readout_status = readout.headline, readout.status
     res.true_incremental_revenue = float(orders.truth["incremental_revenue"])
     inc = readout.money.incremental_revenue

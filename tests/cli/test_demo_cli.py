@@ -203,7 +203,8 @@ def test_demo_prints_the_readout_headline_and_its_page_opens_clean(
             suffix = "-narrow" if width < 544 else ""  # a phone is shown the narrow drawings
             assert charts == [f"readout-roas{suffix}", f"readout-looks{suffix}", f"readout-arms{suffix}"]
             assert page.evaluate("() => document.documentElement.scrollWidth") <= width
-            assert page.inner_text(".verdict").startswith(word)
+            assert page.inner_text(".verdict").startswith("Audit gate: " + word)
+            assert page.inner_text("#decision").startswith(("PAYS", "DOES NOT PAY", "NOT YET KNOWN"))
             page.screenshot(path=str(tmp_path / f"readout-{width}.png"), full_page=True)
         assert seen == {"console_errors": [], "page_errors": [], "dialogs": [], "non_file_requests": [],
                         "failed_requests": []}
