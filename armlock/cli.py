@@ -113,7 +113,9 @@ def main() -> None:
     try:
         app()
     except ArmlockError as exc:
-        typer.echo(f"Error: {exc}", err=True)
+        from armlock.audit.render import strip_controls  # a file name or value never drives the terminal
+
+        typer.echo(f"Error: {strip_controls(str(exc))}", err=True)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         typer.echo("Error: interrupted", err=True)

@@ -12,7 +12,7 @@ from armlock.assign.errors import EXIT_BAD_INPUT
 from armlock.assign.init import parse_arms, render_spec_toml
 from armlock.assign.spec import EXPERIMENT_PATTERN
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, warn_box
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, warn_box, write_atomic
 
 
 def write_new_spec(name: str, *, holdout_share: float = 0.5, arms: str | None = None, out: Path | None = None,
@@ -49,10 +49,7 @@ def write_new_spec(name: str, *, holdout_share: float = 0.5, arms: str | None = 
     salt = new_salt()
     refuse_shared_salt(target, salt)  # a fresh salt never clashes; this guards the rule in one place
     text = render_spec_toml(name, arm_list, salt=salt)
-    try:
-        target.write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise SpecError(f"{target}: cannot write: {exc.strerror}") from None
+    write_atomic(target, text, what="the spec")
     return target, load_spec(target)
 
 

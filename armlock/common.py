@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import errno
+import os
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -68,20 +70,83 @@ def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str]
 
 
 def err(text: str) -> None:
-    """One message on stderr."""
-    typer.echo(text, err=True)
+    """One message on stderr, control characters shown as escapes (data never drives the terminal)."""
+    from armlock.audit.render import strip_controls
+
+    typer.echo(strip_controls(text), err=True)
+
+
+TMP_MARK = ".armlock-tmp"  # temporary files are ".<name>.<pid>.armlock-tmp" beside their target
+
+
+def temp_path(out: Path) -> Path:
+    """The temporary file a write to `out` goes through: same folder (so the rename is atomic), this process's id."""
+    return out.with_name(f".{out.name}.{os.getpid()}{TMP_MARK}")
+
+
+def remove_stale_temps(out: Path) -> None:
+    """Remove temporary files of `out` left by a run that was killed (its process is gone)."""
+    try:
+        leftovers = list(out.parent.glob(f".{out.name}.*{TMP_MARK}"))
+    except OSError:
+        return
+    for tmp in leftovers:
+        pid = tmp.name[len(out.name) + 2:-len(TMP_MARK)]
+        if pid.isdigit() and int(pid) != os.getpid() and not _alive(int(pid)):
+            try:
+                tmp.unlink()
+            except OSError:
+                pass
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:  # it exists but belongs to someone else
+        return True
+    return True
+
+
+def os_error_text(exc: OSError) -> str:
+    """Why a write failed, in words (a full disk says so; the previous file is untouched)."""
+    if exc.errno == errno.ENOSPC:
+        return "the disk is full (nothing was replaced: any previous file is untouched)"
+    if exc.errno == errno.EDQUOT:
+        return "the disk quota is exceeded (nothing was replaced: any previous file is untouched)"
+    return exc.strerror or str(exc)
+
+
+def write_atomic(out: Path, data: str | bytes, *, what: str) -> None:
+    """Write `data` to `out` through a temporary file in the same folder and a rename, so a kill or
+    a full disk never leaves a partial file in place of the previous one. Every file armlock writes
+    goes through here (or, streamed, through `temp_path` and `os.replace`: `io_ids.ArmWriter`)."""
+    if out.is_dir():
+        raise InputError(f"{out}: cannot write {what}: it is a folder; give a file name")
+    remove_stale_temps(out)
+    tmp = temp_path(out)
+    try:
+        with open(tmp, "wb") as f:
+            f.write(data.encode("utf-8") if isinstance(data, str) else data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, out)
+    except OSError as exc:
+        try:
+            tmp.unlink(missing_ok=True)
+        except OSError:
+            pass
+        raise InputError(f"{out}: cannot write {what}: {os_error_text(exc)}") from None
 
 
 def emit(text: str, out: Path | None, *, what: str, done: str) -> None:
-    """A report to `out` (then `done` on stderr) or to stdout; a file that cannot be written is an
-    input error naming it and `what` was being written."""
+    """A report to `out` (atomically, then `done` on stderr) or to stdout; a file that cannot be
+    written is an input error naming it and `what` was being written."""
     if out is None:
         typer.echo(text, nl=False)
         return
-    try:
-        out.write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"{out}: cannot write {what}: {exc.strerror}") from None
+    write_atomic(out, text, what=what)
     err(done)
 
 

@@ -14,6 +14,8 @@ from typing import IO
 
 from armlock.assign import InputError
 
+from .common import os_error_text, remove_stale_temps, temp_path
+
 CHUNK = 200_000
 csv.field_size_limit(16 * 1024 * 1024)
 
@@ -219,7 +221,8 @@ class ArmWriter:
                 raise InputError(f"{out}: cannot write: folder {target.parent} does not exist")
             if target.is_dir():
                 raise InputError(f"{out}: cannot write: it is a directory")
-            self._tmp = target.with_name(f".{target.name}.tmp{os.getpid()}")
+            remove_stale_temps(target)
+            self._tmp = temp_path(target)
 
     def _start(self) -> None:
         """Open the output on the first write (the input has been read successfully by then)."""
@@ -231,7 +234,7 @@ class ArmWriter:
             if self._tmp is not None:
                 self._fh = open(self._tmp, "w", encoding="utf-8", newline="")  # noqa: SIM115
         except OSError as exc:
-            raise InputError(f"{self.out}: cannot write: {exc.strerror}") from None
+            raise InputError(f"{self.out}: cannot write: {os_error_text(exc)}") from None
         self._stream = self._fh or io.TextIOWrapper(sys.stdout.buffer, encoding="utf-8", newline="", write_through=True)
         self._csv = csv.writer(self._stream, lineterminator="\n")
         if not self.ids_only:
@@ -289,4 +292,4 @@ class ArmWriter:
         except OSError as exc:
             if self._tmp is not None:
                 self._tmp.unlink(missing_ok=True)
-            raise InputError(f"{self.out}: cannot write: {exc.strerror or exc}") from None
+            raise InputError(f"{self.out}: cannot write: {os_error_text(exc)}") from None

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 COLUMN = r"^[^\x00-\x1f]{1,200}$"  # a column name: any printable text
 OPTIONAL = r"^[^\x00-\x1f]{0,200}$"  # "" = the file has no such column
@@ -68,6 +68,13 @@ class ReadoutSettings(BaseModel):
     look_days: int = Field(7, ge=1, le=92)  # the cadence of the looks in the over-time chart
     orders: OrderColumns = OrderColumns()
     spend: SpendColumns = SpendColumns()
+
+    @field_validator("window", mode="before")
+    @classmethod
+    def _no_bool_window(cls, v: object) -> object:
+        if isinstance(v, bool):  # TOML true would otherwise read as a one-day window
+            raise ValueError('window is "to_as_of" or a whole number of days from 1 to 730, not true or false')
+        return v
 
     @model_validator(mode="after")
     def _ok(self) -> ReadoutSettings:

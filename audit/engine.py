@@ -198,7 +198,7 @@ def canonical(t: AuditTables) -> AuditTables:
     if t.leakage is not None:
         lt = t.leakage
         leak = replace(lt, holdout_by_campaign=_sorted_index(lt.holdout_by_campaign),
-                       holdout_by_week=lt.holdout_by_week.sort_index())
+                       holdout_by_week=lt.holdout_by_week.sort_index(), daily_rows=dict(sorted(lt.daily_rows.items())))
     churn: ChurnTables | None = None
     if t.churn is not None:
         ct = t.churn

@@ -236,6 +236,8 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
     ua = hash_arms(spec, uniq) if len(uniq) else np.zeros(0, np.int16)
     n_seen_ids = int(np.count_nonzero(exposed_u | pre_u))
     diag = _unseen_diagnostics(uniq, v[UNIT], vset)
+    dn, dc = np.unique(t // NS_DAY, return_counts=True)
+    daily_rows = {str(np.datetime64(int(d), "D")): int(c) for d, c in zip(dn, dc)}
     return LeakageTables(
         rows=len(e), by_arm=by_arm, holdout_by_campaign=by_campaign, holdout_by_week=by_week,
         holdout_first=first,
@@ -245,7 +247,7 @@ def leakage_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> L
         unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
         exposed_ids=n_seen_ids + len(uniq), exposed_rows=exposed_u,
         rows_read=fr.counts.get("exposure_rows", len(e)), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
-        **diag,
+        daily_rows=daily_rows, **diag,
     )
 
 

@@ -456,8 +456,9 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> Generator[list[
     week = _floor_div(_floor_div(F.col("_t"), US_DAY) + 3, 7)
     uns = j.where(~F.col("_seen")).select("_unit").distinct().cache()
     fr.cached.append(uns)
-    rows, pu, camp, wk, unseen, ur, vr = yield [
+    rows, days, pu, camp, wk, unseen, ur, vr = yield [
         j.groupBy("_seen", "_dur", "_eff", "_kind").count(),
+        fr.exposures.groupBy(_floor_div(F.col("_t"), US_DAY).alias("d")).count(),
         per_unit.groupBy("_eff").agg(F.count(F.lit(1)).alias("n"), F.sum("d").alias("d"), F.sum("p").alias("p"),
                                      F.sum("bs").alias("bs"),
                                      F.sum(((F.col("ba") == 1) & (F.col("bs") == 0)).cast("long")).alias("ba")),
@@ -507,6 +508,7 @@ def leakage_tables(spec: Spec, fr: SparkFrames, v: DataFrame) -> Generator[list[
         pre_rows=pre_rows, unseen_ids=n_unseen, unseen_rows=unseen_rows,
         unseen_by_arm={a: unseen_by.get(i, 0) for i, a in enumerate(arms)}, exposed_ids=n_seen_ids + n_unseen,
         rows_read=fr.counts.get("exposure_rows", n_rows), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
+        daily_rows={_label(int(r["d"])): int(r["count"]) for r in sorted(days, key=lambda r: r["d"])},
         **diagnostics)  # type: ignore[arg-type]
 
 

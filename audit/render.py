@@ -25,6 +25,25 @@ def strip_controls(text: str) -> str:
                         else f"\\u{ord(m.group()):04x}", text)
 
 
+_MD_SPECIAL = re.compile(r"([\\`*_\[\]|#~])")
+_AUTOLINK = re.compile(r"(?i)(://|www\.|@)")
+
+
+def md_text(text: str) -> str:
+    """Text from data (ids, names, file names, notes) made inert in markdown, on one line: markdown
+    syntax backslash-escaped (CommonMark lets any ASCII punctuation be escaped), HTML escaped as
+    entities (no raw tag survives), autolinks broken ("://", "www.", "@"), a leading list or heading
+    marker escaped, table pipes escaped, control characters shown as escapes. Every markdown output
+    (audit, readout, plan) writes data through this one function."""
+    s = text.replace("\r\n", " ").replace("\r", " ").replace("\n", " ")
+    s = _MD_SPECIAL.sub(r"\\\1", s)
+    s = s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+    s = _AUTOLINK.sub(lambda m: {"://": ":\\/\\/", "@": "\\@"}.get(m.group(1), m.group(1)[:3] + "\\."), s)
+    s = re.sub(r"^(\s*)([-+=]|\d+[.)])", lambda m: m.group(1) + "\\" + m.group(2) if m.group(2)[0] in "-+="
+               else m.group(1) + m.group(2)[:-1] + "\\" + m.group(2)[-1], s)
+    return strip_controls(s)
+
+
 MARK = STATUS_WORD  # the one word per status (audit/words.py)
 fmt_value = format_value
 
@@ -87,10 +106,7 @@ def render_text(r: AuditReport) -> str:
     return strip_controls("\n".join(out).rstrip()) + "\n"
 
 
-def _md_escape(s: str) -> str:
-    """Text from data made inert in markdown: HTML escaped (no raw tags), table pipes escaped, one line."""
-    s = s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-    return strip_controls(s.replace("|", "\\|").replace("\r", " ").replace("\n", " "))
+_md_escape = md_text
 
 
 def md_table(t: Table) -> str:

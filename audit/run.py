@@ -3,13 +3,14 @@
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from datetime import date, datetime, UTC
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 
 from armlock.assign import Spec, __version__
 
 from .balance import check_balance
 from .churn import check_churn
+from .feeds import FeedHealth, check_feeds, feed_health
 from .engine import Engine, EngineResult, Inputs, canonical, file_bytes, select_engine
 from .integrity import check_integrity
 from .leakage import check_leakage
@@ -50,8 +51,12 @@ def verdict_text(verdict: str, checks: list[Check], missing: list[NotChecked]) -
 
 
 def checks_from_tables(spec: Spec, tables: AuditTables, counts: dict[str, int],
-                       split_changes: list[str] | None = None) -> list[Check]:
-    """The statistics and verdicts, from sufficient statistics only (engine-independent)."""
+                       split_changes: list[str] | None = None, as_of: date | None = None,
+                       more_feeds: Sequence[tuple[FeedHealth, str]] = ()) -> list[Check]:
+    """The statistics and verdicts, from sufficient statistics only (engine-independent).
+
+    `as_of` is the day every feed should reach (default: the last first-seen day); `more_feeds`
+    adds other feeds' health (the readout's orders) to the feed-health check."""
     return [
         check_srm(spec, tables.split),
         check_srm_segments(spec, tables.split),
@@ -59,7 +64,23 @@ def checks_from_tables(spec: Spec, tables: AuditTables, counts: dict[str, int],
         check_leakage(spec, tables.leakage),
         check_churn(spec, tables.churn),
         check_balance(spec, tables.balance),
+        check_feeds([*audit_feeds(spec, tables, as_of), *more_feeds]),
     ]
+
+
+def audit_feeds(spec: Spec, tables: AuditTables, as_of: date | None) -> list[tuple[FeedHealth, str]]:
+    """The visits' and the exposure log's health: new visitors up to the as-of date, or the spec's
+    `end` once enrolment has ended; exposures up to the as-of date."""
+    daily = tables.split.daily
+    per_day = {str(d): int(n) for d, n in zip(daily.index, daily.sum(axis=1))} if len(daily) else {}
+    start = spec.start.date()
+    last = max((date.fromisoformat(d) for d, n in per_day.items() if n), default=start)
+    day = as_of or last
+    visits_until = min(day, (spec.end - timedelta(microseconds=1)).date()) if spec.end is not None else day
+    out = [(feed_health("visits", per_day, visits_until, since=start), "new units")]
+    if tables.leakage is not None and tables.leakage.rows:
+        out.append((feed_health("exposures", tables.leakage.daily_rows, day, since=start), "exposure rows"))
+    return out
 
 
 def run_audit(
@@ -115,7 +136,7 @@ def build_report(spec: Spec, res: EngineResult, split_changes: list[str] | None 
                  extra: Sequence[Check] = ()) -> AuditReport:
     """The report from an engine's result: statistics and verdicts on the canonical tables (and
     `extra` checks computed beside the engine, such as independence from concurrent tests)."""
-    checks = checks_from_tables(spec, canonical(res.tables), res.counts, split_changes or [])
+    checks = checks_from_tables(spec, canonical(res.tables), res.counts, split_changes or [], as_of=res.as_of)
     return report_from_checks(spec, res, res.as_of, [*checks, *extra])
 
 

@@ -424,3 +424,29 @@ def write_orders(orders: SyntheticOrders, directory: str | Path, fmt: str = "csv
     else:
         orders.orders.to_csv(path, index=False, date_format="%Y-%m-%dT%H:%M:%S.%fZ")
     return path
+
+
+# Weekday factors (Monday first) and holiday dips of the invented shop's daily traffic: made-up
+# shapes of a typical shop (weekends lower; a few holidays a year at a third to two thirds of a
+# usual day, a slow week around the year's end), for calibrating the feed-health check.
+WEEKDAY_FACTORS = (1.0, 1.02, 1.0, 0.97, 0.92, 0.7, 0.66)
+
+
+def healthy_daily_counts(rng: np.random.Generator, days: int, level: float, *, decay_days: float | None = 60.0,
+                         start_weekday: int = 0, holidays: int = 4, noise_cv: float = 0.12) -> np.ndarray:
+    """Rows per day of a healthy feed (no outage): `level` rows on a usual first day, front-loaded
+    by `decay_days` (new visitors; None for a flat feed like exposures or orders), weekday swings,
+    `holidays` random single days at 35-65% of usual, one slow week at 60-80%, day-to-day
+    overdispersion (gamma, coefficient of variation `noise_cv`) and Poisson counts. Invented."""
+    d = np.arange(days)
+    mean = level * np.asarray(WEEKDAY_FACTORS)[(d + start_weekday) % 7]
+    if decay_days:
+        mean = mean * np.exp(-d / decay_days)
+    factor = np.ones(days)
+    if holidays and days > 1:
+        factor[rng.choice(days, size=min(holidays, days), replace=False)] = rng.uniform(0.35, 0.65, size=min(holidays, days))
+    if days > 14:
+        w = int(rng.integers(0, days - 7))
+        factor[w:w + 7] *= rng.uniform(0.6, 0.8)
+    shape = 1.0 / noise_cv**2
+    return rng.poisson(mean * factor * rng.gamma(shape, 1.0 / shape, size=days))

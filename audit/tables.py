@@ -116,6 +116,10 @@ class LeakageTables:
     unseen_match_without_prefix: int = 0  # unseen ids that are a visit id once that prefix is removed
     visits_prefix: str = ""  # the longest prefix every visit id shares (at most 40 characters)
     unseen_match_with_visits_prefix: int = 0  # unseen ids that are a visit id once that prefix is added
+    # Exposure rows per UTC day of their time (YYYY-MM-DD -> rows; every row kept after the as-of
+    # cut, matched to a visit or not): the feed-health check (audit/feeds.py) reads where the log
+    # ends and its outage days. pandas: a bincount of the day numbers; Spark: a group-by on the day.
+    daily_rows: dict[str, int] = field(default_factory=dict)
 
 
 @dataclass

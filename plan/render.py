@@ -8,6 +8,8 @@ import textwrap
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from armlock.audit.render import md_text, strip_controls
+
 from .compute import MAX_WEEKS, cash, money, num, pct, weeks_words
 from .soundness import SIMS
 from .model import Cell, Plan
@@ -183,27 +185,26 @@ def render_text(p: Plan, *, full: bool = False) -> str:
             parts += wrap(n, "  - ", "    ")
     if not full:
         parts += ["", "(--full adds the detectable effect and iROAS for every share and duration, and the assumptions)"]
-    return "\n".join(parts) + "\n"
+    return strip_controls("\n".join(parts)) + "\n"  # data never moves the cursor or retitles the terminal
 
 
-def _md_cell(v: str) -> str:
-    return v.replace("|", "\\|")
+_md_cell = md_text  # every text of the markdown goes through the one escaper (HTML, markdown, controls)
 
 
 def render_markdown(p: Plan) -> str:
     rec = p.recommendation
-    parts = ["# Holdout plan", "", *(f"- {line}" for line in headline(p)), "",
-             f"**{STATUS_WORDS[rec.status].capitalize()}:** {rec.sentence}", ""]
+    parts = ["# Holdout plan", "", *(f"- {md_text(line)}" for line in headline(p)), "",
+             f"**{STATUS_WORDS[rec.status].capitalize()}:** {md_text(rec.sentence)}", ""]
     if p.estimates:
         parts += ["## Estimated from the pre-period files", "",
-                  *(f"- {e.name}: {e.value:.6g} ({e.how})" for e in p.estimates), ""]
+                  *(f"- {md_text(e.name)}: {e.value:.6g} ({md_text(e.how)})" for e in p.estimates), ""]
     for t in tables(p):
-        parts += [f"**{t.title}**", "", "| " + " | ".join(_md_cell(h) for h in t.header) + " |",
+        parts += [f"**{md_text(t.title)}**", "", "| " + " | ".join(_md_cell(h) for h in t.header) + " |",
                   "|" + "|".join(["---"] + ["---:"] * (len(t.header) - 1)) + "|",
                   *("| " + " | ".join(_md_cell(v) for v in r) + " |" for r in t.rows), ""]
-    parts += [weekly_reading_line(p), "", "## Assumptions", "", *(f"- {a}" for a in p.assumptions)]
+    parts += [md_text(weekly_reading_line(p)), "", "## Assumptions", "", *(f"- {md_text(a)}" for a in p.assumptions)]
     if p.notes:
-        parts += ["", "## Notes", "", *(f"- {n}" for n in p.notes)]
+        parts += ["", "## Notes", "", *(f"- {md_text(n)}" for n in p.notes)]
     return "\n".join(parts) + "\n"
 
 

@@ -9,6 +9,7 @@ Every sum is exact or taken in a fixed order (`readout.rules`), so the Spark eng
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from datetime import date
 
@@ -57,11 +58,18 @@ def grouped_moments(names: tuple[str, ...], data: np.ndarray, group: np.ndarray,
     means = np.array([means_of(int(n[g]), sums[g * k:(g + 1) * k]) for g in range(groups)]).reshape(groups, k)
     d = data - means[group]
     ia, ib = (np.array(x, dtype=np.int64) for x in zip(*pairs(k)))
-    prods = d[:, ia] * d[:, ib]
+    with np.errstate(over="ignore", invalid="ignore"):  # values near 1e308: their products overflow
+        prods = d[:, ia] * d[:, ib]
     p = len(ia)
-    cross = grouped_exact_sums(prods.ravel(), np.repeat(group.astype(np.int64) * p, p)
-                               + np.tile(np.arange(p, dtype=np.int64), len(data)), groups * p)
-    return [moments_of(names, int(n[g]), means[g], cross[g * p:(g + 1) * p]) for g in range(groups)]
+    cell = np.repeat(group.astype(np.int64) * p, p) + np.tile(np.arange(p, dtype=np.int64), len(data))
+    cross = grouped_exact_sums(prods.ravel(), cell, groups * p)
+    out = [moments_of(names, int(n[g]), means[g], cross[g * p:(g + 1) * p]) for g in range(groups)]
+    bad = ~np.isfinite(prods.ravel())
+    if bad.any():  # an overflowing product: that co-moment is infinite (the exact sum skips non-finite values)
+        for c in np.unique(cell[bad]):
+            g, j = divmod(int(c), p)
+            out[g].m2[ia[j], ib[j]] = out[g].m2[ib[j], ia[j]] = math.inf
+    return out
 
 
 def _customer_positions(spec: Spec, fr: Frames, arm: np.ndarray, vset: object,
@@ -143,6 +151,8 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
         pos = positions(orders[KEY], vset)
     t = orders[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
     rev = orders[REV].to_numpy(dtype=np.float64)
+    dn, dc = np.unique(t // NS_DAY, return_counts=True)
+    orders_daily = {str(np.datetime64(int(d), "D")): int(c) for d, c in zip(dn, dc)}
     matched = pos >= 0
     counts["orders_unmatched"] = int((~matched).sum())
     if (~matched).any():
@@ -219,4 +229,5 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
         r = revenue if lim >= cutoff else unit_sums(lim)[0]
         looks.append((d.isoformat(), moments(look_names(covs), keep, [capped_(r), *xs])))
     return ReadoutTables(arms=arms, covariates=covs, final=final, looks=looks, attributed=attributed,
-                         counts=counts, units=(v[UNIT][included], v[TIME][included], capped_(revenue)[included]))
+                         counts=counts, units=(v[UNIT][included], v[TIME][included], capped_(revenue)[included]),
+                         orders_daily=orders_daily)

@@ -12,7 +12,7 @@ set, the distinct unit revenues near the cap's quantile (to pick its order stati
 from __future__ import annotations
 
 from collections.abc import Callable
-from datetime import date
+from datetime import date, timedelta
 
 import pandas as pd
 from pyspark.sql import Column, DataFrame, SparkSession
@@ -41,6 +41,10 @@ def readout_tables(spark: SparkSession, spec: Spec, inputs: Inputs, fr: SparkFra
     orders = load_orders(spark, spec, str(inputs.orders), as_of, notes, counts)
     fr.cached.append(orders)
     advance(file_bytes(inputs.orders))
+    day_no = F.expr(f"CASE WHEN _t >= 0 THEN _t div {US_DAY} ELSE -((-_t - 1) div {US_DAY}) - 1 END")  # floor
+    days = orders.groupBy(day_no.alias("d")).count().collect()
+    orders_daily = {(date(1970, 1, 1) + timedelta(days=int(r["d"]))).isoformat(): int(r["count"])
+                    for r in sorted(days, key=lambda r: r["d"])}
     arms, k = list(spec.arm_names), len(spec.arms)
     covs = list(cfg.covariates)
     cut = as_of_cut(as_of)
@@ -159,7 +163,7 @@ def readout_tables(spark: SparkSession, spec: Spec, inputs: Inputs, fr: SparkFra
     tables = _moments(u, groups, k)
     looks = [(day, dict(zip(arms, ms))) for day, ms in zip(look_of, tables[1:]) if sum(m.n for m in ms)]
     return (ReadoutTables(arms=arms, covariates=covs, final=dict(zip(arms, tables[0])), looks=looks,
-                          attributed=attributed, counts=counts), notes)
+                          attributed=attributed, counts=counts, orders_daily=orders_daily), notes)
 
 
 def _revenue_upto(limit: int | None) -> Column:

@@ -11,7 +11,7 @@ from datetime import date
 from pyspark.sql import Column, DataFrame, SparkSession
 from pyspark.sql import functions as F
 
-from armlock.assign import Spec
+from armlock.assign import InputError, Spec
 from armlock.audit.engine_spark import exact_sums
 from armlock.audit.engine_spark_read import (
     POS,
@@ -27,11 +27,13 @@ from armlock.audit.engine_spark_read import (
     times_column,
 )
 
+from .load import REVENUE_MAX
+
 
 def _set_aside(src: SparkSource, rows: DataFrame, flag: Column, n: int, col: str, why: str,
-               notes: list[str]) -> int:
+               notes: list[str], what: str = "an empty") -> int:
     if n:
-        notes.append(f"{src.path.name}: {n:,} row(s) with an empty '{col}' ({src.rows(positions(rows, flag), n)}) "
+        notes.append(f"{src.path.name}: {n:,} row(s) with {what} '{col}' ({src.rows(positions(rows, flag), n)}) "
                      f"were set aside: {why}")
     return n
 
@@ -53,6 +55,9 @@ def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: l
             notes.append(f"{src.path.name}: no '{col}' column ([readout.orders] {name}); "
                          + ("orders are not de-duplicated" if name == "order_id"
                             else "attributed revenue comes only from --attributed-revenue"))
+    if raw.schema[co.revenue].dataType.simpleString() == "boolean":
+        raise InputError(f"{src.path}: column '{co.revenue}' ([readout.orders] revenue) holds true/false values, "
+                         "not amounts: map the order's revenue column")
     sel = [ids_column(src, raw, key, notes).alias("_key"), times_column(src, raw, co.time, notes).alias("_t"),
            numbers_column(src, raw, co.revenue).alias("_rev")]
     if "attributed" in optional:
@@ -63,9 +68,18 @@ def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: l
     empty = F.col("_key") == ""
     no_time = F.col("_t").isNull() & ~empty
     no_rev = (F.col("_rev").isNull() | F.isnan("_rev")) & ~empty & ~no_time
-    keep = ~(empty | no_time | no_rev)
+    huge = (F.abs(F.col("_rev")) >= REVENUE_MAX) & (F.abs(F.col("_rev")) != float("inf"))
+    n_huge = rows.where(huge).count()
+    if n_huge:
+        first = rows.where(huge).orderBy(*POS).select("_rev").first()[0]  # type: ignore[index]
+        raise InputError(f"{src.path}: column '{co.revenue}' ([readout.orders] revenue) has {n_huge:,} value(s) "
+                         f"of {REVENUE_MAX:.0e} or more ({src.rows(positions(rows, huge), n_huge)}; e.g. "
+                         f"{first:.6g}): an order's revenue is an amount; map the right column or fix the export")
+    inf_rev = (F.abs(F.col("_rev")) == float("inf")) & ~empty & ~no_time
+    keep = ~(empty | no_time | no_rev | inf_rev)
     c0 = rows.agg(F.count(F.lit(1)).alias("n"), *[F.sum(f.cast("long")).alias(a) for a, f in
-                                                   (("e", empty), ("t", no_time), ("r", no_rev))]).collect()[0]
+                                                   (("e", empty), ("t", no_time), ("r", no_rev), ("i", inf_rev))]
+                  ).collect()[0]
     counts["order_rows"] = int(c0["n"])
     counts["order_empty_keys"] = _set_aside(src, rows, empty, int(c0["e"] or 0), key,
                                             "an order needs a key to find its unit", notes)
@@ -73,6 +87,8 @@ def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: l
                                               notes)
     counts["order_missing_revenue"] = _set_aside(src, rows, no_rev, int(c0["r"] or 0), co.revenue,
                                                  "an order needs revenue", notes)
+    counts["order_infinite_revenue"] = _set_aside(src, rows, inf_rev, int(c0["i"] or 0), co.revenue,
+                                                  "an order's revenue is an amount", notes, "an infinite")
     dup = F.lit(False)
     if "order_id" in optional:
         # `readout.load._order_ids`: a sale repeats the first sale row of its id (over every row read);

@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from armlock.assign import InputError, Spec
 from armlock.audit.exactsum import rounded_sum
@@ -28,12 +29,15 @@ from armlock.audit.read import (
 
 PathLike = str | Path
 KEY, REV, ATTR = "_key", "_revenue", "_attributed"
+# No single order is worth a quadrillion in any currency; larger (finite) values are a wrong column
+# or a broken export, and near 1e308 their sums overflow a float (our choice; both engines refuse).
+REVENUE_MAX = 1e15
 
 
-def _set_aside(src: Source, col: str, mask: np.ndarray, why: str, notes: list[str]) -> int:
+def _set_aside(src: Source, col: str, mask: np.ndarray, why: str, notes: list[str], what: str = "an empty") -> int:
     n = int(mask.sum())
     if n:
-        notes.append(f"{src.path.name}: {n:,} row(s) with an empty '{col}' ({src.rows(np.flatnonzero(mask), n)}) "
+        notes.append(f"{src.path.name}: {n:,} row(s) with {what} '{col}' ({src.rows(np.flatnonzero(mask), n)}) "
                      f"were set aside: {why}")
     return n
 
@@ -57,6 +61,9 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
             notes.append(f"{src.path.name}: no '{col}' column ([readout.orders] {name}); "
                          + ("orders are not de-duplicated" if name == "order_id"
                             else "attributed revenue comes only from --attributed-revenue"))
+    if pa.types.is_boolean(table.column(co.revenue).type):
+        raise InputError(f"{src.path}: column '{co.revenue}' ([readout.orders] revenue) holds true/false values, "
+                         "not amounts: map the order's revenue column")
     ids, empty = read_ids(src, table, key, notes)
     frame = pd.DataFrame({KEY: ids, TIME: read_times(src, table, co.time, notes),
                           REV: read_numbers(src, table, co.revenue)})
@@ -73,7 +80,16 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
     counts["order_missing_time"] = _set_aside(src, co.time, no_time, "an order needs a time", notes)
     no_rev = frame[REV].isna().to_numpy() & ~empty & ~no_time
     counts["order_missing_revenue"] = _set_aside(src, co.revenue, no_rev, "an order needs revenue", notes)
-    keep = ~(empty | no_time | no_rev)
+    rev = frame[REV].to_numpy()
+    huge = np.flatnonzero(np.isfinite(rev) & (np.abs(rev) >= REVENUE_MAX))
+    if len(huge):
+        raise InputError(f"{src.path}: column '{co.revenue}' ([readout.orders] revenue) has {len(huge):,} value(s) "
+                         f"of {REVENUE_MAX:.0e} or more ({src.rows(huge)}; e.g. {rev[huge[0]]:.6g}): an order's "
+                         "revenue is an amount; map the right column or fix the export")
+    inf_rev = np.isinf(rev) & ~empty & ~no_time
+    counts["order_infinite_revenue"] = _set_aside(src, co.revenue, inf_rev, "an order's revenue is an amount",
+                                                  notes, "an infinite")
+    keep = ~(empty | no_time | no_rev | inf_rev)
     if oid is not None:
         dup, redate = _order_ids(frame, oid, no_oid, keep)
         moved = redate.notna().to_numpy() & ~dup & keep

@@ -8,7 +8,7 @@ from collections.abc import Callable
 from typing import Any
 
 from armlock.audit.model import Table
-from armlock.audit.render import json_text, md_table, text_table
+from armlock.audit.render import json_text, md_table, md_text, strip_controls, text_table
 from armlock.audit.words import STATUS_WORD
 
 from .decision import ANSWER_WORDS
@@ -185,11 +185,10 @@ def render_text(r: ReadoutReport) -> str:
     if r.exposure:
         out.append("Assumptions of the effect on the exposed:")
         out += [f"  - {a}" for a in r.exposure[0].assumptions]
-    return "\n".join(out).rstrip() + "\n"
+    return strip_controls("\n".join(out).rstrip()) + "\n"  # data never moves the cursor or retitles the terminal
 
 
-def _md(s: str) -> str:
-    return s.replace("|", "\\|").replace("\n", " ")
+_md = md_text  # data-derived text made inert (HTML, markdown, autolinks, control characters)
 
 
 def render_markdown(r: ReadoutReport) -> str:

@@ -7,6 +7,7 @@ and serve both.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Sequence
 from datetime import date, timedelta
 from pathlib import Path
@@ -19,6 +20,8 @@ from armlock.audit.run import checks_from_tables, report_from_checks
 from .analyze import analyze
 from .load import load_spend_days
 from .money import window_spend
+from .orders import check_orders
+from .tables import COV_PREFIX, ReadoutTables
 from .model import ReadoutReport
 
 PathLike = str | Path
@@ -74,8 +77,10 @@ def run_readout_and_audit(
     """
     if spend is not None and spend_file is not None:
         raise InputError("give either --spend or --spend-file, not both")
-    if spend is not None and spend < 0:
-        raise InputError(f"--spend must not be negative, got {spend}")
+    if spend is not None and not (math.isfinite(spend) and spend >= 0):
+        raise InputError(f"--spend must be a finite amount of zero or more, got {spend}")
+    if attributed_revenue is not None and not math.isfinite(attributed_revenue):
+        raise InputError(f"--attributed-revenue must be a finite amount, got {attributed_revenue}")
     eng = select_engine(engine) if isinstance(engine, str) else engine
     res = eng.readout(spec, Inputs(visits, exposures, identities, orders), as_of, advance or (lambda n: None))
     report, audit = reports_from_result(spec, res, spend=spend, spend_file=spend_file,
@@ -106,8 +111,12 @@ def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None =
                         has_exposures: bool = True) -> tuple[ReadoutReport, AuditReport]:
     """The readout and its audit from an engine's `ReadoutResult`: statistics on the tables only."""
     used = res.audit.as_of
-    checks = checks_from_tables(spec, canonical(res.audit.tables), res.audit.counts, split_changes or [])
+    checks = checks_from_tables(spec, canonical(res.audit.tables), res.audit.counts, split_changes or [],
+                                as_of=used)
     audit = report_from_checks(spec, res.audit, used, checks)
+    _finite_moments(res.tables)
+    # the readout's gate: the audit's checks and the orders feed (rows used, match, coverage, freshness)
+    gate = [*checks, check_orders(spec, res.tables, used)]
     notes = [_readout_note(n, used) for n in res.audit.notes] + list(res.notes)
     window = spec.readout.window
     if spend_file is not None or (spend is not None and window != "to_as_of"):
@@ -129,6 +138,17 @@ def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None =
                          "iROAS, ROI and cost per buyer use it")
             spend = kept
     attributed = attributed_revenue if attributed_revenue is not None else res.tables.attributed
-    report = analyze(spec, res.tables, as_of=used.isoformat(), checks=checks, spend=spend, attributed=attributed,
+    report = analyze(spec, res.tables, as_of=used.isoformat(), checks=gate, spend=spend, attributed=attributed,
                      notes=notes, has_exposures=has_exposures)
     return report, audit
+
+
+def _finite_moments(tables: ReadoutTables) -> None:
+    """Refuse covariates whose sums overflow a float (values near 1e308): no estimate can use them."""
+    for arm, m in tables.final.items():
+        for i, name in enumerate(m.names):
+            if not (math.isfinite(float(m.means[i])) and math.isfinite(float(m.m2[i, i]))):
+                what = (f"covariate '{name.removeprefix(COV_PREFIX)}' of the visits" if name.startswith(COV_PREFIX)
+                        else f"the orders' {name}")
+                raise InputError(f"{what} has values too large to sum in arm {arm} (near 1e308): "
+                                 "fix the column or leave it out of [readout] covariates")

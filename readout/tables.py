@@ -116,3 +116,7 @@ class ReadoutTables:
     # the units in `final`, for the 2x2 readout with a concurrent test (`readout/factorial.py`).
     # A distributed engine leaves it None, and that readout says it needs an embedded engine.
     units: tuple[Any, Any, Any] | None = None
+    # Order rows per UTC day of their time (YYYY-MM-DD -> rows), every row kept after the as-of cut
+    # and the set-aside rules, matched to a visit or not: the feed-health check reads where the
+    # orders end and their outage days. pandas: a bincount of day numbers; Spark: a group-by on the day.
+    orders_daily: dict[str, int] = field(default_factory=dict)

@@ -26,7 +26,7 @@ EXPECTED: dict[str, dict[str, str]] = {
     "cookie_churn": {"churn": "fail"},
     "imbalance": {"balance": "warn"},
 }
-CHECKS = ("srm", "srm_segments", "integrity", "leakage", "churn", "balance")
+CHECKS = ("srm", "srm_segments", "integrity", "leakage", "churn", "balance", "freshness")
 
 
 def _run(spec: Spec, tmp: Path, fault: str, fmt: str) -> tuple[AuditReport, dict[str, object]]:

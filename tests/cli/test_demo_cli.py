@@ -17,7 +17,7 @@ from armlock.assign import load_spec
 from armlock.audit.model import AuditReport
 from tests.report.browser import open_page
 
-CHARTS = {"srm": 2, "srm_segments": 0, "integrity": 0, "leakage": 1, "churn": 1, "balance": 1, "history": 1}
+CHARTS = {"srm": 2, "srm_segments": 0, "integrity": 0, "leakage": 1, "churn": 1, "balance": 1, "freshness": 0, "history": 1}
 COUNT_CHARTS = """() => Object.fromEntries([...document.querySelectorAll('section[data-check]')]
     .map(s => [s.dataset.check, [...s.querySelectorAll('svg[data-chart]')]
     .filter(c => c.getBoundingClientRect().width > 0).length]))"""  # the drawing shown at this width

@@ -185,8 +185,11 @@ def test_7_an_as_of_after_the_data_is_said(logs: tuple[Path, dict[str, Path]], t
     assert render_text(rep).startswith("armlock audit: mistakes   as of 2026-03-01 (data through 2026-02-01 only)")
     r = cli(tmp_path, "audit", "--spec", spec.name, "--visits", str(paths["visits"]), "--as-of", "2026-03-01",
             "--record", "--format", "json")
-    assert r.returncode in (0, 3), r.stderr
+    # 28 days without a new visitor is a stale feed: the audit fails on it (exit 7, stale data; issue #20)
+    assert r.returncode == 7, r.stderr
     assert "Recorded under 2026-03-01, but the visits end on 2026-02-01" in r.stderr.decode()
+    fresh = next(c for c in rep.checks if c.id == "freshness")
+    assert fresh.status == "fail" and fresh.summary.startswith("The visits feed ends on 2026-02-01, 28 day(s) before")
 
 
 # 8. ------------------------------------------------------------------------------------------

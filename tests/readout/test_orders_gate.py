@@ -1,0 +1,103 @@
+"""The readout never answers "trustworthy" from a broken orders export (issue #20): orders that match
+no visit, a header-only file, every row set aside, one arm's orders only, 90% unmatched, infinite or
+true/false revenue, --spend inf, `window = true`."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from armlock.assign import InputError, SpecError, assign_many, spec_from_dict
+from armlock.audit.synth import generate, generate_orders, write_logs
+from armlock.readout.run import run_readout
+
+SPEC = spec_from_dict({"name": "orders-gate", "salt": "invented-orders-2026", "start": "2026-01-05T00:00:00Z",
+                       "arms": [{"name": "holdout", "weight": 3000}, {"name": "exposed", "weight": 7000}]})
+
+
+@pytest.fixture(scope="module")
+def shop(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Path], pd.DataFrame]:
+    logs = generate(SPEC, units=6_000, days=28, seed=21)
+    folder = tmp_path_factory.mktemp("orders-gate")
+    paths = write_logs(logs, folder, "parquet")
+    orders = generate_orders(SPEC, logs, days=28, seed=22, base_rate=0.3).orders
+    return folder, paths, orders
+
+
+def _readout(shop: tuple[Path, dict[str, Path], pd.DataFrame], orders: pd.DataFrame, name: str, **kw: object):  # type: ignore[no-untyped-def]
+    folder, paths, _ = shop
+    path = folder / f"{name}.parquet"
+    orders.to_parquet(path, index=False)
+    return run_readout(SPEC, visits=paths["visits"], exposures=paths["exposures"], orders=path, **kw)  # type: ignore[arg-type]
+
+
+def _orders_check(rep):  # type: ignore[no-untyped-def]
+    return next(g for g in rep.gate if g.id == "orders")
+
+
+def test_healthy_orders_are_trustworthy(shop) -> None:  # type: ignore[no-untyped-def]
+    rep = _readout(shop, shop[2], "healthy")
+    assert rep.trustworthy and _orders_check(rep).status == "pass"
+
+
+@pytest.mark.parametrize("case", ["no_match", "header_only", "all_after_as_of", "holdout_only", "unmatched_90"])
+def test_broken_orders_are_never_trustworthy(shop, case: str) -> None:  # type: ignore[no-untyped-def]
+    o = shop[2].copy()
+    if case == "no_match":  # keyed by another id space
+        o["unit_id"] = "cust-" + o["unit_id"].str[1:]
+    elif case == "header_only":
+        o = o.iloc[:0]
+    elif case == "all_after_as_of":
+        o["order_time"] = o["order_time"] + pd.Timedelta(days=400)
+    elif case == "holdout_only":
+        o = o[np.asarray(assign_many(SPEC, o["unit_id"].tolist())) == "holdout"]
+    else:
+        rng = np.random.default_rng(3)
+        swap = rng.random(len(o)) < 0.9
+        o.loc[swap, "unit_id"] = "x" + o.loc[swap, "unit_id"]
+    if case == "all_after_as_of":
+        rep = _readout(shop, o, case, as_of=pd.Timestamp("2026-02-01").date())
+    else:
+        rep = _readout(shop, o, case)
+    check = _orders_check(rep)
+    assert check.status == "fail" and rep.status == "fail" and not rep.trustworthy, check.summary
+    assert rep.headline.startswith("NOT TRUSTWORTHY")
+
+
+def test_infinite_revenue_is_set_aside_and_said(shop) -> None:  # type: ignore[no-untyped-def]
+    o = shop[2].copy()
+    o.loc[o.index[:3], "revenue"] = math.inf
+    rep = _readout(shop, o, "inf")
+    assert any("3 row(s) with an infinite 'revenue'" in n for n in rep.input_notes)
+    assert "3 with infinite revenue" in _orders_check(rep).summary
+
+
+def test_revenue_of_1e308_is_a_clear_error_naming_column_and_rows(shop) -> None:  # type: ignore[no-untyped-def]
+    o = shop[2].copy()
+    o.loc[o.index[:2], "revenue"] = 1e308
+    with pytest.raises(InputError, match=r"huge.parquet: column 'revenue' .* has 2 value\(s\) of 1e\+15 or more \(rows? "):
+        _readout(shop, o, "huge")
+
+
+def test_true_false_revenue_is_refused(shop) -> None:  # type: ignore[no-untyped-def]
+    o = shop[2].copy()
+    o["revenue"] = o["revenue"] > 50
+    with pytest.raises(InputError, match="holds true/false values, not amounts"):
+        _readout(shop, o, "bool")
+
+
+@pytest.mark.parametrize("spend", [math.inf, -math.inf, math.nan, -1.0])
+def test_spend_must_be_a_finite_amount(shop, spend: float) -> None:  # type: ignore[no-untyped-def]
+    with pytest.raises(InputError, match="--spend must be a finite amount"):
+        _readout(shop, shop[2], "spend", spend=spend)
+
+
+def test_window_true_is_refused() -> None:
+    with pytest.raises(SpecError, match="not true or false"):
+        spec_from_dict({"name": "w", "salt": "s", "start": "2026-01-05T00:00:00Z",
+                        "arms": [{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}],
+                        "readout": {"window": True}})
