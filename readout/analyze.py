@@ -288,6 +288,7 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
         arms=rows, effects=effects, adjustment=adjustment, exposure=exposure, money=m, looks=looks,
         settings={"alpha": alpha, "power": power, "margin": cfg.margin, "currency": cfg.currency,
                   "window": cfg.window, "revenue_cap": cfg.revenue_cap, "planned_units": cfg.planned_units,
+                  "target_iroas": cfg.target_iroas or None, "breakeven_iroas": decision.breakeven_iroas,
                   "anytime_t_opt": t_opt, "covariates": tables.covariates,
                   "primary": "CUPED" if covs else "raw (Welch)", "arm_rule": "intent to treat: the arm the spec's "
                   "hash gives each unit; customers count in the arm of their first unit"},

@@ -94,6 +94,14 @@ def run_readout_and_audit(
     return report, audit
 
 
+def _plan_end(spec: Spec) -> date:
+    """The last day of the planned test (its `end`), or a far date when the spec names none."""
+    if spec.end is None:
+        return date.max
+    end = spec.end
+    return (end - timedelta(microseconds=1)).date() if end.time() == end.min.time() else end.date()
+
+
 def _readout_note(note: str, as_of: object) -> str:
     """The audit's "covers data through" note, said for the readout: visits end earlier, but
     orders are counted through the as-of day."""
@@ -137,6 +145,9 @@ def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None =
                          f"{'' if spend_file is not None else '; --spend taken as spent evenly over the days'}); "
                          "iROAS, ROI and cost per buyer use it")
             spend = kept
+    if spend_file is None and spend is not None and used < _plan_end(spec):
+        notes.append(f"--spend {spend:,.2f} is taken as the channel's cost from the start to the as-of {used}; "
+                     "to read weekly, give --spend-file (spend per day) so spend and revenue cover the same days")
     attributed = attributed_revenue if attributed_revenue is not None else res.tables.attributed
     report = analyze(spec, res.tables, as_of=used.isoformat(), checks=gate, spend=spend, attributed=attributed,
                      notes=notes, has_exposures=has_exposures)
