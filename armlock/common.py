@@ -26,9 +26,9 @@ ACCEPT_CHANGED_SPLIT: Any = typer.Option(
 
 # Where the rows are counted: every command that reads the logs (audit, readout) takes these three.
 ENGINE: Any = typer.Option(
-    "pandas", "--engine",
-    help="Where the rows are counted: duckdb (this machine, in memory that grows with units, not rows; "
-         "spills to disk), pandas (this machine, all rows in memory) or spark (needs pip install "
+    "duckdb", "--engine",
+    help="Where the rows are counted: duckdb (this machine, default: memory grows with units, not rows; "
+         "spills to disk), pandas (this machine, every exposure row in memory) or spark (needs pip install "
          "'armlock[spark]' and Java 17; uses the active SparkSession, else starts one).")
 SPARK_MASTER: Any = typer.Option(
     None, "--spark-master",

@@ -1,10 +1,11 @@
 """The one engine interface: what an engine returns (the tables of `audit.tables`) and how one is chosen.
 
 An engine turns the raw logs into the small sufficient-statistics tables; the statistics, verdicts
-and reports downstream read only those. Two engines implement it: pandas (embedded, the default)
-and Apache Spark (where the data lives). `Engine.compute` gives the audit's tables
+and reports downstream read only those. Three engines implement it: DuckDB (embedded, the default:
+the exposure rows are counted inside DuckDB, memory grows with units), pandas (embedded, every row
+in memory) and Apache Spark (where the data lives). `Engine.compute` gives the audit's tables
 (`audit.tables`); `Engine.readout` gives, from the same logs plus the orders, the audit's tables
-and the readout's moment tables (`readout.tables`). A third engine, a warehouse's SQL for
+and the readout's moment tables (`readout.tables`). Another engine, a warehouse's SQL for
 instance, implements both and is added to `select_engine`; nothing downstream changes.
 
 Every engine's tables go through `canonical` before the statistics see them, so that the order of
@@ -120,7 +121,7 @@ def load_frames(spec: Spec, inputs: Inputs, as_of: date | None,
 
 
 class PandasEngine:
-    """The embedded engine: `audit.load` reads the files into frames, `audit.engine_pandas` counts
+    """The pandas engine: `audit.load` reads the files into frames, `audit.engine_pandas` counts
     (and `readout.engine_pandas` for a readout)."""
 
     name = "pandas"
@@ -147,7 +148,7 @@ def file_bytes(*paths: Source | None) -> int:
                if p is not None and not str(p).startswith(TABLE_PREFIX) and Path(p).is_file())
 
 
-def select_engine(name: str = "pandas", *, spark_master: str | None = None,
+def select_engine(name: str = "duckdb", *, spark_master: str | None = None,
                   spark_conf: dict[str, str] | None = None, memory_limit: str | None = None,
                   temp_directory: str | None = None) -> Engine:
     """The engine called `name`. Spark loads only here, and only when asked for.

@@ -92,7 +92,7 @@ def run_audit(
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
-    engine: Engine | str = "pandas",
+    engine: Engine | str = "duckdb",
     alongside: Sequence[tuple[str, Spec]] = (),
 ) -> AuditReport:
     """Audit a test's logs as of the end of `as_of` (UTC; default: the last first-seen day).
@@ -101,8 +101,8 @@ def run_audit(
     `split_changes` are sentences about confirmed changes of the split made after the start
     (from the lock file): each makes the integrity check fail.
     `advance(n)` is called with each file's size in bytes once it is read (for a progress bar
-    whose total is `input_bytes(visits, exposures, identities)`). `engine` is "pandas" (embedded),
-    "spark" (a SparkSession: the active one, else a local one) or an `audit.engine.Engine`.
+    whose total is `input_bytes(visits, exposures, identities)`). `engine` is "duckdb" (embedded, the
+    default), "pandas" (embedded, every row in memory), "spark" (a SparkSession: the active one, else a local one) or an `audit.engine.Engine`.
     `alongside` names concurrent tests ((spec file, Spec) pairs): the independence check
     (`audit/overlap.py`) then reads the visits file's ids again on this machine.
     """

@@ -40,7 +40,7 @@ def run_readout(
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
-    engine: Engine | str = "pandas",
+    engine: Engine | str = "duckdb",
     alongside: Sequence[Spec] = (),
 ) -> ReadoutReport:
     """Read out a test as of the end of `as_of`; see `run_readout_and_audit`."""
@@ -63,7 +63,7 @@ def run_readout_and_audit(
     as_of: date | None = None,
     advance: Callable[[int], None] | None = None,
     split_changes: list[str] | None = None,
-    engine: Engine | str = "pandas",
+    engine: Engine | str = "duckdb",
     alongside: Sequence[Spec] = (),
 ) -> tuple[ReadoutReport, AuditReport]:
     """Read out a test as of the end of `as_of` (UTC; default: the last first-seen day).
@@ -72,7 +72,7 @@ def run_readout_and_audit(
     `[readout.spend]`, a local file); `attributed_revenue` overrides the orders' attributed column.
     Raises `assign.InputError` for unusable files (file, column and rows named). Also returns the
     audit of the same inputs (the gate), as `run_audit` would report it; `split_changes` as in
-    `run_audit`. `engine` is "pandas", "spark" or an `audit.engine.Engine` (as in `run_audit`):
+    `run_audit`. `engine` is "duckdb" (the default), "pandas", "spark" or an `audit.engine.Engine` (as in `run_audit`):
     it computes both the audit's and the readout's tables; the statistics here read only those.
     """
     if spend is not None and spend_file is not None:

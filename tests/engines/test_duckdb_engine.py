@@ -292,3 +292,30 @@ def _utf8(text: str) -> bool:
     except UnicodeEncodeError:
         return False
     return True
+
+
+def test_cli_default_engine_with_memory_limit_and_temp_dir(tmp_path: Path) -> None:
+    """`armlock audit` runs the DuckDB engine by default and takes its two settings; they need it."""
+    import json
+
+    from typer.testing import CliRunner
+
+    from armlock.assign import load_spec
+    from armlock.cli import app
+
+    spec_path = tmp_path / "t.toml"
+    assert CliRunner().invoke(app, ["init", "t", "--out", str(spec_path)]).exit_code == 0
+    spec = load_spec(spec_path)
+    paths = write_logs(generate(spec, units=600, days=14, seed=3, faults=("leakage",)), tmp_path, "csv.gz")
+    base = ["audit", "--spec", str(spec_path), "--visits", str(paths["visits"]), "--exposures", str(paths["exposures"]),
+            "--format", "json"]
+    out = {}
+    for name, extra in (("duckdb", ["--memory-limit", "500MB", "--temp-dir", str(tmp_path / "spill")]),
+                        ("pandas", ["--engine", "pandas"])):
+        r = CliRunner().invoke(app, [*base, *extra, "--out", str(tmp_path / f"{name}.json")])
+        assert r.exit_code in (0, 1, 3), r.output
+        out[name] = json.loads((tmp_path / f"{name}.json").read_text(encoding="utf-8"))
+        out[name].pop("generated_at")
+    assert out["duckdb"] == out["pandas"]
+    r = CliRunner().invoke(app, [*base, "--engine", "pandas", "--memory-limit", "1GB"])
+    assert r.exit_code == 2 and "--memory-limit and --temp-dir need --engine duckdb" in r.output
