@@ -121,11 +121,16 @@ def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, 
         return Decision(answer="not_yet_known", withheld=True, **base,  # type: ignore[arg-type]
                         reason=f"The answer is withheld: {gate_problem}.",
                         action="Fix what the audit gate names and read again; do not act on these figures.")
-    if iroas is None or iroas.value is None or lo is None or hi is None:
+    if iroas is None or iroas.value is None:
         return Decision(answer="not_yet_known", withheld=False, **base,  # type: ignore[arg-type]
                         reason="No spend was given (--spend or --spend-file), so iROAS and the decision are not "
                                "computed.",
                         action="Give the channel's spend over the test and read again.")
+    if lo is None or hi is None:
+        return Decision(answer="not_yet_known", withheld=False, **base,  # type: ignore[arg-type]
+                        reason="Cannot judge: iROAS has no interval yet (too few units or no variation in "
+                               "revenue).",
+                        action="Keep the test running and read again.")
     if buyers is not None and buyers < MIN_BUYERS:
         return Decision(answer="not_yet_known", withheld=False, **base,  # type: ignore[arg-type]
                         reason=f"Too few buyers to judge: {buyers:,} in the smaller side (holdout or exposed), "
@@ -144,7 +149,9 @@ def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, 
     else:
         answer, said = "not_yet_known", f"{span} contains {source} ({_r(target)}){when}."
         action = ("Keep the test running to its planned size and decide then; acting on this look is a guess."
-                  if not st.final else
+                  if not st.final and (st.planned_units or st.planned_end) else
+                  "Keep the test running, and set planned_units (or end) in the spec so one look is the final "
+                  "one; until then every look reads the anytime interval." if not st.final else
                   "At its planned size the test cannot tell: the channel is close to break-even or the test too "
                   "small. Decide on other grounds, or plan a larger test.")
     return Decision(answer=answer, withheld=False, reason=said, action=action, **base)  # type: ignore[arg-type]

@@ -170,3 +170,11 @@ def test_the_floor_of_buyers_keeps_small_tests_near_alpha() -> None:
     d = decide(_spec(planned_units=10), iroas=_iv(9.0, 5.0, 13.0, 4.0, 14.0), units=10, as_of="2026-02-01",
                df=None, trustworthy=True, gate_problem="", buyers=MIN_BUYERS - 1)
     assert d.answer == "not_yet_known" and "Too few buyers" in d.reason
+
+
+def test_no_interval_and_no_plan_are_said() -> None:
+    kw = dict(df=None, trustworthy=True, gate_problem="")
+    d = decide(_spec(planned_units=10), iroas=Interval(value=2.0), units=5, as_of="2026-02-01", **kw)  # type: ignore[arg-type]
+    assert d.answer == "not_yet_known" and d.reason.startswith("Cannot judge:")
+    d = decide(_spec(), iroas=_iv(3.0, 2.0, 4.0, 1.0, 5.0), units=5, as_of="2026-02-01", **kw)  # type: ignore[arg-type]
+    assert d.answer == "not_yet_known" and "set planned_units" in d.action and d.basis == "anytime"
