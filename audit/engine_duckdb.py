@@ -184,10 +184,15 @@ class DuckDBEngine:
 
         stream = pa.RecordBatchReader.from_batches(STREAM_SCHEMA, ahead(reader.stream(scan, sorted_mode), scan))
         con.register("ev", stream)
-        events = "ev" if sorted_mode else \
-            "(SELECT id, t, camp, kl, min(kind) AS kind, sum(n) AS n FROM ev GROUP BY id, t, camp, kl)"
+        events = "ev" if sorted_mode else "evd"
         try:
             con.execute("DROP TABLE IF EXISTS cells")
+            if not sorted_mode:  # repeats grouped by DuckDB (spills under the memory limit), then counted
+                con.execute("CREATE OR REPLACE TEMP TABLE evd AS SELECT id, t, camp, kl, min(kind) AS kind, "
+                            "sum(n) AS n FROM ev GROUP BY id, t, camp, kl")
+                day = _floor_div("t", US_DAY)
+                scan.days = {int(d): int(c) for d, c in con.execute(
+                    f"SELECT {day} AS d, count(*) FROM evd GROUP BY d").fetchall()}
             con.execute(_CELLS_SQL.format(events=events, start=start_us,
                                           week=_floor_div(_floor_div("t", US_DAY) + " + 3", 7)))
         except duckdb.OutOfMemoryException as exc:
@@ -355,5 +360,5 @@ def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: Expo
         unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
         exposed_ids=len(pos) + len(uniq), exposed_rows=exposed_u,
         rows_read=fr.counts.get("exposure_rows", rows), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
-        **diag,  # type: ignore[arg-type]
+        daily_rows={_day(d * US_DAY): c for d, c in sorted(scan.days.items())}, **diag,  # type: ignore[arg-type]
     )

@@ -52,6 +52,7 @@ from .read import (
     time_notes,
 )
 
+US_DAY = 86_400 * 10**6
 BATCH_ROWS = 1 << 20  # rows per Parquet slice: a few tens of MB of Arrow buffers at a time
 CSV_BLOCK = 1 << 24  # bytes per CSV slice (as the pandas reader's blocks)
 KINDS = ("impression", "click", "other")
@@ -94,6 +95,7 @@ class ExposureScan:
     far: _Rows = field(default_factory=_Rows)
     far_first: object = None
     duplicates: int = 0  # exact repeats removed while streaming (sorted mode)
+    days: dict[int, int] = field(default_factory=dict)  # rows streamed per day number (sorted mode)
     flags: ParsedTimes | None = None  # the notes' flags, summed over the slices
     error: BaseException | None = None  # an error raised while DuckDB pulled the rows
 
@@ -298,9 +300,9 @@ class ExposureReader:
             cut = int(np.searchsorted(tt, tt[-1], side="left"))  # the last run of one time may go on
             carry = rows.slice(cut)
             if cut:
-                yield from self._once(rows.slice(0, cut), tt[:cut], scan).to_batches()
+                yield from _counted(self._once(rows.slice(0, cut), tt[:cut], scan), scan).to_batches()
         if carry is not None and carry.num_rows:
-            yield from self._once(carry, carry.column("t").to_numpy(), scan).to_batches()
+            yield from _counted(self._once(carry, carry.column("t").to_numpy(), scan), scan).to_batches()
 
     @staticmethod
     def _once(rows: pa.Table, t: np.ndarray, scan: ExposureScan) -> pa.Table:
@@ -359,3 +361,11 @@ def _note(src: Source, col: str, rows: _Rows, what: str, notes: list[str]) -> in
         notes.append(f"{src.path.name}: {rows.n:,} row(s) with an empty or null '{col}' ({src.rows(rows.first, rows.n)}) "
                      f"were set aside: {what}")
     return rows.n
+
+
+def _counted(rows: pa.Table, scan: ExposureScan) -> pa.Table:
+    """Count the rows per UTC day of their time (`LeakageTables.daily_rows`) as they stream."""
+    days, n = np.unique(rows.column("t").to_numpy() // US_DAY, return_counts=True)  # // rounds down
+    for d, c in zip(days.tolist(), n.tolist()):
+        scan.days[d] = scan.days.get(d, 0) + c
+    return rows
