@@ -175,3 +175,19 @@ def test_a_webhook_that_is_down_never_fails_the_audit(weeks: Path, tmp_path: Pat
     assert r.stderr.splitlines()[-1].startswith("armlock audit: exit 3 split-broken")
     bad = run_cli(weeks, "audit", "--spec", "spec.toml", "--visits", "leak/visits.csv", "--alert", "ftp://x")
     assert bad.returncode == 2 and "is not an http(s) URL" in bad.stderr
+
+
+def test_a_feed_going_stale_is_news(weeks: Path, receiver: Receiver, tmp_path: Path) -> None:
+    """The real feed-health check: the logs end 2026-02-01, the test's planned end; audited as of
+    2026-02-04 the exposure log (which should run past the end) is 3 days behind, the `freshness`
+    check fails, the exit code is 7 and the alert says a feed went stale."""
+    hist = str(tmp_path / "h.sqlite")
+    base = ["audit", "--spec", "spec.toml", "--visits", "clean/visits.csv", "--exposures", "clean/exposures.csv",
+            "--history", hist, "--alert", receiver.url]
+    assert run_cli(weeks, *base, "--as-of", "2026-01-25", "--record").returncode == 0
+    r = run_cli(weeks, *base, "--as-of", "2026-02-04", "--record")
+    assert r.returncode == 7, r.stderr
+    (body,) = receiver.bodies
+    assert "a feed went stale (The exposures feed ends on 2026-02-01, 3 day(s) before 2026-02-04" in body["text"]
+    assert "the test reached its planned end (2026-02-01)" in body["reasons"]
+    assert len(body["text"]) <= MAX_CHARS

@@ -97,3 +97,14 @@ def test_a_failing_freshness_check_routes_to_stale(logs: Path, monkeypatch: pyte
     assert res.exit_code == code, res.output
     assert res.stderr.splitlines()[-1].startswith(f"armlock audit: exit {code} {name}; ")
     assert "freshness" in res.stderr.splitlines()[-1]
+
+
+@pytest.mark.parametrize("case,code,name", [("clean", 7, "stale-data"), ("leak", 3, "split-broken")])
+def test_real_stale_feeds_exit_7_unless_the_split_is_broken(logs: Path, case: str, code: int, name: str) -> None:
+    """The feed-health check (`freshness`, audit/feeds.py) on logs that end 2026-01-25, audited as of
+    two days later: the feeds are stale. Alone that is exit 7; with leakage as well, exit 3."""
+    r = run_cli(logs, *_args(case), "--as-of", "2026-01-27")
+    assert r.returncode == code, r.stderr
+    last = r.stderr.splitlines()[-1]
+    assert last.startswith(f"armlock audit: exit {code} {name}; cli-audit as of 2026-01-27; verdict FAIL; failing: ")
+    assert "freshness" in last
