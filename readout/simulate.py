@@ -3,7 +3,7 @@
 Simulated holdout tests with heavy-tailed revenue (most units buy nothing; buyers' revenue is
 lognormal), a known true difference in revenue per unit, and a pre-period covariate correlated
 with revenue. The test suite runs small versions; `scripts/readout_calibration.py` the large ones
-whose figures are in the README.
+whose figures are in docs/readout-methods.md.
 """
 
 from __future__ import annotations

@@ -2,10 +2,10 @@
 
 Run from the repository root (2 shared cores: be nice):
 
-    nice -n 10 python scripts/calibrate_audit.py            # the README figures (about half an hour)
+    nice -n 10 python scripts/calibrate_audit.py            # the figures of docs/calibration.md (about half an hour)
     nice -n 10 python scripts/calibrate_audit.py --quick    # a smoke run, a minute or two
 
-Prints markdown tables (pasted into the README section "How often the audit is wrong") and, with
+Prints markdown tables (pasted into docs/calibration.md, "How often the audit is wrong") and, with
 --out FILE, writes the figures as JSON. Seeds are fixed, so a rerun gives the same figures.
 """
 

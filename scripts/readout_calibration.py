@@ -1,4 +1,4 @@
-"""Calibration of the readout's intervals at full size (figures for the README's readout section).
+"""Calibration of the readout's intervals at full size (figures for docs/readout-methods.md).
 
     nice -n 10 python scripts/readout_calibration.py > readout_calibration.txt
 

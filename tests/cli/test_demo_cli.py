@@ -112,14 +112,15 @@ def test_demo_refuses_a_folder_that_is_not_a_demo(tmp_path: Path) -> None:
     assert sorted(p.name for p in (tmp_path / "mine").iterdir()) == ["notes.txt"]
 
 
-# --- the README's demo section, tour and library example are a real run ---------------------------
+# --- the README's demo section and tour, and the library example (docs/library.md), are a real run -
 
 README = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+LIBRARY = (Path(__file__).resolve().parents[2] / "docs" / "library.md").read_text(encoding="utf-8")  # linked from the tour
 
 
-def _readme_block(after: str, lang: str) -> str:
-    start = README.index(f"```{lang}\n", README.index(after)) + len(lang) + 4
-    return README[start:README.index("```", start)]
+def _readme_block(after: str, lang: str, text: str = README) -> str:
+    start = text.index(f"```{lang}\n", text.index(after)) + len(lang) + 4
+    return text[start:text.index("```", start)]
 
 
 def test_readme_demo_output_is_what_the_demo_prints(demo: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
@@ -155,7 +156,7 @@ def test_readme_library_example_is_correct(demo: tuple[Path, subprocess.Complete
     import ast
 
     monkeypatch.chdir(demo[0])
-    code = _readme_block("As a library", "python")
+    code = _readme_block("As a library", "python", LIBRARY)
     scope: dict[str, object] = {}
     for line in code.splitlines():
         stmt, _, comment = line.partition("#")
@@ -167,7 +168,7 @@ def test_readme_library_example_is_correct(demo: tuple[Path, subprocess.Complete
         said = re.match(r"\s*(\[.*?\]|'[^']*'|\d+)", comment)
         assert said, line
         assert eval(stmt, scope) == ast.literal_eval(said.group(1)), line  # noqa: S307
-    message = re.search(r"`bucket\(spec, \"visitor-1\"\)` raises `TypeError: (.*?)`", README, flags=re.S)
+    message = re.search(r"`bucket\(spec, \"visitor-1\"\)` raises `TypeError: (.*?)`", LIBRARY, flags=re.S)
     assert message
     with pytest.raises(TypeError) as exc:
         eval('bucket(spec, "visitor-1")', scope)  # noqa: S307

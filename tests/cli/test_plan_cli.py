@@ -234,9 +234,11 @@ def test_from_files_with_the_specs_column_maps(tmp_path: Path) -> None:
     assert any("pre_revenue" in e["how"] for e in d["estimated"])
 
 
-def test_readme_example_is_the_live_output(tmp_path: Path) -> None:
-    # the README's planner session, re-run: every line it shows (elisions aside) is in the real output, in order
-    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+@pytest.mark.parametrize("doc", ["README.md", "docs/planner.md"])
+def test_readme_example_is_the_live_output(tmp_path: Path, doc: str) -> None:
+    # the planner session, re-run: every line it shows (elisions aside) is in the real output, in order;
+    # the README shows an excerpt, docs/planner.md the whole session
+    readme = (Path(__file__).resolve().parents[2] / doc).read_text(encoding="utf-8")
     start = readme.index("```console\n$ armlock plan")
     block = readme[start:readme.index("```\n", start + 10)].splitlines()[1:]
     cmd_lines = []
@@ -248,7 +250,7 @@ def test_readme_example_is_the_live_output(tmp_path: Path) -> None:
     for line in (ln for ln in block if ln.strip() and ln.strip() != "..."):
         while i < len(out) and out[i] != line:
             i += 1
-        assert i < len(out), f"README line not in the live output (or out of order): {line!r}"
+        assert i < len(out), f"{doc} line not in the live output (or out of order): {line!r}"
 
 
 def test_visits_column_options_without_a_spec(tmp_path: Path) -> None:

@@ -1,7 +1,8 @@
 """The README says what the code does: its opening, set-up lines, links, synopses and sizes are checked here.
 
-The demo's output, the tour and the library example are checked against a real demo run in
-tests/cli/test_demo_cli.py (one demo run serves both).
+The demo's output, the tour and the library example (docs/library.md) are checked against a real
+demo run in tests/cli/test_demo_cli.py (one demo run serves both). The README is a front door of at
+most 600 lines; methods, calibration, benchmarks and reference material live in docs/.
 """
 
 from __future__ import annotations
@@ -50,8 +51,22 @@ def test_readme_test_command_is_the_line_ci_runs() -> None:
     assert "npm ci" in line  # the Node tests need their packages on a fresh machine
 
 
+DOCS = ["README.md", "DEVELOPERS.md", "shared/CONTRACT.md", "shared/REFERENCES.md",
+        *sorted(p.relative_to(ROOT).as_posix() for p in (ROOT / "docs").glob("*.md"))]
+
+
+def slug(heading: str) -> str:
+    """The anchor a markdown heading gets (lower case, punctuation dropped, spaces to hyphens)."""
+    return re.sub(r"[^\w\- ]", "", heading.lower()).strip().replace(" ", "-")
+
+
+def anchors_of(text: str) -> set[str]:
+    text = re.sub(r"^```.*?^```", "", text, flags=re.M | re.S)  # a `#` line in a code block is no heading
+    return {slug(h) for h in re.findall(r"^#+ (.+)$", text, flags=re.M)}
+
+
 def test_links_point_to_files_in_the_repo() -> None:
-    for doc in ("README.md", "DEVELOPERS.md", "shared/CONTRACT.md", "shared/REFERENCES.md"):
+    for doc in DOCS:
         text = (ROOT / doc).read_text(encoding="utf-8")
         for target in re.findall(r"\]\(([^)#\s]+)(?:#[^)]*)?\)", text):
             if target.startswith(("http://", "https://", "mailto:")):
@@ -61,12 +76,34 @@ def test_links_point_to_files_in_the_repo() -> None:
 
 
 def test_readme_anchors_exist() -> None:
-    def slug(heading: str) -> str:
-        return re.sub(r"[^\w\- ]", "", heading.lower()).strip().replace(" ", "-")
-
-    anchors = {slug(h) for h in re.findall(r"^#+ (.+)$", README, flags=re.M)}
+    anchors = anchors_of(README)
     for anchor in re.findall(r"\]\(#([^)]+)\)", README):
         assert anchor in anchors, anchor
+
+
+def test_anchors_into_other_pages_exist() -> None:
+    # `[x](page.md#anchor)` and `[x](#anchor)` in the README, DEVELOPERS.md and every page of docs/
+    for doc in DOCS:
+        text = (ROOT / doc).read_text(encoding="utf-8")
+        for target, anchor in re.findall(r"\]\(([^)#\s]*)#([^)\s]+)\)", text):
+            if target.startswith(("http://", "https://")):
+                continue
+            page = (ROOT / doc).parent.joinpath(target) if target else ROOT / doc
+            if page.suffix == ".md":
+                assert anchor in anchors_of(page.read_text(encoding="utf-8")), f"{doc}: {target}#{anchor}"
+
+
+def test_readme_is_a_front_door_and_docs_has_the_rest() -> None:
+    assert README.count("\n") <= 600, f"README.md has {README.count(chr(10))} lines; move long text to docs/"
+    # the set-up commands say how long they take
+    opening = README[:README.index("\n## ")]
+    assert "10-15 s" in opening and "10-15 minutes" in opening and "approximate" in opening
+    # every page of docs/ is listed in its index, and the README links the index
+    index = (ROOT / "docs" / "README.md").read_text(encoding="utf-8")
+    assert "](docs/README.md)" in README
+    for page in (ROOT / "docs").glob("*.md"):
+        if page.name != "README.md":
+            assert f"]({page.name})" in index, f"docs/README.md does not list {page.name}"
 
 
 def test_synopsis_of_every_command_lists_all_its_options() -> None:

@@ -1,7 +1,7 @@
 """Closing the loop in the suite (small): simulated tests at the planned size reject as often as planned.
 
 A direct simulation (armlock.plan.simulate: zero-inflated lognormal revenue, weekly cohorts, partial reach) —
-the full-size version with 1,000+ tests per scenario is scripts/plan_calibration.py (figures in the README).
+the full-size version with 1,000+ tests per scenario is scripts/plan_calibration.py (figures in docs/planner.md).
 """
 
 from __future__ import annotations

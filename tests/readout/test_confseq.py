@@ -66,7 +66,7 @@ def test_bad_arguments_are_refused() -> None:
 def test_weekly_looks_small_simulation() -> None:
     # The real test (REFERENCES §9): read at every weekly look, the anytime interval misses the
     # truth in at most alpha of tests; the fixed-horizon interval read weekly misses far more.
-    # A smaller version of scripts/readout_calibration.py (figures in the README).
+    # A smaller version of scripts/readout_calibration.py (figures in docs/readout-methods.md).
     r = sequential_misses(tests=400, weeks=26, per_week=400, seed=11)
     assert r.anytime_miss <= 0.05
     assert r.fixed_miss >= 0.15
