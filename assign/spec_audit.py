@@ -13,7 +13,16 @@ TIME_FORMAT_HELP = ('"iso8601" (default), "epoch_seconds", "epoch_milliseconds",
 
 def check_time_format(value: str) -> str:
     """A time format is one of TIME_FORMATS or a strftime pattern (it contains '%')."""
-    if value in TIME_FORMATS or ("%" in value and len(value) <= 100):
+    if value in TIME_FORMATS:
+        return value
+    if "%" in value and len(value) <= 100:
+        from datetime import datetime
+
+        try:  # compiles the pattern first: an unknown directive or a stray % is refused here, not mid-audit
+            datetime.strptime("\x00", value)
+        except ValueError as exc:
+            if "does not match format" not in str(exc) and "unconverted data" not in str(exc):
+                raise ValueError(f"time format {value!r}: {exc}; use {TIME_FORMAT_HELP}") from None
         return value
     raise ValueError(f"unknown time format {value!r}; use {TIME_FORMAT_HELP}")
 

@@ -42,6 +42,13 @@ from .read import (
 PathLike = str | Path
 
 
+def check_as_of(as_of: date | None) -> None:
+    """Refuse an as-of date outside the years armlock reads times in (1678-2261), before any file is read."""
+    if as_of is not None and not date(1678, 1, 1) <= as_of <= date(2261, 12, 31):
+        raise InputError(f"--as-of {as_of.isoformat()} is outside the years 1678-2261 that armlock reads times in; "
+                         "give the last day the audit or readout should cover, e.g. 2026-12-07")
+
+
 def cutoff_of(as_of: date) -> pd.Timestamp:
     """The end of the as-of day (UTC): data at or after this instant is ignored."""
     return pd.Timestamp(datetime.combine(as_of + timedelta(days=1), time(0), tzinfo=UTC))

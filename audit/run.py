@@ -10,6 +10,7 @@ from armlock.assign import Spec, __version__
 
 from .balance import check_balance
 from .churn import check_churn
+from .load import check_as_of
 from .feeds import FeedHealth, check_feeds, feed_health
 from .engine import Engine, EngineResult, Inputs, canonical, file_bytes, select_engine
 from .integrity import check_integrity
@@ -106,6 +107,7 @@ def run_audit(
     `alongside` names concurrent tests ((spec file, Spec) pairs): the independence check
     (`audit/overlap.py`) then reads the visits file's ids again on this machine.
     """
+    check_as_of(as_of)
     eng = select_engine(engine) if isinstance(engine, str) else engine
     res = eng.compute(spec, Inputs(visits, exposures, identities), as_of, advance or (lambda n: None))
     extra = [concurrent_check(spec, visits, res.as_of, alongside)] if alongside else []

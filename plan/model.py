@@ -41,6 +41,7 @@ RANGES = {
 }
 MAX_CV = 10_000  # revenue SD / mean above this is a unit or currency mix-up, not a shop (our choice)
 MAX_LIFT = 10.0  # +1000% per reached unit: the largest lift a plan sizes (our choice)
+MIN_LIFT = 1e-6  # +0.0001% per reached unit: the smallest (our choice; far smaller squares underflow)
 AGAINST = ("zero", "break-even")  # what the test must tell the channel's effect from
 
 
@@ -118,6 +119,12 @@ class PlanInputs:
         for name in targets:
             if getattr(self, name) <= 0:
                 raise _bad(name, f"must be positive, got {getattr(self, name):g}")
+        # a target so small that its square underflows sizes nothing (an internal error once, issue #20)
+        small = {"lift": (self.lift, MIN_LIFT), "effect": (self.effect, MIN_LIFT * self.revenue_mean)}
+        for name, (v, floor) in small.items():
+            if v is not None and v < floor:
+                raise _bad(name, f"{v:g} is too small to plan for: below {floor:g} (a lift of {MIN_LIFT * 100:g}% per "
+                           "reached unit) no test of any length can tell it from zero")
         if self.lift is not None and self.lift > MAX_LIFT:
             raise _bad("lift", f"{self.lift:g} means +{self.lift * 100:,.0f}% per reached unit, more than the "
                        f"+{MAX_LIFT * 100:,.0f}% a plan can size; write the lift as a percent, e.g. 8%")

@@ -143,7 +143,8 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
                              "pass --identities to join customers to visitors")
         cust, first = _customer_positions(spec, fr, arm, vset, counts)
         ci = cust.get_indexer(orders[KEY].to_numpy())
-        pos = np.where(ci >= 0, first[np.maximum(ci, 0)], -1)
+        # no usable link at all: no order finds a unit (the orders check then fails on the match rate)
+        pos = np.where(ci >= 0, first[np.maximum(ci, 0)], -1) if len(first) else np.full(len(ci), -1, np.int64)
         if counts["customers_multi_arm"]:
             notes.append(f"{int(counts['customers_multi_arm']):,} customer(s) have visitor ids in more than one arm; "
                          "each counts in the arm of their first visitor id (intent to treat)")

@@ -15,6 +15,7 @@ from pathlib import Path
 from armlock.assign import InputError, Spec
 from armlock.audit.engine import Engine, Inputs, ReadoutResult, canonical, select_engine
 from armlock.audit.model import AuditReport
+from armlock.audit.load import check_as_of
 from armlock.audit.run import checks_from_tables, report_from_checks
 
 from .analyze import analyze
@@ -81,6 +82,7 @@ def run_readout_and_audit(
         raise InputError(f"--spend must be a finite amount of zero or more, got {spend}")
     if attributed_revenue is not None and not math.isfinite(attributed_revenue):
         raise InputError(f"--attributed-revenue must be a finite amount, got {attributed_revenue}")
+    check_as_of(as_of)
     eng = select_engine(engine) if isinstance(engine, str) else engine
     res = eng.readout(spec, Inputs(visits, exposures, identities, orders), as_of, advance or (lambda n: None))
     report, audit = reports_from_result(spec, res, spend=spend, spend_file=spend_file,

@@ -13,7 +13,7 @@ import pytest
 
 from tests.cli.cli_run import run_cli
 
-from .corpus import Case, spec_cases, text_cases
+from .corpus import Case, _csv, spec_cases, text_cases
 from .helpers import SPEC_TOML, write_demo_logs, write_spec
 from .inprocess import Result, run_inprocess
 
@@ -135,3 +135,63 @@ def test_a_few_corpus_cases_in_a_real_process(base: tuple[Path, dict[str, Path]]
         mine = run_inprocess(tmp_path, *args)
         assert real.returncode == mine.returncode != 5, (name, real.stderr)
         assert "Traceback" not in real.stderr
+
+
+# -- readout and plan (issue #20): zero exit 5, zero tracebacks, zero reassurances -----------------
+def _orders_table(paths: dict[str, Path]) -> tuple[list[str], list[list[str]]]:
+    v = pd.read_csv(paths["visits"], dtype=str, keep_default_na=False).head(150)
+    rows = [[u, t, f"{10 + i % 50}.5"] for i, (u, t) in enumerate(zip(v["unit_id"], v["first_seen"]))]
+    return ["unit_id", "order_time", "revenue"], rows
+
+
+def test_readout_corpus(base: tuple[Path, dict[str, Path]], tmp_path: Path) -> None:
+    folder, paths = base
+    spec = write_spec(tmp_path)
+    header, rows = _orders_table(paths)
+    cases = list(text_cases("orders", header, rows, "unit_id", "order_time", "revenue"))
+    # the readout's own refusals and the broken exports of issue #20
+    holdout_only = [r for r in rows if r[0].endswith(("0", "1", "2"))]
+    cases += [Case("one id space shifted", "orders.csv", _csv(header, [["c-" + r[0], *r[1:]] for r in rows]), False),
+              Case("true/false revenue", "orders.csv", _csv(header, [[*r[:2], "true"] for r in rows])),
+              Case("revenue 1e308", "orders.csv", _csv(header, [[*r[:2], "1e308"] for r in rows])),
+              Case("revenue -inf", "orders.csv", _csv(header, [[*r[:2], "-inf"] for r in rows]), False),
+              Case("a few ids only", "orders.csv", _csv(header, holdout_only[:3]))]
+    hits = 0
+    for case in cases:
+        bad = tmp_path / case.filename
+        bad.write_bytes(case.data)
+        for extra in ([], ["--spend", "inf"], ["--spend", "1000", "--as-of", "9999-12-31"]):
+            r = run_inprocess(tmp_path, "readout", "--spec", spec.name, "--visits", str(paths["visits"]),
+                              "--exposures", str(paths["exposures"]), "--orders", case.filename, "--format", "json",
+                              *extra)
+            what = f"readout {' '.join(extra)}: orders {case.name}"
+            _sane(r, what)
+            if extra:  # --spend inf and an as-of past 2261 are refused before anything is judged
+                assert r.returncode in (2, 4), what
+            if r.returncode in (0, 1, 3, 7):
+                report = json.loads(r.stdout)
+                if not case.judgeable:
+                    assert report["trustworthy"] is False, f"{what}: trustworthy on a broken orders file"
+                    hits += 1
+        bad.unlink()
+    assert hits >= 5  # the broken exports reached a verdict, and none was trustworthy
+
+
+PLAN_VALUES = ["0", "-1", "1e-300", "1e300", "nan", "inf", "-inf", "abc", "", "1e308", "5%", "150%", "\x1b[2J"]
+
+
+def test_plan_corpus(tmp_path: Path) -> None:
+    base = {"--weekly-units": "20000", "--revenue-mean": "7", "--revenue-sd": "60", "--effect": "0.5"}
+    for opt in [*base, "--margin", "--alpha", "--power", "--rho", "--weekly-spend", "--exposure-rate", "--lift",
+                "--holdout-shares", "--weeks", "--max-weeks", "--target-iroas"]:
+        for val in PLAN_VALUES:
+            args = {**base, opt: val}
+            if opt in ("--lift", "--target-iroas"):
+                args.pop("--effect")
+            if opt == "--target-iroas":
+                args["--weekly-spend"] = "12000"
+            flat = [x for kv in args.items() for x in kv]
+            for fmt in ("text", "markdown"):
+                r = run_inprocess(tmp_path, "plan", *flat, "--format", fmt)
+                _sane(r, f"plan {opt} {val!r} --format {fmt}")
+                assert "\x1b" not in r.stderr and b"\x1b" not in r.stdout

@@ -101,3 +101,36 @@ def test_window_true_is_refused() -> None:
         spec_from_dict({"name": "w", "salt": "s", "start": "2026-01-05T00:00:00Z",
                         "arms": [{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}],
                         "readout": {"window": True}})
+
+
+def test_customer_keyed_orders_with_an_empty_links_file_fail_the_gate(shop, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    # once an internal error (an index into no links at all); now the orders match nothing: FAIL
+    folder, paths, orders = shop
+    links = tmp_path / "links.csv"
+    links.write_text("unit_id,customer_key\n", encoding="utf-8")
+    spec = spec_from_dict({"name": "orders-gate", "salt": "invented-orders-2026", "start": "2026-01-05T00:00:00Z",
+                           "arms": [{"name": "holdout", "weight": 3000}, {"name": "exposed", "weight": 7000}],
+                           "readout": {"orders": {"unit_id": "", "customer": "unit_id"}}})
+    path = folder / "by-customer.parquet"
+    orders.to_parquet(path, index=False)
+    rep = run_readout(spec, visits=paths["visits"], exposures=paths["exposures"], identities=links, orders=path)
+    assert not rep.trustworthy and _orders_check(rep).status == "fail"
+
+
+@pytest.mark.parametrize("day", ["9999-12-31", "1500-01-01"])
+def test_an_as_of_beyond_the_readable_years_is_a_clear_error(shop, day: str) -> None:  # type: ignore[no-untyped-def]
+    from datetime import date
+
+    from armlock.audit.run import run_audit
+
+    with pytest.raises(InputError, match=f"--as-of {day} is outside the years 1678-2261"):
+        _readout(shop, shop[2], "asof", as_of=date.fromisoformat(day))
+    with pytest.raises(InputError, match=f"--as-of {day} is outside the years 1678-2261"):
+        run_audit(SPEC, visits=shop[1]["visits"], as_of=date.fromisoformat(day))
+
+
+def test_check_refuses_a_time_format_with_an_unknown_directive() -> None:
+    with pytest.raises(SpecError, match="'Q' is a bad directive"):
+        spec_from_dict({"name": "w", "salt": "s", "start": "2026-01-05T00:00:00Z",
+                        "arms": [{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}],
+                        "audit": {"visits": {"first_seen_format": "%Q %Y"}}})
