@@ -16,6 +16,7 @@ with an `Error:` that says so.
 
 from __future__ import annotations
 
+import os
 import queue
 import shutil
 import tempfile
@@ -42,6 +43,7 @@ from .read import TIME, UNIT, Frames
 from .tables import AuditTables, LeakageTables
 
 US_DAY = NS_DAY // 1000
+READERS = max(1, min(os.cpu_count() or 1, 4))  # streams DuckDB scans at once (one per core)
 DUCKDB_INSTALL = "pip install duckdb"
 
 
@@ -182,8 +184,10 @@ class DuckDBEngine:
 
         scan = ExposureScan()
 
-        stream = pa.RecordBatchReader.from_batches(STREAM_SCHEMA, ahead(reader.stream(scan, sorted_mode), scan))
-        con.register("ev", stream)
+        ah = Ahead(reader.stream(scan, sorted_mode), scan)
+        for i in range(READERS):
+            con.register(f"ev{i}", pa.RecordBatchReader.from_batches(STREAM_SCHEMA, ah.reader()))
+        con.execute("CREATE OR REPLACE TEMP VIEW ev AS " + " UNION ALL ".join(f"SELECT * FROM ev{i}" for i in range(READERS)))
         events = "ev" if sorted_mode else "evd"
         try:
             con.execute("DROP TABLE IF EXISTS cells")
@@ -205,7 +209,10 @@ class DuckDBEngine:
             raise InputError(f"{reader.src.path}: DuckDB could not count the exposures: "
                              f"{str(exc).splitlines()[0]}") from None
         finally:
-            con.unregister("ev")
+            ah.close()
+            con.execute("DROP VIEW IF EXISTS ev")
+            for i in range(READERS):
+                con.unregister(f"ev{i}")
         if scan.error is not None:
             raise scan.error
         return scan
@@ -214,42 +221,55 @@ class DuckDBEngine:
 _DONE = object()
 
 
-def ahead(batches: Iterator[pa.RecordBatch], scan: ExposureScan, depth: int = 2) -> Iterator[pa.RecordBatch]:
-    """The slices made on a worker thread, up to `depth` ahead, while DuckDB joins and groups the last
-    ones (Arrow and numpy release Python's lock, so on two cores the reading and the counting overlap).
-    An error while reading is kept in `scan.error` and ends the stream (DuckDB would lose its type)."""
-    q: queue.Queue[Any] = queue.Queue(maxsize=depth)
-    stop = threading.Event()
+class Ahead:
+    """The slices made on a worker thread, a few ahead, handed to several readers that DuckDB pulls
+    from at once (a UNION ALL of them is scanned by as many threads): while DuckDB joins and groups
+    slices on every core, the next ones are read (Arrow and numpy release Python's lock). Whichever
+    reader asks first gets the next slice, so the rows go through exactly once however DuckDB
+    schedules them. An error while reading is kept in `scan.error` and ends the stream (DuckDB
+    would lose its type)."""
 
-    def work() -> None:
+    def __init__(self, batches: Iterator[pa.RecordBatch], scan: ExposureScan, depth: int = 4) -> None:
+        self.q: queue.Queue[Any] = queue.Queue(maxsize=depth)
+        self.stop = threading.Event()
+        self.batches, self.scan = batches, scan
+        self.worker = threading.Thread(target=self._work, name="armlock-exposures", daemon=True)
+        self.worker.start()
+
+    def _work(self) -> None:
         try:
-            for b in batches:
-                while not stop.is_set():
+            for b in self.batches:
+                while not self.stop.is_set():
                     try:
-                        q.put(b, timeout=0.1)
+                        self.q.put(b, timeout=0.1)
                         break
                     except queue.Full:
                         continue
-                if stop.is_set():
+                if self.stop.is_set():
                     return
         except BaseException as exc:  # noqa: BLE001 - handed to the caller through scan.error
-            scan.error = exc
+            self.scan.error = exc
         finally:
-            q.put(_DONE)
+            while not self.stop.is_set():
+                try:
+                    self.q.put(_DONE, timeout=0.1)
+                    break
+                except queue.Full:
+                    continue
 
-    worker = threading.Thread(target=work, name="armlock-exposures", daemon=True)
-    worker.start()
-    try:
-        while (b := q.get()) is not _DONE:
+    def reader(self) -> Iterator[pa.RecordBatch]:
+        while (b := self.q.get()) is not _DONE:
             yield b
-    finally:
-        stop.set()
-        while worker.is_alive():  # let the worker see the stop and end
+        self.q.put(_DONE)  # the end, for the other readers too
+
+    def close(self) -> None:
+        self.stop.set()
+        while self.worker.is_alive():  # let the worker see the stop and end
             try:
-                q.get(timeout=0.1)
+                self.q.get(timeout=0.1)
             except queue.Empty:
                 pass
-        worker.join()
+        self.worker.join()
 
 
 def _out_of_memory(limit: str | None, exc: BaseException) -> str:
