@@ -51,6 +51,39 @@ def _is_csv(name: str) -> bool:
     return name.lower().endswith((".csv", ".csv.gz"))
 
 
+HEADER_NAMES = {"unit_id", "id", "ids", "visitor_id", "user_id", "uid", "cookie_id", "client_id", "unit"}
+
+
+def _lines(text: IO[str]) -> Iterator[str]:
+    """Lines ended by \\n only (a lone \\r is not a line end: `read_ids` refuses it rather than split an id)."""
+    buf = ""
+    while True:
+        block = text.read(1 << 16)
+        if not block:
+            break
+        buf += block
+        *done, buf = buf.split("\n")
+        for line in done:
+            yield line + "\n"
+    if buf:
+        yield buf
+
+
+def _one_id_per_line(path: str, lines: list[str | None]) -> None:
+    """Refuse a header line or CSV rows read as ids (one id per line has neither)."""
+    name = "stdin" if path == "-" else path
+    head = (lines[0] or "").strip().lower()
+    if head in HEADER_NAMES:
+        raise InputError(f"{name}: line 1 is '{lines[0]}', a column name, not an id: pass --column {lines[0]} to "
+                         "read the file as CSV with a header, or remove that line")
+    for sep, word in ((",", "commas"), ("\t", "tabs"), (";", "semicolons")):
+        filled = [x for x in lines if x]
+        counts = {x.count(sep) for x in filled}
+        if len(filled) >= 2 and len(counts) == 1 and counts != {0}:
+            raise InputError(f"{name}: every line holds {counts.pop() + 1} fields separated by {word}: this is a "
+                             "table, not one id per line; pass --column NAME (the id column of its header)")
+
+
 def read_ids(
     path: str, column: str | None, advance: Callable[[int], None] = lambda n: None,
     note: Callable[[str], None] = lambda text: None,
@@ -74,7 +107,8 @@ def read_ids(
     try:
         if not as_csv:
             chunk: list[str | None] = []
-            for lineno, line in enumerate(text, 1):
+            first = True
+            for lineno, line in enumerate(_lines(text), 1):
                 if lineno == 1 and line.startswith(BOM):
                     line = line[1:]
                     note(f"{path}: {NOTE_BOM}")
@@ -82,14 +116,23 @@ def read_ids(
                     line = line[:-1]
                 if line.endswith("\r"):
                     line = line[:-1]
+                if "\r" in line:
+                    raise InputError(f"{'stdin' if path == '-' else path}: line {lineno} holds a carriage return inside it (lines ended by CR "
+                                     "alone, an old export format?): re-export the ids one per line with \\n or "
+                                     "\\r\\n line ends")
                 chunk.append(line)
-                if len(chunk) >= CHUNK:
+                if len(chunk) >= CHUNK or (first and len(chunk) >= 50):
+                    if first:
+                        _one_id_per_line(path, chunk)
+                        first = False
                     yield chunk
                     chunk = []
                     if raw is not None:
                         advance(raw.tell() - pos)
                         pos = raw.tell()
             if chunk:
+                if first:
+                    _one_id_per_line(path, chunk)
                 yield chunk
         else:
             reader = csv.reader(text)
@@ -208,6 +251,9 @@ class ArmWriter:
     def __init__(self, out: str | None, *, ids_only: bool = False) -> None:
         self.out = out
         self.ids_only = ids_only
+        if ids_only and out and _is_parquet(out):
+            raise InputError(f"{out}: --ids-only writes one id per line of text, not Parquet; give --out a .txt or "
+                             ".csv name, or leave out --ids-only for a Parquet file of ids, buckets and arms")
         self.parquet = bool(out) and _is_parquet(out or "") and not ids_only
         self._pq = None
         self._fh: IO[str] | None = None

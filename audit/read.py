@@ -159,16 +159,22 @@ def _setting(table: str, key: str) -> str:
 
 
 def _need(src: Source, present: list[str], wanted: dict[str, str], table: str, delimiter: str = ",") -> None:
-    """Raise if a mapped column is missing, listing the columns the file does have."""
-    for key, col in wanted.items():
-        if col not in present:
-            hint = _looks_separated(present, delimiter) if src.is_csv else ""
-            if hint:
-                hint += f" in {table}"
-            raise InputError(
-                f"{src.path}: column '{col}' not found in the {src.role} file (spec: "
-                f"{_setting(table, key)} = \"{col}\"); the file has columns: {', '.join(present) or '(none)'}{hint}"
-            )
+    """Raise if mapped columns are missing, naming every missing one at once and the columns the file has."""
+    missing = [(key, col) for key, col in wanted.items() if col not in present]
+    if not missing:
+        return
+    hint = _looks_separated(present, delimiter) if src.is_csv else ""
+    if hint:
+        hint += f" in {table}"
+    has = f"the file has columns: {', '.join(present) or '(none)'}{hint}"
+    if len(missing) == 1:
+        key, col = missing[0]
+        raise InputError(f"{src.path}: column '{col}' not found in the {src.role} file (spec: "
+                         f"{_setting(table, key)} = \"{col}\"); {has}")
+    cols = ", ".join(f"'{c}'" for _, c in missing)
+    spec = ", ".join(f"{_setting(table, k)} = \"{c}\"" for k, c in missing)
+    raise InputError(f"{src.path}: {len(missing)} columns not found in the {src.role} file: {cols} (spec: {spec}); "
+                     f"{has}")
 
 
 def _no_duplicates(src: Source, present: list[str], wanted: dict[str, str], table: str) -> None:

@@ -52,8 +52,10 @@ def test_parquet_missing_column_lists_columns(tmp_path: Path) -> None:
     pq.write_table(pa.table({"uid": ["a"], "first_seen": ["2026-01-06T00:00:00Z"]}), tmp_path / "v.parquet")
     with pytest.raises(InputError) as exc:
         run_audit(SPEC, visits=tmp_path / "v.parquet")
-    assert str(exc.value) == (f"{tmp_path / 'v.parquet'}: column 'unit_id' not found in the visits file (spec: "
-                              "[audit.visits] unit_id = \"unit_id\"); the file has columns: uid, first_seen")
+    # every missing column at once (issue #20), not one per run
+    assert str(exc.value) == (f"{tmp_path / 'v.parquet'}: 3 columns not found in the visits file: 'unit_id', 'arm', "
+                              "'device' (spec: [audit.visits] unit_id = \"unit_id\", [audit.visits] arm = \"arm\", "
+                              "[audit] segments[0] = \"device\"); the file has columns: uid, first_seen")
 
 
 def test_not_a_parquet_file(tmp_path: Path) -> None:
