@@ -124,6 +124,9 @@ def _db_error(exc: sqlite3.Error, path: Path) -> InputError:
         return _locked(path)
     if "not a database" in text or "malformed" in text or "no such table" in text:
         return _corrupt(path, str(exc))
+    if "disk is full" in text or "disk i/o error" in text:
+        return InputError(f"history file {path}: the disk is full (or failing): this run was not recorded and "
+                          "the history is unchanged; free some space and run again")
     return InputError(f"history file {path}: {exc}")
 
 
@@ -159,7 +162,8 @@ def _upsert(path: Path | str, ddls: tuple[str, ...], sql: str, params: tuple[Any
             _check_version(conn, path)
             conn.execute(sql, params)
         except BaseException:
-            conn.execute("ROLLBACK")
+            if conn.in_transaction:  # SQLite rolls back by itself on a full disk; a second ROLLBACK would
+                conn.execute("ROLLBACK")  # raise "no transaction is active" and hide the real reason
             raise
         conn.execute("COMMIT")
     except sqlite3.Error as exc:

@@ -73,6 +73,12 @@ def check_leakage(spec: Spec, lt: LeakageTables | None) -> Check:
     e_units = int(ba.loc[expo, "units"].sum())
     e_reach = int(ba.loc[expo, "exposed_units"].sum())
     all_units = int(ba["units"].sum())
+    if h_units == 0:  # no holdout unit to be reached: a leak share of 0 would read as "no leakage"
+        return Check(id="leakage", title=TITLE, status="warn",
+                     summary="Cannot judge: the visits have no holdout unit, so nobody could be found reached in the "
+                             "holdout; see SRM (an arm with no units is a broken split) and check the recorded arms.",
+                     figures={"exposure_rows": Figure(label="exposure rows in the file", value=lt.rows_read,
+                                                      unit="count")})
     leak_share = h_leak / h_units if h_units else 0.0
     rate_h = leak_share
     rate_e = e_reach / e_units if e_units else 0.0

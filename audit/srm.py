@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from collections.abc import Sequence
 
 import numpy as np
@@ -187,6 +189,10 @@ def check_srm(spec: Spec, split: SplitTables) -> Check:
     p_any_path = sequential_p(cum, theta)
     p_any = float(p_any_path[-1])
     daily_fixed = [fixed_p(row, theta, th.min_expected)[0] for row in cum]
+    if not math.isfinite(p_any):  # a p-value that is not a number never reads as "within chance"
+        return Check(id="srm", title="Sample ratio (SRM), overall", status="warn",
+                     summary=f"Cannot judge: the sequential test gave no p-value for these counts "
+                             f"({', '.join(f'{a} {int(c):,}' for a, c in zip(arms, counts))}); check the counts.")
     failed = p_any < th.srm_anytime_p
     shares = counts / n
     worst = int(np.argmax(np.abs(shares - theta) / theta))

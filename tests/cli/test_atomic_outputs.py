@@ -89,3 +89,13 @@ def test_every_command_writes_through_a_temporary_file(tmp_path: Path, monkeypat
     assert r.returncode in (0, 1, 3, 7), r.stderr
     assert "out.txt" in renamed and (tmp_path / "out.txt").stat().st_size > 0
     assert _temps(tmp_path) == []
+
+
+def test_a_full_disk_under_the_history_says_so(tmp_path: Path) -> None:
+    # once: "cannot rollback - no transaction is active", hiding the reason
+    import sqlite3
+
+    from armlock.audit.history import _db_error
+
+    err = _db_error(sqlite3.OperationalError("database or disk is full"), tmp_path / "h.sqlite")
+    assert "the disk is full (or failing): this run was not recorded and the history is unchanged" in str(err)

@@ -87,6 +87,7 @@ def assert_readout_parity(p: Any, s: Any) -> None:
     assert p.audit.notes == s.audit.notes and p.audit.counts == s.audit.counts
     a, b = p.tables, s.tables
     assert (a.arms, a.covariates, a.counts, a.attributed) == (b.arms, b.covariates, b.counts, b.attributed)
+    assert a.orders_daily == b.orders_daily and sum(a.orders_daily.values()) > 0  # the orders feed's days (issue #20)
     assert p.notes == s.notes
     assert [d for d, _ in a.looks] == [d for d, _ in b.looks]
     for (what, x), (_, y) in zip([("final", a.final), *a.looks], [("final", b.final), *b.looks]):

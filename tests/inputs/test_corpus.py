@@ -157,10 +157,11 @@ def test_readout_corpus(base: tuple[Path, dict[str, Path]], tmp_path: Path) -> N
               Case("revenue -inf", "orders.csv", _csv(header, [[*r[:2], "-inf"] for r in rows]), False),
               Case("a few ids only", "orders.csv", _csv(header, holdout_only[:3]))]
     hits = 0
-    for case in cases:
+    for n, case in enumerate(cases):
         bad = tmp_path / case.filename
         bad.write_bytes(case.data)
-        for extra in ([], ["--spend", "inf"], ["--spend", "1000", "--as-of", "9999-12-31"]):
+        refusals = [["--spend", "inf"], ["--spend", "1000", "--as-of", "9999-12-31"]] if n % 10 == 0 else []
+        for extra in ([], *refusals):
             r = run_inprocess(tmp_path, "readout", "--spec", spec.name, "--visits", str(paths["visits"]),
                               "--exposures", str(paths["exposures"]), "--orders", case.filename, "--format", "json",
                               *extra)
@@ -191,7 +192,7 @@ def test_plan_corpus(tmp_path: Path) -> None:
             if opt == "--target-iroas":
                 args["--weekly-spend"] = "12000"
             flat = [x for kv in args.items() for x in kv]
-            for fmt in ("text", "markdown"):
+            for fmt in (("text", "markdown") if val.startswith("\x1b") else ("markdown",)):
                 r = run_inprocess(tmp_path, "plan", *flat, "--format", fmt)
                 _sane(r, f"plan {opt} {val!r} --format {fmt}")
                 assert "\x1b" not in r.stderr and b"\x1b" not in r.stdout
