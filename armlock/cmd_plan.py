@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 from pathlib import Path
@@ -156,7 +157,7 @@ def carry_plan_into_spec_text(text: str, *, planned_units: int, margin: float | 
 
     for key, value in values.items():
         section = re.sub(rf"(?m)^({key}[ \t]*=[ \t]*)([^#\n]*?)([ \t]*)(#.*)?$",
-                         lambda m, v=value: put(m, v), section, count=1)
+                         functools.partial(lambda v, m: put(m, v), value), section, count=1)
     return text[:start] + section + text[end:]
 
 

@@ -337,14 +337,26 @@ def cash(p: Plan, amount: float) -> str:
     return money(amount) + (f" {c}" if c else "")
 
 
+def _weeks(s: ShareSummary) -> int:
+    """The whole weeks of a share already known to be sound (its `weeks` is set)."""
+    assert s.weeks is not None
+    return s.weeks
+
+
+def _forgone(s: ShareSummary) -> float:
+    """The revenue a sound share forgoes (set whenever its `weeks` is)."""
+    assert s.revenue_forgone is not None
+    return s.revenue_forgone
+
+
 def _choose(p: Plan, options: list[ShareSummary]) -> ShareSummary:
     if p.prefer == "time":
-        return min(options, key=lambda s: (s.weeks, s.revenue_forgone, s.share))
-    cheapest = min(options, key=lambda s: (s.revenue_forgone, s.weeks, s.share))
+        return min(options, key=lambda s: (_weeks(s), _forgone(s), s.share))
+    cheapest = min(options, key=lambda s: (_forgone(s), _weeks(s), s.share))
     if p.prefer == "money":
         return cheapest
-    near = [s for s in options if s.revenue_forgone <= cheapest.revenue_forgone * (1 + BALANCED_EXTRA)]
-    return min(near, key=lambda s: (s.weeks, s.revenue_forgone, s.share))
+    near = [s for s in options if _forgone(s) <= _forgone(cheapest) * (1 + BALANCED_EXTRA)]
+    return min(near, key=lambda s: (_weeks(s), _forgone(s), s.share))
 
 
 def _sound_words(p: Plan, s: ShareSummary) -> str:
@@ -375,6 +387,8 @@ def _decision_words(p: Plan, h: float, w: int) -> str:
     be = p.break_even_iroas
     c = _cell_at(p, h, w)
     pays = c.iroas_vs_break_even
+    if pays is None:  # set whenever spend and margin are given, as checked above
+        return ""
     not_pays = be - (pays - be)
     words = (f"Against break-even (iROAS {num(be)} = 1 / margin {pct(x.margin or 1)}): it shows the channel pays "
              f"when its iROAS is {num(pays)} or more")
@@ -418,7 +432,7 @@ def recommend(p: Plan) -> Recommendation:
                               f"({num(p.break_even_iroas)} = 1 / margin): there is no paying channel to tell from "
                               "break-even; aim at a higher target, or plan with --against zero.")
     sound = [s for s in p.summaries if s.weeks is not None]
-    in_time = [s for s in sound if s.weeks <= p.max_weeks]
+    in_time = [s for s in sound if _weeks(s) <= p.max_weeks]
     if in_time:
         s = _choose(p, in_time)
         assert s.weeks is not None and s.revenue_forgone is not None
@@ -430,17 +444,17 @@ def recommend(p: Plan) -> Recommendation:
         sim = _sound_words(p, s)
         if sim:
             parts.append(sim[0].upper() + sim[1:] + ".")
-        faster = sorted((t for t in sound if t.weeks < s.weeks), key=lambda t: (t.weeks, t.revenue_forgone))
-        cheaper = sorted((t for t in in_time if t.revenue_forgone < s.revenue_forgone and t is not s),
-                         key=lambda t: t.revenue_forgone)
+        faster = sorted((t for t in sound if _weeks(t) < s.weeks), key=lambda t: (_weeks(t), _forgone(t)))
+        cheaper = sorted((t for t in in_time if _forgone(t) < s.revenue_forgone and t is not s),
+                         key=_forgone)
         alt = []
         for t in faster[:2]:
-            alt.append(f"{pct(t.share)} for {weeks_words(t.weeks)} ends {weeks_words(s.weeks - t.weeks)} sooner and "
-                       f"forgoes {cash(p, t.revenue_forgone - s.revenue_forgone)} more")
+            alt.append(f"{pct(t.share)} for {weeks_words(_weeks(t))} ends {weeks_words(s.weeks - _weeks(t))} sooner and "
+                       f"forgoes {cash(p, _forgone(t) - s.revenue_forgone)} more")
         if cheaper:
             t = cheaper[0]
-            alt.append(f"{pct(t.share)} for {weeks_words(t.weeks)} forgoes {cash(p, s.revenue_forgone - t.revenue_forgone)} "
-                       f"less and takes {weeks_words(t.weeks - s.weeks)} longer")
+            alt.append(f"{pct(t.share)} for {weeks_words(_weeks(t))} forgoes {cash(p, s.revenue_forgone - _forgone(t))} "
+                       f"less and takes {weeks_words(_weeks(t) - s.weeks)} longer")
         if alt:
             parts.append("Alternatives: " + "; ".join(alt) + ".")
         dec = _decision_words(p, s.share, s.weeks)

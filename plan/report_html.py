@@ -65,19 +65,21 @@ def chart_mde(p: Plan, chart_id: str = "mde", narrow: bool = False) -> str:
 def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
     """Each share's weeks needed for the target against the revenue its holdout forgoes."""
     fig, ax = plt.subplots(figsize=(NARROW, 3.8) if narrow else (WIDE, 3.2))
-    sound = [s for s in p.summaries if s.weeks is not None and s.revenue_forgone is not None]
-    for i, s in enumerate(sound):
-        ax.scatter([s.weeks], [s.revenue_forgone], s=70, color=_share_colour(i), zorder=3,
-                   marker="o" if s.share != p.recommendation.share else "*")
-        label = f"{pct(s.share)}: {s.weeks} wk" + ("" if narrow else f", {money(s.revenue_forgone)}")
-        ax.annotate(label, (s.weeks, s.revenue_forgone), xytext=(6, 4), textcoords="offset points", fontsize=8,
+    # (share, weeks, revenue forgone) of every share with a sound design
+    sound = [(s.share, s.weeks, s.revenue_forgone) for s in p.summaries
+             if s.weeks is not None and s.revenue_forgone is not None]
+    for i, (share, weeks, forgone) in enumerate(sound):
+        ax.scatter([weeks], [forgone], s=70, color=_share_colour(i), zorder=3,
+                   marker="o" if share != p.recommendation.share else "*")
+        label = f"{pct(share)}: {weeks} wk" + ("" if narrow else f", {money(forgone)}")
+        ax.annotate(label, (weeks, forgone), xytext=(6, 4), textcoords="offset points", fontsize=8,
                     color=INK)
     ax.axvline(p.max_weeks, color=MUTED, lw=1, ls="-.", label=f"longest allowed ({p.max_weeks} wk)")
     ax.set_xscale("log")
     from matplotlib.ticker import FuncFormatter, NullFormatter
 
-    lo = min([s.weeks for s in sound] + [p.max_weeks]) / 1.5
-    hi = max([s.weeks for s in sound] + [p.max_weeks]) * 2.2  # room for the labels
+    lo = min([w for _, w, _ in sound] + [p.max_weeks]) / 1.5
+    hi = max([w for _, w, _ in sound] + [p.max_weeks]) * 2.2  # room for the labels
     ax.set_xlim(lo, hi)
     ax.set_xticks([t for t in (1, 2, 4, 8, 13, 26, 52, 104, 208, 520, 1040) if lo <= t <= hi] or [p.max_weeks])
     ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
