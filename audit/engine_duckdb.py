@@ -318,7 +318,7 @@ def _visits_table(spec: Spec, fr: Frames, va: VisitArms) -> pa.Table:
     eff = effective_arms(va)
     hold = np.isin(eff, [list(spec.arm_names).index(a) for a in spec.holdout_arms])
     fs = v[TIME].array.as_unit("ns").asi8 // 1000
-    return pa.table({"id": arrow_ids(v[UNIT]).cast(pa.string()), "pos": pa.array(np.arange(len(v), dtype=np.int32)),
+    return pa.table({"id": arrow_ids(v[UNIT]).cast(pa.large_string()), "pos": pa.array(np.arange(len(v), dtype=np.int32)),
                      "fs": pa.array(fs, pa.int64()), "eff": pa.array(eff.astype(np.int8)), "hold": pa.array(hold)})
 
 
