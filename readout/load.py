@@ -170,6 +170,10 @@ def load_spend_days(spec: Spec, path: PathLike, as_of: date, notes: list[str]) -
     if neg.any():
         raise InputError(f"{src.path}: column '{cs.amount}' has {int(neg.sum()):,} negative amount(s) "
                          f"({src.rows(np.flatnonzero(neg))}); spend is never negative")
+    huge = ~np.isfinite(amount.to_numpy(dtype=np.float64)) | (amount.to_numpy(dtype=np.float64) >= REVENUE_MAX)
+    if huge.any():
+        raise InputError(f"{src.path}: column '{cs.amount}' has {int(huge.sum()):,} amount(s) that are infinite or "
+                         f"{REVENUE_MAX:.0e} or more ({src.rows(np.flatnonzero(huge))}); spend is a finite amount")
     start = pd.Timestamp(spec.start).normalize()
     inside = ((day >= start) & (day < cutoff_of(as_of))).to_numpy()
     out = int((~inside).sum())

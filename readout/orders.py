@@ -106,3 +106,39 @@ def check_orders(spec: Spec, tables: ReadoutTables, as_of: date) -> Check:
                         columns=["arm", "units", "orders", "orders per unit / all arms", "p (so few by chance)"],
                         rows=rows_cov)]
     return Check(id="orders", title=TITLE, status=status, summary=summary, figures=figs, tables=tables_out)
+
+
+SPEND_TITLE = "Spend feed (days covered)"
+
+
+def check_spend(spec: Spec, by_day: dict[date, float], as_of: date) -> Check:
+    """The spend file's health (id `spend`): it must reach the as-of date, or iROAS divides the
+    revenue of every day by the spend of fewer days. FAIL when it covers no test day or ends two or
+    more days before the as-of date; WARN for test days without a spend row inside its span."""
+    start = spec.start.date()
+    days = sorted(d for d, v in by_day.items() if start <= d <= as_of)
+    figs: dict[str, Figure] = {"spend_days": Figure(label="test days with spend", value=len(days), unit="count")}
+    if not days:
+        return Check(id="spend", title=SPEND_TITLE, status="fail", figures=figs,
+                     summary=f"The spend file has no row on the test's days ({start} to {as_of}): iROAS, ROI and cost "
+                             "per buyer would divide by nothing; export the spend of the test's days.")
+    behind = (as_of - days[-1]).days
+    span = (days[-1] - max(days[0], start)).days + 1
+    gaps = span - len(days)
+    figs["spend_days_behind"] = Figure(label="days the spend feed is behind", value=behind, unit="count")
+    if behind >= 2:
+        return Check(id="spend", title=SPEND_TITLE, status="fail", figures=figs,
+                     summary=f"The spend file ends on {days[-1]}, {behind} days before the as-of date {as_of}: the "
+                             "revenue of those days would be set against no spend, overstating iROAS; export the "
+                             "spend up to the as-of date or choose an earlier --as-of.")
+    if gaps or behind == 1:
+        what = []
+        if behind == 1:
+            what.append(f"it ends on {days[-1]}, a day before the as-of date")
+        if gaps:
+            what.append(f"{gaps} day(s) between {days[0]} and {days[-1]} have no spend row")
+        return Check(id="spend", title=SPEND_TITLE, status="warn", figures=figs,
+                     summary="The spend file may be incomplete: " + "; ".join(what)
+                             + " (days the channel did not run are fine; an export gap understates spend).")
+    return Check(id="spend", title=SPEND_TITLE, status="pass", figures=figs,
+                 summary=f"The spend file covers every day from {days[0]} to the as-of date {as_of}.")

@@ -21,7 +21,7 @@ from armlock.audit.run import checks_from_tables, report_from_checks
 from .analyze import analyze
 from .load import load_spend_days
 from .money import window_spend
-from .orders import check_orders
+from .orders import check_orders, check_spend
 from .tables import COV_PREFIX, ReadoutTables
 from .model import ReadoutReport
 
@@ -132,6 +132,7 @@ def reports_from_result(spec: Spec, res: ReadoutResult, *, spend: float | None =
     if spend_file is not None or (spend is not None and window != "to_as_of"):
         if spend_file is not None:
             by_day = load_spend_days(spec, spend_file, used, notes)
+            gate.append(check_spend(spec, by_day, used))  # the spend feed: does it reach the as-of date?
         else:  # one amount: taken as spent evenly over the test's days to the as-of
             first = spec.start.date()
             n_days = max((used - first).days + 1, 1)

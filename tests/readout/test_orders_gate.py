@@ -134,3 +134,25 @@ def test_check_refuses_a_time_format_with_an_unknown_directive() -> None:
         spec_from_dict({"name": "w", "salt": "s", "start": "2026-01-05T00:00:00Z",
                         "arms": [{"name": "holdout", "weight": 5000}, {"name": "exposed", "weight": 5000}],
                         "audit": {"visits": {"first_seen_format": "%Q %Y"}}})
+
+
+def _spend(path: Path, days: pd.DatetimeIndex, amount: float = 100.0) -> Path:
+    pd.DataFrame({"day": days.strftime("%Y-%m-%d"), "amount": amount}).to_csv(path, index=False)
+    return path
+
+
+def test_a_spend_file_that_ends_early_fails_the_gate(shop, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    full = pd.date_range("2026-01-05", "2026-02-01", freq="D")
+    ok = _readout(shop, shop[2], "spend-ok", spend_file=_spend(tmp_path / "ok.csv", full))
+    assert next(g for g in ok.gate if g.id == "spend").status == "pass" and ok.trustworthy
+    early = _readout(shop, shop[2], "spend-early", spend_file=_spend(tmp_path / "early.csv", full[:-10]))
+    spend = next(g for g in early.gate if g.id == "spend")
+    assert spend.status == "fail" and "10 days before the as-of date" in spend.summary and not early.trustworthy
+    holes = _readout(shop, shop[2], "spend-holes", spend_file=_spend(tmp_path / "holes.csv", full.delete([5, 6])))
+    assert next(g for g in holes.gate if g.id == "spend").status == "warn"
+
+
+def test_an_infinite_spend_amount_is_refused(shop, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    with pytest.raises(InputError, match="amount\\(s\\) that are infinite"):
+        _readout(shop, shop[2], "spend-inf", spend_file=_spend(tmp_path / "inf.csv",
+                                                             pd.date_range("2026-01-05", periods=3), math.inf))
