@@ -98,7 +98,7 @@ def read_ids(
     A leading UTF-8 byte-order mark is never part of an id or a column name: it is removed and noted.
     """
     if _is_parquet(path):
-        yield from _read_parquet(path, column, advance)
+        yield from _read_parquet(path, column, advance, note)
         return
     as_csv = column is not None or _is_csv(path)
     text, raw, _ = _open_text(path)
@@ -195,7 +195,8 @@ def read_ids(
             text.close()
 
 
-def _read_parquet(path: str, column: str | None, advance: Callable[[int], None]) -> Iterator[list[str | None]]:
+def _read_parquet(path: str, column: str | None, advance: Callable[[int], None],
+                  note: Callable[[str], None] = lambda text: None) -> Iterator[list[str | None]]:
     import pyarrow as pa
     import pyarrow.compute as pc
     import pyarrow.parquet as pq
@@ -223,6 +224,8 @@ def _read_parquet(path: str, column: str | None, advance: Callable[[int], None])
         typ = typ.value_type
     if not (pa.types.is_string(typ) or pa.types.is_large_string(typ) or pa.types.is_integer(typ)):
         raise InputError(f"{path}: column '{column}' is {typ}; ids must be text (or integers)")
+    if pa.types.is_integer(typ):  # said, as the audit says it: the arm is the hash of the decimal text
+        note(f"{path}: ids in '{column}' are integers; hashed as their decimal text")
     per_row = max(1, Path(path).stat().st_size // max(1, pf.metadata.num_rows))
     batches = pf.iter_batches(batch_size=CHUNK, columns=[column])
     while True:

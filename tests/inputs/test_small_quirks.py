@@ -54,3 +54,15 @@ def test_a_minimal_visits_file_names_every_missing_column_at_once(tmp_path: Path
     assert r.returncode == 4
     line = r.stderr.splitlines()[0]
     assert "columns not found in the visits file: 'first_seen', 'arm'" in line and "the file has columns: unit_id" in line
+
+
+def test_integer_parquet_ids_are_hashed_as_decimal_text_and_said(tmp_path: Path) -> None:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    spec = write_spec(tmp_path)
+    pq.write_table(pa.table({"unit_id": pa.array([101, 102], pa.int64())}), tmp_path / "ids.parquet")
+    r = run_inprocess(tmp_path, "assign", "--spec", spec.name, "ids.parquet")
+    text = run_inprocess(tmp_path, "assign", "--spec", spec.name, stdin=b"101\n102\n")
+    assert r.returncode == 0 and "ids in 'unit_id' are integers; hashed as their decimal text" in r.stderr
+    assert r.stdout == text.stdout  # the same arms as the ids written as text
