@@ -14,6 +14,7 @@ import warnings
 from collections import defaultdict
 from collections.abc import Callable, Generator, Iterable
 from datetime import date
+from fractions import Fraction
 from typing import Any
 
 import pandas as pd
@@ -25,7 +26,7 @@ from armlock.assign.sql import spark_arm_expr, spark_string_literal
 
 from .engine import EngineResult, Inputs, ReadoutResult, file_bytes
 from .engine_pandas import HASH_LIKE, PREFIX_MAX, _cuts
-from .engine_spark_batch import Rows, together
+from .engine_spark_batch import Builder, Rows, together
 from .engine_spark_load import US_DAY, SparkFrames, day_of, load_exposures, load_identities, load_visits
 from .exactsum import exact_total, rounded_mean, to_float
 from .tables import (
@@ -67,7 +68,7 @@ class SparkEngine:
             builder = builder.config(key, value)
         session = builder.getOrCreate()
         ctx = session.sparkContext
-        if ctx.master.startswith("local"):  # one machine, a terminal run
+        if (ctx.master or "").startswith("local"):  # one machine, a terminal run
             ctx.setLogLevel("ERROR")  # Spark's warnings about plans and host names are noise here
             if not ctx.getConf().contains(_PARTITIONS):
                 # Spark's default of 200 shuffle partitions is meant for clusters: on one machine each
@@ -177,15 +178,15 @@ def exact_sums_query(frame: DataFrame, keys: list[str], value: str) -> DataFrame
             .select(*keys, e.alias("_e"), m.alias("_m")).groupBy(*keys, "_e").agg(F.sum("_m").alias("_s")))
 
 
-def exact_sums_of(parts: Iterable[Any], keys: list[str]) -> dict[tuple, float]:
+def exact_sums_of(parts: Iterable[Any], keys: list[str]) -> dict[tuple, Fraction]:
     """`exact_sums_query`'s rows -> {keys: exact sum} as Fractions."""
     acc: dict[tuple, list[tuple[int, int]]] = defaultdict(list)
     for r in parts:
         acc[tuple(r[k] for k in keys)].append((int(r["_e"]), int(r["_s"])))
-    return {k: exact_total(v) for k, v in acc.items()}  # type: ignore[misc]
+    return {k: exact_total(v) for k, v in acc.items()}
 
 
-def exact_sums(frame: DataFrame, keys: list[str], value: str) -> dict[tuple, float]:
+def exact_sums(frame: DataFrame, keys: list[str], value: str) -> dict[tuple, Fraction]:
     """{keys: exact sum of `value`} as Fractions (finite, non-zero values only), in one job of its own."""
     return exact_sums_of(exact_sums_query(frame, keys, value).collect(), keys)
 
@@ -202,7 +203,8 @@ def compute_tables(spec: Spec, fr: SparkFrames) -> AuditTables:
     fr.cached.append(v)
     # every aggregate of every table goes to Spark in two collects (engine_spark_batch); split and
     # integrity come first: leakage reads the arm counts (fr.arm_pairs) they leave behind
-    builders = [split_and_integrity(spec, fr, v), _numeric(spec, fr, v.where(F.col("_rec") >= 0), len(spec.arms))]
+    builders: list[Builder] = [split_and_integrity(spec, fr, v),
+                               _numeric(spec, fr, v.where(F.col("_rec") >= 0), len(spec.arms))]
     if fr.exposures is not None:
         builders.append(leakage_tables(spec, fr, v))
     if fr.identities is not None:
@@ -364,7 +366,7 @@ def _numeric(spec: Spec, fr: SparkFrames, ok: DataFrame,
         r = per_arm.get(a)
         return int(r[f"n{i}"] or 0) if r is not None else 0
 
-    means = {(i, a): rounded_mean(sums.get((i, a), 0), n_of(i, a)) for i in range(len(covs)) for a in range(k)}  # type: ignore[arg-type]
+    means = {(i, a): rounded_mean(sums.get((i, a), Fraction(0)), n_of(i, a)) for i in range(len(covs)) for a in range(k)}
     mean_col = F.lit(None).cast("double")
     for (i, a), m in means.items():
         if m == m:  # not NaN
@@ -420,8 +422,8 @@ def _cubes(ranked: DataFrame) -> DataFrame:
     return ranked.select("cov", (F.col("c").cast("double") * F.col("c") * F.col("c") - F.col("c")).alias("t"))
 
 
-def _rank_sums(rows: Rows, k: int) -> dict[tuple, object]:
-    ranks: dict[tuple, object] = {}
+def _rank_sums(rows: Rows, k: int) -> dict[tuple, Fraction]:
+    ranks: dict[tuple, Fraction] = {}
     for r in rows:
         for a in range(k):
             ranks[(r["cov"], a)] = exact_total([(-1, int(r[f"r{a}"] or 0))])

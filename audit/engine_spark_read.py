@@ -179,7 +179,7 @@ def open_source(spark: SparkSession, ref: str, role: str, delimiter: str = ",") 
     return src, df
 
 
-_ARROW_NAMES = {T.ByteType: "int8", T.ShortType: "int16", T.IntegerType: "int32", T.LongType: "int64",
+_ARROW_NAMES: dict[type[T.DataType], str] = {T.ByteType: "int8", T.ShortType: "int16", T.IntegerType: "int32", T.LongType: "int64",
                 T.FloatType: "float", T.DoubleType: "double"}
 
 

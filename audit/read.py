@@ -15,6 +15,7 @@ import zlib
 from dataclasses import dataclass, field
 from datetime import date
 from pathlib import Path
+from typing import Any, Protocol
 
 import numpy as np
 import pandas as pd
@@ -102,7 +103,7 @@ def _first_line(src: Source) -> tuple[bytes, bool]:
     """The raw header line (without a leading BOM) and whether a BOM was there."""
     path = src.path
     opener = gzip.open if path.name.lower().endswith(".gz") else open
-    with opener(path, "rb") as fh:  # type: ignore[operator]
+    with opener(path, "rb") as fh:
         first = fh.readline(1 << 20)
     bom = first.startswith(BOM)
     return (first[len(BOM):] if bom else first), bom
@@ -400,7 +401,14 @@ T_MIN_US = _T_MIN.value // 1000  # the same bounds in microseconds since 1970 (f
 T_MAX_US = _T_MAX.value // 1000
 
 
-def far_times(src: Source, col: str, n: int, first: str, example: pd.Timestamp) -> InputError:
+class _Named(Protocol):
+    """Any input with a `path` to name in a message (a `Source`, or the Spark engine's)."""
+
+    @property
+    def path(self) -> Any: ...
+
+
+def far_times(src: _Named, col: str, n: int, first: str, example: pd.Timestamp) -> InputError:
     """The error for times outside the years 1678-2261 (both engines): count, first rows, the first such time."""
     return InputError(f"{src.path}: column '{col}' has {n:,} time(s) outside the years 1678-2261 "
                       f"(first: {first}; e.g. {example}); check the export or the time format")
@@ -572,7 +580,7 @@ def read_times(src: Source, table: pa.Table, col: str, notes: list[str], fmt: st
         raise bad_times(src, col, len(p.bad), src.rows(p.bad), p.shown, fmt, setting or "the column's time format")
     notes.extend(time_notes(src, col, fmt, p))
     if len(p.far):
-        raise far_times(src, col, len(p.far), src.rows(p.far), p.far_first)  # type: ignore[arg-type]
+        raise far_times(src, col, len(p.far), src.rows(p.far), p.far_first)
     return p.values
 
 

@@ -228,8 +228,8 @@ def analyze(spec: Spec, tables: ReadoutTables, *, as_of: str, checks: list[Check
         cpb = Interval(value=_f(v), lo=_f(lo), hi=_f(hi))
     m = Money(
         currency=cfg.currency, margin=cfg.margin, exposed_units=ex.n, spend=spend,
-        incremental_revenue=scaled_iv(mf.incremental_revenue, ex.n),  # type: ignore[arg-type]
-        incremental_profit=scaled_iv(mf.incremental_profit, ex.n * cfg.margin),  # type: ignore[arg-type]
+        incremental_revenue=scaled_iv(mf.incremental_revenue, ex.n),
+        incremental_profit=scaled_iv(mf.incremental_profit, ex.n * cfg.margin),
         iroas=scaled_iv(mf.iroas, ex.n / spend) if spend else None,
         roi=scaled_iv(mf.roi, ex.n * cfg.margin / spend, -1.0) if spend else None,
         incremental_buyers=interval(mf.incremental_buyers),

@@ -118,21 +118,21 @@ def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, 
                 lo=lo, hi=hi, level=level, p_breakeven=p, final_look=st.final, stage=st.why,
                 planned_units=st.planned_units, planned_end=st.planned_end, units=units)
     if not trustworthy:
-        return Decision(answer="not_yet_known", withheld=True, **base,  # type: ignore[arg-type]
+        return Decision(answer="not_yet_known", withheld=True, **base,
                         reason=f"The answer is withheld: {gate_problem}.",
                         action="Fix what the audit gate names and read again; do not act on these figures.")
     if iroas is None or iroas.value is None:
-        return Decision(answer="not_yet_known", withheld=False, **base,  # type: ignore[arg-type]
+        return Decision(answer="not_yet_known", withheld=False, **base,
                         reason="No spend was given (--spend or --spend-file), so iROAS and the decision are not "
                                "computed.",
                         action="Give the channel's spend over the test and read again.")
     if lo is None or hi is None:
-        return Decision(answer="not_yet_known", withheld=False, **base,  # type: ignore[arg-type]
+        return Decision(answer="not_yet_known", withheld=False, **base,
                         reason="Cannot judge: iROAS has no interval yet (too few units or no variation in "
                                "revenue).",
                         action="Keep the test running and read again.")
     if buyers is not None and buyers < MIN_BUYERS:
-        return Decision(answer="not_yet_known", withheld=False, **base,  # type: ignore[arg-type]
+        return Decision(answer="not_yet_known", withheld=False, **base,
                         reason=f"Too few buyers to judge: {buyers:,} in the smaller side (holdout or exposed), "
                                f"fewer than {MIN_BUYERS}; with so few the interval is not yet reliable.",
                         action="Keep the test running; the answer comes when both sides have enough buyers.")
@@ -154,7 +154,7 @@ def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, 
                   "one; until then every look reads the anytime interval." if not st.final else
                   "At its planned size the test cannot tell: the channel is close to break-even or the test too "
                   "small. Decide on other grounds, or plan a larger test.")
-    return Decision(answer=answer, withheld=False, reason=said, action=action, **base)  # type: ignore[arg-type]
+    return Decision(answer=answer, withheld=False, reason=said, action=action, **base)
 
 
 __all__ = ["ANSWER_WORDS", "MIN_BUYERS", "Stage", "breakeven", "decide", "p_against", "stage"]

@@ -78,7 +78,7 @@ def _customer_positions(spec: Spec, fr: Frames, arm: np.ndarray, vset: object,
     customers whose units fall in more than one arm."""
     ident = fr.identities
     assert ident is not None
-    pos = positions(ident[UNIT], vset)  # type: ignore[arg-type]
+    pos = positions(ident[UNIT], vset)
     ok = pos >= 0
     links = pd.DataFrame({"c": ident[CUSTOMER].to_numpy()[ok], "p": pos[ok], "a": arm[pos[ok]]})
     g = links.groupby("c", sort=False)

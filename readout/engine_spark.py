@@ -42,9 +42,9 @@ def readout_tables(spark: SparkSession, spec: Spec, inputs: Inputs, fr: SparkFra
     fr.cached.append(orders)
     advance(file_bytes(inputs.orders))
     day_no = F.expr(f"CASE WHEN _t >= 0 THEN _t div {US_DAY} ELSE -((-_t - 1) div {US_DAY}) - 1 END")  # floor
-    days = orders.groupBy(day_no.alias("d")).count().collect()
+    day_rows = orders.groupBy(day_no.alias("d")).count().collect()
     orders_daily = {(date(1970, 1, 1) + timedelta(days=int(r["d"]))).isoformat(): int(r["count"])
-                    for r in sorted(days, key=lambda r: r["d"])}
+                    for r in sorted(day_rows, key=lambda r: r["d"])}
     arms, k = list(spec.arm_names), len(spec.arms)
     covs = list(cfg.covariates)
     cut = as_of_cut(as_of)

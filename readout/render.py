@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 import textwrap
 from collections.abc import Callable
@@ -57,8 +58,8 @@ def effects_table(r: ReadoutReport) -> Table:
     for e in r.effects:
         d = _digits(e.metric)
         rows.append([f"{e.label}{' *' if e.primary else ''}", f"{e.arm} vs {e.versus}", e.method,
-                     num(e.absolute.value, d), span(e.absolute, lambda v, d=d: num(v, d)),
-                     span(e.absolute, lambda v, d=d: num(v, d), anytime=True),
+                     num(e.absolute.value, d), span(e.absolute, functools.partial(num, digits=d)),
+                     span(e.absolute, functools.partial(num, digits=d), anytime=True),
                      pct(e.relative.value) if e.relative else "-", e.absolute.p,
                      *([e.p_holm] if holm else []), num(e.mde, d)])
     return Table(title="Effects (exposed - holdout); * = primary estimate",

@@ -72,18 +72,24 @@ def _finite(*vals: float | None) -> bool:
     return all(v is not None and math.isfinite(v) for v in vals)
 
 
+def _f(v: float | None) -> float:
+    """A value `_finite` has already passed, typed as a float."""
+    assert v is not None
+    return v
+
+
 def chart_looks(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     """Cumulative revenue-per-unit difference at each look with the fixed and anytime intervals."""
     pts = [lk for lk in r.looks if _finite(lk.difference, lk.lo, lk.hi, lk.anytime_lo, lk.anytime_hi)]
     days = _dates([lk.date for lk in pts])
     fig, ax = plt.subplots(figsize=(NARROW, 3.8) if narrow else (WIDE, 3.2))
-    ax.fill_between(days, [lk.anytime_lo for lk in pts], [lk.anytime_hi for lk in pts], color=ANYTIME_BAND,
+    ax.fill_between(days, [_f(lk.anytime_lo) for lk in pts], [_f(lk.anytime_hi) for lk in pts], color=ANYTIME_BAND,
                     lw=0, label="anytime interval (valid at every look)")
-    ax.fill_between(days, [lk.lo for lk in pts], [lk.hi for lk in pts], color=BAND, lw=0,
+    ax.fill_between(days, [_f(lk.lo) for lk in pts], [_f(lk.hi) for lk in pts], color=BAND, lw=0,
                     label="fixed interval (one planned look)")
-    ax.plot(days, [lk.anytime_lo for lk in pts], color=MUTED, lw=0.8, ls=(0, (2, 2)))
-    ax.plot(days, [lk.anytime_hi for lk in pts], color=MUTED, lw=0.8, ls=(0, (2, 2)))
-    ax.plot(days, [lk.difference for lk in pts], color=ARM_COLOURS[1], lw=2, marker="o", ms=3,
+    ax.plot(days, [_f(lk.anytime_lo) for lk in pts], color=MUTED, lw=0.8, ls=(0, (2, 2)))
+    ax.plot(days, [_f(lk.anytime_hi) for lk in pts], color=MUTED, lw=0.8, ls=(0, (2, 2)))
+    ax.plot(days, [_f(lk.difference) for lk in pts], color=ARM_COLOURS[1], lw=2, marker="o", ms=3,
             label="estimate")
     ax.axhline(0, color=INK, lw=1)
     ax.set_ylabel(f"revenue per unit,\nexposed − holdout ({r.money.currency})" if narrow
@@ -112,7 +118,8 @@ def chart_arms(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
             if not _finite(iv.value, iv.lo, iv.hi):
                 continue
             colour = ARM_COLOURS[i % len(ARM_COLOURS)]
-            ax.errorbar([iv.value * scale], [yy], xerr=[[(iv.value - iv.lo) * scale], [(iv.hi - iv.value) * scale]],
+            v, lo, hi = _f(iv.value), _f(iv.lo), _f(iv.hi)
+            ax.errorbar([v * scale], [yy], xerr=[[(v - lo) * scale], [(hi - v) * scale]],
                         fmt="o" if a.role == "holdout" else "D", color=colour, capsize=4, ms=6, lw=2)
         ax.set_title(title, loc="left", fontsize=9)
         ax.grid(axis="y", visible=False)
@@ -139,9 +146,10 @@ def chart_roas(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     rows = [("measured: iROAS", 1)] + ([("attribution: ROAS", 0)] if m.attributed_roas is not None else [])
     iv = m.iroas
     if _finite(iv.anytime_lo, iv.anytime_hi):
-        ax.plot([iv.anytime_lo, iv.anytime_hi], [1, 1], color=MUTED, lw=8, alpha=0.35, solid_capstyle="butt",
+        ax.plot([_f(iv.anytime_lo), _f(iv.anytime_hi)], [1, 1], color=MUTED, lw=8, alpha=0.35, solid_capstyle="butt",
                 label="anytime interval")
-    ax.errorbar([iv.value], [1], xerr=[[iv.value - iv.lo], [iv.hi - iv.value]], fmt="D", color=ARM_COLOURS[1],
+    v, lo, hi = _f(iv.value), _f(iv.lo), _f(iv.hi)
+    ax.errorbar([v], [1], xerr=[[v - lo], [hi - v]], fmt="D", color=ARM_COLOURS[1],
                 capsize=5, ms=7, lw=2, label=f"{round(100 * (1 - r.settings.get('alpha', 0.05)))}% interval")
     if m.attributed_roas is not None:
         ax.plot([m.attributed_roas], [0], marker="s", ms=9, color=ARM_COLOURS[0], ls="none",
