@@ -57,7 +57,7 @@ BATCH_ROWS = 1 << 20  # rows per Parquet slice: a few tens of MB of Arrow buffer
 CSV_BLOCK = 1 << 24  # bytes per CSV slice (as the pandas reader's blocks)
 KINDS = ("impression", "click", "other")
 # camp and kl are codes of `ExposureReader.levels` (one numbering for the whole file)
-STREAM_SCHEMA = pa.schema([("id", pa.string()), ("t", pa.int64()), ("camp", pa.int32()), ("kl", pa.int32()),
+STREAM_SCHEMA = pa.schema([("id", pa.large_string()), ("t", pa.int64()), ("camp", pa.int32()), ("kl", pa.int32()),
                            ("kind", pa.int8()), ("n", pa.int64())])
 
 
@@ -288,9 +288,9 @@ class ExposureReader:
                 cols = [ids, camp, klc, kind]
             else:
                 cols = [ids.take(pa.array(idx)), camp[idx], klc[idx], kind[idx]]
-            rows = pa.table([cols[0].cast(pa.string()), pa.array(tk, pa.int64()), pa.array(cols[1], pa.int32()),
+            rows = pa.table([cols[0].cast(pa.large_string()), pa.array(tk, pa.int64()), pa.array(cols[1], pa.int32()),
                              pa.array(cols[2], pa.int32()), pa.array(cols[3], pa.int8()),
-                             pa.array(np.ones(len(idx), np.int64))], schema=STREAM_SCHEMA)
+                             _ones(len(idx))], schema=STREAM_SCHEMA)
             if not sorted_mode:
                 yield from rows.to_batches()
                 continue
@@ -365,7 +365,21 @@ def _note(src: Source, col: str, rows: _Rows, what: str, notes: list[str]) -> in
 
 def _counted(rows: pa.Table, scan: ExposureScan) -> pa.Table:
     """Count the rows per UTC day of their time (`LeakageTables.daily_rows`) as they stream."""
-    days, n = np.unique(rows.column("t").to_numpy() // US_DAY, return_counts=True)  # // rounds down
-    for d, c in zip(days.tolist(), n.tolist()):
-        scan.days[d] = scan.days.get(d, 0) + c
+    if not rows.num_rows:
+        return rows
+    day = rows.column("t").to_numpy() // US_DAY  # // rounds down
+    lo = int(day.min())
+    n = np.bincount(day - lo)
+    for off in np.flatnonzero(n).tolist():
+        scan.days[lo + off] = scan.days.get(lo + off, 0) + int(n[off])
     return rows
+
+
+_ONES = [pa.array(np.ones(0, np.int64))]
+
+
+def _ones(n: int) -> pa.Array:
+    """n ones (the copies column of rows not yet grouped), sliced from one shared array."""
+    if len(_ONES[0]) < n:
+        _ONES[0] = pa.array(np.ones(max(n, BATCH_ROWS), np.int64))
+    return _ONES[0].slice(0, n)
