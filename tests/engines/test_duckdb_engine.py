@@ -319,3 +319,25 @@ def test_cli_default_engine_with_memory_limit_and_temp_dir(tmp_path: Path) -> No
     assert out["duckdb"] == out["pandas"]
     r = CliRunner().invoke(app, [*base, "--engine", "pandas", "--memory-limit", "1GB"])
     assert r.exit_code == 2 and "--memory-limit and --temp-dir need --engine duckdb" in r.output
+
+
+def test_without_duckdb_the_error_says_what_to_install(tmp_path: Path) -> None:
+    """As if the duckdb package were missing: an `Error:` naming it (exit 4), and --engine pandas still runs."""
+    import subprocess
+    import sys
+
+    spec = _spec("two_arms")
+    paths = _logs(spec, "clean", 1, tmp_path, "parquet")
+    (tmp_path / "t.toml").write_text('name = "t"\nsalt = "parity-salt"\nstart = "2026-01-05T00:00:00Z"\n'
+                                     '[[arms]]\nname = "holdout"\nweight = 5000\n'
+                                     '[[arms]]\nname = "exposed"\nweight = 5000\n', encoding="utf-8")
+    child = ("import sys; sys.modules['duckdb'] = None\nfrom armlock.cli import main\n"
+             "sys.argv = ['armlock'] + sys.argv[1:]\nmain()\n")
+    base = [sys.executable, "-c", child, "audit", "--spec", str(tmp_path / "t.toml"), "--visits", str(paths["visits"]),
+            "--exposures", str(paths["exposures"]), "--format", "json", "--out", str(tmp_path / "r.json")]
+    r = subprocess.run(base, capture_output=True, text=True, timeout=120, check=False)
+    assert r.returncode == 4, r.stderr
+    assert "Error: the DuckDB engine needs the duckdb package, which is not installed: pip install duckdb" in r.stderr
+    assert "Traceback" not in r.stderr
+    r = subprocess.run([*base, "--engine", "pandas"], capture_output=True, text=True, timeout=120, check=False)
+    assert r.returncode in (0, 1, 3), r.stderr
