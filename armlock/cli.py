@@ -2,17 +2,18 @@
 
 from __future__ import annotations
 
+import errno
 import os
 import re
 import sys
 import traceback
-from typing import Any
+from typing import Any, NoReturn
 
 import typer
 from typer.core import TyperArgument, TyperCommand, TyperGroup
 
 from armlock.assign import ArmlockError, __version__
-from armlock.assign.errors import EXIT_INTERNAL
+from armlock.assign.errors import EXIT_BAD_INPUT, EXIT_INTERNAL
 
 from . import cmd_assign, cmd_plan, cmd_snippet, cmd_spec
 from . import cmd_demo, cmd_history, cmd_overview
@@ -123,9 +124,30 @@ def main() -> None:
     except BrokenPipeError:
         sys.stderr.close()
         sys.exit(0)
-    except Exception as exc:  # a bug: say so plainly, keep the traceback for whoever debugs it
-        if os.environ.get("ARMLOCK_DEBUG"):
-            traceback.print_exc()
-        typer.echo(f"Error: internal error in armlock ({type(exc).__name__}: {exc}); "
-                   "rerun with ARMLOCK_DEBUG=1 for the traceback and please report it", err=True)
-        sys.exit(EXIT_INTERNAL)
+    except OSError as exc:  # a path the user gave that the system refuses (too long, no space, no access)
+        from armlock.audit.render import strip_controls
+
+        if exc.filename is None or exc.errno not in _USER_PATH_ERRORS:
+            _internal(exc)
+        name = str(exc.filename)
+        shown = name if len(name) <= 120 else name[:60] + f"...({len(name):,} characters)..." + name[-20:]
+        typer.echo(f"Error: {strip_controls(shown)}: {exc.strerror or exc}", err=True)
+        sys.exit(EXIT_BAD_INPUT)
+    except Exception as exc:
+        _internal(exc)
+
+
+# OS errors about a path the user named: an input error (exit 4), never an internal one
+_USER_PATH_ERRORS = {errno.ENAMETOOLONG, errno.ENOSPC, errno.EDQUOT, errno.EACCES, errno.EPERM, errno.EROFS,
+                     errno.ENOENT, errno.ENOTDIR, errno.EISDIR, errno.ELOOP}
+
+
+def _internal(exc: BaseException) -> NoReturn:
+    """A bug: say so plainly (control characters shown, not obeyed), keep the traceback for whoever debugs it."""
+    from armlock.audit.render import strip_controls
+
+    if os.environ.get("ARMLOCK_DEBUG"):
+        traceback.print_exc()
+    typer.echo(strip_controls(f"Error: internal error in armlock ({type(exc).__name__}: {exc}); "
+                              "rerun with ARMLOCK_DEBUG=1 for the traceback and please report it"), err=True)
+    sys.exit(EXIT_INTERNAL)

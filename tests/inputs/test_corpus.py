@@ -196,3 +196,35 @@ def test_plan_corpus(tmp_path: Path) -> None:
                 r = run_inprocess(tmp_path, "plan", *flat, "--format", fmt)
                 _sane(r, f"plan {opt} {val!r} --format {fmt}")
                 assert "\x1b" not in r.stderr and b"\x1b" not in r.stdout
+
+
+ARG_VALUES = ["\x1b[2J", "<img src=x onerror=1>", "", "-", "9999-12-31", "1e308", "nan", "inf", "-1", "a" * 5000,
+              "logs", "%s%n"]
+
+
+def test_hostile_arguments_to_every_command(base: tuple[Path, dict[str, Path]], tmp_path: Path) -> None:
+    # a fuzz of the command line itself (issue #20): no exit 5, no traceback, no escape sequence out
+    folder, paths = base
+    spec = write_spec(tmp_path)
+    v = pd.read_csv(paths["visits"], dtype=str).head(60)
+    pd.DataFrame({"unit_id": v["unit_id"], "order_time": v["first_seen"], "revenue": 10.0}).to_csv(
+        tmp_path / "orders.csv", index=False)
+    vis = str(paths["visits"])
+    commands = {
+        "init": lambda h: ["init", h, "--out", "o.toml", "--force"],
+        "check": lambda h: ["check", "--spec", h],
+        "snippet": lambda h: ["snippet", "--spec", spec.name, "--out", h or "x"],
+        "assign": lambda h: ["assign", "--spec", spec.name, h],
+        "audit": lambda h: ["audit", "--spec", spec.name, "--visits", vis, "--as-of", h],
+        "audit-history": lambda h: ["audit", "--spec", spec.name, "--visits", vis, "--history", h or "x", "--record"],
+        "readout": lambda h: ["readout", "--spec", spec.name, "--visits", vis, "--orders", "orders.csv", "--spend", h],
+        "readout-spend-file": lambda h: ["readout", "--spec", spec.name, "--visits", vis, "--orders", "orders.csv",
+                                         "--spend-file", h or "x"],
+        "history": lambda h: ["history", "--spec", spec.name, "--history", h or "x"],
+        "overview": lambda h: ["overview", h or "."],
+    }
+    for name, make in commands.items():
+        for h in ARG_VALUES:
+            r = run_inprocess(tmp_path, *make(h), stdin=b"v1\n")
+            _sane(r, f"{name} {h[:20]!r}")
+            assert "\x1b" not in r.stderr, f"{name} {h[:20]!r}: {r.stderr!r}"
