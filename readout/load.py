@@ -138,7 +138,8 @@ def _order_ids(frame: pd.DataFrame, oid: pd.Series, no_oid: np.ndarray,
     ids = pd.Series(oid.to_numpy(), dtype=object)
     has = ~np.asarray(no_oid)
     sale_dup = ids.where(~is_ref).duplicated(keep="first").to_numpy() & has & ~is_ref
-    ref_key = pd.DataFrame({"o": ids, "t": frame[TIME].to_numpy(), "r": frame[REV].to_numpy()})
+    times = frame[TIME].to_numpy(dtype="datetime64[ns]")  # UTC; not an object array of Timestamps (slow)
+    ref_key = pd.DataFrame({"o": ids, "t": times, "r": frame[REV].to_numpy()})
     ref_dup = ref_key.where(pd.Series(is_ref)).duplicated(keep="first").to_numpy() & has & is_ref
     sales = has & ~is_ref & ~sale_dup
     first_sale = pd.Series(frame[TIME].to_numpy()[sales], index=ids[sales].to_numpy())
