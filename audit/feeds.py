@@ -117,11 +117,16 @@ def feed_sentence(h: FeedHealth, word: str) -> str:
     if h.missing >= MIN_MISSING:
         parts.append(f"the {h.feed} feed ends on {h.last}, {h.behind} day(s) before {h.until} where it should reach "
                      f"(about {h.missing:,.0f} {word} missing at its recent rate)")
-    if h.low_days:
-        shown = ", ".join(f"{d} ({n:,} against a usual {b:,.0f})" for d, n, b in h.low_days[:5])
-        more = f" and {len(h.low_days) - 5} more" if len(h.low_days) > 5 else ""
-        parts.append(f"the {h.feed} feed has {len(h.low_days)} day(s) with under {LOW_SHARE:.0%} of its usual {word}: "
+    inside = [x for x in h.low_days if x[0] != h.until]
+    if inside:
+        shown = ", ".join(f"{d} ({n:,} against a usual {b:,.0f})" for d, n, b in inside[:5])
+        more = f" and {len(inside) - 5} more" if len(inside) > 5 else ""
+        parts.append(f"the {h.feed} feed has {len(inside)} day(s) with under {LOW_SHARE:.0%} of its usual {word}: "
                      f"{shown}{more} (a tag or export outage)")
+    for d, n, b in h.low_days:
+        if d == h.until:  # the as-of day itself, far below usual: most often an export cut mid-day
+            parts.append(f"the {h.feed} feed's last day, {d}, has {n:,} {word} against a usual {b:,.0f}: the export "
+                         "looks cut during that day (audit as of the day before), or the tag failed")
     return "; ".join(parts)
 
 

@@ -104,3 +104,12 @@ def test_new_visitors_are_expected_only_up_to_the_specs_end(logs: dict[str, Path
     c = _freshness(rep)
     row = next(r for r in c.tables[0].rows if r[0] == "visits")
     assert row[3] == "2026-03-29" and row[4] == 0
+
+
+def test_a_last_day_cut_mid_day_is_said_as_such() -> None:
+    c = healthy_daily_counts(np.random.default_rng(10), 56, 2_000.0, decay_days=None)
+    c[55] = c[55] // 40  # the export stopped at about half past midnight
+    h = feed_health("visits", _daily(c), START + timedelta(days=55), since=START)
+    from armlock.audit.feeds import feed_sentence
+
+    assert h.status == "warn" and "looks cut during that day (audit as of the day before)" in feed_sentence(h, "rows")
