@@ -5,8 +5,9 @@ Visits and identity links are read by `audit.load` (one row per unit or link) an
 slice (`audit.engine_duckdb_read`) into one DuckDB query that joins each row to its unit and
 groups it by unit and by the holdout's campaign and week cells. What comes back (`cells`) has one
 row per exposed unit, per unseen id and per leaked (unit, campaign, week): memory grows with units
-and cells, never with rows. Arms are the contract's (`audit.engine_pandas.hash_arms`: XXH64 of each
-distinct id, computed once), joined in DuckDB by id.
+and cells, never with rows. Arms are the contract's (`contract_arms`: XXH64 of each distinct id,
+computed once, from the Arrow buffers), joined in DuckDB by id. The slices reach DuckDB through
+one stream per core (`Ahead`), so its join and grouping run on every core.
 
 DuckDB runs under a memory limit (`--memory-limit`, DuckDB's own default otherwise: 80 % of the
 machine's memory) and spills to a temporary folder (`--temp-dir`, else a new folder under the

@@ -142,10 +142,14 @@ def _order_ids(frame: pd.DataFrame, oid: pd.Series, no_oid: np.ndarray,
     ref_key = pd.DataFrame({"o": ids, "t": times, "r": frame[REV].to_numpy()})
     ref_dup = ref_key.where(pd.Series(is_ref)).duplicated(keep="first").to_numpy() & has & is_ref
     sales = has & ~is_ref & ~sale_dup
-    first_sale = pd.Series(frame[TIME].to_numpy()[sales], index=ids[sales].to_numpy())
-    usable = pd.Series(keep[sales], index=ids[sales].to_numpy())
-    first_sale = first_sale[usable.to_numpy()]
-    when = ids.map(first_sale).where(pd.Series(is_ref & has))
+    # each refund's order: its first usable sale (sale ids are unique here), looked up by position
+    usable = keep[sales]
+    sale_ids = pd.Index(ids[sales].to_numpy()[usable])
+    sale_times = times[sales][usable]
+    pos = sale_ids.get_indexer(ids) if len(sale_ids) else np.full(len(ids), -1)
+    found = (pos >= 0) & is_ref & has
+    when = np.full(len(ids), np.datetime64("NaT"), dtype="datetime64[ns]")
+    when[found] = sale_times[pos[found]]
     redate = pd.Series(pd.to_datetime(when, utc=True), index=frame.index)
     return sale_dup | ref_dup, redate
 
