@@ -238,13 +238,27 @@ def check_srm(spec: Spec, split: SplitTables) -> Check:
                  summary=summary, figures=figs, tables=[table], series={"daily": series})
 
 
+def look_weeks(split: SplitTables) -> int:
+    """The test week this audit looks at: whole or begun weeks from the first to the last first-seen day."""
+    if not len(split.daily):
+        return 1
+    days = pd.to_datetime(pd.Index(split.daily.index).astype(str), errors="coerce")
+    if days.isna().any():
+        return 1
+    return max(1, -(-((days.max() - days.min()).days + 1) // 7))
+
+
 def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Check:
     """SRM per first-seen day and per segment value: exact per-cell p-values, Holm-corrected across all of them.
 
     Exact p-values (`exact_srm_p`) keep the family-wise error at or below its level at every cell
     size; chi-square p-values at Holm's tiny thresholds are too small in cells of a few units.
+    Weekly looks: the audit of test week k (`look_weeks`) fails below `srm_p / k`, so 26 weekly
+    audits together false-fail with probability at most srm_p x (1 + 1/2 + ... + 1/26) = 3.9 x srm_p
+    (union bound); at `srm_p` in every week it was up to 26 x, 0.5% measured at 200,000 units.
     """
     th = spec.audit.thresholds
+    level = th.srm_p / look_weeks(split)
     arms = split.arms
     theta = _theta(spec)
     tests: list[tuple[str, str, int, float, float]] = []  # segment, value, units, ratio, p
@@ -267,7 +281,7 @@ def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Che
                               "in every arm yet."))
     adj = holm([t[4] for t in tests])
     order = np.lexsort(([t[4] for t in tests], adj))  # by adjusted p, ties by raw p
-    fails = [i for i in order if adj[i] < th.srm_p]
+    fails = [i for i in order if adj[i] < level]
     listed = [i for i in order if adj[i] < 1.0][:show]  # an adjusted p of 1 is no lead: not listed
     rows = [[tests[i][0], tests[i][1], tests[i][2], round(tests[i][3], 4), tests[i][4], float(adj[i])]
             for i in listed]
@@ -282,7 +296,8 @@ def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Che
     else:
         status = "pass"
         summary = (f"No day or segment value has a sample ratio mismatch beyond chance ({len(tests)} tested with exact "
-                   f"p-values, Holm-corrected"
+                   f"p-values, Holm-corrected, failing below {level:.2g}: the level {th.srm_p:g} shared over "
+                   f"{look_weeks(split)} weekly look(s)"
                    + (f"; {skipped} too small to test" if skipped else "") + ").")
     by_segment = {}
     for seg, frame in split.segments.items():
