@@ -12,7 +12,7 @@ import typer
 
 from armlock.assign import InputError, SpecError
 
-from .common import emit, err
+from .common import emit, err, in_place
 
 FORMATS = ("text", "markdown", "json", "html")
 
@@ -175,6 +175,8 @@ def write_spec_atomically(name: str, share: float, dest: Path, *, force: bool, c
         raise SpecError(f"--spec-out {dest}: is a folder; give the spec's file name, e.g. {dest / (name + '.toml')}")
     if dest.exists() and not force:
         raise SpecError(f"{dest}: already exists; choose another --spec-out or pass --force")
+    if in_place(dest):  # a device or pipe: a rename would replace it
+        raise SpecError(f"{dest}: not a regular file; give a .toml file name for the spec")
     try:
         h = share_to_basis_points(share)
     except ValueError as exc:

@@ -105,11 +105,12 @@ def check(
     if accept:
         open_spec(spec_path, accept_changed_split=True, record=False)
     lock = check_lock(spec, spec_path, write=False)
+    lock_status = "not yet recorded" if lock.recorded is None and lock.status == "recorded" else lock.status
     info = {
         "spec": str(spec_path), "valid": True, "experiment": spec.name, "fingerprint": spec.fingerprint,
         "arms": [{"name": a.name, "weight": a.weight, "role": a.role} for a in spec.arms],
         "start": spec.start.isoformat().replace("+00:00", "Z"),
-        "lock": {"path": str(lock.path), "status": "not yet recorded" if lock.recorded is None and lock.status == "recorded" else lock.status},
+        "lock": {"path": str(lock.path), "status": lock_status},
     }
     if as_json:
         typer.echo(json.dumps(info, indent=2, ensure_ascii=False))
@@ -117,7 +118,7 @@ def check(
         typer.echo(f"{spec_path}: valid spec for experiment {spec.name!r}, fingerprint {spec.fingerprint}")
         for a in spec.arms:
             typer.echo(f"  {a.name:<20} {a.weight:>5} bp  {a.weight / 100:>6g}%  {a.role}")
-        typer.echo(f"  lock {lock.path.name}: {info['lock']['status']}")
+        typer.echo(f"  lock {lock.path.name}: {lock_status}")
     if lock.status == "changed":
         raise SplitChangedError(lock.warning or "the split changed")
     if lock.warning:

@@ -79,6 +79,15 @@ def err(text: str) -> None:
 TMP_MARK = ".armlock-tmp"  # temporary files are ".<name>.<pid>.armlock-tmp" beside their target
 
 
+def in_place(out: Path) -> bool:
+    """True for an existing path that is not a regular file or folder (/dev/null, /dev/stdout, a named
+    pipe): it is written in place, because a rename would replace the device or pipe itself."""
+    try:
+        return out.exists() and not out.is_file() and not out.is_dir()
+    except OSError:
+        return False
+
+
 def temp_path(out: Path) -> Path:
     """The temporary file a write to `out` goes through: same folder (so the rename is atomic), this process's id."""
     return out.with_name(f".{out.name}.{os.getpid()}{TMP_MARK}")
@@ -124,11 +133,19 @@ def write_atomic(out: Path, data: str | bytes, *, what: str) -> None:
     goes through here (or, streamed, through `temp_path` and `os.replace`: `io_ids.ArmWriter`)."""
     if out.is_dir():
         raise InputError(f"{out}: cannot write {what}: it is a folder; give a file name")
+    payload = data.encode("utf-8") if isinstance(data, str) else data
+    if in_place(out):
+        try:
+            with open(out, "wb") as f:
+                f.write(payload)
+        except OSError as exc:
+            raise InputError(f"{out}: cannot write {what}: {os_error_text(exc)}") from None
+        return
     remove_stale_temps(out)
     tmp = temp_path(out)
     try:
         with open(tmp, "wb") as f:
-            f.write(data.encode("utf-8") if isinstance(data, str) else data)
+            f.write(payload)
             f.flush()
             os.fsync(f.fileno())
         os.replace(tmp, out)

@@ -14,7 +14,7 @@ from typing import IO
 
 from armlock.assign import InputError
 
-from .common import os_error_text, remove_stale_temps, temp_path
+from .common import in_place, os_error_text, remove_stale_temps, temp_path
 
 CHUNK = 200_000
 csv.field_size_limit(16 * 1024 * 1024)
@@ -262,7 +262,8 @@ class ArmWriter:
         self._fh: IO[str] | None = None
         self._csv = None
         self._stream: IO[str] | None = None
-        self._tmp: Path | None = None
+        self._tmp: Path | None = None  # the file written: a temporary one renamed into place, or `out` itself
+        self._replace = False  # the temporary file is renamed over `out` at the end
         self.unwritable = 0  # ids_only: ids with a line break, which one-per-line cannot hold
         if out:
             target = Path(out)
@@ -270,8 +271,11 @@ class ArmWriter:
                 raise InputError(f"{out}: cannot write: folder {target.parent} does not exist")
             if target.is_dir():
                 raise InputError(f"{out}: cannot write: it is a directory")
-            remove_stale_temps(target)
-            self._tmp = temp_path(target)
+            if in_place(target):  # /dev/null, a pipe: written as it is, never replaced by a rename
+                self._tmp = target
+            else:
+                remove_stale_temps(target)
+                self._tmp, self._replace = temp_path(target), True
 
     def _start(self) -> None:
         """Open the output on the first write (the input has been read successfully by then)."""
@@ -333,12 +337,12 @@ class ArmWriter:
             elif self._stream is not None:
                 self._stream.flush()
                 self._stream.detach()  # type: ignore[attr-defined]
-            if self._tmp is not None and self.out:
+            if self._tmp is not None and self.out and self._replace:
                 if ok:
                     os.replace(self._tmp, self.out)
                 else:
                     self._tmp.unlink(missing_ok=True)
         except OSError as exc:
-            if self._tmp is not None:
+            if self._tmp is not None and self._replace:
                 self._tmp.unlink(missing_ok=True)
             raise InputError(f"{self.out}: cannot write: {os_error_text(exc)}") from None

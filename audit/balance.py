@@ -348,7 +348,7 @@ def check_balance(spec: Spec, bt: BalanceTables) -> Check:
             return None
         if isinstance(x, float) and not math.isfinite(x):
             return None if math.isnan(x) else ("inf" if x > 0 else "-inf")
-        return round(float(x), 6) if isinstance(x, (float, int)) else x  # type: ignore[arg-type]
+        return round(float(x), 6) if isinstance(x, (float, int)) else x
 
     table = Table(
         title=f"Balance against {ref}",

@@ -16,7 +16,7 @@ COOKIE_NOTE = ("Common practice: one major browser engine caps cookies written b
                "first-party cookie set by the shop's own server keeps them (armlock.assign.middleware).")
 
 
-def expected_multi_arm(ids_per_customer: Sequence[int] | np.ndarray, theta: Sequence[float],
+def expected_multi_arm(ids_per_customer: Sequence[int] | np.ndarray, theta: Sequence[float] | np.ndarray,
                        weights: Sequence[int] | np.ndarray | None = None) -> float:
     """Expected number of customers in more than one arm if each of their ids were hashed afresh.
 

@@ -107,7 +107,7 @@ def load_frames(spec: Spec, inputs: Inputs, as_of: date | None,
     visits = local_path(inputs.visits, "--visits")
     exposures = local_path(inputs.exposures, "--exposures")
     identities = local_path(inputs.identities, "--identities")
-    fr = Frames(visits=None)  # type: ignore[arg-type]
+    fr = Frames(visits=None)
     used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
     early = engine_pandas.start_visit_arms(spec, fr.visits)  # overlaps the loading below
     advance(file_bytes(visits))

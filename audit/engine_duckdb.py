@@ -60,7 +60,7 @@ def connect(memory_limit: str | None, temp_directory: str | None) -> Iterator[An
         made = tempfile.mkdtemp(prefix="armlock-duckdb-")
     # The exposure stream's size is unknown to DuckDB's planner, which may then build a join's hash
     # table on it (all the rows) rather than on the units: the join order is fixed as written.
-    config = {"temp_directory": temp_directory or made, "preserve_insertion_order": False,
+    config: dict[str, str | bool | int | float | list[str]] = {"temp_directory": temp_directory or made, "preserve_insertion_order": False,
               "disabled_optimizers": "join_order,build_side_probe_side"}
     if memory_limit:
         config["memory_limit"] = memory_limit
@@ -141,7 +141,7 @@ class DuckDBEngine:
         visits = local_path(inputs.visits, "--visits")
         exposures = local_path(inputs.exposures, "--exposures")
         identities = local_path(inputs.identities, "--identities")
-        fr = Frames(visits=None)  # type: ignore[arg-type]
+        fr = Frames(visits=None)
         used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
         early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)
         advance(file_bytes(visits))

@@ -143,7 +143,7 @@ def zoned_micros(arr: pa.Array) -> _Zoned | None:
     if len(live) and (live.min() < T_MIN_US or live.max() >= T_MAX_US):
         return None  # out of range: the general reader says where
     empty = np.zeros(0, np.int64)
-    return _Zoned(None, empty, [], empty, us=us, nat=nat)  # type: ignore[arg-type]
+    return _Zoned(None, empty, [], empty, us=us, nat=nat)
 
 
 class ExposureReader:
@@ -238,7 +238,7 @@ class ExposureReader:
                 scan.far.add(p.far, base)
             f = scan.flags
             if f is None:
-                scan.flags = ParsedTimes(None, p.bad[:0], [], p.far[:0], dates=p.dates, naive=p.naive,  # type: ignore[arg-type]
+                scan.flags = ParsedTimes(None, p.bad[:0], [], p.far[:0], dates=p.dates, naive=p.naive,
                                          naive_text=p.naive_text, fmt_naive=p.fmt_naive)
             else:
                 f.dates |= p.dates
@@ -336,7 +336,7 @@ class ExposureReader:
         if scan.flags is not None:
             notes += time_notes(src, ce.time, ce.time_format, scan.flags)
         if scan.far.n:
-            raise far_times(src, ce.time, scan.far.n, src.rows(scan.far.first, scan.far.n), scan.far_first)  # type: ignore[arg-type]
+            raise far_times(src, ce.time, scan.far.n, src.rows(scan.far.first, scan.far.n), scan.far_first)
         counts["exposure_rows"] = scan.rows
         if scan.other:
             others = list(scan.other_levels)

@@ -82,5 +82,5 @@ def check_integrity(spec: Spec, it: IntegrityTables, counts: dict[str, int],
     if it.fingerprints:
         tables.append(Table(title="Spec fingerprints in the data", columns=["fingerprint", "units", "this spec"],
                             rows=[[f, c, "yes" if f == spec.fingerprint else "no"] for f, c in it.fingerprints.items()]))
-    return Check(id="integrity", title="Assignment integrity", status=status, summary=summary,  # type: ignore[arg-type]
+    return Check(id="integrity", title="Assignment integrity", status=status, summary=summary,
                  figures=figs, tables=tables)

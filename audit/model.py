@@ -150,7 +150,7 @@ def worst(statuses: list[str]) -> Status:
     """The worst of several statuses: fail beats warn beats pass; skipped adds nothing here (the
     verdict, `verdict_of`, also weighs what was not checked)."""
     level = max((SEVERITY[s] for s in statuses), default=0)
-    return ("pass", "warn", "fail")[level]  # type: ignore[return-value]
+    return ("pass", "warn", "fail")[level]
 
 
 def not_checked(checks: list[Check]) -> list[NotChecked]:

@@ -280,7 +280,7 @@ def check_srm_segments(spec: Spec, split: SplitTables, *, show: int = 10) -> Che
                      summary=(f"Cannot judge: no day or segment value has {th.min_expected:g} or more expected units "
                               "in every arm yet."))
     adj = holm([t[4] for t in tests])
-    order = np.lexsort(([t[4] for t in tests], adj))  # by adjusted p, ties by raw p
+    order = np.lexsort((np.array([t[4] for t in tests]), adj))  # by adjusted p, ties by raw p
     fails = [i for i in order if adj[i] < level]
     listed = [i for i in order if adj[i] < 1.0][:show]  # an adjusted p of 1 is no lead: not listed
     rows = [[tests[i][0], tests[i][1], tests[i][2], round(tests[i][3], 4), tests[i][4], float(adj[i])]
