@@ -58,9 +58,10 @@ def load_visits(spark: SparkSession, spec: Spec, ref: str, as_of: date | None, f
     src, raw = open_source(spark, ref, "visits", cv.delimiter)
     fr.notes += src.notes
     present = present_columns(raw)
-    need(src, raw, {"unit_id": cv.unit_id, "first_seen": cv.first_seen, "arm": cv.arm}, "[audit.visits]")
-    for key in ("segments", "covariates", "categorical_covariates"):
-        need(src, raw, {f"{key}[{i}]": c for i, c in enumerate(getattr(cfg, key))}, "[audit]")
+    wanted = {"unit_id": cv.unit_id, "first_seen": cv.first_seen, "arm": cv.arm}
+    for key in ("segments", "covariates", "categorical_covariates"):  # every missing column named at once
+        wanted.update({f"[audit] {key}[{i}]": c for i, c in enumerate(getattr(cfg, key))})
+    need(src, raw, wanted, "[audit.visits]")
     optional: dict[str, str] = {}
     for key, name in (("fingerprint", cv.fingerprint), ("browser", cv.browser)):
         if name and name in present:

@@ -161,7 +161,10 @@ def _setting(table: str, key: str) -> str:
 
 def _need(src: Source, present: list[str], wanted: dict[str, str], table: str, delimiter: str = ",") -> None:
     """Raise if mapped columns are missing, naming every missing one at once and the columns the file has."""
-    missing = [(key, col) for key, col in wanted.items() if col not in present]
+    missing: list[tuple[str, str]] = []
+    for key, col in wanted.items():  # a column two settings name (a segment and a covariate) is said once
+        if col not in present and all(col != c for _, c in missing):
+            missing.append((key, col))
     if not missing:
         return
     hint = _looks_separated(present, delimiter) if src.is_csv else ""

@@ -119,3 +119,14 @@ def test_times_outside_the_engine_range_name_the_row(tmp_path: Path) -> None:
     with pytest.raises(InputError, match=r"1 time\(s\) outside the years 1678-2261 \(first: line 3; "
                                          r"e\.g\. 1500-01-01 00:00:00\.500000\+00:00\)"):
         run_audit(spec, visits=path)
+
+
+def test_a_missing_column_two_settings_name_is_said_once(tmp_path: Path) -> None:
+    from armlock.audit.read import Source, _need
+
+    src = Source(tmp_path / "v.csv", "visits")
+    wanted = {"unit_id": "unit_id", "[audit] segments[0]": "device", "[audit] categorical_covariates[0]": "device"}
+    with pytest.raises(InputError) as e:
+        _need(src, ["uid"], wanted, "[audit.visits]")
+    msg = str(e.value)
+    assert "2 columns not found" in msg and msg.count("'device'") == 1, msg
