@@ -10,7 +10,7 @@ import sys
 import zlib
 from collections.abc import Callable, Iterator
 from pathlib import Path
-from typing import IO
+from typing import IO, Any
 
 from armlock.assign import InputError
 
@@ -38,7 +38,7 @@ def _open_text(path: str) -> tuple[IO[str], IO[bytes] | None, int | None]:
     except OSError as exc:
         raise InputError(f"{path}: cannot open: {exc.strerror}") from None
     size = p.stat().st_size
-    stream: IO[bytes] = gzip.GzipFile(fileobj=raw) if path.lower().endswith(".gz") else raw
+    stream: IO[bytes] | gzip.GzipFile = gzip.GzipFile(fileobj=raw) if path.lower().endswith(".gz") else raw
     return io.TextIOWrapper(stream, encoding="utf-8", newline=""), raw, size
 
 
@@ -183,8 +183,8 @@ def read_ids(
         raise InputError(f"{path}: not UTF-8 text (bad byte 0x{exc.object[exc.start]:02x}); "
                          "re-export the ids as UTF-8") from None
     except csv.Error as exc:
-        line = reader.line_num if reader is not None else "?"
-        raise InputError(f"{path}: malformed CSV near line {line}: {exc}") from None
+        near: int | str = reader.line_num if reader is not None else "?"
+        raise InputError(f"{path}: malformed CSV near line {near}: {exc}") from None
     except _READ_ERRORS as exc:
         gz = isinstance(exc, (zlib.error, EOFError, gzip.BadGzipFile))
         why = f"the gzip data is damaged or cut short ({exc})" if gz else str(exc)
@@ -258,9 +258,9 @@ class ArmWriter:
             raise InputError(f"{out}: --ids-only writes one id per line of text, not Parquet; give --out a .txt or "
                              ".csv name, or leave out --ids-only for a Parquet file of ids, buckets and arms")
         self.parquet = bool(out) and _is_parquet(out or "") and not ids_only
-        self._pq = None
+        self._pq: Any = None  # a pyarrow ParquetWriter (pyarrow ships no type stubs)
         self._fh: IO[str] | None = None
-        self._csv = None
+        self._csv: Any = None  # a csv writer (its type is private to the csv module)
         self._stream: IO[str] | None = None
         self._tmp: Path | None = None  # the file written: a temporary one renamed into place, or `out` itself
         self._replace = False  # the temporary file is renamed over `out` at the end

@@ -55,13 +55,14 @@ def connect(memory_limit: str | None, temp_directory: str | None) -> Iterator[An
         import duckdb
     except ImportError:
         raise InputError(f"the DuckDB engine needs the duckdb package, which is not installed: {DUCKDB_INSTALL}") from None
-    made = None
-    if temp_directory is None:
-        made = tempfile.mkdtemp(prefix="armlock-duckdb-")
+    made = None if temp_directory is not None else tempfile.mkdtemp(prefix="armlock-duckdb-")
+    spill = temp_directory if temp_directory is not None else made
+    assert spill is not None
     # The exposure stream's size is unknown to DuckDB's planner, which may then build a join's hash
     # table on it (all the rows) rather than on the units: the join order is fixed as written.
-    config: dict[str, str | bool | int | float | list[str]] = {"temp_directory": temp_directory or made, "preserve_insertion_order": False,
-              "disabled_optimizers": "join_order,build_side_probe_side"}
+    config: dict[str, str | bool | int | float | list[str]] = {
+        "temp_directory": spill, "preserve_insertion_order": False,
+        "disabled_optimizers": "join_order,build_side_probe_side"}
     if memory_limit:
         config["memory_limit"] = memory_limit
     try:
@@ -381,5 +382,5 @@ def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: Expo
         unseen_by_arm={a: int(n) for a, n in zip(arms, np.bincount(ua, minlength=k))},
         exposed_ids=len(pos) + len(uniq), exposed_rows=exposed_u,
         rows_read=fr.counts.get("exposure_rows", rows), duplicate_rows=fr.counts.get("exposure_duplicate_rows", 0),
-        daily_rows={_day(d * US_DAY): c for d, c in sorted(scan.days.items())}, **diag,  # type: ignore[arg-type]
+        daily_rows={_day(d * US_DAY): c for d, c in sorted(scan.days.items())}, **diag,
     )

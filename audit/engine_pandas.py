@@ -7,6 +7,7 @@ import math
 from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -124,7 +125,7 @@ def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, ob
     t = tie_counts.astype(np.float64)
     ties = rounded_sum(t * t * t - t)  # exact sums (audit.exactsum): every engine gets the same bits
     ranks = (np.cumsum(t) - (t - 1.0) / 2.0)[inverse] if len(vals) else vals
-    rows = []
+    rows: list[dict[str, object]] = []
     for i in range(k):
         m = arms_used == i
         xi = vals[m]
@@ -271,7 +272,7 @@ def _cuts(prefix: str) -> list[str]:
     return list(dict.fromkeys([prefix[:i + 1] for i, ch in enumerate(prefix) if not ch.isalnum()] + [prefix]))
 
 
-def _unseen_diagnostics(unseen: pd.Series, visit_ids: pd.Series, vset: pa.Array) -> dict[str, object]:
+def _unseen_diagnostics(unseen: pd.Series, visit_ids: pd.Series, vset: pa.Array) -> dict[str, Any]:
     """Counts that tell why exposed ids miss the visits: hashed ids, a prefix added or dropped.
 
     Rule (engine-neutral): P = the longest prefix all distinct unseen ids share; for P and each part
@@ -279,7 +280,7 @@ def _unseen_diagnostics(unseen: pd.Series, visit_ids: pd.Series, vset: pa.Array)
     that part is removed; keep the part with the most matches (the longest on ties). Likewise for
     the visits' common prefix, added to the unseen ids.
     """
-    out: dict[str, object] = {"unseen_hash_like": 0, "unseen_prefix": "", "unseen_match_without_prefix": 0,
+    out: dict[str, Any] = {"unseen_hash_like": 0, "unseen_prefix": "", "unseen_match_without_prefix": 0,
                               "visits_prefix": "", "unseen_match_with_visits_prefix": 0}
     if not len(unseen):
         return out
