@@ -17,7 +17,7 @@ from armlock.assign.snippet import render_snippet
 
 from armlock.audit.words import status_word
 
-from .common import err, progress
+from .common import err, progress, write_atomic
 
 SHOP = "Quillmoss Homewares (invented)"
 SITE = "shop.example"
@@ -166,19 +166,19 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS, server_
         'attributed = "" ', 'attributed = "attributed_channel"')
     if server_ids:
         text = text.replace('id_from = "script"', 'id_from = "server"', 1)
-    spec_path.write_text(f"# INVENTED demo scenario: {SHOP} at {SITE} is made up (armlock demo).\n"
-                         + text, encoding="utf-8")
+    write_atomic(spec_path, f"# INVENTED demo scenario: {SHOP} at {SITE} is made up (armlock demo).\n" + text,
+                 what="the demo's spec")
     spec = load_spec(spec_path)
     check_lock(spec, spec_path, write=True)
     story = textwrap.fill(STORY_CLEAN if clean else STORY_SERVER if server_ids else STORY_FAULTS, width=92)
-    (folder / "README.txt").write_text(README.replace("{story}", story), encoding="utf-8")
+    write_atomic(folder / "README.txt", README.replace("{story}", story), what="the demo's README")
     logs = synth.generate(spec, units=units, days=7 * WEEKS, seed=SEED, faults=() if clean else FAULTS,
                           server_ids=server_ids)
     paths = synth.write_logs(logs, folder / "logs", fmt="parquet")  # audits read it twice as fast as CSV
     orders = synth.generate_orders(spec, logs, days=7 * WEEKS, seed=SEED + 1, uplift=UPLIFT, duplicates=0.002)
     paths["orders"] = synth.write_orders(orders, folder / "logs", fmt="parquet")
-    (folder / "snippet" / "armlock-tag.html").write_text(render_snippet(spec, "html"), encoding="utf-8")
-    (folder / "snippet" / "armlock.js").write_text(render_snippet(spec, "js"), encoding="utf-8")
+    write_atomic(folder / "snippet" / "armlock-tag.html", render_snippet(spec, "html"), what="the demo's snippet")
+    write_atomic(folder / "snippet" / "armlock.js", render_snippet(spec, "js"), what="the demo's snippet")
     history = default_history_path(spec_path)
     dates = weekly_as_of()
     report = readout = None
@@ -194,15 +194,15 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS, server_
                            figures={k: f.model_dump() for k, f in readout.figures.items()})
             advance(1)
     assert report is not None and readout is not None
-    (folder / "readout.json").write_text(json.dumps(readout.to_json_dict(), indent=2, ensure_ascii=False),
-                                         encoding="utf-8")
-    (folder / "readout.html").write_text(render_readout_html(readout), encoding="utf-8")
-    (folder / "readout-finance.html").write_text(render_finance(readout), encoding="utf-8")
-    (folder / "report.json").write_text(json.dumps(report.to_json_dict(), indent=2, ensure_ascii=False),
-                                        encoding="utf-8")
-    (folder / "report.html").write_text(render_html(report, load(history, spec.fingerprint),
-                                                    thresholds=spec.audit.thresholds),
-                                        encoding="utf-8")
+    write_atomic(folder / "readout.json", json.dumps(readout.to_json_dict(), indent=2, ensure_ascii=False),
+                 what="the demo's readout")
+    write_atomic(folder / "readout.html", render_readout_html(readout), what="the demo's readout page")
+    write_atomic(folder / "readout-finance.html", render_finance(readout), what="the demo's finance page")
+    write_atomic(folder / "report.json", json.dumps(report.to_json_dict(), indent=2, ensure_ascii=False),
+                 what="the demo's audit report")
+    write_atomic(folder / "report.html", render_html(report, load(history, spec.fingerprint),
+                                                     thresholds=spec.audit.thresholds),
+                 what="the demo's audit page")
     res.files = {"README": folder / "README.txt", "spec": spec_path, "history": history,
                  "visits": paths["visits"], "exposures": paths["exposures"],
                  "identities": paths["identities"], "snippet (html)": folder / "snippet" / "armlock-tag.html",
