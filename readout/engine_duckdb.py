@@ -13,10 +13,10 @@ from datetime import date
 from typing import TYPE_CHECKING
 
 from armlock.assign import InputError, Spec
-from armlock.audit.engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path
+from armlock.audit.engine import Inputs, ReadoutResult, local_path
 
 from . import engine_pandas
-from .load import attach_covariates, load_orders
+from .load import attach_covariates
 
 if TYPE_CHECKING:
     from armlock.audit.engine_duckdb import DuckDBEngine
@@ -33,12 +33,4 @@ def readout(engine: DuckDBEngine, spec: Spec, inputs: Inputs, as_of: date | None
         attach_covariates(spec, local_path(inputs.visits, "--visits"), fr.visits, [])  # type: ignore[arg-type]
 
     fr, used, audit_tables = engine.load_and_count(spec, inputs, as_of, advance, before_count=covariates)
-    audit = EngineResult(tables=audit_tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
-                         data_through=fr.data_through)
-    notes: list[str] = []
-    counts: dict[str, float] = {}
-    orders_path = local_path(inputs.orders, "--orders")
-    orders = load_orders(spec, orders_path, used, notes, counts)  # type: ignore[arg-type]
-    advance(file_bytes(orders_path))
-    tables = engine_pandas.compute(spec, fr, audit_tables, orders, used, counts, notes)
-    return ReadoutResult(audit=audit, tables=tables, notes=notes)
+    return engine_pandas.with_orders(spec, inputs, fr, used, audit_tables, advance)

@@ -37,7 +37,13 @@ def readout(spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[i
         raise InputError("a readout needs the orders log (--orders)")
     fr, used, early = load_frames(spec, inputs, as_of, advance)
     attach_covariates(spec, local_path(inputs.visits, "--visits"), fr.visits, [])  # type: ignore[arg-type]
-    audit_tables = audit_engine.compute(spec, fr, early)
+    return with_orders(spec, inputs, fr, used, audit_engine.compute(spec, fr, early), advance)
+
+
+def with_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date, audit_tables: AuditTables,
+                advance: Callable[[int], None]) -> ReadoutResult:
+    """The readout once the audit's tables are counted: the orders loaded and matched once, then the
+    per-unit tables (shared by the embedded engines, pandas and DuckDB)."""
     audit = EngineResult(tables=audit_tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
                          data_through=fr.data_through)
     notes: list[str] = []

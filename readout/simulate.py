@@ -37,6 +37,24 @@ class Sequential:
     fixed_last_miss: float  # the fixed-horizon interval read once, at the last look
 
 
+def _one_week(rng: np.random.Generator, acc: np.ndarray, per_week: int, holdout_share: float, p_holdout: float,
+              p_exposed: float) -> list[np.ndarray]:
+    """One week of new units in every simulated test: units, revenue sums and sums of squares added to
+    `acc[arm]` (shape arms x 3 x tests); returns each arm's new buyers per test."""
+    tests = acc.shape[2]
+    n_h = rng.binomial(per_week, holdout_share, size=tests)
+    out = []
+    for arm, (n, p) in enumerate(((n_h, p_holdout), (per_week - n_h, p_exposed))):
+        buyers = np.asarray(rng.binomial(n, p))
+        vals = rng.lognormal(*VALUE, size=int(buyers.sum()))
+        owner = np.repeat(np.arange(tests), buyers)
+        acc[arm, 0] += n
+        acc[arm, 1] += np.bincount(owner, vals, minlength=tests)
+        acc[arm, 2] += np.bincount(owner, vals * vals, minlength=tests)
+        out.append(buyers)
+    return out
+
+
 def sequential_misses(*, tests: int, weeks: int, per_week: int, p_holdout: float = 0.04,
                       p_exposed: float = 0.044, holdout_share: float = 0.5, alpha: float = 0.05,
                       seed: int = 0) -> Sequential:
@@ -54,14 +72,7 @@ def sequential_misses(*, tests: int, weeks: int, per_week: int, p_holdout: float
     miss_any = np.zeros(tests, bool)
     miss_fixed = np.zeros(tests, bool)
     for _ in range(weeks):
-        n_h = rng.binomial(per_week, holdout_share, size=tests)
-        for arm, (n, p) in enumerate(((n_h, p_holdout), (per_week - n_h, p_exposed))):
-            buyers = rng.binomial(n, p)
-            vals = rng.lognormal(*VALUE, size=int(buyers.sum()))
-            owner = np.repeat(np.arange(tests), buyers)
-            acc[arm, 0] += n
-            acc[arm, 1] += np.bincount(owner, vals, minlength=tests)
-            acc[arm, 2] += np.bincount(owner, vals * vals, minlength=tests)
+        _one_week(rng, acc, per_week, holdout_share, p_holdout, p_exposed)
         n0, s0, q0 = acc[0]
         n1, s1, q1 = acc[1]
         m0, m1 = s0 / n0, s1 / n1
@@ -163,14 +174,7 @@ def false_pays(*, tests: int, weeks: int, per_week: int, p_holdout: float = 0.04
     weekly = np.zeros(tests, bool)
     once = np.zeros(tests, bool)
     for week in range(1, weeks + 1):
-        n_h = rng.binomial(per_week, holdout_share, size=tests)
-        for arm, (n, p) in enumerate(((n_h, p_holdout), (per_week - n_h, p_exposed))):
-            buyers = rng.binomial(n, p)
-            vals = rng.lognormal(*VALUE, size=int(buyers.sum()))
-            owner = np.repeat(np.arange(tests), buyers)
-            acc[arm, 0] += n
-            acc[arm, 1] += np.bincount(owner, vals, minlength=tests)
-            acc[arm, 2] += np.bincount(owner, vals * vals, minlength=tests)
+        for arm, buyers in enumerate(_one_week(rng, acc, per_week, holdout_share, p_holdout, p_exposed)):
             buyers_in[arm] += buyers
         n0, s0, q0 = acc[0]
         n1, s1, q1 = acc[1]
