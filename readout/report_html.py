@@ -92,8 +92,8 @@ def chart_looks(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     ax.plot(days, [_f(lk.difference) for lk in pts], color=ARM_COLOURS[1], lw=2, marker="o", ms=3,
             label="estimate")
     ax.axhline(0, color=INK, lw=1)
-    ax.set_ylabel(f"revenue per unit,\nexposed − holdout ({r.money.currency})" if narrow
-                  else f"revenue per unit, exposed − holdout ({r.money.currency})")
+    # two lines on both drawings: on one line the label is taller than the 3.2-inch plot and was cut off
+    ax.set_ylabel(f"revenue per unit,\nexposed − holdout ({r.money.currency})")
     if narrow:
         _legend(ax, narrow)
     else:
