@@ -136,12 +136,18 @@ def test_baseline_bare_read_parquet(benchmark, logs_dir) -> None:  # type: ignor
     benchmark.extra_info["what"] = "the audit's columns, read by pyarrow"
 
 
+def _audit_measured(benchmark, code: str, d: Path, truth: dict, rounds: int = ROUNDS) -> dict:  # type: ignore[no-untyped-def]
+    """Time one audit in a fresh process (`code` picks the engine) and record its peak memory and sizes."""
+    out = benchmark.pedantic(_child, args=(code, d), rounds=rounds, iterations=1)
+    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
+                                 "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
+    return out
+
+
 @pytest.mark.benchmark(group="audit-2M")
 def test_full_audit(benchmark, logs_dir) -> None:  # type: ignore[no-untyped-def]
     d, truth = logs_dir
-    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=ROUNDS, iterations=1)
-    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
-                                 "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
+    out = _audit_measured(benchmark, _CHILD_AUDIT, d, truth)
     assert out["units"] == truth["units"]
     assert out["verdict"] == "pass"  # clean generated logs
 
@@ -149,9 +155,7 @@ def test_full_audit(benchmark, logs_dir) -> None:  # type: ignore[no-untyped-def
 @pytest.mark.benchmark(group="audit-2M")
 def test_full_audit_pandas_engine(benchmark, logs_dir) -> None:  # type: ignore[no-untyped-def]
     d, truth = logs_dir
-    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT_PANDAS, d), rounds=ROUNDS, iterations=1)
-    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
-                                 "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
+    out = _audit_measured(benchmark, _CHILD_AUDIT_PANDAS, d, truth)
     assert out["units"] == truth["units"]
 
 
@@ -172,27 +176,21 @@ def doubled_dirs(tmp_path_factory: pytest.TempPathFactory) -> dict[float, tuple[
 @pytest.mark.benchmark(group="audit-rows-double")
 def test_baseline_audit_rows(benchmark, doubled_dirs) -> None:  # type: ignore[no-untyped-def]
     d, truth = doubled_dirs[EVENTS_PER_UNIT]
-    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=ROUNDS, iterations=1)
-    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
-                                 "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
+    out = _audit_measured(benchmark, _CHILD_AUDIT, d, truth)
     assert out["units"] == truth["units"]
 
 
 @pytest.mark.benchmark(group="audit-rows-double")
 def test_audit_twice_the_rows(benchmark, doubled_dirs) -> None:  # type: ignore[no-untyped-def]
     d, truth = doubled_dirs[2 * EVENTS_PER_UNIT]
-    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=ROUNDS, iterations=1)
-    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
-                                 "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
+    out = _audit_measured(benchmark, _CHILD_AUDIT, d, truth)
     assert out["units"] == truth["units"]
 
 
 @pytest.mark.benchmark(group="audit-spark")
 def test_baseline_pandas_engine(benchmark, spark_logs_dir) -> None:  # type: ignore[no-untyped-def]
     d, truth = spark_logs_dir
-    out = benchmark.pedantic(_child, args=(_CHILD_AUDIT, d), rounds=1, iterations=1)
-    benchmark.extra_info.update({"peak_rss_mb": round(int(out["maxrss_kb"]) / 1024),  # type: ignore[call-overload]
-                                 "units": truth["units"], "exposure_rows": truth["exposure_rows"]})
+    out = _audit_measured(benchmark, _CHILD_AUDIT, d, truth, 1)
     assert out["units"] == truth["units"]
 
 

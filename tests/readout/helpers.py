@@ -30,3 +30,15 @@ def visits_frame(spec: Spec, n: int = 40) -> pd.DataFrame:
 def write(path: Path, frame: pd.DataFrame) -> Path:
     frame.to_csv(path, index=False)
     return path
+
+
+def invented_logs(spec: Spec, folder: Path, *, units: int, seed: int, uplift: float,
+                  base_rate: float) -> dict[str, Path]:
+    """Four weeks of invented logs and orders (audit.synth) as Parquet files; orders use seed + 1."""
+    from armlock.audit import synth
+
+    logs = synth.generate(spec, units=units, days=28, seed=seed)
+    orders = synth.generate_orders(spec, logs, days=28, seed=seed + 1, uplift=uplift, base_rate=base_rate)
+    paths = synth.write_logs(logs, folder, fmt="parquet")
+    paths["orders"] = synth.write_orders(orders, folder, fmt="parquet")
+    return paths

@@ -9,7 +9,6 @@ from pathlib import Path
 import pytest
 
 from armlock.assign import spec_from_dict
-from armlock.audit import synth
 from armlock.audit.report_html import render_html as audit_html
 from armlock.plan.compute import make_plan
 from armlock.plan.model import PlanInputs
@@ -18,6 +17,7 @@ from armlock.readout.report_html import render_html as readout_html
 from armlock.readout.run import run_readout_and_audit
 
 from ..report.browser import open_page
+from .helpers import invented_logs
 
 # per table: its name, the box's inner width, the table's width, the box's right edge, the box's
 # overflow-x and left border width, the box's scroll width, and whether an ancestor clips it
@@ -43,10 +43,7 @@ def pages(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
                                     {"name": "display_b", "weight": 3000}, {"name": "display_c", "weight": 3000}],
                            "readout": {"covariates": ["pre_orders"], "planned_units": 8000,
                                        "orders": {"attributed": "attributed_channel"}}})
-    logs = synth.generate(spec, units=8000, days=28, seed=61)
-    orders = synth.generate_orders(spec, logs, days=28, seed=62, uplift=0.5, base_rate=0.3)
-    paths = synth.write_logs(logs, tmp, fmt="parquet")
-    paths["orders"] = synth.write_orders(orders, tmp, fmt="parquet")
+    paths = invented_logs(spec, tmp, units=8000, seed=61, uplift=0.5, base_rate=0.3)
     readout, audit = run_readout_and_audit(spec, visits=paths["visits"], orders=paths["orders"],
                                            exposures=paths["exposures"], identities=paths["identities"],
                                            spend=3000.0, as_of=date(2026, 2, 1))

@@ -9,11 +9,11 @@ from pathlib import Path
 import pytest
 
 from armlock.assign import spec_from_dict
-from armlock.audit import synth
 from armlock.readout.report_finance import render_finance
 from armlock.readout.run import run_readout
 
 from ..report.browser import open_page
+from .helpers import invented_logs
 
 
 @pytest.fixture(scope="module")
@@ -23,10 +23,7 @@ def report(tmp_path_factory: pytest.TempPathFactory):
                            "arms": [{"name": "holdout", "weight": 1000}, {"name": "exposed", "weight": 9000}],
                            "readout": {"covariates": ["pre_orders"], "planned_units": 6000,
                                        "orders": {"attributed": "attributed_channel"}}})
-    logs = synth.generate(spec, units=6000, days=28, seed=51)
-    orders = synth.generate_orders(spec, logs, days=28, seed=52, uplift=0.8, base_rate=0.4)
-    paths = synth.write_logs(logs, tmp, fmt="parquet")
-    paths["orders"] = synth.write_orders(orders, tmp, fmt="parquet")
+    paths = invented_logs(spec, tmp, units=6000, seed=51, uplift=0.8, base_rate=0.4)
     return run_readout(spec, visits=paths["visits"], orders=paths["orders"], exposures=paths["exposures"],
                        spend=900.0, as_of=date(2026, 2, 1))
 
