@@ -100,3 +100,20 @@ def test_bad_sizes_are_refused(tmp_path: Path) -> None:
         write_chunked(SPEC, tmp_path, units=5, exposure_rows=10)
     with pytest.raises(ValueError, match="multiple of 8"):
         write_chunked(SPEC, tmp_path, units=1000, exposure_rows=10, chunk_rows=100 + 3)
+
+
+def test_the_large_run_script_at_a_tiny_size(tmp_path: Path) -> None:
+    """scripts/large_run.py end to end (2,000 units, 30,000 rows): both steps measured, the logs removed."""
+    import subprocess
+    import sys
+
+    script = Path(__file__).resolve().parents[2] / "scripts" / "large_run.py"
+    results = tmp_path / "figures.json"
+    run = subprocess.run([sys.executable, str(script), "--units", "2000", "--rows", "30000", "--chunk-rows", "8000",
+                          "--dir", str(tmp_path / "logs"), "--results", str(results), "--keep-free", "0"],
+                         capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stderr
+    assert "| audit |" in run.stdout and "verdict pass" in run.stdout
+    figures = json.loads(results.read_text())
+    assert figures["steps"]["audit"]["units_counted"] == 2000 and figures["steps"]["audit"]["peak_rss_mb"] > 0
+    assert not (tmp_path / "logs").exists()  # deleted without --keep
