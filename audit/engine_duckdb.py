@@ -23,7 +23,8 @@ import shutil
 import tempfile
 import threading
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from concurrent.futures import Future, ThreadPoolExecutor
+from contextlib import ExitStack, contextmanager
 from datetime import date
 from pathlib import Path
 from typing import Any
@@ -36,11 +37,12 @@ from armlock.assign import InputError, Spec
 
 from . import engine_pandas
 from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path
+from .engine_duckdb_native import Native, floor_div, prepared
 from .engine_duckdb_read import STREAM_SCHEMA, ExposureReader, ExposureScan, Unsorted
-from .engine_pandas import NS_DAY, VisitArms, _unseen_diagnostics
+from .engine_pandas import NS_DAY, VisitArms, _recorded_codes, _unseen_diagnostics
 from .keys import arrow_ids
 from .load import load_identities, load_visits
-from .read import TIME, UNIT, Frames
+from .read import ARM, TIME, UNIT, Frames
 from .tables import AuditTables, LeakageTables
 
 US_DAY = NS_DAY // 1000
@@ -107,9 +109,7 @@ def contract_arms(spec: Spec, ids: pd.Series) -> np.ndarray:
     return np.searchsorted(cuts, hashes, side="right").astype(np.int16)
 
 
-def _floor_div(expr: str, d: int) -> str:
-    """Floor division of an integer expression in SQL (DuckDB's % keeps the dividend's sign)."""
-    return f"(({expr}) - ((({expr}) % {d}) + {d}) % {d}) // {d}"
+_floor_div = floor_div
 
 
 def _day(us: int) -> str:
@@ -121,8 +121,11 @@ class DuckDBEngine:
 
     name = "duckdb"
 
-    def __init__(self, memory_limit: str | None = None, temp_directory: str | None = None) -> None:
+    def __init__(self, memory_limit: str | None = None, temp_directory: str | None = None,
+                 native: bool = True) -> None:
         self.memory_limit, self.temp_directory = memory_limit, temp_directory
+        self.native = native  # False: always the sliced reader (the native path's parity tests compare both)
+        self.exposure_path = ""  # which path counted the last exposure log: "native" or "sliced"
 
     def compute(self, spec: Spec, inputs: Inputs, as_of: date | None,
                 advance: Callable[[int], None]) -> EngineResult:
@@ -138,47 +141,77 @@ class DuckDBEngine:
 
     def load_and_count(self, spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[int], None],
                        before_count: Callable[[Frames], None] | None = None) -> tuple[Frames, date, AuditTables]:
-        """Read the logs, count the exposures in DuckDB and the rest as the pandas engine does."""
+        """Read the logs, count the exposures in DuckDB and the rest as the pandas engine does.
+
+        DuckDB's work runs on worker threads beside Python's (DuckDB releases Python's lock): the
+        native path's first pass over the exposure log while the visits are read, then the exposures'
+        count while the identity links are read and the visits' tables counted. Each keeps its
+        notes and counts apart, so they come out in the order of a one-thread run (notes: visits,
+        exposures, links; counts: visits, links, exposures), and errors too (links before exposures)."""
         visits = local_path(inputs.visits, "--visits")
         exposures = local_path(inputs.exposures, "--exposures")
         identities = local_path(inputs.identities, "--identities")
-        fr = Frames(visits=None)
-        used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
-        early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)
-        advance(file_bytes(visits))
-        link_notes: list[str] = []
-        if identities is not None:  # read while the ids are hashed; its notes follow the exposures'
-            at = len(fr.notes)
-            load_identities(spec, identities, used, fr)
-            link_notes = fr.notes[at:]
-            del fr.notes[at:]
-        leakage = None
+        with ExitStack() as stack:
+            con = stack.enter_context(connect(self.memory_limit, self.temp_directory)) if exposures else None
+            native: Future[Native | None] | None = None
+            if con is not None and self.native:  # the native path's first pass, beside the visits
+                native = _in_worker(stack, prepared, spec.audit.exposures, exposures, con)
+            fr = Frames(visits=None)
+            used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
+            early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)
+            advance(file_bytes(visits))
+            ef = Frames(visits=fr.visits.copy(deep=False))  # the exposures' own notes and counts
+            counting = None
+            if exposures is not None:
+                counting = _in_worker(stack, self.leakage, spec, con, exposures, used, ef, early, native)
+            fi = Frames(visits=fr.visits)  # the links' own notes and counts
+            if identities is not None:
+                load_identities(spec, identities, used, fi)
+            fr.identities = fi.identities
+            fr.counts.update(fi.counts)
+            if before_count is not None:
+                before_count(fr)
+            tables = engine_pandas.compute(spec, fr, early)
+            tables.leakage = counting.result() if counting is not None else None
         if exposures is not None:
-            va = early.result()
-            leakage = self.leakage(spec, exposures, used, fr, va)
             advance(file_bytes(exposures))
-        fr.notes += link_notes
+        fr.notes += ef.notes + fi.notes
+        fr.counts.update(ef.counts)
         if identities is not None:
             advance(file_bytes(identities))
-        if before_count is not None:
-            before_count(fr)
-        tables = engine_pandas.compute(spec, fr, early)
-        tables.leakage = leakage
         return fr, used, tables
 
     # -- exposures -------------------------------------------------------------------------------
 
-    def leakage(self, spec: Spec, path: Path, as_of: date, fr: Frames, va: VisitArms) -> LeakageTables:
-        """The leakage tables of the exposure log, counted in DuckDB."""
+    def leakage(self, spec: Spec, con: Any, path: Path, as_of: date, fr: Frames, early: Future[VisitArms],
+                native: Future[Native | None] | None = None) -> LeakageTables:
+        """The leakage tables of the exposure log, counted in DuckDB: natively when `native` (the
+        prepared native path, `engine_duckdb_native`) holds one, else from the sliced reader."""
+        import duckdb
+
         reader = ExposureReader(spec, path, as_of, fr.notes)
-        with connect(self.memory_limit, self.temp_directory) as con:
-            con.register("v", _visits_table(spec, fr, va))
-            start_us = int(pd.Timestamp(spec.start).value // 1000)
+        start_us = int(pd.Timestamp(spec.start).value // 1000)
+        week = _floor_div(_floor_div("t", US_DAY) + " + 3", 7)
+        nat = native.result() if native is not None else None
+        con.register("v", _visits_table(spec, fr, _arms_for_join(spec, fr, early)))
+        scan = None
+        if nat is not None:
+            try:
+                nat.finish(con, reader)
+                scan = nat.cells(con, start_us, week)
+            except duckdb.OutOfMemoryException as exc:
+                raise InputError(_out_of_memory(self.memory_limit, exc)) from None
+            except duckdb.Error:  # the sliced reader takes over (and names any problem with the file)
+                scan = None
+        camps = nat.camps if nat is not None else []
+        self.exposure_path = "native" if scan is not None else "sliced"
+        if scan is None:
             try:
                 scan = self._cells(con, reader, start_us, sorted_mode=True)
             except Unsorted:  # times go back somewhere: read again, DuckDB groups the repeats
                 scan = self._cells(con, reader, start_us, sorted_mode=False)
-            return _leakage_from_cells(spec, con, reader, scan, fr, va)
+            camps = list(reader.levels)
+        return _leakage_from_cells(spec, con, reader, scan, fr, early.result(), camps)
 
     def _cells(self, con: Any, reader: ExposureReader, start_us: int, sorted_mode: bool) -> ExposureScan:
         """Stream the log into DuckDB's table `cells` (one pass; sorted mode de-duplicates as it streams)."""
@@ -221,6 +254,25 @@ class DuckDBEngine:
 
 
 _DONE = object()
+
+
+def _in_worker(stack: ExitStack, fn: Callable[..., Any], *args: Any) -> Future[Any]:
+    """`fn(*args)` on a worker thread; the stack waits for it before it closes (the DuckDB connection)."""
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="armlock-duckdb")
+    try:
+        f = pool.submit(fn, *args)
+    finally:
+        pool.shutdown(wait=False)
+    stack.callback(_settled, f)
+    return f
+
+
+def _settled(f: Future[Any]) -> None:
+    """Wait for a worker that uses the DuckDB connection (its own errors are the caller's, or moot)."""
+    try:
+        f.result()
+    except BaseException:  # noqa: BLE001 - an error of the main thread is already on its way
+        pass
 
 
 class Ahead:
@@ -314,10 +366,19 @@ def effective_arms(va: VisitArms) -> np.ndarray:
     return np.where(va.rec >= 0, va.rec, va.hashed).astype(np.int64)
 
 
-def _visits_table(spec: Spec, fr: Frames, va: VisitArms) -> pa.Table:
+def _arms_for_join(spec: Spec, fr: Frames, early: Future[VisitArms]) -> np.ndarray:
+    """Each unit's effective arm (`effective_arms`): the recorded one when every unit has a known
+    recorded arm (then the exposures are counted while the ids are still being hashed), else after
+    the hashing."""
+    rec = _recorded_codes(spec, fr.visits[ARM])[0]
+    if len(rec) and bool((rec >= 0).all()):
+        return rec.astype(np.int64)
+    return effective_arms(early.result())
+
+
+def _visits_table(spec: Spec, fr: Frames, eff: np.ndarray) -> pa.Table:
     """The units as DuckDB joins them: id, row, first-seen (microseconds), arm and whether it is a holdout."""
     v = fr.visits
-    eff = effective_arms(va)
     hold = np.isin(eff, [list(spec.arm_names).index(a) for a in spec.holdout_arms])
     fs = v[TIME].array.as_unit("ns").asi8 // 1000
     return pa.table({"id": arrow_ids(v[UNIT]).cast(pa.large_string()), "pos": pa.array(np.arange(len(v), dtype=np.int32)),
@@ -330,8 +391,10 @@ def _frame(rows: list[tuple], index: list[str], name: str) -> pd.DataFrame:
 
 
 def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: ExposureScan, fr: Frames,
-                        va: VisitArms) -> LeakageTables:
-    """The leakage tables from DuckDB's `cells` (small queries; per-unit flags come back as arrays)."""
+                        va: VisitArms, camps: list[str]) -> LeakageTables:
+    """The leakage tables from DuckDB's `cells` (small queries; per-unit flags come back as arrays).
+
+    `camps` names the campaign codes of `lcamp`."""
     arms, k = list(spec.arm_names), len(spec.arms)
     rows, copies, unseen_rows, pre_rows = (int(x or 0) for x in con.execute(
         "SELECT sum(events), sum(copies), sum(events) FILTER (WHERE pos IS NULL), "
@@ -362,10 +425,10 @@ def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: Expo
         "impressions": per_arm("i"),
         "clicks": per_arm("c"),
     }, index=pd.Index(arms, name="arm"))
-    names = list(reader.levels)
     camp = con.execute("SELECT lcamp, count(DISTINCT pos), sum(imps), sum(clks) FROM cells "
                        "WHERE lcamp IS NOT NULL GROUP BY lcamp").fetchall()
-    by_campaign = _frame([r[1:] for r in camp], [names[int(r[0])] for r in camp], "campaign")
+    by_campaign = _frame([r[1:] for r in camp], [camps[int(r[0])] for r in camp],
+                         "campaign")
     wk = con.execute("SELECT lweek, count(DISTINCT pos), sum(imps), sum(clks), min(t_min) FROM cells "
                      "WHERE lweek IS NOT NULL GROUP BY lweek ORDER BY lweek").fetchall()
     by_week = _frame([r[1:4] for r in wk], [_day((int(r[0]) * 7 - 3) * US_DAY) for r in wk], "week")

@@ -169,12 +169,15 @@ class ExposureReader:
                        dtype=np.int32)
         return lut[arr.indices.to_numpy(zero_copy_only=False)] if len(lut) else np.zeros(len(arr), np.int32)
 
-    def _slices(self) -> Iterator[pa.RecordBatch]:
+    def slices(self, columns: list[str] | None = None) -> Iterator[pa.RecordBatch]:
+        """The mapped columns (or `columns`) slice by slice, in file order."""
         src = self.src
+        columns = columns or self.columns
+        wanted = {k: c for k, c in self.wanted.items() if c in columns}
         try:
             if src.is_csv:
-                opts = pacsv.ConvertOptions(include_columns=self.columns,
-                                            column_types={c: pa.string() for c in self.columns},
+                opts = pacsv.ConvertOptions(include_columns=columns,
+                                            column_types={c: pa.string() for c in columns},
                                             strings_can_be_null=False)
                 reader = pacsv.open_csv(src.path, read_options=pacsv.ReadOptions(block_size=CSV_BLOCK),
                                         parse_options=pacsv.ParseOptions(delimiter=self.ce.delimiter),
@@ -182,25 +185,42 @@ class ExposureReader:
                 first = True
                 for batch in reader:
                     if first:
-                        _scalar_only(src, batch.schema.empty_table(), self.wanted, "[audit.exposures]")
+                        _scalar_only(src, batch.schema.empty_table(), wanted, "[audit.exposures]")
                         first = False
                     yield batch
             else:
                 pf = pq.ParquetFile(src.path)
-                _scalar_only(src, pf.schema_arrow.empty_table(), self.wanted, "[audit.exposures]")
+                _scalar_only(src, pf.schema_arrow.empty_table(), wanted, "[audit.exposures]")
                 md = pf.metadata
                 if all(md.row_group(i).num_rows <= 4 * BATCH_ROWS for i in range(md.num_row_groups)):
                     # a row group at a time: Arrow decodes its columns on threads, and holds one group only
                     for i in range(md.num_row_groups):
-                        yield from pf.read_row_group(i, columns=self.columns).to_batches(max_chunksize=BATCH_ROWS)
+                        yield from pf.read_row_group(i, columns=columns).to_batches(max_chunksize=BATCH_ROWS)
                 else:  # large row groups: slices without read-ahead (pre-buffering would hold several)
                     pf = pq.ParquetFile(src.path, pre_buffer=False, buffer_size=1 << 20)
-                    yield from pf.iter_batches(batch_size=BATCH_ROWS, columns=self.columns)
+                    yield from pf.iter_batches(batch_size=BATCH_ROWS, columns=columns)
         except _READ_ERRORS as exc:
             raise InputError(f"{src.path}: cannot read the {src.role} file: {_why(exc)}") from None
 
+    def kinds(self, raw_kind: pa.Array, scan: ExposureScan) -> tuple[pa.DictionaryArray, np.ndarray]:
+        """A slice's kind labels and codes (0 impression, 1 click, 2 other); kinds that are neither are
+        counted in `scan.other`, their labels kept in the pandas reader's order (a dictionary column's
+        own, else first appearance)."""
+        kl = labels(raw_kind)
+        words = kl.dictionary.to_pylist()
+        kind_of = np.array([0 if w in self.imp else 1 if w in self.clk else 2 for w in words], dtype=np.int8)
+        kl_codes = kl.indices.to_numpy()
+        kind = kind_of[kl_codes]
+        other = kind == 2
+        if other.any():
+            scan.other += int(other.sum())
+            used, first = np.unique(kl_codes[other], return_index=True)
+            for c in (used if pa.types.is_dictionary(raw_kind.type) else used[np.argsort(first)]):
+                scan.other_levels.setdefault(words[int(c)], None)
+        return kl, kind
+
     def _first_number(self, col: str) -> object:
-        for batch in self._slices():
+        for batch in self.slices():
             vals = pc.drop_null(batch.column(col))
             if len(vals):
                 return vals[0].as_py()
@@ -216,7 +236,7 @@ class ExposureReader:
         base = 0
         last_t = None
         carry: pa.Table | None = None
-        for batch in self._slices():
+        for batch in self.slices():
             n = batch.num_rows
             scan.rows += n
             ids = text_ids(src, batch.column(ce.unit_id), ce.unit_id, scan.id_notes if base == 0 else None)
@@ -245,19 +265,7 @@ class ExposureReader:
                 f.naive |= p.naive
                 f.naive_text += p.naive_text
                 f.fmt_naive |= p.fmt_naive
-            raw_kind = batch.column(ce.kind)
-            kl = labels(raw_kind)
-            words = kl.dictionary.to_pylist()
-            kind_of = np.array([0 if w in self.imp else 1 if w in self.clk else 2 for w in words], dtype=np.int8)
-            kl_codes = kl.indices.to_numpy()
-            kind = kind_of[kl_codes]
-            other = kind == 2
-            if other.any():
-                scan.other += int(other.sum())
-                used, first = np.unique(kl_codes[other], return_index=True)
-                # the pandas reader's order of levels: a dictionary column's own, else first appearance
-                for c in (used if pa.types.is_dictionary(raw_kind.type) else used[np.argsort(first)]):
-                    scan.other_levels.setdefault(words[int(c)], None)
+            kl, kind = self.kinds(batch.column(ce.kind), scan)
             empty = np.asarray(pc.equal(ids, "").to_numpy(zero_copy_only=False), dtype=bool)
             scan.empty.add(np.flatnonzero(empty), base)
             if scan.bad.n or scan.far.n:  # an error at the end: only keep counting

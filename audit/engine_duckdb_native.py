@@ -1,0 +1,314 @@
+"""The DuckDB engine's native exposure path: DuckDB reads a Parquet exposure log itself, the row rules in SQL.
+
+For the common case, a Parquet log with text ids, zoned timestamps and text labels, sorted by time
+as exports usually are, no exposure row passes through Python: DuckDB's own parallel Parquet
+reader feeds the join to the units and the grouping (`CELLS_SQL`). The rules are the sliced
+reader's (`engine_duckdb_read`, itself `audit.load`'s), written in SQL:
+
+- rows with an empty or null id, or a null time, are set aside and counted; the first ones are
+  named by their position in the file (`file_row_number`), so the notes are word for word the
+  sliced reader's; rows at or after the end of the as-of day are set aside and counted;
+- times are whole microseconds, rounded down (nanosecond timestamps are floor-divided);
+- an empty or null campaign or kind is the label `(missing)`; kinds that are neither an impression
+  nor a click are counted, and when there are any their labels are listed in the sliced reader's
+  order by its own code over the kind column alone;
+- exact duplicates (same id, time, campaign and kind) count once. Only rows that share a time
+  with another row can repeat one, so one pass over the time column alone (Arrow, a row group at a
+  time, `time_pass`) finds the times that occur more than once, and DuckDB groups only the rows
+  with those times (`dups`): the repeats are taken off the counts of their cells.
+
+That pass also checks what SQL would not say the same way. The sliced reader takes over, and
+gives the same report, for: CSV and CSV.gz files (text times follow pandas' parsing rules, which SQL
+does not copy exactly), ids that are not text (integer ids are hashed as their decimal text and
+noted), times that are not zoned timestamps (text, epoch numbers, naive timestamps, dates),
+labels that are not text, times outside the years 1678-2261 (an error naming the rows), a log
+whose times go back somewhere (its de-duplication groups every row; the sliced reader's does the
+same), more rows sharing a time than `TIE_ROWS` or one in `TIE_SHARE` of the rows (say a log in
+whole seconds: grouping them would hold most rows in memory, while the sliced reader compares
+them as it streams), a file name DuckDB would read as a pattern, and any file DuckDB cannot read
+(the sliced reader names the problem).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from armlock.assign.spec_audit import ExposureColumns
+
+from .engine_duckdb_read import US_DAY, ExposureReader, ExposureScan
+from .read import MISSING_LEVEL, T_MAX_US, T_MIN_US
+
+TIE_ROWS = 1_000_000  # rows sharing a time that DuckDB may group for the duplicates...
+TIE_SHARE = 8  # ...or one row in this many, whichever is more; beyond, the sliced reader de-duplicates
+_UNIT_US = {"s": 10**6, "ms": 1000, "us": 1}  # coarser units to microseconds (ns is divided by 1000)
+
+
+def _name(col: str) -> str:
+    return '"' + col.replace('"', '""') + '"'
+
+
+def _text(s: str) -> str:
+    return "'" + s.replace("'", "''") + "'"
+
+
+def floor_div(expr: str, d: int) -> str:
+    """Floor division of an integer expression in SQL (DuckDB's % keeps the dividend's sign)."""
+    return f"(({expr}) - ((({expr}) % {d}) + {d}) % {d}) // {d}"
+
+
+def _is_text(t: pa.DataType) -> bool:
+    if pa.types.is_dictionary(t):
+        t = t.value_type
+    return pa.types.is_string(t) or pa.types.is_large_string(t)
+
+
+def eligible(ce: ExposureColumns, path: Path) -> pa.DataType | None:
+    """The time column's type when the log can take the native path (see the module's text), else None."""
+    if not path.name.lower().endswith((".parquet", ".pq")) or any(ch in str(path) for ch in "*?[]{}"):
+        return None
+    try:
+        schema = pq.read_schema(path)
+        names = schema.names
+        cols = (ce.unit_id, ce.time, ce.campaign, ce.kind)
+        if any(names.count(c) != 1 for c in cols):
+            return None  # missing or ambiguous: the reader says so
+        ttype = schema.field(ce.time).type
+    except (pa.ArrowException, OSError, KeyError):
+        return None
+    if not (pa.types.is_timestamp(ttype) and ttype.tz is not None):
+        return None
+    if not all(_is_text(schema.field(c).type) for c in (ce.unit_id, ce.campaign, ce.kind)):
+        return None
+    return ttype
+
+
+@dataclass
+class TimePass:
+    """What one pass over the time column found (times in whole microseconds)."""
+
+    nulls: int
+    hi: int | None  # the latest time
+    tied: np.ndarray  # each time that more than one row has
+    days: dict[int, int]  # rows with a time, per day number
+
+
+def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass | None:
+    """The time column, a row group at a time: None when the log goes back in time, lies outside
+    1678-2261 or has too many rows sharing a time (the sliced reader takes over)."""
+    pf = pq.ParquetFile(path)
+    rows = pf.metadata.num_rows
+    mul = _UNIT_US.get(ttype.unit, 0)  # 0: nanoseconds
+    last: int | None = None
+    lo: int | None = None
+    nulls = tied_rows = 0
+    tied: list[np.ndarray] = []
+    days: dict[int, int] = {}
+    for i in range(pf.metadata.num_row_groups):
+        col = pf.read_row_group(i, columns=[ce.time]).column(0)
+        for chunk in col.chunks:
+            raw = chunk.cast(pa.int64())  # the same buffer
+            if chunk.null_count:
+                nulls += chunk.null_count
+                raw = raw.drop_null()
+            a = raw.to_numpy()
+            if not len(a):
+                continue
+            if mul > 1 and (a[0] < -(T_MAX_US // mul) or a[-1] > T_MAX_US // mul):
+                return None  # beyond the range once scaled (and unsorted logs fail below anyway)
+            us = a * mul if mul > 1 else (a if mul == 1 else a // 1000)  # numpy's // rounds down
+            if (last is not None and us[0] < last) or bool((us[1:] < us[:-1]).any()):
+                return None
+            if lo is None:
+                lo = int(us[0])
+            same = us[1:] == us[:-1]
+            if last is not None and us[0] == last:
+                tied.append(us[:1])
+                tied_rows += 1
+            if same.any():
+                tv = us[1:][same]
+                tied_rows += 2 * len(tv)  # at most
+                tied.append(np.unique(tv))
+            last = int(us[-1])
+            d = us // US_DAY
+            if len(d):
+                first = int(d[0])
+                n = np.bincount(d - first)
+                for off in np.flatnonzero(n).tolist():
+                    days[first + off] = days.get(first + off, 0) + int(n[off])
+    if lo is not None and last is not None and (lo < T_MIN_US or last >= T_MAX_US):
+        return None
+    if tied_rows > max(TIE_ROWS, rows // TIE_SHARE):
+        return None
+    ties = np.unique(np.concatenate(tied)) if tied else np.zeros(0, np.int64)
+    return TimePass(nulls=nulls, hi=last, tied=ties, days=days)
+
+
+class Native:
+    """The native path over one exposure log. `prepare` (on a worker thread, while the visits are
+    read: it needs neither the units nor the as-of day) counts the rows with no id or no time and
+    the kinds that are neither, and groups the rows that share a time (`dups`); `finish` applies the
+    as-of day; `cells` fills DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` does (campaigns
+    as their labels rather than codes)."""
+
+    def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType, tp: TimePass) -> None:
+        self.ce, self.path, self.tp = ce, path, tp
+        self.ns = ttype.unit == "ns"
+        t = _name(ce.time)
+        self.t_expr = floor_div(f"epoch_ns({t})", 1000) if self.ns else f"epoch_us({t})"
+        self.source = (f"SELECT {_name(ce.unit_id)} AS id, {self.t_expr} AS t, {t} AS traw, {_name(ce.campaign)} AS camp, "
+                       f"{_name(ce.kind)} AS kl, file_row_number AS r FROM read_parquet({_text(str(path))}, "
+                       "file_row_number = true)")
+        self.imp, self.clk = set(ce.impression_values), set(ce.click_values)
+        self.camps: list[str] = []  # campaign labels, in the order of their codes
+        self.kinds: list[str] = []  # kind labels, likewise
+        self.scan = ExposureScan(rows=pq.ParquetFile(path).metadata.num_rows)
+        self.kept: list[str] = []
+        self.empty_days: dict[int, int] = {}
+        self.others = 0
+        self.has_dups = False
+
+    @staticmethod
+    def _labels(con: Any, col: str) -> list[str] | None:
+        """A label column's labels (an empty or null value is MISSING_LEVEL), or None when there are
+        more than `MAX_LABELS` (the sliced reader takes over)."""
+        found = con.execute(f"SELECT DISTINCT {col} FROM xs LIMIT {MAX_LABELS + 2}").fetchall()
+        words = list(dict.fromkeys(MISSING_LEVEL if w is None or w == "" else str(w) for (w,) in found))
+        return sorted(words) if len(words) <= MAX_LABELS else None
+
+    @staticmethod
+    def _code(col: str, words: list[str], values: list[int]) -> str:
+        """SQL giving each row of a label column the value of its label (`values[i]` for `words[i]`)."""
+        missing = values[words.index(MISSING_LEVEL)] if MISSING_LEVEL in words else "NULL"
+        arms = " ".join(f"WHEN {_text(w)} THEN {v}" for w, v in zip(words, values))
+        return f"coalesce(CASE {col} WHEN '' THEN {missing} {arms} END, {missing})"
+
+    def _kind_class(self, col: str) -> str:
+        return self._code(col, self.kinds, self.classes)
+
+    def prepare(self, con: Any) -> None:
+        """What needs neither the units nor the as-of day: rows with no id or no time (Parquet's
+        statistics answer these at once when there are none), kinds that are neither, repeats."""
+        scan, tp = self.scan, self.tp
+        con.execute(f"CREATE OR REPLACE TEMP VIEW xs AS {self.source}").fetchall()
+        camps, kinds = self._labels(con, "camp"), self._labels(con, "kl")
+        if camps is None or kinds is None:
+            raise TooMany()
+        self.camps, self.kinds = camps, kinds
+        self.classes = [0 if w in self.imp else 1 if w in self.clk else 2 for w in kinds]  # the reader's rule
+        n, first = con.execute(f"SELECT count(*), min(r, 5) FROM xs WHERE {NO_ID}").fetchall()[0]
+        if n:
+            scan.empty.first, scan.empty.n = [int(x) for x in first], int(n)
+            self.kept.append(f"NOT {NO_ID}")
+            self.empty_days = {int(d): int(c) for d, c in con.execute(
+                f"SELECT {floor_div('t', US_DAY)}, count(*) FROM xs WHERE {NO_ID} AND t IS NOT NULL GROUP BY 1").fetchall()}
+        if tp.nulls:
+            n, first = con.execute(f"SELECT count(*), min(r, 5) FROM xs WHERE traw IS NULL AND NOT {NO_ID}").fetchall()[0]
+            if n:
+                scan.no_time.first, scan.no_time.n = [int(x) for x in first], int(n)
+            self.kept.append("traw IS NOT NULL")
+        self.others = int(con.execute(f"SELECT count(*) FROM xs WHERE {self._kind_class('kl')} = 2").fetchall()[0][0])
+        if len(tp.tied):
+            # compared with the column as stored (no conversion per row), except nanoseconds
+            ties = pa.array(tp.tied, pa.int64())
+            con.register("tied_t", pa.table({"t": ties if self.ns else ties.cast(pa.timestamp("us", "UTC"))}))
+            # one row per repeated (id, time, campaign label, kind label), with one of its raw values
+            con.execute("CREATE OR REPLACE TEMP TABLE dups AS SELECT id, t, any_value(camp) AS camp, "
+                        "any_value(kl) AS kl, count(*) - 1 AS extra FROM xs "
+                        f"WHERE {'t' if self.ns else 'traw'} IN (SELECT t FROM tied_t) AND {self._kept()} "
+                        f"GROUP BY id, t, {self._code('camp', camps, list(range(len(camps))))}, "
+                        f"{self._code('kl', kinds, list(range(len(kinds))))} HAVING count(*) > 1").fetchall()
+            con.unregister("tied_t")
+            self.has_dups = True
+
+    def _kept(self) -> str:
+        return " AND ".join(self.kept) or "TRUE"
+
+    def finish(self, con: Any, reader: ExposureReader) -> None:
+        """The as-of day: rows at or after its end set aside, the rows per day, the kinds' labels."""
+        scan, tp, cut = self.scan, self.tp, reader.cut_us
+        end = cut // US_DAY  # the cut is a midnight: a row is kept when its day is before this one
+        days = {d: n - self.empty_days.get(d, 0) for d, n in tp.days.items() if d < end}
+        if tp.hi is not None and tp.hi >= cut:
+            scan.late = int(con.execute(f"SELECT count(*) FROM xs WHERE t >= {cut} AND NOT {NO_ID}").fetchall()[0][0])
+            self.kept.append(f"t < {cut}")
+            if self.has_dups:
+                con.execute(f"DELETE FROM dups WHERE t >= {cut}").fetchall()
+        if self.has_dups:
+            for d, c in con.execute(f"SELECT {floor_div('t', US_DAY)}, sum(extra) FROM dups GROUP BY 1").fetchall():
+                days[int(d)] = days.get(int(d), 0) - int(c)
+            self.has_dups = bool(con.execute("SELECT count(*) FROM dups").fetchall()[0][0])
+        scan.days = {d: n for d, n in days.items() if n}
+        if self.others:  # the labels in the sliced reader's order, by its own code over the kind column
+            for batch in reader.slices([reader.ce.kind]):
+                reader.kinds(batch.column(0), scan)
+
+    def cells(self, con: Any, start_us: int, week: str) -> ExposureScan:
+        """DuckDB's table `cells` from the log (the units' table `v` registered); the scan's counts."""
+        rows = f"SELECT id, t, camp, kl, 1 AS w, 1 AS c FROM xs WHERE {self._kept()}"
+        if self.has_dups:
+            rows += " UNION ALL SELECT id, t, camp, kl, -extra AS w, 0 AS c FROM dups"
+        con.execute("DROP TABLE IF EXISTS cells").fetchall()
+        con.execute(CELLS_SQL.format(rows=rows, start=start_us, week=week, kind=self._kind_class("e.kl"),
+                                     camp=self._code("e.camp", self.camps, list(range(len(self.camps)))))).fetchall()
+        return self.scan
+
+
+def prepared(ce: ExposureColumns, path: Path, con: Any) -> Native | None:
+    """`Native.prepare` of the log when it can take the native path; None for the sliced reader
+    (including when DuckDB cannot read the file: the sliced reader names the problem)."""
+    import duckdb
+
+    ttype = eligible(ce, path)
+    if ttype is None:
+        return None
+    try:
+        tp = time_pass(ce, path, ttype)
+        if tp is None:
+            return None
+        native = Native(ce, path, ttype, tp)
+        native.prepare(con)
+    except (duckdb.Error, pa.ArrowException, OSError, TooMany):
+        return None
+    return native
+
+
+NO_ID = "(id IS NULL OR id = '')"
+MAX_LABELS = 1000  # campaign or kind labels the SQL maps to codes; more go to the sliced reader
+
+
+class TooMany(Exception):
+    """More labels than `MAX_LABELS` (internal signal: the sliced reader takes over)."""
+
+
+# As `engine_duckdb._CELLS_SQL`, over the log's own rows: w is +1 for a row read, -(copies - 1) for
+# each repeated row (`dups`), so a cell's events count each distinct row once; c counts rows read.
+# lcamp is the campaign label's index in `Native.camps`; kind is 0 impression, 1 click, 2 other.
+CELLS_SQL = """
+CREATE TEMP TABLE cells AS
+WITH e AS ({rows}), j AS (
+  SELECT e.id, e.t, e.w, e.c, v.pos, v.fs, v.hold,
+         CASE WHEN e.t >= {start} AND e.t >= v.fs AND v.hold THEN {camp} END AS lcamp,
+         CASE WHEN e.t >= {start} AND e.t >= v.fs THEN {kind} END AS kind,
+         e.t < {start} AS bs, e.t >= {start} AND e.t >= v.fs AS dur
+  FROM e LEFT JOIN v ON e.id = v.id
+)
+SELECT pos,
+       CASE WHEN pos IS NULL THEN id END AS uid,
+       lcamp,
+       CASE WHEN lcamp IS NOT NULL THEN {week} END AS lweek,
+       sum(w) AS events,
+       sum(c) AS copies,
+       sum(CASE WHEN dur THEN 0 ELSE w END) AS pre_rows,
+       sum(CASE WHEN kind = 0 THEN w ELSE 0 END) AS imps,
+       sum(CASE WHEN kind = 1 THEN w ELSE 0 END) AS clks,
+       bit_or(CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END) AS flags,
+       min(t) AS t_min
+FROM j
+GROUP BY 1, 2, 3, 4
+"""
