@@ -140,6 +140,7 @@ def main(argv: list[str] | None = None) -> int:
                "--visits", str(files["visits"]), "--exposures", str(files["exposures"]),
                "--identities", str(files["identities"]), "--engine", "duckdb", "--memory-limit", a.memory_limit,
                "--temp-dir", str(spill), "--format", "json", "--out", str(folder / "audit.json")]
+        (folder / "audit.json").unlink(missing_ok=True)  # a report of an earlier run (--reuse) is not this one's
         load = os.getloadavg()[0]
         steps["audit"] = measured(cmd, folder, folder / "audit.log")
         steps["audit"]["load_before"] = round(load, 1)

@@ -13,7 +13,8 @@ import pytest
 
 from armlock.assign import arm_for, spec_from_dict
 from armlock.audit.run import run_audit
-from armlock.audit.synth_chunked import write_chunked
+from armlock.audit.synth import _ids
+from armlock.audit.synth_chunked import hex_ids, write_chunked
 
 SPEC = spec_from_dict({"name": "chunked", "salt": "chunked-salt", "start": "2026-03-02T00:00:00Z",
                        "arms": [{"name": "holdout", "weight": 1000}, {"name": "exposed", "weight": 9000}]})
@@ -66,6 +67,12 @@ def test_the_audit_reads_it_clean_and_finds_a_seeded_leak(small, tmp_path: Path)
     leak = next(c for c in rep.checks if c.id == "leakage")
     assert leak.status == "fail"
     assert 0 < leak.figures["holdout_leak_units"].value <= leaky.truth["leaked_units"]
+
+
+def test_ids_are_those_of_the_in_memory_generator() -> None:
+    codes = np.array([0, 1, 2, 12_345, (1 << 39) + 5, 10**9])
+    assert hex_ids(codes).to_pylist() == _ids(codes, "v").tolist()
+    assert hex_ids(codes, b"c-").to_pylist() == _ids(codes, "c-").tolist()
 
 
 def test_same_seed_same_files_other_seed_other_files(small, tmp_path: Path) -> None:
