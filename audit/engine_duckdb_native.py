@@ -14,8 +14,9 @@ reader's (`engine_duckdb_read`, itself `audit.load`'s), written in SQL:
   order by its own code over the kind column alone;
 - exact duplicates (same id, time, campaign and kind) count once. Only rows that share a time
   with another row can repeat one, so one pass over the time column alone (Arrow, a row group at a
-  time, `time_pass`) finds the times that occur more than once, and DuckDB groups only the rows
-  with those times (`dups`): the repeats are taken off the counts of their cells.
+  time, `time_pass`) finds the times that occur more than once; in DuckDB's grouping a row with
+  such a time also keys its group by that time, its campaign and its kind, so its exact repeats
+  share one group, counted once (`CELLS_ONCE_SQL`).
 
 That pass also checks what SQL would not say the same way. The sliced reader takes over, and
 gives the same report, for: CSV and CSV.gz files (text times follow pandas' parsing rules, which SQL
@@ -45,7 +46,7 @@ from .engine_duckdb_read import US_DAY, ExposureReader, ExposureScan
 from .read import MISSING_LEVEL, T_MAX_US, T_MIN_US
 
 TIE_ROWS = 1_000_000  # rows sharing a time that DuckDB may group for the duplicates...
-TIE_SHARE = 8  # ...or one row in this many, whichever is more; beyond, the sliced reader de-duplicates
+TIE_SHARE = 64  # ...or one row in this many, whichever is more; beyond, the sliced reader de-duplicates
 _UNIT_US = {"s": 10**6, "ms": 1000, "us": 1}  # coarser units to microseconds (ns is divided by 1000)
 
 
@@ -109,6 +110,7 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
     nulls = tied_rows = 0
     tied: list[np.ndarray] = []
     days: dict[int, int] = {}
+    limit = max(TIE_ROWS, rows // TIE_SHARE)
     for i in range(pf.metadata.num_row_groups):
         col = pf.read_row_group(i, columns=[ce.time]).column(0)
         for chunk in col.chunks:
@@ -134,6 +136,8 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
                 tv = us[1:][same]
                 tied_rows += 2 * len(tv)  # at most
                 tied.append(np.unique(tv))
+                if tied_rows > limit:
+                    return None
             last = int(us[-1])
             d = us // US_DAY
             if len(d):
@@ -143,8 +147,6 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
                     days[first + off] = days.get(first + off, 0) + int(n[off])
     if lo is not None and last is not None and (lo < T_MIN_US or last >= T_MAX_US):
         return None
-    if tied_rows > max(TIE_ROWS, rows // TIE_SHARE):
-        return None
     ties = np.unique(np.concatenate(tied)) if tied else np.zeros(0, np.int64)
     return TimePass(nulls=nulls, hi=last, tied=ties, days=days)
 
@@ -152,7 +154,7 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
 class Native:
     """The native path over one exposure log. `prepare` (on a worker thread, while the visits are
     read: it needs neither the units nor the as-of day) counts the rows with no id or no time and
-    the kinds that are neither, and groups the rows that share a time (`dups`); `finish` applies the
+    the kinds that are neither, and keeps the times more than one row has (`tied_t`); `finish` applies the
     as-of day; `cells` fills DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` does (campaigns
     as their labels rather than codes)."""
 
@@ -171,7 +173,7 @@ class Native:
         self.kept: list[str] = []
         self.empty_days: dict[int, int] = {}
         self.others = 0
-        self.has_dups = False
+        self.has_ties = False
 
     @staticmethod
     def _labels(con: Any, col: str) -> list[str] | None:
@@ -213,18 +215,13 @@ class Native:
                 scan.no_time.first, scan.no_time.n = [int(x) for x in first], int(n)
             self.kept.append("traw IS NOT NULL")
         self.others = int(con.execute(f"SELECT count(*) FROM xs WHERE {self._kind_class('kl')} = 2").fetchall()[0][0])
-        if len(tp.tied):
-            # compared with the column as stored (no conversion per row), except nanoseconds
+        if len(tp.tied):  # compared with the column as stored (no conversion per row), except nanoseconds
             ties = pa.array(tp.tied, pa.int64())
-            con.register("tied_t", pa.table({"t": ties if self.ns else ties.cast(pa.timestamp("us", "UTC"))}))
-            # one row per repeated (id, time, campaign label, kind label), with one of its raw values
-            con.execute("CREATE OR REPLACE TEMP TABLE dups AS SELECT id, t, any_value(camp) AS camp, "
-                        "any_value(kl) AS kl, count(*) - 1 AS extra FROM xs "
-                        f"WHERE {'t' if self.ns else 'traw'} IN (SELECT t FROM tied_t) AND {self._kept()} "
-                        f"GROUP BY id, t, {self._code('camp', camps, list(range(len(camps))))}, "
-                        f"{self._code('kl', kinds, list(range(len(kinds))))} HAVING count(*) > 1").fetchall()
-            con.unregister("tied_t")
-            self.has_dups = True
+            con.execute("CREATE OR REPLACE TEMP TABLE tied_t (t {})".format("BIGINT" if self.ns else "TIMESTAMPTZ"))
+            con.register("tied_in", pa.table({"t": ties if self.ns else ties.cast(pa.timestamp("us", "UTC"))}))
+            con.execute("INSERT INTO tied_t SELECT t FROM tied_in").fetchall()
+            con.unregister("tied_in")
+            self.has_ties = True
 
     def _kept(self) -> str:
         return " AND ".join(self.kept) or "TRUE"
@@ -237,25 +234,30 @@ class Native:
         if tp.hi is not None and tp.hi >= cut:
             scan.late = int(con.execute(f"SELECT count(*) FROM xs WHERE t >= {cut} AND NOT {NO_ID}").fetchall()[0][0])
             self.kept.append(f"t < {cut}")
-            if self.has_dups:
-                con.execute(f"DELETE FROM dups WHERE t >= {cut}").fetchall()
-        if self.has_dups:
-            for d, c in con.execute(f"SELECT {floor_div('t', US_DAY)}, sum(extra) FROM dups GROUP BY 1").fetchall():
-                days[int(d)] = days.get(int(d), 0) - int(c)
-            self.has_dups = bool(con.execute("SELECT count(*) FROM dups").fetchall()[0][0])
-        scan.days = {d: n for d, n in days.items() if n}
+        self.days = days
         if self.others:  # the labels in the sliced reader's order, by its own code over the kind column
             for batch in reader.slices([reader.ce.kind]):
                 reader.kinds(batch.column(0), scan)
 
     def cells(self, con: Any, start_us: int, week: str) -> ExposureScan:
-        """DuckDB's table `cells` from the log (the units' table `v` registered); the scan's counts."""
-        rows = f"SELECT id, t, camp, kl, 1 AS w, 1 AS c FROM xs WHERE {self._kept()}"
-        if self.has_dups:
-            rows += " UNION ALL SELECT id, t, camp, kl, -extra AS w, 0 AS c FROM dups"
+        """DuckDB's table `cells` from the log (the units' table `v` registered); the scan's counts.
+
+        A row whose time another row shares also keys its group by that time, its campaign label
+        and its kind label, so exact repeats fall into one group (`tk` not null), counted once."""
+        tied = "LEFT JOIN tied_t tt ON e.{} = tt.t".format("t" if self.ns else "traw") if self.has_ties else ""
+        camp_code = self._code("e.camp", self.camps, list(range(len(self.camps))))
+        con.execute("DROP TABLE IF EXISTS cells1").fetchall()
+        con.execute(CELLS_SQL.format(
+            kept=self._kept(), start=start_us, week=week, kind=self._kind_class("e.kl"), camp=camp_code, tied=tied,
+            tie="tt.t IS NOT NULL" if tied else "false", kl=self._code("e.kl", self.kinds, list(range(len(self.kinds)))),
+        )).fetchall()
+        for d, c in con.execute(f"SELECT {floor_div('tk', US_DAY)}, sum(copies - 1) FROM cells1 "
+                                "WHERE tk IS NOT NULL AND copies > 1 GROUP BY 1").fetchall():
+            self.days[int(d)] = self.days.get(int(d), 0) - int(c)
+        self.scan.days = {d: n for d, n in self.days.items() if n}
         con.execute("DROP TABLE IF EXISTS cells").fetchall()
-        con.execute(CELLS_SQL.format(rows=rows, start=start_us, week=week, kind=self._kind_class("e.kl"),
-                                     camp=self._code("e.camp", self.camps, list(range(len(self.camps)))))).fetchall()
+        con.execute(CELLS_ONCE_SQL).fetchall()
+        con.execute("DROP TABLE cells1").fetchall()
         return self.scan
 
 
@@ -286,29 +288,48 @@ class TooMany(Exception):
     """More labels than `MAX_LABELS` (internal signal: the sliced reader takes over)."""
 
 
-# As `engine_duckdb._CELLS_SQL`, over the log's own rows: w is +1 for a row read, -(copies - 1) for
-# each repeated row (`dups`), so a cell's events count each distinct row once; c counts rows read.
-# lcamp is the campaign label's index in `Native.camps`; kind is 0 impression, 1 click, 2 other.
+# As `engine_duckdb._CELLS_SQL`, over the log's own rows (those kept: `kept`). A row whose time
+# another row shares (`tied_t`) also has its time, campaign label code and kind label code in the
+# key (tk, ck, kk), so its exact repeats share its group; CELLS_ONCE_SQL then counts such a group
+# once. lcamp is the campaign label's index in `Native.camps`; kind is 0 impression, 1 click, 2 other.
 CELLS_SQL = """
-CREATE TEMP TABLE cells AS
-WITH e AS ({rows}), j AS (
-  SELECT e.id, e.t, e.w, e.c, v.pos, v.fs, v.hold,
+CREATE TEMP TABLE cells1 AS
+WITH j AS (
+  SELECT e.id, e.t, v.pos, v.fs, {tie} AS tie,
          CASE WHEN e.t >= {start} AND e.t >= v.fs AND v.hold THEN {camp} END AS lcamp,
          CASE WHEN e.t >= {start} AND e.t >= v.fs THEN {kind} END AS kind,
+         CASE WHEN {tie} THEN {camp} END AS ck,
+         CASE WHEN {tie} THEN {kl} END AS kk,
          e.t < {start} AS bs, e.t >= {start} AND e.t >= v.fs AS dur
-  FROM e LEFT JOIN v ON e.id = v.id
+  FROM (SELECT * FROM xs WHERE {kept}) e LEFT JOIN v ON e.id = v.id {tied}
 )
 SELECT pos,
        CASE WHEN pos IS NULL THEN id END AS uid,
        lcamp,
        CASE WHEN lcamp IS NOT NULL THEN {week} END AS lweek,
-       sum(w) AS events,
-       sum(c) AS copies,
-       sum(CASE WHEN dur THEN 0 ELSE w END) AS pre_rows,
-       sum(CASE WHEN kind = 0 THEN w ELSE 0 END) AS imps,
-       sum(CASE WHEN kind = 1 THEN w ELSE 0 END) AS clks,
+       CASE WHEN tie THEN t END AS tk, ck, kk,
+       count(*) AS copies,
+       sum(CASE WHEN dur THEN 0 ELSE 1 END) AS pre_rows,
+       sum(CASE WHEN kind = 0 THEN 1 ELSE 0 END) AS imps,
+       sum(CASE WHEN kind = 1 THEN 1 ELSE 0 END) AS clks,
        bit_or(CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END) AS flags,
        min(t) AS t_min
 FROM j
+GROUP BY 1, 2, 3, 4, 5, 6, 7
+"""
+
+# The rows of one exact repeat group are alike (same unit, time, campaign and kind), so each of its
+# counts is 0 or its size: counted once, it is 0 or 1.
+CELLS_ONCE_SQL = """
+CREATE TEMP TABLE cells AS
+SELECT pos, uid, lcamp, lweek,
+       sum(CASE WHEN tk IS NULL THEN copies ELSE 1 END) AS events,
+       sum(copies) AS copies,
+       sum(CASE WHEN tk IS NULL THEN pre_rows ELSE least(pre_rows, 1) END) AS pre_rows,
+       sum(CASE WHEN tk IS NULL THEN imps ELSE least(imps, 1) END) AS imps,
+       sum(CASE WHEN tk IS NULL THEN clks ELSE least(clks, 1) END) AS clks,
+       bit_or(flags) AS flags,
+       min(t_min) AS t_min
+FROM cells1
 GROUP BY 1, 2, 3, 4
 """
