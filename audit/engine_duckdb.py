@@ -191,14 +191,13 @@ class DuckDBEngine:
 
         reader = ExposureReader(spec, path, as_of, fr.notes)
         start_us = int(pd.Timestamp(spec.start).value // 1000)
-        week = _floor_div(_floor_div("t", US_DAY) + " + 3", 7)
         nat = native.result() if native is not None else None
         con.register("v", _visits_table(spec, fr, _arms_for_join(spec, fr, early)))
         scan = None
         if nat is not None:
             try:
                 nat.finish(con, reader)
-                scan = nat.cells(con, start_us, week)
+                scan = nat.cells(con, start_us, len(fr.visits))
             except duckdb.OutOfMemoryException as exc:
                 raise InputError(_out_of_memory(self.memory_limit, exc)) from None
             except duckdb.Error:  # the sliced reader takes over (and names any problem with the file)

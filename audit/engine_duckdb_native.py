@@ -42,6 +42,7 @@ import pyarrow.parquet as pq
 
 from armlock.assign.spec_audit import ExposureColumns
 
+from .engine_duckdb_dense import ROWS_SQL, Dense
 from .engine_duckdb_read import US_DAY, ExposureReader, ExposureScan
 from .read import MISSING_LEVEL, T_MAX_US, T_MIN_US
 
@@ -239,25 +240,23 @@ class Native:
             for batch in reader.slices([reader.ce.kind]):
                 reader.kinds(batch.column(0), scan)
 
-    def cells(self, con: Any, start_us: int, week: str) -> ExposureScan:
+    def cells(self, con: Any, start_us: int, units: int) -> ExposureScan:
         """DuckDB's table `cells` from the log (the units' table `v` registered); the scan's counts.
 
-        A row whose time another row shares also keys its group by that time, its campaign label
-        and its kind label, so exact repeats fall into one group (`tk` not null), counted once."""
+        DuckDB joins the rows to the units and streams them back; `Dense` sums them per unit. A row
+        whose time another row shares comes back with its time, campaign and kind, so exact
+        repeats are found among those few and counted once."""
         tied = "LEFT JOIN tied_t tt ON e.{} = tt.t".format("t" if self.ns else "traw") if self.has_ties else ""
-        camp_code = self._code("e.camp", self.camps, list(range(len(self.camps))))
-        con.execute("DROP TABLE IF EXISTS cells1").fetchall()
-        con.execute(CELLS_SQL.format(
-            kept=self._kept(), start=start_us, week=week, kind=self._kind_class("e.kl"), camp=camp_code, tied=tied,
-            tie="tt.t IS NOT NULL" if tied else "false", kl=self._code("e.kl", self.kinds, list(range(len(self.kinds)))),
-        )).fetchall()
-        for d, c in con.execute(f"SELECT {floor_div('tk', US_DAY)}, sum(copies - 1) FROM cells1 "
-                                "WHERE tk IS NOT NULL AND copies > 1 GROUP BY 1").fetchall():
-            self.days[int(d)] = self.days.get(int(d), 0) - int(c)
+        sql = ROWS_SQL.format(
+            kept=self._kept(), start=start_us, kind=self._kind_class("kl"), tied=tied,
+            camp=self._code("camp", self.camps, list(range(len(self.camps)))),
+            tie="tt.t IS NOT NULL" if tied else "false", kl=self._code("kl", self.kinds, list(range(len(self.kinds)))))
+        dense = Dense(units)
+        for batch in con.sql(sql).to_arrow_reader(max(BATCH_ROWS, units)):
+            dense.add(batch)
+        self.scan.duplicates = dense.repeats(self.days)
         self.scan.days = {d: n for d, n in self.days.items() if n}
-        con.execute("DROP TABLE IF EXISTS cells").fetchall()
-        con.execute(CELLS_ONCE_SQL).fetchall()
-        con.execute("DROP TABLE cells1").fetchall()
+        con.register("cells", dense.cells())
         return self.scan
 
 
@@ -281,55 +280,9 @@ def prepared(ce: ExposureColumns, path: Path, con: Any) -> Native | None:
 
 
 NO_ID = "(id IS NULL OR id = '')"
+BATCH_ROWS = 1 << 21  # rows per batch DuckDB hands back (at least as many as there are units)
 MAX_LABELS = 1000  # campaign or kind labels the SQL maps to codes; more go to the sliced reader
 
 
 class TooMany(Exception):
     """More labels than `MAX_LABELS` (internal signal: the sliced reader takes over)."""
-
-
-# As `engine_duckdb._CELLS_SQL`, over the log's own rows (those kept: `kept`). A row whose time
-# another row shares (`tied_t`) also has its time, campaign label code and kind label code in the
-# key (tk, ck, kk), so its exact repeats share its group; CELLS_ONCE_SQL then counts such a group
-# once. lcamp is the campaign label's index in `Native.camps`; kind is 0 impression, 1 click, 2 other.
-CELLS_SQL = """
-CREATE TEMP TABLE cells1 AS
-WITH j AS (
-  SELECT e.id, e.t, v.pos, v.fs, {tie} AS tie,
-         CASE WHEN e.t >= {start} AND e.t >= v.fs AND v.hold THEN {camp} END AS lcamp,
-         CASE WHEN e.t >= {start} AND e.t >= v.fs THEN {kind} END AS kind,
-         CASE WHEN {tie} THEN {camp} END AS ck,
-         CASE WHEN {tie} THEN {kl} END AS kk,
-         e.t < {start} AS bs, e.t >= {start} AND e.t >= v.fs AS dur
-  FROM (SELECT * FROM xs WHERE {kept}) e LEFT JOIN v ON e.id = v.id {tied}
-)
-SELECT pos,
-       CASE WHEN pos IS NULL THEN id END AS uid,
-       lcamp,
-       CASE WHEN lcamp IS NOT NULL THEN {week} END AS lweek,
-       CASE WHEN tie THEN t END AS tk, ck, kk,
-       count(*) AS copies,
-       sum(CASE WHEN dur THEN 0 ELSE 1 END) AS pre_rows,
-       sum(CASE WHEN kind = 0 THEN 1 ELSE 0 END) AS imps,
-       sum(CASE WHEN kind = 1 THEN 1 ELSE 0 END) AS clks,
-       bit_or(CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END) AS flags,
-       min(t) AS t_min
-FROM j
-GROUP BY 1, 2, 3, 4, 5, 6, 7
-"""
-
-# The rows of one exact repeat group are alike (same unit, time, campaign and kind), so each of its
-# counts is 0 or its size: counted once, it is 0 or 1.
-CELLS_ONCE_SQL = """
-CREATE TEMP TABLE cells AS
-SELECT pos, uid, lcamp, lweek,
-       sum(CASE WHEN tk IS NULL THEN copies ELSE 1 END) AS events,
-       sum(copies) AS copies,
-       sum(CASE WHEN tk IS NULL THEN pre_rows ELSE least(pre_rows, 1) END) AS pre_rows,
-       sum(CASE WHEN tk IS NULL THEN imps ELSE least(imps, 1) END) AS imps,
-       sum(CASE WHEN tk IS NULL THEN clks ELSE least(clks, 1) END) AS clks,
-       bit_or(flags) AS flags,
-       min(t_min) AS t_min
-FROM cells1
-GROUP BY 1, 2, 3, 4
-"""
