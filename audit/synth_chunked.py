@@ -13,9 +13,11 @@ How the rows are drawn (docs/synthetic-logs.md, "Large logs in chunks"):
 - arms by the frozen contract (`armlock.assign.assign_many`); the vendor reaches a share `REACH` of
   the exposed arms' units and, with `leak` > 0, that share of the holdout's units (leaked units are
   reached by the first campaign only);
-- exposure row r is at time G^-1((r + u_r) / rows), G the curve of F's running integral (each
-  reached unit is exposed at the same rate from its first visit on), so the rows come out sorted
-  and exactly `exposure_rows` of them; its unit is drawn uniformly from the reached units among
+- the exposure rows of a chunk, rows a..b, are at times G^-1(q), q sorted uniform draws in
+  [a / rows, b / rows), G the curve of F's running integral (each reached unit is exposed at the
+  same rate from its first visit on): so the rows come out sorted, exactly `exposure_rows` of
+  them, with the gaps between times of random arrivals (as many rows share a millisecond as in a
+  real log of that size; `time_unit="us"` writes microseconds instead). A row's unit is drawn uniformly from the reached units among
   the first max(k(t), e + 1), e the first reached unit (and the row's time is at least e's
   first-seen time), so no row falls before its unit's first visit.
 Deterministic for a given seed and chunk size.
@@ -126,13 +128,18 @@ def write_chunked(
     leak: float = 0.0,
     identities: bool = True,
     compression: str = "zstd",
+    time_unit: str = "ms",
 ) -> ChunkedLogs:
     """Write `visits.parquet`, `exposures.parquet` (exactly `exposure_rows` rows, sorted by time) and
     `identities.parquet` for `units` invented visitors into `directory`, `chunk_rows` rows at a time
     (each chunk one row group). `leak`: share of the holdout the vendor reaches (0: none, the clean
-    split). The column names are the spec's `[audit]` map; the values those of `synth.generate`."""
+    split). `time_unit`: the exposure times' resolution, "ms" (as `synth.generate`) or "us". The column
+    names are the spec's `[audit]` map; the values those of `synth.generate`."""
     if units < 10 or days < 1 or exposure_rows < 0 or chunk_rows < 1 or not 0.0 <= leak < 1.0:
         raise ValueError("need units >= 10, days >= 1, exposure_rows >= 0, chunk_rows >= 1 and 0 <= leak < 1")
+    if time_unit not in ("ms", "us"):
+        raise ValueError(f"time_unit must be ms or us, not {time_unit!r}")
+    step_us = 1000 if time_unit == "ms" else 1
     if chunk_rows % 8 and units > chunk_rows:  # each chunk of units fills whole bytes of the bit sets
         raise ValueError("chunk_rows must be a multiple of 8 when there is more than one chunk of units")
     out = Path(directory)
@@ -146,7 +153,7 @@ def write_chunked(
     exposed = np.isin(np.arange(len(arm_names)), [arm_code[a] for a in spec.exposed_arms])
     holdout = np.isin(np.arange(len(arm_names)), [arm_code[a] for a in spec.holdout_arms])
     meta = {"seed": seed, "units": units, "exposure_rows": exposure_rows, "days": days, "chunk_rows": chunk_rows,
-            "leak": leak, "experiment": spec.name}
+            "leak": leak, "time_unit": time_unit, "experiment": spec.name}
     reach_bits = np.zeros((units + 7) // 8, dtype=np.uint8)  # one bit per unit: the vendor may reach it
     leak_bits = np.zeros_like(reach_bits) if leak > 0 else None
     truth: dict[str, int | float | str] = {"units": units, "exposure_rows": exposure_rows, "links": 0,
@@ -228,9 +235,9 @@ def write_chunked(
             raise ValueError("no unit can be exposed (no unit in an exposed arm was reached); use more units")
         for c, a in enumerate(range(0, exposure_rows, chunk_rows)):
             rng = np.random.default_rng([seed, 1, c])
-            r = np.arange(a, min(a + chunk_rows, exposure_rows), dtype=np.int64)
-            n = len(r)
-            secs = np.maximum(curves.G_inv((r + rng.random(n)) / exposure_rows), first_reached_s)
+            n = min(chunk_rows, exposure_rows - a)
+            q = (a + np.sort(rng.random(n)) * n) / exposure_rows  # n random arrivals in the chunk's share
+            secs = np.maximum(curves.G_inv(q), first_reached_s)
             k = np.maximum(np.floor(units * curves.F(secs)).astype(np.int64), first_reached + 1)
             unit = np.empty(n, dtype=np.int64)
             todo = np.arange(n)
@@ -243,7 +250,7 @@ def write_chunked(
             if leak_bits is not None:
                 camp[_bit(leak_bits, unit)] = 0
             kind = (rng.random(n) < CLICK_RATE).astype(np.int8)
-            us = start_us + np.floor(secs * 1e3).astype(np.int64) * 1000
+            us = start_us + np.floor(secs * (1e6 / step_us)).astype(np.int64) * step_us
             ew.write_table(pa.Table.from_arrays([hex_ids(unit), _times(us), _labels(camp, camp_names),
                                                  _labels(kind, kind_names)], schema=ew.schema), row_group_size=n)
     finally:

@@ -102,6 +102,14 @@ def test_memory_does_not_grow_with_the_rows(tmp_path: Path) -> None:
     assert small_peak < 200_000 * 8 * np.dtype(np.int64).itemsize
 
 
+def test_microsecond_times(tmp_path: Path) -> None:
+    logs = write_chunked(SPEC, tmp_path, units=1_000, exposure_rows=5_000, chunk_rows=1_000, time_unit="us")
+    us = pq.read_table(logs.paths["exposures"]).column("event_time").cast("int64").to_numpy()
+    assert (np.diff(us) >= 0).all() and (us % 1000 != 0).mean() > 0.99  # not whole milliseconds
+    with pytest.raises(ValueError, match="ms or us"):
+        write_chunked(SPEC, tmp_path, units=1_000, exposure_rows=5_000, time_unit="s")
+
+
 def test_bad_sizes_are_refused(tmp_path: Path) -> None:
     with pytest.raises(ValueError, match="units >= 10"):
         write_chunked(SPEC, tmp_path, units=5, exposure_rows=10)
