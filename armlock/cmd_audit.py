@@ -12,7 +12,7 @@ from armlock.assign import Spec
 from armlock.assign.spec_audit import AuditThresholds
 from armlock.audit.model import AuditReport
 from armlock.audit.render import RENDERERS
-from armlock.audit.words import status_word
+from armlock.shared.words import status_word
 
 from .common import (
     ACCEPT_CHANGED_SPLIT,
@@ -59,7 +59,7 @@ def _previous_run(hist: Path | str, report: AuditReport) -> dict | None | bool:
     cannot be read (then no alert is judged, rather than a wrong one sent)."""
     from armlock.assign import ArmlockError
     from armlock.audit.alerts import previous_run
-    from armlock.audit.history import load
+    from armlock.shared.history import load
 
     try:
         return previous_run(load(hist, report.fingerprint), report.as_of)
@@ -162,7 +162,7 @@ def audit_cmd(
             raise typer.BadParameter(why, param_hint="--alert")
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
-    from armlock.audit.engine import select_engine
+    from armlock.shared.engine import select_engine
     from armlock.audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
 
     siblings = concurrent_specs(spec_path, alongside or [])
@@ -172,7 +172,7 @@ def audit_cmd(
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
                            as_of=day, advance=advance, split_changes=changes_after_start(lock),
                            engine=eng, alongside=siblings)
-    from armlock.audit import history
+    from armlock.shared import history
 
     hist = history.target(history_path) if history_path else history.default_history_path(spec_path)
     before = _previous_run(hist, report) if alert is not None else None

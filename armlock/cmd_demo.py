@@ -15,7 +15,7 @@ from armlock.assign import InputError, check_lock, load_spec
 from armlock.assign.init import render_spec_toml
 from armlock.assign.snippet import render_snippet
 
-from armlock.audit.words import status_word
+from armlock.shared.words import status_word
 
 from .common import err, progress, write_atomic
 
@@ -149,7 +149,7 @@ def build_demo(folder: Path, *, clean: bool = False, units: int = UNITS, server_
     cookie_churn fault resets no id (audit/synth.py); every other fault stays.
     """
     from armlock.audit import synth
-    from armlock.audit.history import default_history_path, load, record, record_readout
+    from armlock.shared.history import default_history_path, load, record, record_readout
     from armlock.audit.report_html import render_html
     from armlock.readout.report_finance import render_finance
     from armlock.readout.report_html import render_html as render_readout_html

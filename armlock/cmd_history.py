@@ -8,8 +8,8 @@ from typing import Any
 
 import typer
 
-from armlock.audit.history import changes, default_history_path, load, load_readouts, not_passing, target, trend_keys
-from armlock.audit.words import NOTHING_CHANGED, format_value, status_word
+from armlock.shared.history import changes, default_history_path, load, load_readouts, not_passing, target, trend_keys
+from armlock.shared.words import NOTHING_CHANGED, format_value, status_word
 
 from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
 
@@ -105,7 +105,7 @@ def history_cmd(
                                  param_hint="--format")
     spec = open_spec(spec_path, accept_changed_split=accept)
     path = target(history_path) if history_path else default_history_path(spec_path)
-    from armlock.audit.history_pg import shown
+    from armlock.shared.history_pg import shown
 
     name = shown(path) if isinstance(path, str) else str(path)  # a URL's password is never printed
     runs = load(path, spec.fingerprint)

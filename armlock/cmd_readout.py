@@ -78,7 +78,7 @@ def readout_cmd(
     conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
-    from armlock.audit.engine import select_engine
+    from armlock.shared.engine import select_engine
     from armlock.audit.run import input_bytes  # pandas/scipy load only when a readout runs
     from armlock.readout.run import run_readout
 
@@ -90,7 +90,7 @@ def readout_cmd(
                              spend=spend, spend_file=spend_file, attributed_revenue=attributed, as_of=day,
                              advance=advance, split_changes=changes_after_start(lock), engine=eng,
                              alongside=[s for _, s in concurrent_specs(spec_path, alongside or [])])
-    from armlock.audit import history
+    from armlock.shared import history
 
     hist = history.target(history_path) if history_path else history.default_history_path(spec_path)
     if record:

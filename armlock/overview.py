@@ -61,8 +61,8 @@ def _progress(spec: Any, as_of: str | None) -> dict[str, Any]:
 def entry_of(spec_path: Path, page_dir: Path, history: str | None = None) -> dict[str, Any]:
     """One test's line of the page: everything the HTML shows, as plain JSON values. `history` is a
     folder of history files, or a PostgreSQL URL (default: the file beside the spec)."""
-    from armlock.audit.history import changes, default_history_path, load, load_readouts, not_passing
-    from armlock.audit.history_pg import is_url, shown
+    from armlock.shared.history import changes, default_history_path, load, load_readouts, not_passing
+    from armlock.shared.history_pg import is_url, shown
 
     spec = load_spec(spec_path)
     hist: Path | str = (history if is_url(history) else Path(history) / default_history_path(spec_path).name

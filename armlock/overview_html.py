@@ -4,8 +4,10 @@ from __future__ import annotations
 
 from typing import Any
 
-from armlock.audit.report_html import CSS, STATUS_STYLE, badge, esc, first_clause
-from armlock.audit.words import format_value, sentence, status_word
+from armlock.shared.html import (
+    CSS, STATUS_STYLE, badge, esc, first_clause,
+)
+from armlock.shared.words import format_value, sentence, status_word
 
 # Statuses the page adds to the audit's: no audit recorded yet, or a spec/history it cannot read.
 _OTHER = {"none": "NO AUDIT YET", "unreadable": "CANNOT READ"}

@@ -61,7 +61,7 @@ def summary_line(command: str, experiment: str, as_of: str, verdict: str,
     """One line for a scheduler's log, e.g.
     `armlock audit: exit 3 split-broken; spring as of 2026-12-07; verdict FAIL; failing: srm; warning: balance`.
     """
-    from armlock.audit.words import status_word
+    from armlock.shared.words import status_word
 
     checks = list(checks)
     parts = [f"armlock {command}: exit {code} {CODE_NAMES.get(code, 'error')}",

@@ -15,9 +15,10 @@ from typing import Any
 
 from armlock.assign import Spec
 
-from .history import changes, row_from_report
-from .model import SEVERITY, AuditReport
-from .words import status_word
+from armlock.shared.history import changes, row_from_report
+from armlock.shared.report import SEVERITY
+from .model import AuditReport
+from armlock.shared.words import status_word
 
 MAX_CHARS = 500
 # Check ids that judge whether a feed is current rather than whether the split is healthy (the

@@ -11,9 +11,9 @@ from scipy import stats
 
 from armlock.assign import Spec
 
-from .model import Check, Figure, Status, Table
+from armlock.shared.report import Check, Figure, Status, Table
 from .srm import holm
-from .tables import BalanceTables
+from armlock.shared.tables import BalanceTables
 
 # Fewer units with a value than this in an arm: the covariate is "too few units to judge". At 30
 # units the normal approximations of the rank and mean tests hold well enough for the audit's
@@ -63,7 +63,7 @@ def smd_chance_se(n_t: int, n_c: int) -> float:
 
 def pooled_moments(parts: list[tuple[int, float, float]]) -> tuple[int, float, float]:
     """(n, mean, m2) of the union of arms (Chan, Golub & LeVeque 1979 merge)."""
-    from .tables import merge_moments
+    from armlock.shared.tables import merge_moments
 
     acc: tuple[int, float, float] = (0, 0.0, 0.0)
     for p in parts:

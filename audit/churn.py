@@ -8,8 +8,8 @@ import numpy as np
 
 from armlock.assign import Spec
 
-from .model import Check, Figure, Table, worst
-from .tables import ChurnTables
+from armlock.shared.report import Check, Figure, Table, worst
+from armlock.shared.tables import ChurnTables
 
 COOKIE_NOTE = ("Common practice: one major browser engine caps cookies written by script at 7 days "
                "(its tracking prevention), so long tests lose returning visitors' ids there; a "

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from .model import Check
+from armlock.shared.report import Check
 
 # (words to look for in a figure label or table column, lower case; the sentence shown once per check)
 EXPLAIN: list[tuple[str, str]] = [

@@ -28,7 +28,7 @@ from datetime import date, timedelta
 import numpy as np
 from scipy import stats
 
-from .model import Check, Figure, Status, Table, worst
+from armlock.shared.report import Check, Figure, Status, Table, worst
 
 BASELINE_DAYS = 14
 MIN_MISSING = 20.0

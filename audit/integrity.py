@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from armlock.assign import Spec
 
-from .model import Check, Figure, Table
-from .tables import IntegrityTables
+from armlock.shared.report import Check, Figure, Table
+from armlock.shared.tables import IntegrityTables
 
 
 def check_integrity(spec: Spec, it: IntegrityTables, counts: dict[str, int],

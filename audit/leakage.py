@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from armlock.assign import Spec
 
-from .model import Check, Figure, Table, worst
-from .tables import LeakageTables
-from .words import sentence
+from armlock.shared.report import Check, Figure, Table, worst
+from armlock.shared.tables import LeakageTables
+from armlock.shared.words import sentence
 
 
 def itt_dilution(rate_exposed: float, rate_holdout: float) -> float:

@@ -22,7 +22,7 @@ from scipy import stats
 
 from armlock.assign import Spec, assign_many
 
-from .model import Check, Figure, Table
+from armlock.shared.report import Check, Figure, Table
 from .srm import holm
 
 # Fail below this p (our choice): with 26 weekly looks at one pair of independent splits, the

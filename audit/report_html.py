@@ -7,146 +7,35 @@ charts is escaped by matplotlib's SVG writer, and mathtext parsing is off so `$`
 
 from __future__ import annotations
 
-import html
-import io
-import math
-import re
-from datetime import date
 from typing import Any
 
 import matplotlib
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt
-from matplotlib.figure import Figure as MplFigure
 
 from armlock.assign.spec_audit import AuditThresholds
 
 from .explain import explanations
-from .history import changes, row_from_report, trend_keys
-from .model import AuditReport, Check
-from .words import NOTHING_CHANGED, STATUS_MEANING, column_unit, format_figure, format_value, sentence, shown_figures, status_word
+from armlock.shared.history import changes, row_from_report, trend_keys
+from armlock.shared.report import Check
+from .model import AuditReport
+from armlock.shared.html import (
+    ACCENT, ARM_COLOURS, BAND, CSS, ICON, INK, MUTED, NARROW, RC, STATUS_STYLE, WIDE, badge, both, breakable, dates,
+    date_axis, esc, first_clause, legend, log_axis, share_band, svg, table,
+)
+from armlock.shared.words import NOTHING_CHANGED, STATUS_MEANING, format_figure, sentence, shown_figures, status_word
 
-# Our palette. Text colours reach WCAG AA (>= 4.5:1) on their backgrounds.
-INK, PAPER, CARD, RULE, MUTED = "#1d2528", "#f6f3ee", "#ffffff", "#d8d2c8", "#4f5a5e"
-ACCENT = "#0c5c66"
-ARM_COLOURS = ["#b4471f", "#1f5f8b", "#5b7a1a", "#7a3e86", "#8a6d00", "#2f6f5e"]
-BAND = "#e6dccd"
-STATUS_STYLE: dict[str, tuple[str, str, str]] = {  # word (audit/words.py), text colour, background
-    "pass": (status_word("pass"), "#17603a", "#e3f2e8"),
-    "warn": (status_word("warn"), "#7a4d00", "#fdf0d5"),
-    "fail": (status_word("fail"), "#9e1f24", "#fbe4e3"),
-    "skipped": (status_word("skipped"), "#4a4a4a", "#ececec"),
-}
-# Chart widths in inches: the wide drawing for screens and print, the narrow one for phones
-# (redrawn with legends above the plot, so its 8 pt text stays readable without scrolling).
-WIDE, NARROW = 7.2, 4.4
-_ICON = {  # shape differs by status too, never colour alone
-    "pass": '<circle cx="8" cy="8" r="7"/><path d="M4.5 8.3l2.3 2.3 4.7-5" fill="none" stroke="#fff" stroke-width="2"/>',
-    "warn": '<path d="M8 1l7.5 13.5h-15z"/><path d="M8 5.5v4.5M8 11.6v1.4" stroke="#fff" stroke-width="1.8"/>',
-    "fail": '<path d="M5 1h6l4 4v6l-4 4h-6l-4-4v-6z"/><path d="M5.3 5.3l5.4 5.4M10.7 5.3l-5.4 5.4" stroke="#fff" stroke-width="1.9"/>',
-    "skipped": '<rect x="1" y="1" width="14" height="14" rx="3"/><path d="M4.5 8h7" stroke="#fff" stroke-width="2"/>',
-}
 _VERDICT_WORDS = {
     "pass": "The split looks healthy.",
     "warn": "The split needs a look: at least one check warns.",
     "fail": "The split is broken: at least one check fails. Fix it before reading any results.",
 }
 
-_RC: dict[str, Any] = {
-    "svg.fonttype": "none",  # text stays text: small, selectable, escaped by the writer
-    "text.parse_math": False,  # a `$` in an id is shown, never parsed
-    "font.family": "sans-serif",
-    "font.size": 10,
-    "axes.edgecolor": MUTED,
-    "axes.labelcolor": INK,
-    "axes.titlesize": 11,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    "xtick.color": MUTED,
-    "ytick.color": MUTED,
-    "text.color": INK,
-    "axes.grid": True,
-    "grid.color": "#e9e4dc",
-    "grid.linewidth": 0.8,
-    "legend.frameon": False,
-    "figure.facecolor": "none",
-    "axes.facecolor": "none",
-}
-
-
-def esc(value: Any) -> str:
-    """Any value as HTML text (quotes included, so it is safe in attributes too)."""
-    return html.escape(str(value), quote=True)
-
-
-# --- charts --------------------------------------------------------------------------------------
-
-def _svg(fig: MplFigure, chart_id: str, caption: str) -> str:
-    """The figure as inline SVG: no prolog, scalable, ids unique to this chart, deterministic."""
-    buf = io.StringIO()
-    with matplotlib.rc_context({"svg.hashsalt": f"armlock-{chart_id}", "svg.id": f"chart-{chart_id}"}):
-        fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None}, bbox_inches="tight")
-    plt.close(fig)
-    text = buf.getvalue()
-    text = text[text.index("<svg"):]
-    text = re.sub(r"\s*<metadata>[\s\S]*?</metadata>", "", text, count=1)
-    # matplotlib numbers its ids per figure (figure_1, patch_1...): make them unique in the page
-    ids = set(re.findall(r'\sid="([^"]+)"', text))
-    text = re.sub(r'(\sid="|#)([^")\s]+)(?=[")])',
-                  lambda m: f"{m.group(1)}{chart_id}-{m.group(2)}" if m.group(2) in ids else m.group(0), text)
-    # never drawn below 95% of its natural size, so its smallest (8 pt) text stays readable; the
-    # audit's charts have a narrow twin for phones (`_both`), a chart without one scrolls in its figure
-    box = re.search(r'viewBox="[\d.]+ [\d.]+ ([\d.]+) [\d.]+"', text)
-    least = float(box.group(1)) * 0.95 if box else 448.0
-    text = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
-                  rf'<svg\1 role="img" aria-label="{esc(caption)}" data-chart="{esc(chart_id)}" '
-                  rf'class="chart" style="min-width:{least:.0f}px"', text, count=1)
-    return text
-
-
-def _dates(values: list[str]) -> list[Any]:
-    return [date.fromisoformat(str(v)[:10]) for v in values]
-
-
-def _log_axis(ax: Any) -> None:
-    """Log scale with plain tick labels (mathtext is off, so the default labels would show raw TeX)."""
-    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
-
-    ax.set_yscale("log")
-    ax.yaxis.set_major_locator(LogLocator(base=10, numticks=8))
-    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-    ax.yaxis.set_minor_formatter(NullFormatter())
-
-
-def _date_axis(ax: Any) -> None:
-    import matplotlib.dates as mdates
-
-    loc = mdates.AutoDateLocator(minticks=3, maxticks=7)
-    ax.xaxis.set_major_locator(loc)
-    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(loc))
-
-
-def share_band(theta: float, n: int, k: float = 3.0) -> tuple[float, float]:
-    """Expected share ± k binomial standard errors at n units: theta ± k·sqrt(theta(1-theta)/n)."""
-    half = k * math.sqrt(theta * (1 - theta) / max(n, 1))
-    return theta - half, theta + half
-
-
-def _legend(ax: Any, narrow: bool, *, wide_loc: str = "upper right", ncol: int = 3, outside: bool = False) -> None:
-    """The legend: above the plot on a narrow drawing (never on the data), else where it fits."""
-    if narrow:
-        ax.legend(loc="lower left", bbox_to_anchor=(0, 1.0), fontsize=8, ncol=1, borderaxespad=0.3)
-    elif outside:
-        ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8)
-    else:
-        ax.legend(loc=wide_loc, fontsize=8, ncol=ncol)
-
-
 def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], chart_id: str,
                     narrow: bool = False) -> str:
     """Cumulative share of each arm by day against its expected share, with a ±3 SE band."""
-    days = _dates([r["date"] for r in rows])
+    days = dates([r["date"] for r in rows])
     totals = [max(sum(r["counts"].values()), 1) for r in rows]
     per_arm = 2.6 if narrow else 1.9
     fig, axes = plt.subplots(len(arms), 1, figsize=(NARROW if narrow else WIDE, per_arm * len(arms) + 0.4),
@@ -168,18 +57,18 @@ def chart_arm_share(rows: list[dict[str, Any]], arms: list[tuple[str, float]], c
             ax.set_title(f"arm {name}", loc="right", fontsize=9)
         else:
             ax.set_title(f"arm {name}", loc="left")
-        _legend(ax, narrow)
-    _date_axis(axes[-1, 0])
+        legend(ax, narrow)
+    date_axis(axes[-1, 0])
     # one y label for the stacked panels: a label per panel was longer than its panel and collided
     fig.supylabel(f"share % of all units (last day: {totals[-1]:,})", fontsize=8)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Cumulative arm share by day against the expected share")
+    return svg(fig, chart_id, "Cumulative arm share by day against the expected share")
 
 
 def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, chart_id: str,
                 narrow: bool = False) -> str:
     """The fixed-horizon and anytime-valid SRM p-value paths on a log scale with their thresholds."""
-    days = _dates([r["date"] for r in rows])
+    days = dates([r["date"] for r in rows])
     floor = 1e-300
     fig, ax = plt.subplots(figsize=(NARROW if narrow else WIDE, 3.4 if narrow else 3.0))
     fixed = [max(float(r["p_fixed"]), floor) for r in rows]
@@ -190,14 +79,14 @@ def chart_srm_p(rows: list[dict[str, Any]], p_fixed: float, p_anytime: float, ch
     # Only the anytime-valid p sets the status (it stays valid at every weekly look); the fixed-horizon
     # p is drawn for information, without a line of its own.
     ax.axhline(p_anytime, color=ARM_COLOURS[0], lw=1, ls="-.", label=f"fails below {p_anytime:g} (anytime-valid p)")
-    _log_axis(ax)
+    log_axis(ax)
     low = min(min(fixed), min(anytime), p_anytime) / 10
     ax.set_ylim(max(low, floor), 1.5)
     ax.set_ylabel("p-value (log scale)")
     ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=1 if narrow else 2)
-    _date_axis(ax)
+    date_axis(ax)
     fig.tight_layout()
-    return _svg(fig, chart_id, "SRM p-value paths, fixed-horizon and anytime-valid, on a log scale")
+    return svg(fig, chart_id, "SRM p-value paths, fixed-horizon and anytime-valid, on a log scale")
 
 
 def chart_leakage(rows: list[dict[str, Any]], warn_at: float, fail_at: float, chart_id: str,
@@ -223,9 +112,9 @@ def chart_leakage(rows: list[dict[str, Any]], warn_at: float, fail_at: float, ch
     ax.axhline(fail_at * 100, color=INK, lw=1.2, ls="-.", label=f"fail above {fail_at * 100:g}%")
     ax.set_ylim(0, max(max(share, default=0) * 1.25, fail_at * 100 * 1.3, 0.5))
     ax.grid(axis="x", visible=False)
-    _legend(ax, narrow)
+    legend(ax, narrow)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Holdout leakage by week: share of holdout units the vendor reached, with thresholds")
+    return svg(fig, chart_id, "Holdout leakage by week: share of holdout units the vendor reached, with thresholds")
 
 
 def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str, narrow: bool = False) -> str:
@@ -264,9 +153,9 @@ def chart_love(rows: list[dict[str, Any]], line: float, chart_id: str, narrow: b
     ax.set_xlabel("SMD (exposed − holdout)" if narrow else "standardized mean difference (exposed − holdout)")
     ax.tick_params(axis="x", labelsize=8)
     ax.grid(axis="y", visible=False)
-    _legend(ax, narrow, outside=True)
+    legend(ax, narrow, outside=True)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Love plot: standardized mean differences against the range chance alone gives")
+    return svg(fig, chart_id, "Love plot: standardized mean differences against the range chance alone gives")
 
 
 def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, chart_id: str,
@@ -289,9 +178,9 @@ def chart_churn(rows: list[dict[str, Any]], warn_at: float, fail_at: float, char
                   else "% of the browser's logged-in customers seen in more than one arm", fontsize=8)
     ax.tick_params(axis="x", labelsize=8)
     ax.grid(axis="y", visible=False)
-    _legend(ax, narrow, outside=True)
+    legend(ax, narrow, outside=True)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Identity churn by browser family, observed against expected")
+    return svg(fig, chart_id, "Identity churn by browser family, observed against expected")
 
 
 _STATUS_MARK = {"pass": ("o", "#17603a"), "warn": ("^", "#9a6200"), "fail": ("X", "#9e1f24"), "skipped": ("s", "#777")}
@@ -299,7 +188,7 @@ _STATUS_MARK = {"pass": ("o", "#17603a"), "warn": ("^", "#9a6200"), "fail": ("X"
 
 def chart_history(runs: list[dict[str, Any]], chart_id: str, narrow: bool = False) -> str:
     """The verdict of each run as shaped marks, and the headline figures that moved, over time."""
-    days = _dates([r["as_of"] for r in runs])
+    days = dates([r["as_of"] for r in runs])
     keys = trend_keys(runs)
     fig, axes = plt.subplots(1 + len(keys), 1, figsize=(NARROW if narrow else WIDE, 1.4 + 1.7 * len(keys)), sharex=True,
                              squeeze=False, gridspec_kw={"height_ratios": [0.6] + [1] * len(keys)})
@@ -323,71 +212,18 @@ def chart_history(runs: list[dict[str, Any]], chart_id: str, narrow: bool = Fals
                 color=ACCENT, lw=2, marker="o", ms=3)
         vals = [v for _, v in pts if v > 0]
         if unit == "p" and vals and max(vals) / min(vals) >= 10:
-            _log_axis(ax)
+            log_axis(ax)
         ax.set_title(runs[-1]["figures"][key].get("label", key) + (" (%)" if unit == "share" else ""),
                      loc="left", fontsize=9)
     if len(days) <= 13:
         axes[-1, 0].set_xticks(days, [d.strftime("%m-%d") for d in days], fontsize=8, rotation=90 if narrow else 0)
     else:
-        _date_axis(axes[-1, 0])
+        date_axis(axes[-1, 0])
     fig.tight_layout()
-    return _svg(fig, chart_id, "History: verdict and headline figures of each recorded run")
+    return svg(fig, chart_id, "History: verdict and headline figures of each recorded run")
 
 
 # --- page ----------------------------------------------------------------------------------------
-
-def first_clause(text: str) -> str:
-    """The first clause of a summary (up to its first '; ' or '. '), as a sentence."""
-    cut = min([i for i in (text.find("; "), text.find(". ")) if i >= 0], default=len(text))
-    return sentence(text[:cut].rstrip(" .;")) + "."
-
-
-def badge(status: str) -> str:
-    word, fg, bg = STATUS_STYLE.get(status, STATUS_STYLE["skipped"])
-    return (f'<span class="badge" data-status="{esc(status)}" style="color:{fg};background:{bg}">'
-            f'<svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{_ICON.get(status, _ICON["skipped"])}</svg>'
-            f'{esc(word)}</span>')
-
-
-def _cell(v: Any, unit: str = "number") -> str:
-    if unit in ("share", "p") and isinstance(v, (int, float)) and not isinstance(v, bool):
-        return esc(format_value(v, unit))
-    if isinstance(v, float):
-        if not math.isfinite(v):
-            return esc(v)
-        if abs(v) >= 1000:
-            return esc(f"{v:,.0f}" if v == int(v) else f"{v:,.1f}")
-        return esc(f"{v:.4g}" if abs(v) >= 1e-4 or v == 0 else f"{v:.2e}")
-    if isinstance(v, int) and not isinstance(v, bool):
-        return esc(f"{v:,}")
-    if isinstance(v, str) and _SEPARATOR.search(v):
-        # lists and segment values wrap after a separator, never mid-word (a thousands comma never)
-        return _SEPARATOR.sub(lambda m: m.group(0) + "<wbr>", esc(v))
-    return esc("" if v is None else v)
-
-
-_SEPARATOR = re.compile(r"[=/]|,(?!\d)")
-
-
-def _words(v: Any) -> bool:
-    return isinstance(v, str) and (" " in v or bool(_SEPARATOR.search(v)))
-
-
-def _table(t: Any) -> str:
-    head = "".join(f"<th scope=\"col\">{esc(c)}</th>" for c in t.columns)
-    units = [column_unit(str(c)) for c in t.columns]
-    # words may wrap (a table reflows before it scrolls); numbers and intervals' ends never break
-    body = "".join("<tr>" + "".join(f"<td{' class=words' if _words(v) else ''}>{_cell(v, u)}</td>"
-                                    for v, u in zip(row, units)) + "</tr>" for row in t.rows)
-    # the title sits above the scrolling box, so a wide table never cuts it off on a phone
-    return (f'<p class="tabletitle">{esc(t.title)}</p><div class="tablewrap"><table aria-label="{esc(t.title)}">'
-            f"<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>")
-
-
-def breakable(text: str) -> str:
-    """Escaped text that may wrap only after '=', ',' or '/' (a segment value is never cut mid-word)."""
-    return re.sub(r"([=,/])", r"\1<wbr>", esc(text))
-
 
 def _figures(check: Check) -> str:
     if not check.figures:
@@ -399,35 +235,28 @@ def _figures(check: Check) -> str:
     return f'<dl class="figures">{items}</dl>'
 
 
-def _both(draw: Any, *args: Any) -> str:
-    """A chart drawn twice: wide for screens and print, narrow (redrawn, not shrunk) for phones."""
-    *rest, chart_id = args
-    return (f'<div class="chart-wide">{draw(*rest, chart_id)}</div>'
-            f'<div class="chart-narrow">{draw(*rest, chart_id + "-narrow", narrow=True)}</div>')
-
-
 def _charts_for(check: Check, report: AuditReport, th: AuditThresholds) -> list[str]:
     s, cid = check.series, check.id
     out = []
     total_w = sum(a.weight for a in report.arms) or 1
     if cid == "srm" and s.get("daily"):
         arms = [(a.name, a.weight / total_w) for a in report.arms]
-        out.append(_both(chart_arm_share, s["daily"], arms, "arm-share"))
+        out.append(both(chart_arm_share, s["daily"], arms, "arm-share"))
         if all("p_fixed" in r and "p_anytime" in r for r in s["daily"]):
-            out.append(_both(chart_srm_p, s["daily"], th.srm_p, th.srm_anytime_p, "srm-p"))
+            out.append(both(chart_srm_p, s["daily"], th.srm_p, th.srm_anytime_p, "srm-p"))
     elif cid == "leakage" and s.get("weekly"):
-        out.append(_both(chart_leakage, s["weekly"], th.leak_warn, th.leak_fail, "leakage"))
+        out.append(both(chart_leakage, s["weekly"], th.leak_warn, th.leak_fail, "leakage"))
     elif cid == "balance" and s.get("smd"):
-        out.append(_both(chart_love, s["smd"], th.smd_fail, "love"))
+        out.append(both(chart_love, s["smd"], th.smd_fail, "love"))
     elif cid == "churn" and s.get("by_browser"):
-        out.append(_both(chart_churn, s["by_browser"], th.churn_warn, th.churn_fail, "churn"))
+        out.append(both(chart_churn, s["by_browser"], th.churn_warn, th.churn_fail, "churn"))
     return out
 
 
 def _section(check: Check, report: AuditReport, th: AuditThresholds) -> str:
     charts = "".join(f"<figure>{svg}</figure>" for svg in _charts_for(check, report, th))
     reason = f'<p class="reason">{esc(status_word("skipped"))}: {esc(check.reason)}</p>' if check.reason else ""
-    tables = "".join(_table(t) for t in check.tables)
+    tables = "".join(table(t) for t in check.tables)
     expl = explanations(check)
     tables += (f'<ul class="explain">{"".join(f"<li>{esc(e)}</li>" for e in expl)}</ul>' if expl else "")
     return (f'<section class="check s-{esc(check.status)}" id="check-{esc(check.id)}" data-check="{esc(check.id)}">'
@@ -446,80 +275,13 @@ def _history_section(report: AuditReport, history: list[dict[str, Any]] | None, 
     prev = earlier[-1]
     said = changes(prev, report, th)
     items = "".join(f"<li>{esc(sentence(s))}.</li>" for s in said) or f"<li>{esc(NOTHING_CHANGED)}</li>"
-    chart = f"<figure>{_both(chart_history, runs, 'history')}</figure>" if len(runs) >= 2 else ""
+    chart = f"<figure>{both(chart_history, runs, 'history')}</figure>" if len(runs) >= 2 else ""
     rows = "".join(f"<tr><td>{esc(r['as_of'])}</td><td>{badge(r['verdict'])}</td></tr>" for r in runs[::-1][:12])
     table = (f'<div class="tablewrap"><table><caption>Recorded runs (newest first)</caption>'
              f"<thead><tr><th scope=\"col\">as of</th><th scope=\"col\">verdict</th></tr></thead><tbody>{rows}</tbody></table></div>")
     return (f'<section class="check" id="history" data-check="history"><header><h2>Change since the last run</h2></header>'
             f'<p class="summary">Compared with the run as of {esc(prev["as_of"])} ({len(runs)} runs recorded):</p>'
             f"<ul class=\"changes\">{items}</ul>{chart}{table}</section>")
-
-
-CSS = f"""
-:root {{ color-scheme: light; }}
-* {{ box-sizing: border-box; }}
-body {{ margin: 0; background: {PAPER}; color: {INK}; font: 16px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif; }}
-main {{ max-width: 72rem; margin: 0 auto; padding: 1rem; }}
-.top {{ border-left: 6px solid {ACCENT}; padding: .25rem 0 .25rem 1rem; margin: .5rem 0 1rem; }}
-.top h1 {{ font-size: 1.5rem; margin: 0; overflow-wrap: anywhere; }}
-.top p {{ margin: .2rem 0; color: {MUTED}; overflow-wrap: anywhere; }}
-.verdict {{ display: flex; gap: .8rem; align-items: flex-start; padding: 1rem; border-radius: 10px; margin-bottom: 1rem; border: 2px solid currentColor; }}
-.verdict .icon {{ width: 2.2rem; height: 2.2rem; flex: none; }}
-.verdict .word {{ font-size: 1.25rem; font-weight: 700; display: block; }}
-.verdict ul {{ margin: .4rem 0 0; padding-left: 1.2rem; color: {INK}; }}
-.verdict a {{ color: inherit; }}
-.verdict p {{ margin: .2rem 0 0; color: {INK}; }}
-nav ol {{ list-style: none; padding: 0; margin: 0 0 1rem; display: grid; grid-template-columns: repeat(auto-fill, minmax(15rem, 1fr)); gap: .4rem; }}
-nav a {{ display: flex; justify-content: space-between; gap: .5rem; align-items: center; background: {CARD}; border: 1px solid {RULE}; border-radius: 8px; padding: .45rem .6rem; color: {INK}; text-decoration: none; }}
-nav a:hover, nav a:focus {{ border-color: {ACCENT}; outline: 2px solid {ACCENT}; outline-offset: 1px; }}
-.check {{ background: {CARD}; border: 1px solid {RULE}; border-radius: 10px; padding: 1rem; margin: 0 0 1rem; border-top: 5px solid {RULE}; }}
-.check.s-pass {{ border-top-color: #2f8a55; }} .check.s-warn {{ border-top-color: #c98a12; }}
-.check.s-fail {{ border-top-color: #c0373c; }} .check.s-skipped {{ border-top-color: #9a9a9a; }}
-.check header {{ display: flex; flex-wrap: wrap; gap: .5rem; justify-content: space-between; align-items: center; }}
-.check h2 {{ font-size: 1.15rem; margin: 0; overflow-wrap: anywhere; }}
-.badge, .verdict {{ -webkit-print-color-adjust: exact; print-color-adjust: exact; }}
-.badge {{ display: inline-flex; align-items: center; gap: .3rem; font-weight: 600; font-size: .85rem; padding: .1rem .55rem .1rem .35rem; border-radius: 999px; white-space: nowrap; }}
-.badge .icon {{ width: 1rem; height: 1rem; }}
-.summary {{ margin: .6rem 0; }}
-.reason {{ color: {MUTED}; }}
-.figures {{ display: grid; grid-template-columns: repeat(auto-fill, minmax(10rem, 1fr)); gap: .5rem; margin: .6rem 0; }}
-.figures div {{ background: {PAPER}; border-radius: 6px; padding: .4rem .6rem; }}
-.figures dt {{ font-size: .8rem; color: {MUTED}; overflow-wrap: anywhere; }}
-.figures dd {{ margin: 0; font-size: 1.1rem; font-weight: 600; font-variant-numeric: tabular-nums; overflow-wrap: normal; word-break: normal; hyphens: none; }}
-.figures div.wide {{ grid-column: span 2; }}
-@media (max-width: 34rem) {{ .figures div.wide {{ grid-column: 1 / -1; }} }}
-figure {{ margin: .8rem 0; overflow-x: auto; }}
-svg.chart {{ width: 100%; height: auto; display: block; }}
-.chart-narrow {{ display: none; }}
-@media (max-width: 34rem) {{ .chart-wide {{ display: none; }} .chart-narrow {{ display: block; }} }}
-.tablewrap {{ overflow-x: auto; margin: .6rem 0; max-width: 100%; }}
-/* a table wider than its box scrolls inside it, and the box shows it: a rule around it, shadows at
-   the edge that has more columns (pure CSS: local backgrounds cover the shadows at the ends), and
-   the first column kept in view */
-.tablewrap {{ border: 1px solid {RULE}; border-radius: 4px; padding: 0 .3rem;
-  background: linear-gradient(to right, #fff 30%, rgba(255,255,255,0)) left / 2rem 100% no-repeat local,
-              linear-gradient(to left, #fff 30%, rgba(255,255,255,0)) right / 2rem 100% no-repeat local,
-              radial-gradient(farthest-side at 0 50%, rgba(0,0,0,.25), rgba(0,0,0,0)) left / .8rem 100% no-repeat scroll,
-              radial-gradient(farthest-side at 100% 50%, rgba(0,0,0,.25), rgba(0,0,0,0)) right / .8rem 100% no-repeat scroll,
-              #fff; }}
-table {{ border-collapse: collapse; font-size: .88rem; min-width: 50%; font-variant-numeric: tabular-nums; }}
-caption, .tabletitle {{ text-align: left; font-weight: 600; padding: .2rem 0; margin: .8rem 0 0; }}
-th, td {{ border-bottom: 1px solid {RULE}; padding: .3rem .7rem .3rem 0; text-align: left; vertical-align: top; overflow-wrap: break-word; }}
-td {{ white-space: nowrap; }} td:first-child, td.words {{ white-space: normal; }}
-td.words {{ min-width: 5.5rem; }}
-th {{ color: {MUTED}; font-weight: 600; }}
-.changes li {{ margin: .15rem 0; }}
-.notes {{ color: {MUTED}; font-size: .9rem; }}
-footer {{ color: {MUTED}; font-size: .85rem; border-top: 1px solid {RULE}; padding-top: .6rem; margin-top: 1.5rem; }}
-code {{ background: #ebe6de; padding: 0 .25rem; border-radius: 4px; }}
-@media (max-width: 34rem) {{ main {{ padding: .5rem; }} .check {{ padding: .7rem; }} body {{ font-size: 15px; }} }}
-@media print {{
-  body {{ background: #fff; font-size: 11pt; }} main {{ max-width: none; padding: 0; }}
-  nav {{ display: none; }} .check {{ break-inside: avoid; border: 1px solid #999; border-top-width: 4px; }}
-  figure {{ break-inside: avoid; overflow: visible; }} svg.chart {{ min-width: 0 !important; }}
-  .chart-wide {{ display: block !important; }} .chart-narrow {{ display: none !important; }} .verdict {{ break-after: avoid; }} a {{ color: inherit; text-decoration: none; }}
-}}
-"""
 
 
 def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None, *,
@@ -533,7 +295,7 @@ def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None
     word, fg, bg = STATUS_STYLE[report.verdict]
     bad = [c for c in report.checks if c.status in ("fail", "warn")]
     lead = _VERDICT_WORDS[report.verdict]
-    with matplotlib.rc_context(_RC):  # type: ignore[arg-type]
+    with matplotlib.rc_context(RC):  # type: ignore[arg-type]
         sections = "".join(_section(c, report, th) for c in report.checks)
         hist = _history_section(report, history, th)
     nav = "".join(f'<li><a href="#check-{esc(c.id)}"><span>{esc(c.title)}</span>{badge(c.status)}</a></li>'
@@ -553,7 +315,7 @@ def render_html(report: AuditReport, history: list[dict[str, Any]] | None = None
 <div class="top"><h1>Split health of {esc(report.experiment)}</h1>
 <p>Data as of {esc(report.as_of)} · arms: {arms} · spec fingerprint <code>{esc(report.fingerprint)}</code></p></div>
 <div class="verdict" data-verdict="{esc(report.verdict)}" style="color:{fg};background:{bg}" role="status">
-<svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{_ICON[report.verdict]}</svg>
+<svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{ICON[report.verdict]}</svg>
 <div><span class="word">{esc(word)}</span><p>{esc(report.verdict_text or lead)}</p>
 {f'<ul>{worst_list}</ul>' if worst_list else ''}</div></div>
 {f'<div class="notes"><strong>About the input:</strong><ul>{notes}</ul></div>' if notes else ''}

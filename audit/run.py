@@ -10,15 +10,16 @@ from armlock.assign import Spec, __version__
 
 from .balance import check_balance
 from .churn import check_churn
-from .load import check_as_of
+from armlock.shared.load import check_as_of
 from .feeds import FeedHealth, check_feeds, feed_health
-from .engine import Engine, EngineResult, Inputs, canonical, file_bytes, select_engine
+from armlock.shared.engine import Engine, EngineResult, Inputs, canonical, file_bytes, select_engine
 from .integrity import check_integrity
 from .leakage import check_leakage
-from .model import ArmInfo, AuditReport, Check, NotChecked, not_checked_sentence, verdict_of
-from .read import Frames
+from armlock.shared.report import Check, NotChecked, not_checked_sentence, verdict_of
+from .model import ArmInfo, AuditReport
+from armlock.shared.read import Frames
 from .srm import check_srm, check_srm_segments
-from .tables import AuditTables
+from armlock.shared.tables import AuditTables
 
 PathLike = str | Path
 
@@ -116,10 +117,10 @@ def run_audit(
 
 def concurrent_check(spec: Spec, visits: PathLike, as_of: date, alongside: Sequence[tuple[str, Spec]]) -> Check:
     """The independence check against concurrent tests, on the visits' units as of `as_of`."""
-    from .engine import TABLE_PREFIX
-    from .load import load_visits
+    from armlock.shared.engine import TABLE_PREFIX
+    from armlock.shared.load import load_visits
     from .overlap import TITLE, check_independence, crosstab, shared_mask
-    from .read import TIME, UNIT
+    from armlock.shared.read import TIME, UNIT
 
     if str(visits).startswith(TABLE_PREFIX):
         return Check(id="independence", title=TITLE, status="warn",

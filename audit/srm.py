@@ -13,8 +13,8 @@ from scipy.special import gammaln
 
 from armlock.assign import Spec
 
-from .model import Check, Figure, Status, Table
-from .tables import SplitTables
+from armlock.shared.report import Check, Figure, Status, Table
+from armlock.shared.tables import SplitTables
 
 Vector = Sequence[float] | np.ndarray
 PRIOR_CONCENTRATION = 100.0  # Dirichlet prior alpha = 100 * theta0 (Lindon & Malek's reference code default)

@@ -2,6 +2,6 @@
 
 from .compute import make_plan
 from .model import Plan, PlanInputs
-from .power import mde, power_at, se_difference, units_needed, z_sum
+from armlock.shared.power import mde, power_at, se_difference, units_needed, z_sum
 
 __all__ = ["Plan", "PlanInputs", "make_plan", "mde", "power_at", "se_difference", "units_needed", "z_sum"]

@@ -8,16 +8,16 @@ from collections.abc import Sequence
 import numpy as np
 
 from armlock.assign import InputError
-from armlock.readout.confseq import anytime_factor
+from armlock.shared.confseq import anytime_factor
 
 from . import soundness, weekly
-from .power import N01 as _N
+from armlock.shared.power import N01 as _N
 
 from .model import (
     DEFAULT_MAX_WEEKS, DEFAULT_SHARES, DEFAULT_WEEKS, MIN_WEEKS, Cell, Estimate, Plan, PlanInputs,
     Recommendation, ShareSummary,
 )
-from .power import (
+from armlock.shared.power import (
     conversion_mde, extra_variance, power_two_variances, se_difference, units_needed_two_variances, z_sum,
 )
 

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from armlock.assign import InputError
-from armlock.audit.read import Source, _header, read_ids, read_mapped, read_numbers, read_times
+from armlock.shared.read import Source, header, read_ids, read_mapped, read_numbers, read_times
 
 from .model import Estimate
 
@@ -70,7 +70,7 @@ def _set_aside(src: Source, mask: np.ndarray, what: str, notes: list[str]) -> No
 
 def _present(path: Path, role: str, delimiter: str, want: dict[str, str], cols: PrePeriodColumns) -> list[str]:
     """Refuse a named column the file lacks, saying who named it (an option, the spec, or the default)."""
-    present = _header(Source(path, role), delimiter, [])
+    present = header(Source(path, role), delimiter, [])
     for key, col in want.items():
         if col not in present:
             raise InputError(f"{path}: column '{col}' ({cols.origin(key)}) not found in the {role} file; the file "
@@ -86,7 +86,7 @@ def _visits(path: Path, cols: PrePeriodColumns, notes: list[str]) -> tuple[pd.Da
         raise InputError(f"{path}: column '{missing[0]}' ({cols.origin('covariates')}) not found in the visits file; "
                          f"the file has columns: {', '.join(present) or '(none)'}")
     covs = [c for c in dict.fromkeys(cols.covariates) if c in present and c not in (cols.unit_id, cols.first_seen)]
-    # the audit's one reader: BOM, delimiter, duplicate and nested columns, damaged files (audit/read.py)
+    # the audit's one reader: BOM, delimiter, duplicate and nested columns, damaged files (shared/read.py)
     optional = {f"covariate {c}": c for c in covs}
     mapped = read_mapped(path, "visits", "[audit.visits]", {"unit_id": cols.unit_id, "first_seen": cols.first_seen},
                          notes, optional=optional, delimiter=cols.visits_delimiter)

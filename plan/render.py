@@ -8,7 +8,7 @@ import textwrap
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from armlock.audit.render import md_text, strip_controls
+from armlock.shared.text import md_text, strip_controls
 
 from .compute import MAX_WEEKS, cash, money, num, pct, weeks_words
 from .soundness import SIMS

@@ -8,10 +8,10 @@ from datetime import datetime, timezone
 import matplotlib
 
 from armlock.assign import __version__
-from armlock.audit.report_html import (  # one visual language: the audit report's styles and chart writer
-    _ICON, _RC, ARM_COLOURS, BAND, CSS, INK, MUTED, NARROW, STATUS_STYLE, WIDE, _both, _legend, _svg, esc,
+from armlock.shared.html import (  # one visual language with the audit and readout pages
+    ICON, RC, ARM_COLOURS, BAND, CSS, INK, MUTED, NARROW, STATUS_STYLE, WIDE, both, legend, svg, esc,
 )
-from armlock.readout.confseq import anytime_halfwidth
+from armlock.shared.confseq import anytime_halfwidth
 
 from .compute import money, num, pct
 from .model import Plan
@@ -57,9 +57,9 @@ def chart_mde(p: Plan, chart_id: str = "mde", narrow: bool = False) -> str:
     ax.set_ylim(0, top)
     ax.set_xlabel("weeks the test runs")
     ax.set_ylabel("detectable difference,\n% of revenue per unit" if narrow else "detectable difference, % of revenue per unit")
-    _legend(ax, narrow, outside=True)
+    legend(ax, narrow, outside=True)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Smallest detectable difference against weeks, one line per holdout share")
+    return svg(fig, chart_id, "Smallest detectable difference against weeks, one line per holdout share")
 
 
 def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
@@ -88,9 +88,9 @@ def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
     ax.set_ylim(0, ax.get_ylim()[1] * 1.15)
     ax.set_xlabel("weeks needed for the target (log scale)")
     ax.set_ylabel("revenue forgone" if narrow else "revenue forgone by the holdout")
-    _legend(ax, narrow, wide_loc="lower right")
+    legend(ax, narrow, wide_loc="lower right")
     fig.tight_layout()
-    return _svg(fig, chart_id, "Weeks each holdout share needs against the revenue it forgoes")
+    return svg(fig, chart_id, "Weeks each holdout share needs against the revenue it forgoes")
 
 
 def chart_weekly(p: Plan, share: float, weeks: int, chart_id: str = "weekly", narrow: bool = False) -> str:
@@ -113,12 +113,12 @@ def chart_weekly(p: Plan, share: float, weeks: int, chart_id: str = "weekly", na
     ax.set_ylim(0, min(max(anytime), 4 * max(fixed[-1], p.target_difference or 0)) * 1.1)
     ax.set_xlabel("week")
     ax.set_ylabel("interval half-width, per unit")
-    _legend(ax, narrow, ncol=1)
+    legend(ax, narrow, ncol=1)
     fig.tight_layout()
-    return _svg(fig, chart_id, f"Interval half-width by week for a {pct(share)} holdout over {weeks} weeks")
+    return svg(fig, chart_id, f"Interval half-width by week for a {pct(share)} holdout over {weeks} weeks")
 
 
-def _table(t: Table) -> str:
+def table(t: Table) -> str:
     head = "".join(f'<th scope="col">{esc(c)}</th>' for c in t.header)
     body = "".join("<tr>" + "".join(f"<td>{esc(v)}</td>" for v in r) + "</tr>" for r in t.rows)
     return (f'<div class="tablewrap"><table><caption>{esc(t.title)}</caption><thead><tr>{head}</tr></thead>'
@@ -135,14 +135,14 @@ def render_html(p: Plan) -> str:
     rec = p.recommendation
     _, fg, bg = STATUS_STYLE[rec.status]
     tabs = tables(p)
-    with matplotlib.rc_context(_RC):  # type: ignore[arg-type]
-        mde_chart = _both(chart_mde, p, "mde")  # wide for screens and print, redrawn narrow for phones
-        cost_chart = _both(chart_cost, p, "cost") if p.summaries else ""
+    with matplotlib.rc_context(RC):  # type: ignore[arg-type]
+        mde_chart = both(chart_mde, p, "mde")  # wide for screens and print, redrawn narrow for phones
+        cost_chart = both(chart_cost, p, "cost") if p.summaries else ""
         if rec.share is not None and rec.weeks is not None:
             weekly_share, weekly_weeks = rec.share, rec.weeks
         else:
             weekly_share, weekly_weeks = max(p.shares), max(p.weeks)
-        weekly_chart = _both(chart_weekly, p, weekly_share, weekly_weeks, "weekly")
+        weekly_chart = both(chart_weekly, p, weekly_share, weekly_weeks, "weekly")
     lines = headline(p)
     figures = "".join(f"<div><dt>{esc(e.name)}</dt><dd>{esc(num(e.value))}</dd></div>" for e in p.estimates)
     est = ""
@@ -155,15 +155,15 @@ def render_html(p: Plan) -> str:
                  '<p class="summary">The smallest difference in revenue per unit between the arms that the test '
                  "detects with the planned power, as a share of revenue per unit"
                  + (" (solid: with CUPED; dotted: without)" if p.cuped else "") + ".</p>"
-                 f"<figure>{mde_chart}</figure>{_table(tabs[0])}"),
+                 f"<figure>{mde_chart}</figure>{table(tabs[0])}"),
     ]
     if p.summaries:
         sections.append(_section("cost", "What each choice costs",
                                  '<p class="summary">A smaller holdout forgoes a little less revenue but needs many more '
                                  "weeks; a larger one is faster and forgoes more.</p>"
-                                 f"<figure>{cost_chart}</figure>{_table(tabs[1])}"))
+                                 f"<figure>{cost_chart}</figure>{table(tabs[1])}"))
     if p.inputs.weekly_spend is not None:
-        sections.append(_section("iroas", "Return on spend it can resolve", _table(tabs[-1])))
+        sections.append(_section("iroas", "Return on spend it can resolve", table(tabs[-1])))
     sections.append(_section("weekly", "What reading every week costs",
                              f'<p class="summary">{esc(weekly_reading_line(p))} The chart is for a '
                              f"{esc(pct(weekly_share))} holdout over {weekly_weeks} weeks.</p>"
@@ -183,7 +183,7 @@ def render_html(p: Plan) -> str:
 <body><main>
 <div class="top"><h1>Holdout plan</h1>{"".join(f"<p>{esc(line)}</p>" for line in lines)}</div>
 <div class="verdict rec" data-status="{esc(rec.status)}" style="color:{fg};background:{bg}" role="status">
-<svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{_ICON[rec.status]}</svg>
+<svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{ICON[rec.status]}</svg>
 <div><span class="word">{esc(_WORDS[rec.status])}</span><p class="lead">{esc(rec.sentence)}</p></div></div>
 {est}{"".join(sections)}
 <footer>Written by armlock {esc(__version__)} at {esc(stamp)} · schema armlock.plan/1. A plan is only as good as its

@@ -15,9 +15,9 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from .power import N01 as _N
+from armlock.shared.power import N01 as _N
 
-from armlock.readout.confseq import anytime_factor
+from armlock.shared.confseq import anytime_factor
 
 from .model import PlanInputs
 

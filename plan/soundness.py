@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .power import N01
+from armlock.shared.power import N01
 
 SIMS = 2000  # simulated tests per design: the rejection rate's Monte Carlo SE is 0.5 points at 5%, 0.9 at 80%
 EXACT_BUYERS = 300

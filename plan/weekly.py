@@ -1,7 +1,7 @@
 """What reading every week costs, from the readout's own anytime boundary (readout.confseq), by simulation.
 
 The readout reads a test at weekly looks k = 1..K with the interval est +/- se_k * anytime_factor(t_k,
-t_opt) (`armlock.readout.confseq`, the one function both use), tuned to the planned size (t_opt = the units
+t_opt) (`armlock.shared.confseq`, the one function both use), tuned to the planned size (t_opt = the units
 at the planned end). In units of the standard error at the end, the estimate at look k is B(t_k) + delta t_k
 with B a standard Brownian motion and t_k = k / K (equal weekly cohorts); the interval excludes zero upward
 when B(t_k) + delta t_k > f_k sqrt(t_k). So a path first crosses at the smallest drift
@@ -18,9 +18,9 @@ from functools import lru_cache
 
 import numpy as np
 
-from armlock.readout.confseq import anytime_factor
+from armlock.shared.confseq import anytime_factor
 
-from .power import N01
+from armlock.shared.power import N01
 
 PATHS = 8000  # simulated paths per number of looks: the quantile's Monte Carlo error is about 0.5%
 MAX_LOOKS = 104  # beyond two years of weekly looks the boundary is used with 104 looks (fewer looks: less power,

@@ -6,9 +6,9 @@ import math
 from datetime import UTC, date, datetime
 
 from armlock.assign import Spec, __version__
-from armlock.audit.model import Check, Figure, NotChecked, verdict_of
-from armlock.audit.srm import holm
-from armlock.plan.power import mde
+from armlock.shared.report import Check, Figure, NotChecked, verdict_of
+from armlock.audit import holm
+from armlock.shared.power import mde
 
 from .model import (
     Adjustment,
@@ -27,7 +27,7 @@ from .model import (
 from .decision import ANSWER_WORDS, decide
 from .money import money
 from .stats import Estimate, anytime, cuped, mean_estimate, ratio_diff, ratio_estimate, relative_lift, wald, welch
-from .tables import COV_PREFIX, Moments, ReadoutTables
+from armlock.shared.readout_tables import COV_PREFIX, Moments, ReadoutTables
 
 ASSUMPTIONS = [
     "The ad changes sales only through exposure: being in the exposed arm without seeing an ad does nothing.",

@@ -13,14 +13,14 @@ from datetime import date
 from typing import TYPE_CHECKING
 
 from armlock.assign import InputError, Spec
-from armlock.audit.engine import Inputs, ReadoutResult, local_path
+from armlock.shared.engine import Inputs, ReadoutResult, local_path
 
 from . import engine_pandas
 from .load import attach_covariates
 
 if TYPE_CHECKING:
-    from armlock.audit.engine_duckdb import DuckDBEngine
-    from armlock.audit.read import Frames
+    from armlock.shared.engine_duckdb import DuckDBEngine
+    from armlock.shared.read import Frames
 
 
 def readout(engine: DuckDBEngine, spec: Spec, inputs: Inputs, as_of: date | None,

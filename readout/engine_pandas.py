@@ -17,18 +17,18 @@ import numpy as np
 import pandas as pd
 
 from armlock.assign import InputError, Spec
-from armlock.audit import engine_pandas as audit_engine
-from armlock.audit.engine import EngineResult, Inputs, ReadoutResult, file_bytes, load_frames, local_path
-from armlock.audit.engine_pandas import NS_DAY
-from armlock.audit.keys import arrow_ids, positions
-from armlock.audit.exactsum import exact_sum, grouped_exact_sums, rounded_sum
-from armlock.audit.load import cutoff_of
-from armlock.audit.read import CUSTOMER, TIME, UNIT, Frames
-from armlock.audit.tables import AuditTables
+from armlock.shared import engine_pandas as audit_engine
+from armlock.shared.engine import EngineResult, Inputs, ReadoutResult, file_bytes, load_frames, local_path
+from armlock.shared.engine_pandas import NS_DAY
+from armlock.shared.keys import arrow_ids, positions
+from armlock.shared.exactsum import exact_sum, grouped_exact_sums, rounded_sum
+from armlock.shared.load import cutoff_of
+from armlock.shared.read import CUSTOMER, TIME, UNIT, Frames
+from armlock.shared.tables import AuditTables
 
 from .load import ATTR, KEY, REV, attach_covariates, load_orders
 from .rules import fill_value, final_names, linear_quantile, look_dates, look_names, means_of, moments_of, pairs
-from .tables import Moments, ReadoutTables
+from armlock.shared.readout_tables import Moments, ReadoutTables
 
 
 def readout(spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[int], None]) -> ReadoutResult:

@@ -19,14 +19,14 @@ from pyspark.sql import Column, DataFrame, SparkSession
 from pyspark.sql import functions as F
 
 from armlock.assign import InputError, Spec
-from armlock.audit.engine import Inputs, file_bytes
-from armlock.audit.engine_spark import exact_sums, hashed_index
-from armlock.audit.engine_spark_load import SparkFrames
-from armlock.audit.engine_spark_read import POS, as_of_cut
+from armlock.shared.engine import Inputs, file_bytes
+from armlock.shared.engine_spark import exact_sums, hashed_index
+from armlock.shared.engine_spark_load import SparkFrames
+from armlock.shared.engine_spark_read import POS, as_of_cut
 
 from .engine_spark_load import extra_covariates, load_orders
 from .rules import fill_value, final_names, linear_quantile, look_dates, look_names, means_of, moments_of, pairs
-from .tables import Moments, ReadoutTables
+from armlock.shared.readout_tables import Moments, ReadoutTables
 
 US_DAY = 86_400 * 10**6
 

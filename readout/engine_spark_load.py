@@ -12,8 +12,8 @@ from pyspark.sql import Column, DataFrame, SparkSession
 from pyspark.sql import functions as F
 
 from armlock.assign import InputError, Spec
-from armlock.audit.engine_spark import exact_sums
-from armlock.audit.engine_spark_read import (
+from armlock.shared.engine_spark import exact_sums
+from armlock.shared.engine_spark_read import (
     POS,
     SparkSource,
     as_of_cut,

@@ -127,7 +127,7 @@ def concurrent_readout(spec: Spec, sibling: Spec, units: tuple[Any, Any, Any] | 
 
     Shared units are those first seen while the other test ran (as the audit's independence check).
     """
-    from armlock.audit.overlap import shared_mask
+    from armlock.audit import shared_mask
 
     name = sibling.name
     if units is None:

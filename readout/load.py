@@ -14,9 +14,9 @@ import pandas as pd
 import pyarrow as pa
 
 from armlock.assign import InputError, Spec
-from armlock.audit.exactsum import rounded_sum
-from armlock.audit.load import cutoff_of
-from armlock.audit.read import (
+from armlock.shared.exactsum import rounded_sum
+from armlock.shared.load import cutoff_of
+from armlock.shared.read import (
     Source,
     TIME,
     UNIT,
@@ -51,7 +51,7 @@ def load_orders(spec: Spec, path: PathLike, as_of: date, notes: list[str], count
     co = spec.readout.orders
     key = co.unit_id or co.customer
     which = "unit_id" if co.unit_id else "customer"
-    # the audit's one reader (audit/read.py): BOM noted, duplicate and nested columns refused, damaged files
+    # the audit's one reader (shared/read.py): BOM noted, duplicate and nested columns refused, damaged files
     mapped = read_mapped(path, "orders", "[readout.orders]", {which: key, "time": co.time, "revenue": co.revenue},
                          notes, optional={"order_id": co.order_id, "attributed": co.attributed})
     src, table = mapped.src, mapped.table

@@ -17,7 +17,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from armlock.audit.model import Figure, NotChecked
+from armlock.shared.report import Figure, NotChecked
 
 SCHEMA = "armlock.readout/1"
 Status = Literal["pass", "warn", "fail", "skipped"]

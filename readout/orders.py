@@ -23,10 +23,10 @@ from datetime import date
 from scipy import stats
 
 from armlock.assign import Spec
-from armlock.audit.feeds import feed_health, feed_sentence
-from armlock.audit.model import Check, Figure, Status, Table, worst
+from armlock.audit import feed_health, feed_sentence
+from armlock.shared.report import Check, Figure, Status, Table, worst
 
-from .tables import ReadoutTables
+from armlock.shared.readout_tables import ReadoutTables
 
 UNMATCHED_WARN = 0.2
 UNMATCHED_FAIL = 0.5

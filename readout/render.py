@@ -8,14 +8,14 @@ import textwrap
 from collections.abc import Callable
 from typing import Any
 
-from armlock.audit.model import Table
-from armlock.audit.render import json_text, md_table, md_text, strip_controls, text_table
-from armlock.audit.words import STATUS_WORD
+from armlock.shared.report import Table
+from armlock.shared.text import json_text, md_table, md_text, strip_controls, text_table
+from armlock.shared.words import STATUS_WORD
 
 from .decision import ANSWER_WORDS
 from .model import Interval, ReadoutReport
 
-MARK = STATUS_WORD  # one word per status in every output (audit/words.py)
+MARK = STATUS_WORD  # one word per status in every output (shared/words.py)
 WIDTH = 100  # the terminal report's sentences wrap here (tables keep their own width)
 
 

@@ -8,8 +8,10 @@ from __future__ import annotations
 
 import math
 
-from armlock.audit.report_html import esc
-from armlock.audit.words import STATUS_WORD
+from armlock.shared.html import (
+    esc,
+)
+from armlock.shared.words import STATUS_WORD
 
 from .model import Interval, ReadoutReport
 from .render import decision_word

@@ -14,11 +14,11 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt
 
-from armlock.audit.report_html import (
-    _ICON,
-    _RC,
-    _svg,
-    _table,
+from armlock.shared.html import (
+    ICON,
+    RC,
+    svg,
+    table,
     ARM_COLOURS,
     BAND,
     CSS,
@@ -26,10 +26,10 @@ from armlock.audit.report_html import (
     MUTED,
     NARROW,
     WIDE,
-    _both,
-    _dates,
-    _legend,
-    _date_axis,
+    both,
+    dates,
+    legend,
+    date_axis,
     badge,
     esc,
 )
@@ -81,7 +81,7 @@ def _f(v: float | None) -> float:
 def chart_looks(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     """Cumulative revenue-per-unit difference at each look with the fixed and anytime intervals."""
     pts = [lk for lk in r.looks if _finite(lk.difference, lk.lo, lk.hi, lk.anytime_lo, lk.anytime_hi)]
-    days = _dates([lk.date for lk in pts])
+    days = dates([lk.date for lk in pts])
     fig, ax = plt.subplots(figsize=(NARROW, 3.8) if narrow else (WIDE, 3.2))
     ax.fill_between(days, [_f(lk.anytime_lo) for lk in pts], [_f(lk.anytime_hi) for lk in pts], color=ANYTIME_BAND,
                     lw=0, label="anytime interval (valid at every look)")
@@ -95,14 +95,14 @@ def chart_looks(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     # two lines on both drawings: on one line the label is taller than the 3.2-inch plot and was cut off
     ax.set_ylabel(f"revenue per unit,\nexposed − holdout ({r.money.currency})")
     if narrow:
-        _legend(ax, narrow)
+        legend(ax, narrow)
     else:
         ax.legend(loc="lower left", bbox_to_anchor=(0, 1.01), fontsize=8, ncol=3)
-    _date_axis(ax)
+    date_axis(ax)
     if narrow:
         plt.setp(ax.get_xticklabels(), rotation=90)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Revenue per unit difference at each look with fixed and anytime intervals")
+    return svg(fig, chart_id, "Revenue per unit difference at each look with fixed and anytime intervals")
 
 
 def chart_arms(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
@@ -129,7 +129,7 @@ def chart_arms(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
         lo, hi = ax.get_xlim()
         ax.set_xlim(lo - 0.15 * (hi - lo), hi + 0.15 * (hi - lo))
     fig.tight_layout()
-    return _svg(fig, chart_id, "Conversion and revenue per unit of each arm with 95% intervals")
+    return svg(fig, chart_id, "Conversion and revenue per unit of each arm with 95% intervals")
 
 
 def has_roas(r: ReadoutReport) -> bool:
@@ -161,9 +161,9 @@ def chart_roas(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     ax.set_ylim(-0.7, 1.7)
     ax.set_xlabel(f"{m.currency} of revenue per {m.currency} of spend")
     ax.grid(axis="y", visible=False)
-    _legend(ax, narrow, outside=True)
+    legend(ax, narrow, outside=True)
     fig.tight_layout()
-    return _svg(fig, chart_id, "Measured iROAS with its intervals against the ROAS attribution credited")
+    return svg(fig, chart_id, "Measured iROAS with its intervals against the ROAS attribution credited")
 
 
 def _money(v: float | None, cur: str, digits: int = 0) -> str:
@@ -228,25 +228,25 @@ def render_html(r: ReadoutReport) -> str:
     bad = [g for g in r.gate if g.status != "pass"]
     gate_list = "".join(f"<li>{badge(g.status)} <strong>{esc(g.title)}</strong>: {esc(g.summary.split('; ')[0])}</li>"
                         for g in bad)
-    with matplotlib.rc_context(_RC):  # type: ignore[arg-type]
-        # each chart wide for screens and print, and redrawn narrow for phones (the audit's `_both`)
-        looks = f"<figure>{_both(chart_looks, r, 'readout-looks')}</figure>" if len(r.looks) >= 2 else ""
-        arms = f"<figure>{_both(chart_arms, r, 'readout-arms')}</figure>"
-        roas = f"<figure>{_both(chart_roas, r, 'readout-roas')}</figure>" if has_roas(r) else ""
+    with matplotlib.rc_context(RC):  # type: ignore[arg-type]
+        # each chart wide for screens and print, and redrawn narrow for phones (the audit's `both`)
+        looks = f"<figure>{both(chart_looks, r, 'readout-looks')}</figure>" if len(r.looks) >= 2 else ""
+        arms = f"<figure>{both(chart_arms, r, 'readout-arms')}</figure>"
+        roas = f"<figure>{both(chart_roas, r, 'readout-roas')}</figure>" if has_roas(r) else ""
     all_tables = tables(r)
     arm_t, eff_t, money_t, *rest = all_tables
     cautions = "".join(f"<li>{esc(c)}</li>" for c in r.cautions)
     notes = "".join(f"<li>{esc(n)}</li>" for n in r.input_notes)
     assumptions = "".join(f"<li>{esc(a)}</li>" for a in (r.exposure[0].assumptions if r.exposure else []))
-    icon = _ICON["pass" if r.status == "pass" else r.status]
+    icon = ICON["pass" if r.status == "pass" else r.status]
     exposure_sec = ""
     if r.exposure:
         exposure_sec = (f'<section class="check" id="exposed" data-section="exposed"><header><h2>Effect on the exposed</h2></header>'
                         f'<p class="summary">Only part of the exposed arm ever saw an ad. Dividing the arm-against-arm effect by '
                         f'the difference in exposure rates gives the effect per exposed unit (Wald estimate, complier '
                         f'average causal effect). It rests on assumptions:</p><ul>{assumptions}</ul>'
-                        f'{"".join(_table(t) for t in rest if t.title.startswith("Effect on the exposed"))}</section>')
-    looks_t = "".join(_table(t) for t in rest if t.title.startswith("Revenue per unit difference"))
+                        f'{"".join(table(t) for t in rest if t.title.startswith("Effect on the exposed"))}</section>')
+    looks_t = "".join(table(t) for t in rest if t.title.startswith("Revenue per unit difference"))
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
@@ -262,13 +262,13 @@ def render_html(r: ReadoutReport) -> str:
 <div><span class="word">Audit gate: {esc(word)}</span>
 {f'<ul class="gate">{gate_list}</ul>' if gate_list else ''}</div></div>
 <section class="check" id="money" data-section="money"><header><h2>Did it pay?</h2></header>
-<p class="headline">{esc(r.headline)}</p><p class="summary">{esc(r.estimand)}</p><p class="summary">{esc(r.reading_advice)}</p>{_figures(r)}{roas}{_table(money_t)}</section>
+<p class="headline">{esc(r.headline)}</p><p class="summary">{esc(r.estimand)}</p><p class="summary">{esc(r.reading_advice)}</p>{_figures(r)}{roas}{table(money_t)}</section>
 <section class="check" id="over-time" data-section="over-time"><header><h2>The estimate over time</h2></header>
 <p class="summary">Each point is what a reader would have seen at the end of that day: the sand band is the fixed
 interval, the pale blue band the anytime interval. Only the anytime band may be read at every look.</p>{looks}{looks_t}</section>
-<section class="check" id="arms" data-section="arms"><header><h2>Per arm</h2></header>{arms}{_table(arm_t)}</section>
+<section class="check" id="arms" data-section="arms"><header><h2>Per arm</h2></header>{arms}{table(arm_t)}</section>
 <section class="check" id="effects" data-section="effects"><header><h2>Effects</h2></header>
-<p class="summary">{esc(_adjust_line(r) or "")}</p>{_table(eff_t)}</section>
+<p class="summary">{esc(_adjust_line(r) or "")}</p>{table(eff_t)}</section>
 {exposure_sec}
 {f'<div class="notes"><strong>Cautions:</strong><ul>{cautions}</ul></div>' if cautions else ''}
 {f'<div class="notes"><strong>About the input:</strong><ul>{notes}</ul></div>' if notes else ''}

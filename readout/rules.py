@@ -16,9 +16,9 @@ from fractions import Fraction
 import numpy as np
 
 from armlock.assign import Spec
-from armlock.audit.exactsum import rounded_mean, to_float
+from armlock.shared.exactsum import rounded_mean, to_float
 
-from .tables import COV_PREFIX, VARIABLES, Moments
+from armlock.shared.readout_tables import COV_PREFIX, VARIABLES, Moments
 
 Pick = Callable[[int], float]
 

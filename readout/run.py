@@ -13,16 +13,15 @@ from datetime import date, timedelta
 from pathlib import Path
 
 from armlock.assign import InputError, Spec
-from armlock.audit.engine import Engine, Inputs, ReadoutResult, canonical, select_engine
-from armlock.audit.model import AuditReport
-from armlock.audit.load import check_as_of
-from armlock.audit.run import checks_from_tables, report_from_checks
+from armlock.shared.engine import Engine, Inputs, ReadoutResult, canonical, select_engine
+from armlock.shared.load import check_as_of
+from armlock.audit import AuditReport, checks_from_tables, report_from_checks
 
 from .analyze import analyze
 from .load import load_spend_days
 from .money import window_spend
 from .orders import check_orders, check_spend
-from .tables import COV_PREFIX, ReadoutTables
+from armlock.shared.readout_tables import COV_PREFIX, ReadoutTables
 from .model import ReadoutReport
 
 PathLike = str | Path

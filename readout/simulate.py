@@ -14,9 +14,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats as sps
 
-from .confseq import anytime_factor
+from armlock.shared.confseq import anytime_factor
 from .stats import cuped, relative_lift, welch
-from .tables import Moments
+from armlock.shared.readout_tables import Moments
 
 VALUE = (3.7, 0.8)  # buyers' revenue: lognormal, mean exp(3.7 + 0.32) ~ 55.7
 

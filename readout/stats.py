@@ -13,8 +13,8 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy import stats as sps
 
-from .confseq import anytime_factor
-from .tables import Moments
+from armlock.shared.confseq import anytime_factor
+from armlock.shared.readout_tables import Moments
 
 
 @dataclass

@@ -8,8 +8,8 @@ from scipy import stats
 
 from armlock.assign import spec_from_dict
 from armlock.audit.balance import check_balance
-from armlock.audit.engine_pandas import numeric_moments
-from armlock.audit.tables import NUMERIC_COLUMNS, BalanceTables
+from armlock.shared.engine_pandas import numeric_moments
+from armlock.shared.tables import NUMERIC_COLUMNS, BalanceTables
 
 DEVICES = np.array([0.58, 0.36, 0.06])
 CHANNELS = np.array([0.34, 0.22, 0.16, 0.10, 0.10, 0.08])

@@ -12,7 +12,7 @@ from scipy import stats
 
 from armlock.assign import spec_from_dict
 from armlock.audit.srm import check_srm_segments, exact_srm_p, holm, sequential_p
-from armlock.audit.tables import SplitTables
+from armlock.shared.tables import SplitTables
 
 WEEKS, DAYS = 26, 182
 LEVEL_ANYTIME, LEVEL_FIXED = 0.001, 0.0005  # the spec's default srm_anytime_p and srm_p

@@ -22,7 +22,7 @@ import numpy as np
 import calib_balance as cb
 import calib_srm as cs
 from armlock.audit.balance import sample_variance, smd_continuous
-from armlock.audit.engine_pandas import numeric_moments
+from armlock.shared.engine_pandas import numeric_moments
 from armlock.audit.srm import detectable_shortfall
 
 SIZES = (1_000, 5_000, 20_000, 100_000, 1_000_000)

@@ -25,7 +25,7 @@ from scipy import stats
 from armlock.plan.compute import make_plan
 from armlock.plan.model import PlanInputs
 from armlock.plan.soundness import Shape, shape_of
-from armlock.readout.confseq import anytime_factor
+from armlock.shared.confseq import anytime_factor
 
 # name, weekly units, mean, SD, lift per reached unit, reach, max weeks, prefer
 SCENARIOS = [

@@ -9,8 +9,8 @@ import pandas as pd
 
 from armlock.assign import spec_from_dict
 from armlock.audit.balance import check_balance
-from armlock.audit.engine_pandas import numeric_moments
-from armlock.audit.tables import NUMERIC_COLUMNS, BalanceTables
+from armlock.shared.engine_pandas import numeric_moments
+from armlock.shared.tables import NUMERIC_COLUMNS, BalanceTables
 
 
 def _spec(holdout_bp: int, cats: bool = True):  # noqa: ANN202

@@ -25,8 +25,8 @@ from armlock.audit.balance import (
     two_by_two_p,
     variance_ratio,
 )
-from armlock.audit.engine_pandas import numeric_moments
-from armlock.audit.tables import NUMERIC_COLUMNS, BalanceTables, merge_moments
+from armlock.shared.engine_pandas import numeric_moments
+from armlock.shared.tables import NUMERIC_COLUMNS, BalanceTables, merge_moments
 
 
 def test_smd_continuous_hand_computation() -> None:

@@ -19,8 +19,8 @@ from tests.cli.cli_run import run_cli
 from tests.report.fixtures import weekly
 
 from armlock.assign import InputError
-from armlock.audit import history
-from armlock.audit.history_pg import shown
+from armlock.shared import history
+from armlock.shared.history_pg import shown
 
 from .pg_server import free_port, postgres_server
 
@@ -90,7 +90,7 @@ import sys, time
 sys.path.insert(0, {root!r})
 from datetime import date, timedelta
 from tests.report.fixtures import build_report
-from armlock.audit import history
+from armlock.shared import history
 url, who, n = sys.argv[1], sys.argv[2], int(sys.argv[3])
 for i in range(n):
     day = (date(2026, 1, 1) + timedelta(days=i)).isoformat()

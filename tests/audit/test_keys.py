@@ -13,8 +13,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from armlock.assign import InputError
-from armlock.audit import keys
-from armlock.audit.read import Source, read_times
+from armlock.shared import keys
+from armlock.shared.read import Source, read_times
 
 
 @settings(max_examples=200, deadline=None)

@@ -15,11 +15,11 @@ from hypothesis import strategies as st
 from armlock.assign import spec_from_dict
 from armlock.audit.balance import check_balance
 from armlock.audit.churn import check_churn
-from armlock.audit.engine_pandas import numeric_moments
+from armlock.shared.engine_pandas import numeric_moments
 from armlock.audit.leakage import check_leakage
 from armlock.audit.model import SEVERITY
 from armlock.audit.srm import check_srm
-from armlock.audit.tables import NUMERIC_COLUMNS, BalanceTables, ChurnTables, LeakageTables, SplitTables
+from armlock.shared.tables import NUMERIC_COLUMNS, BalanceTables, ChurnTables, LeakageTables, SplitTables
 
 SPEC = spec_from_dict({"name": "mono", "salt": "invented-mono-2026", "start": "2026-01-05T00:00:00Z",
                        "arms": [{"name": "holdout", "weight": 2000}, {"name": "exposed", "weight": 8000}],

@@ -78,7 +78,7 @@ def test_decimal_numbers_are_the_nearest_double() -> None:
 
     import numpy as np
 
-    from armlock.audit.read import decimal_floats
+    from armlock.shared.read import decimal_floats
 
     rng = random.Random(7)
     for p, s in ((12, 2), (18, 6), (9, 4), (18, 0), (30, 10)):
@@ -122,7 +122,7 @@ def test_times_outside_the_engine_range_name_the_row(tmp_path: Path) -> None:
 
 
 def test_a_missing_column_two_settings_name_is_said_once(tmp_path: Path) -> None:
-    from armlock.audit.read import Source, _need
+    from armlock.shared.read import Source, _need
 
     src = Source(tmp_path / "v.csv", "visits")
     wanted = {"unit_id": "unit_id", "[audit] segments[0]": "device", "[audit] categorical_covariates[0]": "device"}

@@ -9,13 +9,13 @@ from pathlib import Path
 import pytest
 
 from armlock.assign import spec_from_dict
-from armlock.audit.history import row_from_report
+from armlock.shared.history import row_from_report
 from armlock.audit.model import AuditReport
 from armlock.audit.render import check_by_id, render
 from armlock.audit.report_html import render_html
 from armlock.audit.run import run_audit
 from armlock.audit.synth import generate, write_logs
-from armlock.audit.words import STATUS_WORD, format_figure, shown_figures
+from armlock.shared.words import STATUS_WORD, format_figure, shown_figures
 from armlock.cmd_history import trend_table
 
 SPEC = spec_from_dict({"name": "words-test", "salt": "invented-words-2026", "start": "2026-01-05T00:00:00Z",

@@ -18,7 +18,7 @@ from armlock.audit.srm import (
     log_bayes_factor,
     sequential_p,
 )
-from armlock.audit.tables import SplitTables
+from armlock.shared.tables import SplitTables
 
 
 @pytest.mark.parametrize("counts,theta", [

@@ -71,7 +71,7 @@ print(json.dumps({"maxrss_kb": _peak_kb(),
 _CHILD_SPARK = _PEAK + """
 import json, sys
 from armlock.assign import spec_from_dict
-from armlock.audit.engine_spark import SparkEngine
+from armlock.shared.engine_spark import SparkEngine
 from armlock.audit.run import run_audit
 spec = spec_from_dict(json.loads(sys.argv[1]))
 d = sys.argv[2]

@@ -17,7 +17,7 @@ import pytest
 
 from armlock.cmd_demo import SPEC_FILE, build_demo, weekly_as_of
 from armlock.assign import load_spec
-from armlock.audit.history import load, record
+from armlock.shared.history import load, record
 from armlock.audit.model import AuditReport
 from armlock.audit.report_html import render_html
 from armlock.audit.run import run_audit

@@ -20,7 +20,7 @@ from tests.report.fixtures import build_report
 
 from armlock.assign import load_spec, spec_from_dict
 from armlock.audit.alerts import MAX_CHARS, alert_message, alert_reasons
-from armlock.audit.history import row_from_report
+from armlock.shared.history import row_from_report
 from armlock.audit.model import Check
 from armlock.audit.synth import generate, write_logs
 from armlock.alert_post import post

@@ -95,7 +95,7 @@ def test_a_full_disk_under_the_history_says_so(tmp_path: Path) -> None:
     # once: "cannot rollback - no transaction is active", hiding the reason
     import sqlite3
 
-    from armlock.audit.history import _db_error
+    from armlock.shared.history import _db_error
 
     err = _db_error(sqlite3.OperationalError("database or disk is full"), tmp_path / "h.sqlite")
     assert "the disk is full (or failing): this run was not recorded and the history is unchanged" in str(err)

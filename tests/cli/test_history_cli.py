@@ -11,7 +11,7 @@ import pytest
 from tests.cli.cli_run import run_cli
 
 from armlock.assign import load_spec
-from armlock.audit.history import record
+from armlock.shared.history import record
 from tests.report.fixtures import weekly
 
 

@@ -22,9 +22,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from armlock.assign import InputError, Spec
-from armlock.audit import engine_duckdb_read
-from armlock.audit.engine import Inputs, PandasEngine, canonical, select_engine
-from armlock.audit.engine_duckdb import DuckDBEngine
+from armlock.shared import engine_duckdb_read
+from armlock.shared.engine import Inputs, PandasEngine, canonical, select_engine
+from armlock.shared.engine_duckdb import DuckDBEngine
 from armlock.audit.synth import FAULTS, generate, write_logs
 
 from .test_spark_engine import (
@@ -266,8 +266,8 @@ def test_contract_arms_from_arrow_buffers_match_the_frozen_vectors() -> None:
     """The DuckDB engine hashes ids straight from Arrow buffers; its arms equal the frozen vectors
     (shared/vectors/assignment_vectors.json: XXH64 per the xxHash spec, seed 42, every layout) and
     the pandas engine's `hash_arms` on a sliced, non-ASCII column."""
-    from armlock.audit.engine_duckdb import contract_arms
-    from armlock.audit.engine_pandas import hash_arms
+    from armlock.shared.engine_duckdb import contract_arms
+    from armlock.shared.engine_pandas import hash_arms
 
     from ..conftest import layout_spec, load_vectors
 

@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from armlock.audit.exactsum import exact_parts, exact_total, rounded_mean, rounded_sum
+from armlock.shared.exactsum import exact_parts, exact_total, rounded_mean, rounded_sum
 
 
 @pytest.mark.parametrize("seed", range(6))

@@ -50,7 +50,7 @@ def test_local_session_gets_one_shuffle_partition_per_core(spark: Any, tmp_path:
     import sys
 
     code = """
-from armlock.audit.engine_spark import SparkEngine
+from armlock.shared.engine_spark import SparkEngine
 for conf in ({}, {"spark.sql.shuffle.partitions": "7"}):
     s = SparkEngine(master="local[2]", conf={"spark.ui.enabled": "false", **conf}).spark()
     print(s.conf.get("spark.sql.shuffle.partitions"))

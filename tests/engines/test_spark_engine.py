@@ -21,7 +21,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from armlock.assign import InputError, Spec, arm_for, spec_from_dict
-from armlock.audit.engine import Inputs, PandasEngine, canonical
+from armlock.shared.engine import Inputs, PandasEngine, canonical
 from armlock.audit.run import build_report
 from armlock.audit.synth import FAULTS, generate, write_logs
 
@@ -54,7 +54,7 @@ def _logs(spec: Spec, fault: str, seed: int, directory: Path, fmt: str) -> dict[
 
 
 def _spark_engine(spark: Any) -> Any:
-    from armlock.audit.engine_spark import SparkEngine
+    from armlock.shared.engine_spark import SparkEngine
 
     return SparkEngine(session=spark)
 

@@ -22,7 +22,7 @@ from typer.testing import CliRunner
 
 from armlock.assign import InputError, Spec, spec_from_dict
 from armlock.audit import synth
-from armlock.audit.engine import Inputs, PandasEngine, canonical
+from armlock.shared.engine import Inputs, PandasEngine, canonical
 from armlock.readout.run import reports_from_result
 
 from .test_spark_engine import LAYOUTS, assert_tables_equal
@@ -73,7 +73,7 @@ def _files(spec: Spec, directory: Path, fmt: str, seed: int, by_customer: bool =
 
 
 def _spark_engine(spark: Any) -> Any:
-    from armlock.audit.engine_spark import SparkEngine
+    from armlock.shared.engine_spark import SparkEngine
 
     return SparkEngine(session=spark)
 

@@ -13,7 +13,7 @@ import pytest
 
 from armlock.plan.compute import make_plan
 from armlock.plan.model import PlanInputs
-from armlock.plan.power import extra_variance, units_needed_two_variances, z_sum
+from armlock.shared.power import extra_variance, units_needed_two_variances, z_sum
 from armlock.plan.simulate import simulate
 
 WEEKS = 4
@@ -71,7 +71,7 @@ def _welch_and_weekly(p_buy: float, mu: float, sigma: float, weekly: int, share:
     the readout's anytime interval (readout.confseq) at every weekly look."""
     from scipy import stats
 
-    from armlock.readout.confseq import anytime_factor
+    from armlock.shared.confseq import anytime_factor
 
     rng = np.random.default_rng(seed)
     n_h = round(share * weekly)

@@ -9,7 +9,7 @@ import pytest
 from armlock.assign import InputError
 from armlock.plan.compute import make_plan
 from armlock.plan.model import PlanInputs
-from armlock.plan.power import units_needed, z_sum
+from armlock.shared.power import units_needed, z_sum
 
 BASE = dict(weekly_units=50_000, revenue_mean=4.0, revenue_sd=30.0)
 EQ = dict(BASE, equal_variance=True)  # the textbook formula, for identities that hold exactly there
@@ -111,7 +111,7 @@ def test_whole_weeks_at_least_two() -> None:
 
 def test_weekly_reading_is_the_readouts_boundary_simulated() -> None:
     from armlock.plan import weekly
-    from armlock.readout.confseq import anytime_factor
+    from armlock.shared.confseq import anytime_factor
 
     p = make_plan(PlanInputs(**EQ, effect=0.4), shares=[0.2], weeks=[6], simulate=False)
     f = anytime_factor(123.0, t_opt=123.0, alpha=0.05)  # scale-free at t = t_opt
@@ -134,7 +134,7 @@ def test_weekly_boundary_keeps_its_level_and_one_look_is_the_normal_test() -> No
     from statistics import NormalDist
 
     from armlock.plan import weekly
-    from armlock.readout.confseq import anytime_factor
+    from armlock.shared.confseq import anytime_factor
 
     for looks in (4, 12, 26):
         assert weekly.power_weekly(0.0, looks, 0.05) <= 0.025
@@ -215,7 +215,7 @@ def test_exposed_arm_variance_grows_with_the_effect() -> None:
 
 def test_extra_variance_is_the_variance_of_a_zero_inflated_basket() -> None:
     # exact moments of revenue = one basket (mean v, SD s) with probability p, before and after p rises
-    from armlock.plan.power import extra_variance
+    from armlock.shared.power import extra_variance
 
     p, v, s, dp = 0.03, 60.0, 45.0, 0.004
     var = lambda q: q * (s ** 2 + v ** 2) - (q * v) ** 2  # noqa: E731
@@ -238,9 +238,9 @@ def test_docstring_examples() -> None:
     import doctest
 
     import armlock.plan.compute
-    import armlock.plan.power
+    import armlock.shared.power
 
-    for mod in (armlock.plan.compute, armlock.plan.power):
+    for mod in (armlock.plan.compute, armlock.shared.power):
         result = doctest.testmod(mod)
         assert result.attempted > 0 and result.failed == 0, mod.__name__
 

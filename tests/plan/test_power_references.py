@@ -11,7 +11,7 @@ from statsmodels.stats.proportion import proportion_effectsize
 
 from armlock.plan.compute import make_plan
 from armlock.plan.model import PlanInputs
-from armlock.plan.power import conversion_mde, mde, power_at, se_difference, units_needed, z_sum
+from armlock.shared.power import conversion_mde, mde, power_at, se_difference, units_needed, z_sum
 
 
 def power_prop_test_n(p1: float, p2: float, alpha: float = 0.05, power: float = 0.8) -> float:
@@ -117,7 +117,7 @@ def test_worked_example_ninety_ten_small_arm() -> None:
 def test_two_variance_machinery_reproduces_r_power_prop_test() -> None:
     # R power.prop.test (Fleiss, REFERENCES §5): critical value on the pooled variance, spread on each arm's own.
     # The planner's general functions give R's n and power when fed those variances.
-    from armlock.plan.power import power_two_variances, units_needed_two_variances
+    from armlock.shared.power import power_two_variances, units_needed_two_variances
 
     p1, p2 = 0.02, 0.022
     pbar = (p1 + p2) / 2
@@ -131,7 +131,7 @@ def test_two_variance_machinery_reproduces_r_power_prop_test() -> None:
     # plus the far rejection tail (1.3e-6 here), which R leaves out with strict = FALSE
     assert power_two_variances(0.25, se0, se1, z_crit=za) == pytest.approx(0.7401659, abs=2e-6)
     # with a 0/1 "revenue" (basket 1, no spread) the planner's exposed-arm variance is exactly p2(1 - p2)
-    from armlock.plan.power import extra_variance
+    from armlock.shared.power import extra_variance
 
     assert p1 * (1 - p1) + extra_variance(p2 - p1, p1, math.sqrt(p1 * (1 - p1))) == pytest.approx(p2 * (1 - p2))
 

@@ -7,7 +7,7 @@ import math
 import pytest
 from scipy.optimize import minimize_scalar
 
-from armlock.readout.confseq import anytime_factor, anytime_halfwidth, mixture_rho2
+from armlock.shared.confseq import anytime_factor, anytime_halfwidth, mixture_rho2
 from armlock.readout.simulate import sequential_misses
 
 

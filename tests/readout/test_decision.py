@@ -141,7 +141,7 @@ def test_p_against_breakeven_equals_welch_on_shifted_data() -> None:
     # Reference: scipy.stats.ttest_ind(equal_var=False) (Welch 1947) of the exposed arm's values
     # shifted by the break-even difference against the holdout's: the same null, tested by scipy.
     from armlock.readout.stats import welch
-    from armlock.readout.tables import Moments
+    from armlock.shared.readout_tables import Moments
 
     rng = np.random.default_rng(7)
     a, b = rng.gamma(2.0, 3.0, 400), rng.gamma(2.0, 2.8, 300)

@@ -190,9 +190,9 @@ def test_covariate_missing_from_the_audit_is_read_and_blanks_get_the_pooled_mean
 def test_exposure_flag_without_the_audit_engine_row_flag_matches(tmp_path: Path) -> None:
     # An engine that keeps no per-row exposure flag (Spark) leaves it None: the readout joins the
     # exposure log itself and must find the same exposed units.
-    from armlock.audit import engine_pandas as audit_engine
-    from armlock.audit.load import load_exposures, load_visits
-    from armlock.audit.read import Frames
+    from armlock.shared import engine_pandas as audit_engine
+    from armlock.shared.load import load_exposures, load_visits
+    from armlock.shared.read import Frames
     from armlock.readout import engine_pandas
 
     spec = small_spec(covariates=[])

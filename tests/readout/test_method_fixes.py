@@ -16,7 +16,7 @@ from armlock.readout.model import Effect, Interval
 from armlock.readout.run import run_readout
 from armlock.readout.simulate import relative_coverage
 from armlock.readout.stats import cuped, ratio_lift, relative_lift, welch
-from armlock.readout.tables import Moments
+from armlock.shared.readout_tables import Moments
 
 DAYS = 28
 
@@ -165,7 +165,7 @@ def test_refunds_are_netted_whatever_their_id_and_date(tmp_path: Path) -> None:
     # an exact repeat); u002 buys 50 (order B) and gets a 10 refund under its own id "R1". Net:
     # u000 100 - 30 - 20 = 50; u002 40. Formerly A's refunds were dropped as repeats of A.
     from armlock.readout.engine_pandas import readout as pandas_readout
-    from armlock.audit.engine import Inputs
+    from armlock.shared.engine import Inputs
 
     from .helpers import small_spec, visits_frame, write
 

@@ -14,7 +14,7 @@ from armlock.readout.money import money
 from armlock.readout.render import RENDERERS
 from armlock.readout.run import run_readout
 from armlock.readout.stats import welch
-from armlock.readout.tables import Moments
+from armlock.shared.readout_tables import Moments
 
 DAYS = 56
 

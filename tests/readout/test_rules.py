@@ -12,10 +12,10 @@ import math
 import numpy as np
 import pytest
 
-from armlock.audit.exactsum import grouped_exact_sums
+from armlock.shared.exactsum import grouped_exact_sums
 from armlock.readout.engine_pandas import grouped_moments
 from armlock.readout.rules import fill_value, linear_quantile
-from armlock.readout.tables import Moments
+from armlock.shared.readout_tables import Moments
 
 
 @pytest.mark.parametrize("seed", range(6))

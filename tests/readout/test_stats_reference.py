@@ -21,7 +21,7 @@ from armlock.readout.stats import (
     wald,
     welch,
 )
-from armlock.readout.tables import Moments
+from armlock.shared.readout_tables import Moments
 
 
 def _arms(rng: np.random.Generator, n: int, cols: int = 1, shift: float = 0.0) -> tuple[Moments, Moments, np.ndarray, np.ndarray]:

@@ -12,8 +12,8 @@ from pathlib import Path
 import pytest
 
 from armlock.assign.errors import InputError
-from armlock.audit import history
-from armlock.audit.history import changes, default_history_path, load, record
+from armlock.shared import history
+from armlock.shared.history import changes, default_history_path, load, record
 
 from .fixtures import build_report
 
@@ -64,7 +64,7 @@ def test_specs_are_kept_apart_by_fingerprint(tmp_path: Path) -> None:
 _WORKER = textwrap.dedent("""
     import json, sys
     from datetime import date, timedelta
-    from armlock.audit.history import record
+    from armlock.shared.history import record
     from armlock.audit.model import AuditReport
     base = json.loads(open(sys.argv[1], encoding="utf-8").read())
     proc = int(sys.argv[3])
@@ -205,7 +205,7 @@ def test_record_into_a_missing_folder_is_a_clear_error(tmp_path: Path) -> None:
 
 
 def test_figures_are_formatted_for_people() -> None:
-    from armlock.audit.history import format_value
+    from armlock.shared.history import format_value
 
     assert format_value(0.014, "share") == "1.40%"
     assert format_value(0.002, "share") == "0.20%"

@@ -11,7 +11,7 @@ import pytest
 from tests.cli.cli_run import run_cli
 
 from armlock.assign import load_spec
-from armlock.audit.history import record, record_readout
+from armlock.shared.history import record, record_readout
 
 from .browser import open_page
 from .fixtures import HOSTILE, weekly

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import pytest
 
-from armlock.audit.history import row_from_report
+from armlock.shared.history import row_from_report
 from armlock.audit.report_html import render_html
 
 from .browser import open_page

@@ -10,7 +10,7 @@ import pandas as pd
 from armlock.assign import load_spec
 from armlock.assign.init import render_spec_toml
 from armlock.audit import synth
-from armlock.audit.history import load, record
+from armlock.shared.history import load, record
 from armlock.audit.report_html import render_html
 from armlock.audit.run import run_audit
 

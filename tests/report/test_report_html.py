@@ -9,7 +9,7 @@ from xml.etree import ElementTree
 import pytest
 from scipy import stats
 
-from armlock.audit.history import row_from_report
+from armlock.shared.history import row_from_report
 from armlock.audit.report_html import render_html, share_band
 
 from .fixtures import HOSTILE, build_report, weekly

@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from .model import Figure
+from .report import Figure
 
 # One word per state, in every human output and in the exit-code documentation.
 STATUS_WORD: dict[str, str] = {"pass": "PASS", "warn": "WARN", "fail": "FAIL", "skipped": "NOT RUN"}

@@ -107,7 +107,7 @@ class LeakageTables:
     # Per visits row (the engine's row order): exposed during the test. The readout's exposure
     # flag; an engine that keeps no row order (Spark) leaves it None and the readout joins instead.
     exposed_rows: Any = field(default=None, repr=False)
-    # Row-level counts (rules in audit/load.py): rows in the file, and exact duplicates counted once.
+    # Row-level counts (rules in shared/load.py): rows in the file, and exact duplicates counted once.
     rows_read: int = 0  # exposure rows in the file, before any row was set aside
     duplicate_rows: int = 0  # rows identical to an earlier one in id, time, campaign and kind
     # Why exposed ids may not match the visits (each over the DISTINCT unseen ids):

@@ -36,7 +36,7 @@ import pyarrow as pa
 from armlock.assign import InputError, Spec
 
 from . import engine_pandas
-from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path
+from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path, readout_builder
 from .engine_duckdb_native import Native, floor_div, prepared
 from .engine_duckdb_read import STREAM_SCHEMA, ExposureReader, ExposureScan, Unsorted
 from .engine_pandas import NS_DAY, VisitArms, _recorded_codes, _unseen_diagnostics
@@ -135,9 +135,7 @@ class DuckDBEngine:
 
     def readout(self, spec: Spec, inputs: Inputs, as_of: date | None,
                 advance: Callable[[int], None]) -> ReadoutResult:
-        from armlock.readout import engine_duckdb as readout_engine
-
-        return readout_engine.readout(self, spec, inputs, as_of, advance)
+        return readout_builder(self.name)(self, spec, inputs, as_of, advance)
 
     def load_and_count(self, spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[int], None],
                        before_count: Callable[[Frames], None] | None = None) -> tuple[Frames, date, AuditTables]:

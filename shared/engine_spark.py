@@ -24,7 +24,7 @@ from pyspark.sql import functions as F
 from armlock.assign import InputError, Spec
 from armlock.assign.sql import spark_arm_expr, spark_string_literal
 
-from .engine import EngineResult, Inputs, ReadoutResult, file_bytes
+from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, readout_builder
 from .engine_pandas import HASH_LIKE, PREFIX_MAX, _cuts
 from .engine_spark_batch import Builder, Rows, together
 from .engine_spark_load import US_DAY, SparkFrames, day_of, load_exposures, load_identities, load_visits
@@ -84,8 +84,7 @@ class SparkEngine:
     def readout(self, spec: Spec, inputs: Inputs, as_of: date | None,
                 advance: Callable[[int], None]) -> ReadoutResult:
         """The audit's tables and, from the same loaded frames, the readout's (`readout.engine_spark`)."""
-        from armlock.readout.engine_spark import readout_tables
-
+        readout_tables = readout_builder(self.name)
         if inputs.orders is None:
             raise InputError("a readout needs the orders log (--orders)")
         audit, extra = self._run(spec, inputs, as_of, advance, readout_tables)

@@ -12,11 +12,11 @@ import math
 import sqlite3
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 from armlock.assign.errors import InputError
 
-from .model import AuditReport
+from .report import Check
 from .words import format_value, status_word
 
 __all__ = ["changes", "default_history_path", "format_value", "load", "load_readouts", "not_passing", "record",
@@ -43,6 +43,21 @@ _UPSERT = (
 )
 
 
+class RecordedReport(Protocol):
+    """What the history keeps of a report (the audit's `AuditReport` is one): who, when, verdict, checks."""
+
+    @property
+    def fingerprint(self) -> str: ...
+    @property
+    def as_of(self) -> str: ...
+    @property
+    def experiment(self) -> str: ...
+    @property
+    def verdict(self) -> str: ...
+    @property
+    def checks(self) -> list[Check]: ...
+
+
 def target(value: str | Path) -> str | Path:
     """A --history value: a PostgreSQL URL (postgresql://...) stays text, anything else is a file path."""
     from .history_pg import is_url
@@ -56,7 +71,7 @@ def default_history_path(spec_path: str | Path) -> Path:
     return p.with_name(p.name + SUFFIX)
 
 
-def row_from_report(report: AuditReport) -> dict[str, Any]:
+def row_from_report(report: RecordedReport) -> dict[str, Any]:
     """The history row of one report (the shape `load` returns, without `recorded_at`)."""
     figures = {
         f"{c.id}.{key}": {"label": f.label, "value": f.value, "unit": f.unit}
@@ -204,7 +219,7 @@ def _now() -> str:
     return datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
 
 
-def record(path: str | Path, report: AuditReport) -> None:
+def record(path: str | Path, report: RecordedReport) -> None:
     """Keep one run's verdict, check statuses and figures; replaces the row of the same as-of date."""
     row = row_from_report(report)
     _upsert(target(path), _DDL, _UPSERT, (report.fingerprint, row["as_of"], row["experiment"], row["verdict"],
@@ -317,11 +332,11 @@ def _shifted(old: Any, new: Any, unit: str) -> bool:
     return abs(new - old) >= 0.2 * abs(old) if old else new != old
 
 
-def _as_row(run: AuditReport | dict[str, Any]) -> dict[str, Any]:
-    return row_from_report(run) if isinstance(run, AuditReport) else run
+def _as_row(run: RecordedReport | dict[str, Any]) -> dict[str, Any]:
+    return run if isinstance(run, dict) else row_from_report(run)
 
 
-def changes(previous: dict[str, Any], current: AuditReport | dict[str, Any], thresholds: Any = None) -> list[str]:
+def changes(previous: dict[str, Any], current: RecordedReport | dict[str, Any], thresholds: Any = None) -> list[str]:
     """What matters since the previous run, as sentences, most important first.
 
     1. the verdict, if it changed; 2. each check whose status changed; 3. each headline figure

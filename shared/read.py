@@ -109,7 +109,7 @@ def _first_line(src: Source) -> tuple[bytes, bool]:
     return (first[len(BOM):] if bom else first), bom
 
 
-def _header(src: Source, delimiter: str = ",", notes: list[str] | None = None) -> list[str]:
+def header(src: Source, delimiter: str = ",", notes: list[str] | None = None) -> list[str]:
     """The file's column names (CSV header line or Parquet schema); a leading BOM is removed and noted."""
     path = src.path
     if not path.is_file():
@@ -237,7 +237,7 @@ def read_mapped(path: PathLike, role: str, spec_table: str, columns: dict[str, s
     - damaged files (gzip bodies, Parquet pages) are input errors naming the file.
     """
     src = Source(Path(path), role)
-    present = _header(src, delimiter, notes)
+    present = header(src, delimiter, notes)
     _need(src, present, columns, spec_table, delimiter)
     found = {k: c for k, c in (optional or {}).items() if c and c in present}
     wanted = {**columns, **found}

@@ -39,7 +39,7 @@ from .read import (
     T_MIN_US,
     ParsedTimes,
     Source,
-    _header,
+    header,
     _need,
     _no_duplicates,
     _scalar_only,
@@ -153,7 +153,7 @@ class ExposureReader:
         ce = spec.audit.exposures
         self.ce, self.as_of = ce, as_of
         self.src = Source(Path(path), "exposures")
-        present = _header(self.src, ce.delimiter, notes)
+        present = header(self.src, ce.delimiter, notes)
         wanted = {"unit_id": ce.unit_id, "time": ce.time, "campaign": ce.campaign, "kind": ce.kind}
         _need(self.src, present, wanted, "[audit.exposures]", ce.delimiter)
         _no_duplicates(self.src, present, wanted, "[audit.exposures]")

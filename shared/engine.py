@@ -20,7 +20,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from datetime import date
 from pathlib import Path
-from typing import TYPE_CHECKING, Protocol
+from typing import TYPE_CHECKING, Any, Protocol
 
 import pandas as pd
 
@@ -31,7 +31,7 @@ from .tables import AuditTables, BalanceTables, ChurnTables, IntegrityTables, Le
 if TYPE_CHECKING:
     from concurrent.futures import Future
 
-    from armlock.readout.tables import ReadoutTables
+    from armlock.shared.readout_tables import ReadoutTables
 
     from .engine_pandas import VisitArms
     from .read import Frames
@@ -137,9 +137,26 @@ class PandasEngine:
 
     def readout(self, spec: Spec, inputs: Inputs, as_of: date | None,
                 advance: Callable[[int], None]) -> ReadoutResult:
-        from armlock.readout import engine_pandas as readout_engine
+        return readout_builder(self.name)(spec, inputs, as_of, advance)
 
-        return readout_engine.readout(spec, inputs, as_of, advance)
+
+# The readout's table builders, one per engine, registered by `armlock.readout` when it is imported
+# (readout/__init__.py), so that no engine imports the readout: data flows one way. Each engine calls
+# its own builder with its own arguments (see `Engine.readout` of each).
+_READOUT_BUILDERS: dict[str, Callable[..., Any]] = {}
+
+
+def register_readout(engine: str, builder: Callable[..., Any]) -> None:
+    """Register the readout's table builder for the engine called `engine`."""
+    _READOUT_BUILDERS[engine] = builder
+
+
+def readout_builder(engine: str) -> Callable[..., Any]:
+    """The readout's table builder registered for `engine` (importing `armlock.readout` registers them)."""
+    try:
+        return _READOUT_BUILDERS[engine]
+    except KeyError:
+        raise LookupError(f"no readout is registered for the {engine} engine; import armlock.readout first") from None
 
 
 def file_bytes(*paths: Source | None) -> int:
