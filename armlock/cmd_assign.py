@@ -11,7 +11,7 @@ from armlock.assign import InputError, Spec, buckets_and_arms
 from armlock.assign.sql import DIALECTS, spark_arm_expr, spark_bucket_expr
 
 from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, progress
-from .io_ids import ArmWriter, read_ids
+from armlock.shared.ids import ArmWriter, read_ids
 
 
 def assign_cmd(

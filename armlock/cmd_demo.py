@@ -17,7 +17,9 @@ from armlock.assign.snippet import render_snippet
 
 from armlock.shared.words import status_word
 
-from .common import err, progress, write_atomic
+from armlock.shared.files import write_atomic
+
+from .common import err, progress
 
 SHOP = "Quillmoss Homewares (invented)"
 SITE = "shop.example"

@@ -12,7 +12,9 @@ import typer
 
 from armlock.assign import InputError, SpecError
 
-from .common import emit, err, in_place
+from armlock.shared.files import in_place
+
+from .common import emit, err
 
 FORMATS = ("text", "markdown", "json", "html")
 

@@ -12,7 +12,9 @@ from armlock.assign.errors import EXIT_BAD_INPUT
 from armlock.assign.init import parse_arms, render_spec_toml
 from armlock.assign.spec import EXPERIMENT_PATTERN
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, warn_box, write_atomic
+from armlock.shared.files import write_atomic
+
+from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, warn_box
 
 
 def write_new_spec(name: str, *, holdout_share: float = 0.5, arms: str | None = None, out: Path | None = None,

@@ -15,11 +15,11 @@ from typing import Any
 
 from armlock.assign import ArmlockError, __version__, load_spec
 from armlock.assign.portfolio import folder_specs
+from armlock.shared.words import answer_phrase
 
 SCHEMA = "armlock.overview/1"
 REPORT_SUFFIXES = (".html", ".json", ".md")
 HEAD_BYTES = 16_384  # a report names its spec's fingerprint near its top (title, header or first keys)
-DECISION_WORDS = {"pays": "pays", "does_not_pay": "does not pay", "not_yet_known": "not yet known"}
 
 
 def _day(value: datetime | None) -> str | None:
@@ -95,7 +95,7 @@ def entry_of(spec_path: Path, page_dir: Path, history: str | None = None) -> dic
         r = readouts[-1]
         decision = _figure(r, "decision")
         entry["readout"] = {"as_of": r["as_of"], "status": r["status"], "decision": decision,
-                            "decision_text": DECISION_WORDS.get(str(decision), decision) if decision else None,
+                            "decision_text": answer_phrase(decision) if decision else None,
                             "basis": _figure(r, "basis")}
     entry.update(_progress(spec, entry["as_of"]))
     folders = list(dict.fromkeys([spec_path.parent.resolve(), page_dir.resolve()]))

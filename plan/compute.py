@@ -9,6 +9,7 @@ import numpy as np
 
 from armlock.assign import InputError
 from armlock.shared.confseq import anytime_factor
+from armlock.shared.words import amount, percent_short, sig3
 
 from . import soundness, weekly
 from armlock.shared.power import N01 as _N
@@ -45,28 +46,6 @@ def _check_grid(shares: Sequence[float], weeks: Sequence[int], max_weeks: int) -
     if not isinstance(max_weeks, int) or not 1 <= max_weeks <= MAX_WEEKS:
         raise InputError(f"--max-weeks: must be a whole number of weeks from 1 to {MAX_WEEKS} (10 years), "
                          f"got {max_weeks}")
-
-
-def pct(share: float) -> str:
-    """0.05 -> '5%', 0.125 -> '12.5%'."""
-    return f"{share * 100:.4g}%"
-
-
-def money(x: float) -> str:
-    """An amount with thousands separators, to a sensible precision."""
-    a = abs(x)
-    if a >= 100:
-        return f"{x:,.0f}"
-    if a >= 1:
-        return f"{x:,.2f}"
-    return f"{x:.3g}"
-
-
-def num(x: float) -> str:
-    """Three significant digits, trailing zeros kept (0.660, 1.32, 13.7), thousands with separators."""
-    if abs(x) >= 1000:
-        return f"{x:,.0f}"
-    return f"{x:#.3g}".rstrip(".")
 
 
 def _whole_weeks(w: float) -> int:
@@ -325,16 +304,16 @@ def _target_words(p: Plan, h: float) -> str:
     x = p.inputs
     s = p.summary(h)
     per_reached = s.target_difference / x.exposure_rate
-    words = f"+{cash(p, per_reached)} per reached unit (a lift of {pct(per_reached / x.revenue_mean)})"
+    words = f"+{cash(p, per_reached)} per reached unit (a lift of {percent_short(per_reached / x.revenue_mean)})"
     if x.weekly_spend is not None:
-        words = words[:-1] + f", iROAS {num(s.target_difference * (1 - h) * x.weekly_units / x.weekly_spend)})"
+        words = words[:-1] + f", iROAS {sig3(s.target_difference * (1 - h) * x.weekly_units / x.weekly_spend)})"
     return words
 
 
-def cash(p: Plan, amount: float) -> str:
+def cash(p: Plan, value: float) -> str:
     """An amount with thousands separators and the currency code when one was given."""
     c = p.inputs.currency
-    return money(amount) + (f" {c}" if c else "")
+    return amount(value) + (f" {c}" if c else "")
 
 
 def _weeks(s: ShareSummary) -> int:
@@ -368,7 +347,7 @@ def _sound_words(p: Plan, s: ShareSummary) -> str:
     said = (f"that power is the readout's test simulated (Welch's t on {on}, {soundness.SIMS:,} tests), with "
             f"{s.false_win_rate * 100:.1f}% false wins at alpha {x.alpha * 100:g}%")
     if s.weeks_normal is not None and s.weeks is not None and s.weeks > s.weeks_normal:
-        units = money(s.share * x.weekly_units * s.weeks_normal)
+        units = amount(s.share * x.weekly_units * s.weeks_normal)
         fw = s.false_win_rate_normal
         if fw is not None and fw > x.alpha + LEVEL_SLACK:
             said += (f"; the normal arithmetic's {weeks_words(s.weeks_normal)} would not do: with {units} holdout "
@@ -390,13 +369,13 @@ def _decision_words(p: Plan, h: float, w: int) -> str:
     if pays is None:  # set whenever spend and margin are given, as checked above
         return ""
     not_pays = be - (pays - be)
-    words = (f"Against break-even (iROAS {num(be)} = 1 / margin {pct(x.margin or 1)}): it shows the channel pays "
-             f"when its iROAS is {num(pays)} or more")
+    words = (f"Against break-even (iROAS {sig3(be)} = 1 / margin {percent_short(x.margin or 1)}): it shows the channel pays "
+             f"when its iROAS is {sig3(pays)} or more")
     if not_pays > 0:
-        words += f", shows it does not pay at {num(not_pays)} or less, and between those most likely ends undecided"
+        words += f", shows it does not pay at {sig3(not_pays)} or less, and between those most likely ends undecided"
     else:
         words += (f", and cannot show that it does not pay (that would need an iROAS below zero); between "
-                  f"0 and {num(pays)} it most likely ends undecided")
+                  f"0 and {sig3(pays)} it most likely ends undecided")
     return words + " (iROAS = incremental revenue / the whole spend, as the readout divides)."
 
 
@@ -428,15 +407,15 @@ def recommend(p: Plan) -> Recommendation:
         assert x.weekly_spend is not None and p.break_even_iroas is not None
         iroas = t.target_difference * (1 - t.share) * x.weekly_units / x.weekly_spend
         return Recommendation("fail", None, None,
-                              f"The target's iROAS ({num(iroas)} at a {pct(t.share)} holdout) is not above break-even "
-                              f"({num(p.break_even_iroas)} = 1 / margin): there is no paying channel to tell from "
+                              f"The target's iROAS ({sig3(iroas)} at a {percent_short(t.share)} holdout) is not above break-even "
+                              f"({sig3(p.break_even_iroas)} = 1 / margin): there is no paying channel to tell from "
                               "break-even; aim at a higher target, or plan with --against zero.")
     sound = [s for s in p.summaries if s.weeks is not None]
     in_time = [s for s in sound if _weeks(s) <= p.max_weeks]
     if in_time:
         s = _choose(p, in_time)
         assert s.weeks is not None and s.revenue_forgone is not None
-        parts = [f"Hold out {pct(s.share)} of new units for {weeks_words(s.weeks)}"
+        parts = [f"Hold out {percent_short(s.share)} of new units for {weeks_words(s.weeks)}"
                  + (f" (between {s.weeks_range[0]} and {s.weeks_range[1]} weeks given the pre-period's sampling "
                     "error)" if s.weeks_range and s.weeks_range[0] != s.weeks_range[1] else "")
                  + f": that tells {_target_words(p, s.share)}{question} {how(s)}, and forgoes about "
@@ -449,11 +428,11 @@ def recommend(p: Plan) -> Recommendation:
                          key=_forgone)
         alt = []
         for t in faster[:2]:
-            alt.append(f"{pct(t.share)} for {weeks_words(_weeks(t))} ends {weeks_words(s.weeks - _weeks(t))} sooner and "
+            alt.append(f"{percent_short(t.share)} for {weeks_words(_weeks(t))} ends {weeks_words(s.weeks - _weeks(t))} sooner and "
                        f"forgoes {cash(p, _forgone(t) - s.revenue_forgone)} more")
         if cheaper:
             t = cheaper[0]
-            alt.append(f"{pct(t.share)} for {weeks_words(_weeks(t))} forgoes {cash(p, s.revenue_forgone - _forgone(t))} "
+            alt.append(f"{percent_short(t.share)} for {weeks_words(_weeks(t))} forgoes {cash(p, s.revenue_forgone - _forgone(t))} "
                        f"less and takes {weeks_words(_weeks(t) - s.weeks)} longer")
         if alt:
             parts.append("Alternatives: " + "; ".join(alt) + ".")
@@ -467,7 +446,7 @@ def recommend(p: Plan) -> Recommendation:
         rng = (f" (between {f.weeks_range[0]} and {f.weeks_range[1]} weeks given the pre-period's sampling error)"
                if f.weeks_range and f.weeks_range[0] != f.weeks_range[1] else "")
         parts = [f"No holdout share tells {_target_words(p, f.share)}{question} within the {p.max_weeks} weeks "
-                 f"allowed; the fastest is {pct(f.share)} for {weeks_words(f.weeks)}{rng}, {how(f)}, forgoing about "
+                 f"allowed; the fastest is {percent_short(f.share)} for {weeks_words(f.weeks)}{rng}, {how(f)}, forgoing about "
                  f"{cash(p, f.revenue_forgone)} of revenue; or aim at a larger effect, reach more of the exposed "
                  "arm, or add a pre-period covariate."]
         sim = _sound_words(p, f)
@@ -478,9 +457,9 @@ def recommend(p: Plan) -> Recommendation:
     best = p.cell(best_share, max(p.weeks))
     target = p.summary(best_share).target_difference
     return Recommendation("fail", None, None,
-                          f"No holdout share up to {pct(best_share)} tells {_target_words(p, best_share)}{question} "
+                          f"No holdout share up to {percent_short(best_share)} tells {_target_words(p, best_share)}{question} "
                           f"within {MAX_WEEKS // 52} years in a sound design: at {weeks_words(max(p.weeks))} "
-                          f"the {pct(best_share)} holdout can only tell apart {cash(p, best.mde_per_exposed)} per "
+                          f"the {percent_short(best_share)} holdout can only tell apart {cash(p, best.mde_per_exposed)} per "
                           f"reached unit, {best.mde_cuped / target:.1f} times the target; as planned the test would "
                           "most likely end inconclusive, so aim at a larger effect, reach more of the exposed arm, or "
                           "add a pre-period covariate.")
@@ -499,14 +478,14 @@ def _assumptions(p: Plan) -> list[str]:
         + "; the normal arithmetic gives each share's weeks, two-sided at alpha.",
         f"The readout reads revenue per unit with Welch's t-test{' on the CUPED-adjusted values' if p.cuped else ''};"
         f" every recommended design is that test simulated ({soundness.SIMS:,} seeded tests) on "
-        + (f"the pre-period's own revenue per unit, resampled ({pct(sp[0])} of units with revenue)" if p.resampled else
-           f"zero-inflated lognormal revenue with the inputs' mean and SD ({pct(sp[0])} of units buy; order values "
+        + (f"the pre-period's own revenue per unit, resampled ({percent_short(sp[0])} of units with revenue)" if p.resampled else
+           f"zero-inflated lognormal revenue with the inputs' mean and SD ({percent_short(sp[0])} of units buy; order values "
            f"lognormal, sigma {sp[2]:.2f}"
            f"{'' if x.conversion is not None else ', the share at which order values have a CV of 1'})")
         + f", and kept only where false wins stay within alpha + {LEVEL_SLACK * 100:g} point and power within "
         f"{POWER_SLACK * 100:g} point of the plan.",
         f"Only reached units respond: the arm-level difference is the effect per reached unit times the "
-        f"exposure rate ({pct(x.exposure_rate)} of the exposed arm reached).",
+        f"exposure rate ({percent_short(x.exposure_rate)} of the exposed arm reached).",
     ]
     if p.cuped:
         out.append(f"CUPED with the readout's pre-period covariate(s), correlated {x.rho:.3g} with revenue, multiplies "
@@ -532,6 +511,6 @@ def _notes(p: Plan) -> list[str]:
                    "the iROAS table shows whether the test can tell a paying channel from break-even.")
     unsound = [s for s in p.summaries if s.weeks_normal is not None and (s.weeks is None or s.weeks > s.weeks_normal)]
     if unsound:
-        out.append("For " + ", ".join(pct(s.share) for s in unsound) + " the normal arithmetic's weeks were too few "
+        out.append("For " + ", ".join(percent_short(s.share) for s in unsound) + " the normal arithmetic's weeks were too few "
                    "for the readout's test on this skewed revenue (simulated), so more weeks are planned.")
     return out

@@ -9,14 +9,16 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from armlock.shared.text import md_text, strip_controls
+from armlock.shared.words import PLAN_WORD
 
-from .compute import MAX_WEEKS, cash, money, num, pct, weeks_words
+from armlock.shared.words import amount, percent_short, sig3
+
+from .compute import MAX_WEEKS, cash, weeks_words
 from .soundness import SIMS
 from .model import Cell, Plan
 
 WIDTH = 100  # terminal text is wrapped at this width (tables are as wide as their columns)
 # the plan's own status words (not the audit's): what the recommendation is
-STATUS_WORDS = {"pass": "RECOMMENDED", "warn": "TOO LONG", "fail": "OUT OF REACH", "skipped": "NO TARGET"}
 
 
 @dataclass
@@ -29,7 +31,7 @@ class Table:
 
 
 def _grid(p: Plan, title: str, fmt: Callable[[Cell], str]) -> Table:
-    header = ["weeks"] + [f"holdout {pct(h)}" if i == 0 else pct(h) for i, h in enumerate(p.shares)]
+    header = ["weeks"] + [f"holdout {percent_short(h)}" if i == 0 else percent_short(h) for i, h in enumerate(p.shares)]
     rows = [[str(w)] + [fmt(p.cell(h, w)) for h in p.shares] for w in p.weeks]
     return Table(title, header, rows)
 
@@ -42,18 +44,18 @@ def headline(p: Plan) -> list[str]:
     """The lines that say what was planned on."""
     x = p.inputs
     cur = f" {x.currency}" if x.currency else ""
-    lines = [f"{money(x.weekly_units)} new units a week; revenue per unit {money(x.revenue_mean)}{cur} "
-             f"(SD {money(x.revenue_sd)})"
-             + (f", conversion {_rate(x.conversion)}, order value {money(x.order_value or 0)}"
+    lines = [f"{amount(x.weekly_units)} new units a week; revenue per unit {amount(x.revenue_mean)}{cur} "
+             f"(SD {amount(x.revenue_sd)})"
+             + (f", conversion {_rate(x.conversion)}, order value {amount(x.order_value or 0)}"
                 if x.conversion is not None else "")
-             + f"; {pct(x.exposure_rate)} of the exposed arm reached by the vendor"]
+             + f"; {percent_short(x.exposure_rate)} of the exposed arm reached by the vendor"]
     if p.cuped:
         lines.append(f"CUPED: pre-period correlation {x.rho:.3g}, variance x {1 - x.rho ** 2:.3g}")
     if p.target_difference is not None and p.target_per_exposed is not None:
-        t = (f"target: +{cash(p, p.target_per_exposed)} per reached unit = +{money(p.target_difference)} per unit "
-             f"between the arms ({pct(p.target_difference / x.revenue_mean)} of revenue per unit)")
+        t = (f"target: +{cash(p, p.target_per_exposed)} per reached unit = +{amount(p.target_difference)} per unit "
+             f"between the arms ({percent_short(p.target_difference / x.revenue_mean)} of revenue per unit)")
         if p.target_iroas is not None:
-            t += f", iROAS {num(p.target_iroas)}"
+            t += f", iROAS {sig3(p.target_iroas)}"
         if x.against == "break-even":
             t += ", to be told from break-even"
         lines.append(t)
@@ -61,7 +63,7 @@ def headline(p: Plan) -> list[str]:
     if x.weekly_spend is not None:
         money_bits.append(f"weekly spend {cash(p, x.weekly_spend)} (the whole spend, as the readout divides)")
     if p.break_even_iroas is not None:
-        money_bits.append(f"gross margin {pct(x.margin or 0)} (break-even iROAS {num(p.break_even_iroas)})")
+        money_bits.append(f"gross margin {percent_short(x.margin or 0)} (break-even iROAS {sig3(p.break_even_iroas)})")
     if money_bits:
         lines.append("; ".join(money_bits))
     lines.append(f"{x.power * 100:.3g}% power, two-sided alpha {x.alpha * 100:g}%; --prefer {p.prefer}")
@@ -86,12 +88,12 @@ def choices(p: Plan) -> Table | None:
         mark = ("<- recommended" if p.recommendation.status == "pass" else "<- fastest") if chosen else ""
         if s.weeks is not None and s.weeks > p.max_weeks and not mark:
             mark = "too long"
-        row = [pct(s.share), weeks_words(s.weeks).replace(" weeks", "") if s.weeks is not None else weeks_words(math.inf),
+        row = [percent_short(s.share), weeks_words(s.weeks).replace(" weeks", "") if s.weeks is not None else weeks_words(math.inf),
                _weeks_cell(s.weeks_needed), _weeks_cell(s.weeks_needed_weekly_reading),
-               money(s.share * x.weekly_units * s.weeks) if s.weeks is not None else "",
-               money(s.revenue_forgone) if s.revenue_forgone is not None else ""]
+               amount(s.share * x.weekly_units * s.weeks) if s.weeks is not None else "",
+               amount(s.revenue_forgone) if s.revenue_forgone is not None else ""]
         if has_profit:
-            row.append(money(s.profit_forgone) if s.profit_forgone is not None else "")
+            row.append(amount(s.profit_forgone) if s.profit_forgone is not None else "")
         shown = s.weeks is not None  # a share with no sound design has no rates to show
         row += [f"{s.power_simulated * 100:.1f}%" if shown and s.power_simulated is not None else "",
                 f"{s.false_win_rate * 100:.1f}%" if shown and s.false_win_rate is not None else "", mark]
@@ -114,21 +116,21 @@ def tables(p: Plan, *, compact: bool = False) -> list[Table]:
     else:
         which = "with CUPED; without in brackets" if p.cuped else "no pre-period covariate"
     out = [_grid(p, f"Smallest detectable difference in revenue per unit between the arms ({which}; "
-                    f"% of revenue per unit {money(x.revenue_mean)})",
-                 (lambda c: f"{num(c.mde_cuped)} ({num(c.mde)}) {num(c.mde_relative_cuped * 100)}%")
+                    f"% of revenue per unit {amount(x.revenue_mean)})",
+                 (lambda c: f"{sig3(c.mde_cuped)} ({sig3(c.mde)}) {sig3(c.mde_relative_cuped * 100)}%")
                  if p.cuped and not compact
-                 else (lambda c: f"{num(c.mde_cuped)} {num(c.mde_relative_cuped * 100)}%"))]
+                 else (lambda c: f"{sig3(c.mde_cuped)} {sig3(c.mde_relative_cuped * 100)}%"))]
     ch = choices(p)
     if ch is not None:
         out.append(ch)
     if x.weekly_spend is not None:
         if p.break_even_iroas is not None:
             out.append(_grid(p, f"Smallest iROAS distinguishable from zero / from break-even "
-                                f"({num(p.break_even_iroas)}); iROAS = incremental revenue / the whole spend",
-                             lambda c: f"{num(c.iroas_vs_zero or 0)} / {num(c.iroas_vs_break_even or 0)}"))
+                                f"({sig3(p.break_even_iroas)}); iROAS = incremental revenue / the whole spend",
+                             lambda c: f"{sig3(c.iroas_vs_zero or 0)} / {sig3(c.iroas_vs_break_even or 0)}"))
         else:
             out.append(_grid(p, "Smallest iROAS distinguishable from zero (give --margin for break-even)",
-                             lambda c: num(c.iroas_vs_zero or 0)))
+                             lambda c: sig3(c.iroas_vs_zero or 0)))
     return out
 
 
@@ -138,7 +140,7 @@ def weekly_reading_line(p: Plan) -> str:
     s = p.summary(rec.share) if rec.share is not None else (p.summaries[0] if p.summaries else None)
     more = ""
     if s is not None and math.isfinite(s.weeks_needed_weekly_reading):
-        more = (f"; read every week at the readout's own boundary (simulated), a {pct(s.share)} holdout needs "
+        more = (f"; read every week at the readout's own boundary (simulated), a {percent_short(s.share)} holdout needs "
                 f"{s.weekly_factor:.2f} times the weeks for the same power ({_weeks_cell(s.weeks_needed_weekly_reading)}"
                 f" instead of {_weeks_cell(s.weeks_needed)})")
     return (f"Reading the result every week: the readout's anytime-valid interval is {ratio:.2f} times as wide as "
@@ -158,7 +160,7 @@ def _text_table(t: Table) -> str:
 def _estimate_value(name: str, v: float) -> str:
     if name == "conversion":
         return _rate(v)
-    return money(v) if abs(v) >= 1 else f"{v:.4g}"
+    return amount(v) if abs(v) >= 1 else f"{v:.4g}"
 
 
 def render_text(p: Plan, *, full: bool = False) -> str:
@@ -167,7 +169,7 @@ def render_text(p: Plan, *, full: bool = False) -> str:
     rec = p.recommendation
     wrap = lambda text, first="", rest="  ": textwrap.wrap(text, WIDTH, initial_indent=first, subsequent_indent=rest)  # noqa: E731
     parts = ["armlock plan: " + headline(p)[0], *("  " + line for line in headline(p)[1:]), "",
-             *wrap(f"{STATUS_WORDS[rec.status]}: {rec.sentence}"), ""]
+             *wrap(f"{PLAN_WORD[rec.status]}: {rec.sentence}"), ""]
     if p.estimates:
         parts += ["Estimated from the pre-period files:",
                   *(f"  {e.name}: {_estimate_value(e.name, e.value)} ({e.how})" for e in p.estimates), ""]
@@ -194,7 +196,7 @@ _md_cell = md_text  # every text of the markdown goes through the one escaper (H
 def render_markdown(p: Plan) -> str:
     rec = p.recommendation
     parts = ["# Holdout plan", "", *(f"- {md_text(line)}" for line in headline(p)), "",
-             f"**{STATUS_WORDS[rec.status].capitalize()}:** {md_text(rec.sentence)}", ""]
+             f"**{PLAN_WORD[rec.status].capitalize()}:** {md_text(rec.sentence)}", ""]
     if p.estimates:
         parts += ["## Estimated from the pre-period files", "",
                   *(f"- {md_text(e.name)}: {e.value:.6g} ({md_text(e.how)})" for e in p.estimates), ""]

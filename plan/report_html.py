@@ -12,15 +12,15 @@ from armlock.shared.html import (  # one visual language with the audit and read
     ICON, RC, ARM_COLOURS, BAND, CSS, INK, MUTED, NARROW, STATUS_STYLE, WIDE, both, legend, svg, esc,
 )
 from armlock.shared.confseq import anytime_halfwidth
+from armlock.shared.words import PLAN_WORD
 
-from .compute import money, num, pct
+from armlock.shared.words import amount, percent_short, sig3
 from .model import Plan
 from .render import Table, headline, tables, weekly_reading_line
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-_WORDS = {"pass": "Recommended", "warn": "Too long", "fail": "Out of reach", "skipped": "No target"}
 _EXTRA_CSS = """
 .rec .word { font-size: 1.25rem; font-weight: 700; display: block; }
 .lead { margin: .2rem 0 0; font-size: 1.05rem; }
@@ -39,7 +39,7 @@ def chart_mde(p: Plan, chart_id: str = "mde", narrow: bool = False) -> str:
     for i, h in enumerate(p.shares):
         cells = [p.cell(h, w) for w in p.weeks]
         ax.plot(p.weeks, [c.mde_relative_cuped * 100 for c in cells], color=_share_colour(i), lw=2,
-                marker=markers[i % len(markers)], ms=3.5, label=f"holdout {pct(h)}")
+                marker=markers[i % len(markers)], ms=3.5, label=f"holdout {percent_short(h)}")
         if p.cuped:
             ax.plot(p.weeks, [c.mde_relative * 100 for c in cells], color=_share_colour(i), lw=1, ls=":")
     if p.cuped:
@@ -71,7 +71,7 @@ def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
     for i, (share, weeks, forgone) in enumerate(sound):
         ax.scatter([weeks], [forgone], s=70, color=_share_colour(i), zorder=3,
                    marker="o" if share != p.recommendation.share else "*")
-        label = f"{pct(share)}: {weeks} wk" + ("" if narrow else f", {money(forgone)}")
+        label = f"{percent_short(share)}: {weeks} wk" + ("" if narrow else f", {amount(forgone)}")
         ax.annotate(label, (weeks, forgone), xytext=(6, 4), textcoords="offset points", fontsize=8,
                     color=INK)
     ax.axvline(p.max_weeks, color=MUTED, lw=1, ls="-.", label=f"longest allowed ({p.max_weeks} wk)")
@@ -84,7 +84,7 @@ def chart_cost(p: Plan, chart_id: str = "cost", narrow: bool = False) -> str:
     ax.set_xticks([t for t in (1, 2, 4, 8, 13, 26, 52, 104, 208, 520, 1040) if lo <= t <= hi] or [p.max_weeks])
     ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
     ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: money(v)))
+    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: amount(v)))
     ax.set_ylim(0, ax.get_ylim()[1] * 1.15)
     ax.set_xlabel("weeks needed for the target (log scale)")
     ax.set_ylabel("revenue forgone" if narrow else "revenue forgone by the holdout")
@@ -115,7 +115,7 @@ def chart_weekly(p: Plan, share: float, weeks: int, chart_id: str = "weekly", na
     ax.set_ylabel("interval half-width, per unit")
     legend(ax, narrow, ncol=1)
     fig.tight_layout()
-    return svg(fig, chart_id, f"Interval half-width by week for a {pct(share)} holdout over {weeks} weeks")
+    return svg(fig, chart_id, f"Interval half-width by week for a {percent_short(share)} holdout over {weeks} weeks")
 
 
 def table(t: Table) -> str:
@@ -144,7 +144,7 @@ def render_html(p: Plan) -> str:
             weekly_share, weekly_weeks = max(p.shares), max(p.weeks)
         weekly_chart = both(chart_weekly, p, weekly_share, weekly_weeks, "weekly")
     lines = headline(p)
-    figures = "".join(f"<div><dt>{esc(e.name)}</dt><dd>{esc(num(e.value))}</dd></div>" for e in p.estimates)
+    figures = "".join(f"<div><dt>{esc(e.name)}</dt><dd>{esc(sig3(e.value))}</dd></div>" for e in p.estimates)
     est = ""
     if p.estimates:
         how = "".join(f"<li>{esc(e.name)}: {esc(e.how)}</li>" for e in p.estimates)
@@ -166,7 +166,7 @@ def render_html(p: Plan) -> str:
         sections.append(_section("iroas", "Return on spend it can resolve", table(tabs[-1])))
     sections.append(_section("weekly", "What reading every week costs",
                              f'<p class="summary">{esc(weekly_reading_line(p))} The chart is for a '
-                             f"{esc(pct(weekly_share))} holdout over {weekly_weeks} weeks.</p>"
+                             f"{esc(percent_short(weekly_share))} holdout over {weekly_weeks} weeks.</p>"
                              f"<figure>{weekly_chart}</figure>"))
     assumptions = "".join(f"<li>{esc(a)}</li>" for a in p.assumptions)
     notes = "".join(f"<li>{esc(n)}</li>" for n in p.notes)
@@ -184,7 +184,7 @@ def render_html(p: Plan) -> str:
 <div class="top"><h1>Holdout plan</h1>{"".join(f"<p>{esc(line)}</p>" for line in lines)}</div>
 <div class="verdict rec" data-status="{esc(rec.status)}" style="color:{fg};background:{bg}" role="status">
 <svg class="icon" viewBox="0 0 16 16" aria-hidden="true" fill="{fg}">{ICON[rec.status]}</svg>
-<div><span class="word">{esc(_WORDS[rec.status])}</span><p class="lead">{esc(rec.sentence)}</p></div></div>
+<div><span class="word">{esc(PLAN_WORD[rec.status].capitalize())}</span><p class="lead">{esc(rec.sentence)}</p></div></div>
 {est}{"".join(sections)}
 <footer>Written by armlock {esc(__version__)} at {esc(stamp)} · schema armlock.plan/1. A plan is only as good as its
 inputs: check the traffic and revenue figures against the shop's own reports before committing a budget. The page holds

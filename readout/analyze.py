@@ -24,7 +24,9 @@ from .model import (
     NOT_COVERED,
     ReadoutReport,
 )
-from .decision import ANSWER_WORDS, decide
+from armlock.shared.words import ANSWER_WORD
+
+from .decision import decide
 from .money import money
 from .stats import Estimate, anytime, cuped, mean_estimate, ratio_diff, ratio_estimate, relative_lift, wald, welch
 from armlock.shared.readout_tables import COV_PREFIX, Moments, ReadoutTables
@@ -116,7 +118,7 @@ def headline(m: Money, d: Decision, status: str, failing: list[Check], level: in
                 f"whether the channel pays is withheld. " + said)
     if d.withheld:
         return f"NOT TRUSTWORTHY: {d.reason} " + said
-    return f"{ANSWER_WORDS[d.answer].capitalize()}: {d.reason} " + said
+    return f"{ANSWER_WORD[d.answer].capitalize()}: {d.reason} " + said
 
 
 def _pct(v: float | None) -> str:

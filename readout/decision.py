@@ -32,7 +32,6 @@ from .model import Decision, Interval
 # or in the exposed arms, heavy-tailed revenue makes the normal approximation of either interval too
 # optimistic (false "pays" at break-even 9-10% at 64 holdout buyers), so the answer waits.
 MIN_BUYERS = 50
-ANSWER_WORDS = {"pays": "PAYS", "does_not_pay": "DOES NOT PAY", "not_yet_known": "NOT YET KNOWN"}
 
 
 @dataclass(frozen=True)
@@ -157,4 +156,4 @@ def decide(spec: Spec, *, iroas: Interval | None, df: float | None, units: int, 
     return Decision(answer=answer, withheld=False, reason=said, action=action, **base)
 
 
-__all__ = ["ANSWER_WORDS", "MIN_BUYERS", "Stage", "breakeven", "decide", "p_against", "stage"]
+__all__ = ["MIN_BUYERS", "Stage", "breakeven", "decide", "p_against", "stage"]

@@ -16,7 +16,7 @@ from armlock.assign import InputError, Spec
 from armlock.shared.engine import Inputs, ReadoutResult, local_path
 
 from . import engine_pandas
-from .load import attach_covariates
+from armlock.shared.load_readout import attach_covariates
 
 if TYPE_CHECKING:
     from armlock.shared.engine_duckdb import DuckDBEngine

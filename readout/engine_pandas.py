@@ -26,7 +26,7 @@ from armlock.shared.load import cutoff_of
 from armlock.shared.read import CUSTOMER, TIME, UNIT, Frames
 from armlock.shared.tables import AuditTables
 
-from .load import ATTR, KEY, REV, attach_covariates, load_orders
+from armlock.shared.load_readout import ATTR, KEY, REV, attach_covariates, load_orders
 from .rules import fill_value, final_names, linear_quantile, look_dates, look_names, means_of, moments_of, pairs
 from armlock.shared.readout_tables import Moments, ReadoutTables
 

@@ -1,4 +1,4 @@
-"""The readout's Spark loading: `readout.load`'s rules (orders, extra visits covariates) as Spark columns.
+"""The readout's Spark loading: `shared.load_readout`'s rules (orders, extra visits covariates) as Spark columns.
 
 Same set-aside rows, counts, notes and errors (file or table, column, sample rows) as the pandas
 reader; every row stays in Spark, only counts and a few sample positions reach the driver.
@@ -27,7 +27,7 @@ from armlock.shared.engine_spark_read import (
     times_column,
 )
 
-from .load import REVENUE_MAX
+from armlock.shared.load_readout import REVENUE_MAX
 
 
 def _set_aside(src: SparkSource, rows: DataFrame, flag: Column, n: int, col: str, why: str,
@@ -40,7 +40,7 @@ def _set_aside(src: SparkSource, rows: DataFrame, flag: Column, n: int, col: str
 
 def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: list[str],
                 counts: dict[str, float]) -> DataFrame:
-    """Orders as _key, _t (us), _rev and, when mapped, _attr: `readout.load.load_orders`' rules."""
+    """Orders as _key, _t (us), _rev and, when mapped, _attr: `shared.load_readout.load_orders`' rules."""
     co = spec.readout.orders
     key = co.unit_id or co.customer
     which = "unit_id" if co.unit_id else "customer"
@@ -91,7 +91,7 @@ def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: l
                                                   "an order's revenue is an amount", notes, "an infinite")
     dup = F.lit(False)
     if "order_id" in optional:
-        # `readout.load._order_ids`: a sale repeats the first sale row of its id (over every row read);
+        # `shared.load_readout._order_ids`: a sale repeats the first sale row of its id (over every row read);
         # a refund repeats only an earlier refund of the same id, time and amount; a refund whose id
         # is a usable sale's is dated at that sale
         is_ref = F.coalesce(F.col("_rev") < 0, F.lit(False))
@@ -149,7 +149,7 @@ def load_orders(spark: SparkSession, spec: Spec, ref: str, as_of: date, notes: l
 
 def extra_covariates(spark: SparkSession, spec: Spec, ref: str, missing: list[str]) -> DataFrame:
     """_unit and _m<i> for the [readout] covariates the audit did not read, from each unit's earliest
-    visits row (ties by position in the input), as `readout.load.attach_covariates`."""
+    visits row (ties by position in the input), as `shared.load_readout.attach_covariates`."""
     cv = spec.audit.visits
     src, raw = open_source(spark, ref, "visits", cv.delimiter)
     wanted = {"unit_id": cv.unit_id, "first_seen": cv.first_seen}

@@ -3,33 +3,21 @@
 from __future__ import annotations
 
 import functools
-import math
 import textwrap
 from collections.abc import Callable
 from typing import Any
 
 from armlock.shared.report import Table
 from armlock.shared.text import json_text, md_table, md_text, strip_controls, text_table
-from armlock.shared.words import STATUS_WORD
+from armlock.shared.words import ANSWER_WORD, STATUS_WORD, fixed, format_p, percent_fixed
 
-from .decision import ANSWER_WORDS
 from .model import Interval, ReadoutReport
 
 MARK = STATUS_WORD  # one word per status in every output (shared/words.py)
 WIDTH = 100  # the terminal report's sentences wrap here (tables keep their own width)
 
 
-def num(v: float | None, digits: int = 2) -> str:
-    if v is None or not math.isfinite(v):
-        return "-"
-    return f"{v:,.{digits}f}"
-
-
-def pct(v: float | None, digits: int = 1) -> str:
-    return "-" if v is None or not math.isfinite(v) else f"{v * 100:.{digits}f}%"
-
-
-def span(iv: Interval | None, f: Callable[[float | None], str] = num, anytime: bool = False) -> str:
+def span(iv: Interval | None, f: Callable[[float | None], str] = fixed, anytime: bool = False) -> str:
     if iv is None:
         return "-"
     lo, hi = (iv.anytime_lo, iv.anytime_hi) if anytime else (iv.lo, iv.hi)
@@ -43,9 +31,9 @@ def _digits(metric: str) -> int:
 
 
 def arms_table(r: ReadoutReport) -> Table:
-    rows = [[a.name, a.role, a.units, a.buyers, pct(a.conversion.value, 2), a.orders, num(a.revenue),
-             num(a.revenue_per_unit.value, 3), num(a.revenue_per_unit.se, 3), num(a.aov.value),
-             pct(a.exposure_rate)] for a in r.arms]
+    rows = [[a.name, a.role, a.units, a.buyers, percent_fixed(a.conversion.value, 2), a.orders, fixed(a.revenue),
+             fixed(a.revenue_per_unit.value, 3), fixed(a.revenue_per_unit.se, 3), fixed(a.aov.value),
+             percent_fixed(a.exposure_rate)] for a in r.arms]
     return Table(title=f"Per arm (revenue in {r.money.currency}, net of refunds)",
                  columns=["arm", "role", "units", "buyers", "conversion", "orders", "revenue", "revenue/unit",
                           "SE", "AOV", "exposed"], rows=rows)
@@ -58,10 +46,10 @@ def effects_table(r: ReadoutReport) -> Table:
     for e in r.effects:
         d = _digits(e.metric)
         rows.append([f"{e.label}{' *' if e.primary else ''}", f"{e.arm} vs {e.versus}", e.method,
-                     num(e.absolute.value, d), span(e.absolute, functools.partial(num, digits=d)),
-                     span(e.absolute, functools.partial(num, digits=d), anytime=True),
-                     pct(e.relative.value) if e.relative else "-", e.absolute.p,
-                     *([e.p_holm] if holm else []), num(e.mde, d)])
+                     fixed(e.absolute.value, d), span(e.absolute, functools.partial(fixed, digits=d)),
+                     span(e.absolute, functools.partial(fixed, digits=d), anytime=True),
+                     percent_fixed(e.relative.value) if e.relative else "-", e.absolute.p,
+                     *([e.p_holm] if holm else []), fixed(e.mde, d)])
     return Table(title="Effects (exposed - holdout); * = primary estimate",
                  columns=["metric", "arms", "method", "difference", f"{level}% interval", "anytime interval",
                           "relative", "p", *(["p (Holm, across arms)"] if holm else []), "MDE"], rows=rows)
@@ -70,21 +58,21 @@ def effects_table(r: ReadoutReport) -> Table:
 def money_table(r: ReadoutReport) -> Table:
     m, cur = r.money, r.money.currency
     rows: list[list[Any]] = [
-        [f"incremental revenue ({cur})", num(m.incremental_revenue.value, 0), span(m.incremental_revenue, lambda v: num(v, 0)),
-         span(m.incremental_revenue, lambda v: num(v, 0), anytime=True)],
-        [f"incremental profit ({cur}, margin {m.margin:g})", num(m.incremental_profit.value, 0),
-         span(m.incremental_profit, lambda v: num(v, 0)), span(m.incremental_profit, lambda v: num(v, 0), anytime=True)],
-        ["incremental buyers", num(m.incremental_buyers.value, 0), span(m.incremental_buyers, lambda v: num(v, 0)), "-"],
-        [f"spend ({cur})", num(m.spend, 0), "-", "-"],
-        ["iROAS (incremental revenue / spend)", num(m.iroas.value if m.iroas else None), span(m.iroas),
+        [f"incremental revenue ({cur})", fixed(m.incremental_revenue.value, 0), span(m.incremental_revenue, lambda v: fixed(v, 0)),
+         span(m.incremental_revenue, lambda v: fixed(v, 0), anytime=True)],
+        [f"incremental profit ({cur}, margin {m.margin:g})", fixed(m.incremental_profit.value, 0),
+         span(m.incremental_profit, lambda v: fixed(v, 0)), span(m.incremental_profit, lambda v: fixed(v, 0), anytime=True)],
+        ["incremental buyers", fixed(m.incremental_buyers.value, 0), span(m.incremental_buyers, lambda v: fixed(v, 0)), "-"],
+        [f"spend ({cur})", fixed(m.spend, 0), "-", "-"],
+        ["iROAS (incremental revenue / spend)", fixed(m.iroas.value if m.iroas else None), span(m.iroas),
          span(m.iroas, anytime=True)],
-        ["ROI ((incremental profit - spend) / spend)", pct(m.roi.value if m.roi else None, 0), span(m.roi, lambda v: pct(v, 0)),
-         span(m.roi, lambda v: pct(v, 0), anytime=True)],
-        [f"cost per incremental buyer ({cur})", num(m.cost_per_incremental_buyer.value if m.cost_per_incremental_buyer else None),
+        ["ROI ((incremental profit - spend) / spend)", percent_fixed(m.roi.value if m.roi else None, 0), span(m.roi, lambda v: percent_fixed(v, 0)),
+         span(m.roi, lambda v: percent_fixed(v, 0), anytime=True)],
+        [f"cost per incremental buyer ({cur})", fixed(m.cost_per_incremental_buyer.value if m.cost_per_incremental_buyer else None),
          span(m.cost_per_incremental_buyer), "-"],
-        [f"attributed revenue ({cur})", num(m.attributed_revenue, 0), "-", "-"],
-        ["attributed ROAS", num(m.attributed_roas), "-", "-"],
-        ["incremental / attributed revenue", num(m.incremental_to_attributed.value if m.incremental_to_attributed else None),
+        [f"attributed revenue ({cur})", fixed(m.attributed_revenue, 0), "-", "-"],
+        ["attributed ROAS", fixed(m.attributed_roas), "-", "-"],
+        ["incremental / attributed revenue", fixed(m.incremental_to_attributed.value if m.incremental_to_attributed else None),
          span(m.incremental_to_attributed), span(m.incremental_to_attributed, anytime=True)],
     ]
     level = round(100 * (1 - r.settings.get("alpha", 0.05)))
@@ -95,8 +83,8 @@ def money_table(r: ReadoutReport) -> Table:
 def exposure_table(r: ReadoutReport) -> Table | None:
     if not r.exposure:
         return None
-    rows = [[x.arm, pct(x.exposure_rate_exposed), pct(x.exposure_rate_holdout, 2), num(x.per_exposed_unit.value, 3),
-             span(x.per_exposed_unit, lambda v: num(v, 3)), span(x.per_exposed_unit, lambda v: num(v, 3), anytime=True),
+    rows = [[x.arm, percent_fixed(x.exposure_rate_exposed), percent_fixed(x.exposure_rate_holdout, 2), fixed(x.per_exposed_unit.value, 3),
+             span(x.per_exposed_unit, lambda v: fixed(v, 3)), span(x.per_exposed_unit, lambda v: fixed(v, 3), anytime=True),
              x.per_exposed_unit.p] for x in r.exposure]
     return Table(title="Effect on the exposed (Wald / complier average causal effect), revenue per exposed unit",
                  columns=["arm", "exposed share", "holdout reached", "per exposed unit", "fixed interval",
@@ -106,14 +94,14 @@ def exposure_table(r: ReadoutReport) -> Table | None:
 def looks_table(r: ReadoutReport) -> Table:
     """Each look's estimate with its anytime interval; the fixed interval only at the planned final look
     (the one look where it is valid, as the decision and the history read it)."""
-    def fixed(lk: Any) -> str:
+    def fixed_span(lk: Any) -> str:
         if not (r.decision.final_look and lk.date == r.as_of):
             return "-"
-        return span(Interval(value=None, lo=lk.lo, hi=lk.hi), lambda v: num(v, 3))
+        return span(Interval(value=None, lo=lk.lo, hi=lk.hi), lambda v: fixed(v, 3))
 
-    rows = [[lk.date, sum(lk.units.values()), num(lk.difference, 3),
-             span(Interval(value=None, anytime_lo=lk.anytime_lo, anytime_hi=lk.anytime_hi), lambda v: num(v, 3),
-                  anytime=True), fixed(lk)] for lk in r.looks]
+    rows = [[lk.date, sum(lk.units.values()), fixed(lk.difference, 3),
+             span(Interval(value=None, anytime_lo=lk.anytime_lo, anytime_hi=lk.anytime_hi), lambda v: fixed(v, 3),
+                  anytime=True), fixed_span(lk)] for lk in r.looks]
     return Table(title="Revenue per unit difference at each look (primary estimate)",
                  columns=["as of", "units", "difference", "anytime interval", "fixed interval (final look only)"],
                  rows=rows)
@@ -133,7 +121,7 @@ def _adjust_line(r: ReadoutReport) -> str | None:
     a = r.adjustment
     if a is None:
         return "No covariate adjustment: the raw difference (Welch) is the primary estimate."
-    red = pct(a.variance_reduction) if a.variance_reduction is not None else "-"
+    red = percent_fixed(a.variance_reduction) if a.variance_reduction is not None else "-"
     return (f"CUPED with {', '.join(a.covariates)} (pooled theta {', '.join(f'{t:.4g}' for t in a.theta)}) "
             f"reduced the variance by {red}; the adjusted estimate is primary (chosen in the spec, before the data).")
 
@@ -141,7 +129,7 @@ def _adjust_line(r: ReadoutReport) -> str | None:
 def decision_word(r: ReadoutReport) -> str:
     """PAYS, DOES NOT PAY, NOT YET KNOWN (or NOT YET KNOWN (withheld by the audit gate))."""
     d = r.decision
-    return ANSWER_WORDS[d.answer] + (" (withheld by the audit gate)" if d.withheld else "")
+    return ANSWER_WORD[d.answer] + (" (withheld by the audit gate)" if d.withheld else "")
 
 
 def decision_lines(r: ReadoutReport) -> list[str]:
@@ -149,14 +137,10 @@ def decision_lines(r: ReadoutReport) -> list[str]:
     d = r.decision
     basis = ("fixed-horizon interval (this is the planned final look)" if d.basis == "fixed"
              else "anytime interval (valid at every look before the planned final one)")
-    p = f"; p of iROAS = break-even {fmt_p(d.p_breakeven)}" if d.p_breakeven is not None else ""
+    p = f"; p of iROAS = break-even {format_p(d.p_breakeven)}" if d.p_breakeven is not None else ""
     return [f"Does the channel pay? {decision_word(r)}", d.reason,
-            f"Read on the {d.level}% {basis}; break-even iROAS {num(d.breakeven_iroas)} ({d.breakeven_source}){p}.",
+            f"Read on the {d.level}% {basis}; break-even iROAS {fixed(d.breakeven_iroas)} ({d.breakeven_source}){p}.",
             f"What to do: {d.action}"]
-
-
-def fmt_p(p: float | None) -> str:
-    return "-" if p is None else f"{p:.2g}"
 
 
 def render_text(r: ReadoutReport) -> str:

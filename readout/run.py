@@ -18,7 +18,7 @@ from armlock.shared.load import check_as_of
 from armlock.audit import AuditReport, checks_from_tables, report_from_checks
 
 from .analyze import analyze
-from .load import load_spend_days
+from armlock.shared.load_readout import load_spend_days
 from .money import window_spend
 from .orders import check_orders, check_spend
 from armlock.shared.readout_tables import COV_PREFIX, ReadoutTables

@@ -21,6 +21,11 @@ STATUS_MEANING: dict[str, str] = {
     "skipped": "the check did not run (its input was not given); it never counts as a pass: the verdict "
                "names it, and is at least WARN when it is SRM, integrity or leakage",
 }
+# The plan's recommendation, one word per state (the plan's own meaning of pass, warn, fail, skipped):
+# upper case in text and markdown, as a title on the HTML page.
+PLAN_WORD: dict[str, str] = {"pass": "RECOMMENDED", "warn": "TOO LONG", "fail": "OUT OF REACH", "skipped": "NO TARGET"}
+# The readout's answer to "does the channel pay?" (JSON keeps the machine value on the left).
+ANSWER_WORD: dict[str, str] = {"pays": "PAYS", "does_not_pay": "DOES NOT PAY", "not_yet_known": "NOT YET KNOWN"}
 NOTHING_CHANGED = "No status changed, no threshold was crossed and no rate or p-value moved much."
 SHARE_DECIMALS = 2  # shares are written as percent with this many decimals in every human output
 
@@ -28,6 +33,11 @@ SHARE_DECIMALS = 2  # shares are written as percent with this many decimals in e
 def status_word(status: str) -> str:
     """The word a person reads for a status: PASS, WARN, FAIL or NOT RUN."""
     return STATUS_WORD.get(status, status.upper())
+
+
+def answer_phrase(answer: Any) -> str:
+    """The readout's answer inside a sentence or table: 'pays', 'does not pay', 'not yet known'."""
+    return ANSWER_WORD[answer].lower() if answer in ANSWER_WORD else str(answer)
 
 
 def format_share(value: float) -> str:
@@ -38,9 +48,9 @@ def format_share(value: float) -> str:
     return f"{pct:.{SHARE_DECIMALS}f}%"
 
 
-def format_p(value: float) -> str:
-    """A p-value in two significant digits: 0.41, 0.0087, 8.1e-06."""
-    return f"{value:.2g}"
+def format_p(value: float | None) -> str:
+    """A p-value in two significant digits: 0.41, 0.0087, 8.1e-06; '-' when there is none."""
+    return "-" if value is None else f"{value:.2g}"
 
 
 def format_value(value: Any, unit: str = "number") -> str:
@@ -103,3 +113,39 @@ def column_unit(name: str) -> str:
 def sentence(text: str) -> str:
     """Text with its first letter capitalised (summaries and changes are read as sentences)."""
     return text[:1].upper() + text[1:]
+
+
+# --- amounts and percents inside sentences and small tables (plan and readout) ---------------------
+
+def percent_short(share: float) -> str:
+    """A share as a short percent, up to four significant digits: 0.05 -> '5%', 0.125 -> '12.5%'."""
+    return f"{share * 100:.4g}%"
+
+
+def amount(x: float) -> str:
+    """An amount with thousands separators, to a sensible precision: 12,345; 7.50; 0.0123."""
+    a = abs(x)
+    if a >= 100:
+        return f"{x:,.0f}"
+    if a >= 1:
+        return f"{x:,.2f}"
+    return f"{x:.3g}"
+
+
+def sig3(x: float) -> str:
+    """Three significant digits, trailing zeros kept (0.660, 1.32, 13.7), thousands with separators."""
+    if abs(x) >= 1000:
+        return f"{x:,.0f}"
+    return f"{x:#.3g}".rstrip(".")
+
+
+def fixed(v: float | None, digits: int = 2) -> str:
+    """A number with a fixed count of decimals and thousands separators; '-' when there is none."""
+    if v is None or not math.isfinite(v):
+        return "-"
+    return f"{v:,.{digits}f}"
+
+
+def percent_fixed(v: float | None, digits: int = 1) -> str:
+    """A share as percent with a fixed count of decimals: 0.0213 -> '2.1%'; '-' when there is none."""
+    return "-" if v is None or not math.isfinite(v) else f"{v * 100:.{digits}f}%"

@@ -16,7 +16,7 @@ from armlock.audit.report_html import render_html
 from armlock.audit.run import run_audit
 from armlock.audit.synth import generate, write_logs
 from armlock.shared.words import STATUS_WORD, format_figure, shown_figures
-from armlock.cmd_history import trend_table
+from armlock.shared.history_tables import trend_table
 
 SPEC = spec_from_dict({"name": "words-test", "salt": "invented-words-2026", "start": "2026-01-05T00:00:00Z",
                        "arms": [{"name": "holdout", "weight": 2000}, {"name": "exposed", "weight": 8000}]})

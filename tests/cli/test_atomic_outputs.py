@@ -12,7 +12,8 @@ import pandas as pd
 import pytest
 
 from armlock.assign import InputError
-from armlock.common import TMP_MARK, emit, temp_path, write_atomic
+from armlock.common import emit
+from armlock.shared.files import TMP_MARK, temp_path, write_atomic
 from tests.inputs.helpers import write_demo_logs, write_spec
 from tests.inputs.inprocess import run_inprocess
 

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from armlock.common import in_place, write_atomic
+from armlock.shared.files import in_place, write_atomic
 from tests.cli.cli_run import run_cli
 
 pytestmark = pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="named pipes need a POSIX system")

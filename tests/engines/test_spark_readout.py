@@ -52,7 +52,7 @@ def _files(spec: Spec, directory: Path, fmt: str, seed: int, by_customer: bool =
     early = o.iloc[3:5].copy()
     early["order_time"] = pd.Timestamp("2026-01-01T00:00:00Z")
     extra["order_id"], early["order_id"] = ["x-1", "x-2", "x-3"], ["x-4", "x-5"]
-    # refunds that reuse their order's id (readout.load._order_ids): partial, dated after the as-of,
+    # refunds that reuse their order's id (shared.load_readout._order_ids): partial, dated after the as-of,
     # and one exact repeat
     sales = o[o["revenue"] > 0].iloc[10:16]
     reused = sales.copy()

@@ -165,7 +165,7 @@ def test_contrast_formula_matches_wcag_extremes() -> None:
 
 def test_text_colours_reach_wcag_aa() -> None:
     # WCAG 2.1 success criterion 1.4.3 (Contrast, Minimum): at least 4.5:1 for normal text
-    from armlock.audit import report_html as r
+    from armlock.shared import html as r
 
     pairs = [(r.INK, r.PAPER), (r.INK, r.CARD), (r.MUTED, r.PAPER), (r.MUTED, r.CARD), (r.ACCENT, r.CARD)]
     pairs += [(fg, bg) for _, fg, bg in r.STATUS_STYLE.values()]  # badges and the verdict box

@@ -14,9 +14,9 @@ import pandas as pd
 import pyarrow as pa
 
 from armlock.assign import InputError, Spec
-from armlock.shared.exactsum import rounded_sum
-from armlock.shared.load import cutoff_of
-from armlock.shared.read import (
+from .exactsum import rounded_sum
+from .load import cutoff_of
+from .read import (
     Source,
     TIME,
     UNIT,

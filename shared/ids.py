@@ -14,7 +14,7 @@ from typing import IO, Any
 
 from armlock.assign import InputError
 
-from .common import in_place, os_error_text, remove_stale_temps, temp_path
+from .files import in_place, os_error_text, remove_stale_temps, temp_path
 
 CHUNK = 200_000
 csv.field_size_limit(16 * 1024 * 1024)
