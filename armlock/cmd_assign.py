@@ -10,13 +10,14 @@ import typer
 from armlock.assign import InputError, Spec, buckets_and_arms
 from armlock.assign.sql import DIALECTS, spark_arm_expr, spark_bucket_expr
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, progress
+from .common import err, open_spec, progress
+from .options import ACCEPT_CHANGED_SPLIT, SPEC
 from armlock.shared.ids import ArmWriter, read_ids
 
 
 def assign_cmd(
     source: str = typer.Argument(None, metavar="[FILE|-]", help="Ids, one per line, or a CSV/Parquet file with --column; '-' or nothing reads stdin."),
-    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    spec_path: Path = SPEC,
     column: str = typer.Option(None, "--column", "-c", help="The id column of a CSV (with header) or Parquet file."),
     out: str = typer.Option(None, "--out", "-o", help="Output file: CSV, or Parquet when it ends in .parquet (default: CSV on stdout)."),
     sql: str = typer.Option(None, "--sql", help=f"Print the SQL expression for the arm instead ({', '.join(DIALECTS)})."),

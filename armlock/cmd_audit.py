@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from datetime import date
 from pathlib import Path
 
 import typer
@@ -14,19 +13,20 @@ from armlock.audit.model import AuditReport
 from armlock.audit.render import RENDERERS
 from armlock.shared.words import status_word
 
-from .common import (
+from .common import emit, err, open_spec_and_lock, progress
+from .options import (
     ACCEPT_CHANGED_SPLIT,
     ENGINE,
     MEMORY_LIMIT,
+    REPORT_OUT,
     SPARK_CONF,
     SPARK_MASTER,
+    SPEC,
     TEMP_DIR,
-    SPEC_HELP,
-    emit,
+    VISITS,
+    as_of_day,
     engine_settings,
-    err,
-    open_spec_and_lock,
-    progress,
+    format_option,
 )
 
 # The report formats: one renderer per name (add a format with one line here).
@@ -103,24 +103,14 @@ def concurrent_specs(spec_path: Path, given: list[Path]) -> list[tuple[str, Spec
     return list(out.values())
 
 
-def _as_of(text: str | None) -> date | None:
-    if text is None:
-        return None
-    try:
-        return date.fromisoformat(text)
-    except ValueError:
-        raise typer.BadParameter(f"{text!r} is not a date; write YYYY-MM-DD, e.g. 2026-12-07",
-                                 param_hint="--as-of") from None
-
-
 def audit_cmd(
-    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    visits: str = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet; with --engine spark also a Parquet or Delta directory, a cluster path, or table:db.name)."),
+    spec_path: Path = SPEC,
+    visits: str = VISITS,
     exposures: str = typer.Option(None, "--exposures", help="The ad vendor's exposure log (impressions, clicks); enables the leakage check."),
     identities: str = typer.Option(None, "--identities", help="Identity links: unit id -> logged-in customer key; enables the churn check."),
     as_of: str = typer.Option(None, "--as-of", help="Audit as of the end of this UTC day (YYYY-MM-DD); later rows are ignored. Default: the last first-seen day."),
-    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help="Report format: text for a terminal, markdown for a ticket, json (schema armlock.audit/1) for machines, html for a self-contained page."),
-    out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
+    fmt: str = format_option(list(FORMATS), help="Report format: text for a terminal, markdown for a ticket, json (schema armlock.audit/1) for machines, html for a self-contained page."),
+    out: Path = REPORT_OUT,
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is WARN (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
     history_path: str = typer.Option(None, "--history", help="The history file for --record and --format html (default: beside the spec, SPEC.history.sqlite), or a PostgreSQL URL postgresql://USER@HOST/DB that every runner shares (needs pip install 'armlock[postgres]')."),
@@ -150,10 +140,7 @@ def audit_cmd(
       armlock audit --spec spring.toml --engine spark --visits table:analytics.visits \\
           --exposures s3a://logs/exposures/ --format json --out audit.json
     """
-    if fmt not in FORMATS:
-        raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
-                                 param_hint="--format")
-    day = _as_of(as_of)
+    day = as_of_day(as_of)
     conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
     if alert is not None:
         from .alert_post import check_url

@@ -11,15 +11,16 @@ from armlock.shared.history import changes, default_history_path, load, load_rea
 from armlock.shared.history_tables import readout_table, trend_table
 from armlock.shared.words import NOTHING_CHANGED
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec
+from .common import err, open_spec
+from .options import ACCEPT_CHANGED_SPLIT, SPEC, format_option
 
 FORMATS = ("text", "json")
 
 
 def history_cmd(
-    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    spec_path: Path = SPEC,
     history_path: str = typer.Option(None, "--history", help="The history file (default: beside the spec, SPEC.history.sqlite), or a PostgreSQL URL postgresql://USER@HOST/DB that every runner shares (needs pip install 'armlock[postgres]')."),
-    fmt: str = typer.Option("text", "--format", "-f", metavar="<text|json>", help="text (a table and sentences) or json."),
+    fmt: str = format_option(FORMATS, help="text (a table and sentences) or json."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:
     """Show the recorded audits of a spec week by week, and what changed since the previous run.
@@ -28,9 +29,6 @@ def history_cmd(
 
     Example: armlock history --spec spring-retargeting.toml
     """
-    if fmt not in FORMATS:
-        raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
-                                 param_hint="--format")
     spec = open_spec(spec_path, accept_changed_split=accept)
     path = target(history_path) if history_path else default_history_path(spec_path)
     from armlock.shared.history_pg import shown

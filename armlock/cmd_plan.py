@@ -15,6 +15,7 @@ from armlock.assign import InputError, SpecError
 from armlock.shared.files import in_place
 
 from .common import emit, err
+from .options import format_option
 
 FORMATS = ("text", "markdown", "json", "html")
 
@@ -236,7 +237,7 @@ def plan_cmd(
     against: str = typer.Option("zero", "--against", metavar="<zero|break-even>", help="What the test must tell the target from: zero (does the channel add revenue?) or break-even (does it pay? needs --weekly-spend and --margin)."),
     currency: str = typer.Option(None, "--currency", help="Currency code shown beside amounts, e.g. USD (default: the spec's [readout] currency with --spec, else none)."),
     full: bool = typer.Option(False, "--full", help="Text output: add every share x weeks grid and the assumptions (the default is the recommendation and one table)."),
-    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Output format: {', '.join(FORMATS)}."),
+    fmt: str = format_option(FORMATS, help=f"Output format: {', '.join(FORMATS)}."),
     out: Path = typer.Option(None, "--out", "-o", help="Write the plan to this file instead of stdout."),
     write_spec: str = typer.Option(None, "--write-spec", help="Also write a spec NAME.toml with the recommended holdout share (as `armlock init` does)."),
     spec_out: Path = typer.Option(None, "--spec-out", help="Where --write-spec writes (default NAME.toml here)."),
@@ -261,8 +262,6 @@ def plan_cmd(
     from armlock.plan.model import PlanInputs
     from armlock.plan.render import RENDERERS
 
-    if fmt not in FORMATS:
-        raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}", param_hint="--format")
     reach = parse_fraction(exposure_rate, "--exposure-rate")
     the_lift = parse_fraction(lift, "--lift", lift=True)
     the_margin = parse_fraction(margin, "--margin")

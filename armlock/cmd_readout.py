@@ -6,27 +6,29 @@ from pathlib import Path
 
 import typer
 
-from .cmd_audit import _as_of, concurrent_specs, finish
-from .common import (
+from .cmd_audit import concurrent_specs, finish
+from .common import emit, open_spec_and_lock, progress
+from .options import (
     ACCEPT_CHANGED_SPLIT,
     ENGINE,
     MEMORY_LIMIT,
+    REPORT_OUT,
     SPARK_CONF,
     SPARK_MASTER,
+    SPEC,
     TEMP_DIR,
-    SPEC_HELP,
-    emit,
+    VISITS,
+    as_of_day,
     engine_settings,
-    open_spec_and_lock,
-    progress,
+    format_option,
 )
 
 FORMATS = ("text", "markdown", "json", "html", "finance")
 
 
 def readout_cmd(
-    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
-    visits: str = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet; with --engine spark also a Parquet or Delta directory, a cluster path, or table:db.name)."),
+    spec_path: Path = SPEC,
+    visits: str = VISITS,
     orders: str = typer.Option(..., "--orders", help="Orders log from the shop's back end: one row per order, refunds as negative revenue (columns: [readout.orders]; a path or, with --engine spark, table:db.name)."),
     exposures: str = typer.Option(None, "--exposures", help="The ad vendor's exposure log: enables the leakage check and the effect per exposed unit."),
     identities: str = typer.Option(None, "--identities", help="Identity links: unit id -> customer key; needed when orders carry a customer key."),
@@ -34,8 +36,8 @@ def readout_cmd(
     spend_file: Path = typer.Option(None, "--spend-file", help="Spend per campaign and day (columns: [readout.spend]; a local file, read on this machine); days outside the test are left out."),
     attributed: float = typer.Option(None, "--attributed-revenue", help="Revenue the attribution report credited to the channel over the test (overrides the orders' attributed column)."),
     as_of: str = typer.Option(None, "--as-of", help="Read out as of the end of this UTC day (YYYY-MM-DD). Default: the last first-seen day."),
-    fmt: str = typer.Option("text", "--format", "-f", metavar=f"<{'|'.join(FORMATS)}>", help=f"Report format: {', '.join(FORMATS)} (finance: one printable HTML page for the finance lead)."),
-    out: Path = typer.Option(None, "--out", "-o", help="Write the report to this file instead of stdout."),
+    fmt: str = format_option(FORMATS, help=f"Report format: {', '.join(FORMATS)} (finance: one printable HTML page for the finance lead)."),
+    out: Path = REPORT_OUT,
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the audit gate warns (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this readout's figures in the history file, so `armlock history` shows the estimate week by week."),
     history_path: str = typer.Option(None, "--history", help="The history file for --record (default: beside the spec, SPEC.history.sqlite), or a PostgreSQL URL postgresql://USER@HOST/DB that every runner shares (needs pip install 'armlock[postgres]')."),
@@ -67,14 +69,11 @@ def readout_cmd(
       armlock readout --spec spring.toml --engine spark --visits table:analytics.visits \\
           --orders table:shop.orders --exposures s3a://logs/exposures/ --spend 42000 --format json
     """
-    if fmt not in FORMATS:
-        raise typer.BadParameter(f"unknown format {fmt!r}; choose one of: {', '.join(FORMATS)}",
-                                 param_hint="--format")
     if spend is not None and spend_file is not None:
         raise typer.BadParameter("give either --spend or --spend-file, not both", param_hint="--spend")
     if spend is not None and spend < 0:
         raise typer.BadParameter(f"spend must not be negative, got {spend:g}", param_hint="--spend")
-    day = _as_of(as_of)
+    day = as_of_day(as_of)
     conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start

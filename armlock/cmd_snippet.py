@@ -9,19 +9,23 @@ import typer
 from armlock.assign.module import render_module
 from armlock.assign.snippet import render_snippet
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, emit, open_spec
+from .common import emit, open_spec
+from .options import ACCEPT_CHANGED_SPLIT, SPEC, OneOf
 
 
 FORMS = ("html", "js", "module")
+FORM = OneOf(FORMS, "form", "--form", listing="html, js or module")
 
 
 def snippet(
-    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    spec_path: Path = SPEC,
     form: str = typer.Option(
         "html",
         "--form",
         "-f",
         metavar="<html|js|module>",
+        parser=FORM,
+        shell_complete=FORM.complete,
         help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host; "
         "module: an ES module of the split and the server-set id cookie for Node and edge runtimes "
         "(docs/identity.md).",
@@ -39,8 +43,6 @@ def snippet(
 
     Example: armlock snippet --spec spring-retargeting.toml --form html --out armlock-tag.html
     """
-    if form not in FORMS:
-        raise typer.BadParameter(f"unknown form {form!r}; choose html, js or module", param_hint="--form")
     spec = open_spec(spec_path, accept_changed_split=accept)
     text = render_module(spec) if form == "module" else render_snippet(spec, form)
     emit(text, out, what="the snippet",

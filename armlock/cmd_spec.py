@@ -14,7 +14,8 @@ from armlock.assign.spec import EXPERIMENT_PATTERN
 
 from armlock.shared.files import write_atomic
 
-from .common import ACCEPT_CHANGED_SPLIT, SPEC_HELP, err, open_spec, warn_box
+from .common import err, open_spec, warn_box
+from .options import ACCEPT_CHANGED_SPLIT, SPEC
 
 
 def write_new_spec(name: str, *, holdout_share: float = 0.5, arms: str | None = None, out: Path | None = None,
@@ -79,7 +80,7 @@ def init(
 
 
 def check(
-    spec_path: Path = typer.Option(..., "--spec", "-s", help=SPEC_HELP),
+    spec_path: Path = SPEC,
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON (an invalid spec gives valid: false and its errors, exit code 4)."),
     accept: bool = ACCEPT_CHANGED_SPLIT,
 ) -> None:

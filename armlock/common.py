@@ -1,4 +1,4 @@
-"""Shared CLI plumbing: stderr messages, opening a spec with its lock check, progress bars."""
+"""Shared CLI plumbing: stderr messages, opening a spec with its lock check, progress bars (options: options.py)."""
 
 from __future__ import annotations
 
@@ -13,60 +13,6 @@ import typer
 from armlock.assign import Spec, SplitChangedError, check_lock, load_spec
 from armlock.assign.lock import LockCheck, accept_change
 from armlock.shared.files import write_atomic
-
-SPEC_HELP = "The experiment spec file (TOML), as written by `armlock init`."
-# Every command that reads a spec takes this option and passes it to `open_spec`.
-ACCEPT_CHANGED_SPLIT: Any = typer.Option(
-    False, "--accept-changed-split",
-    help="Confirm that the spec's salt or weights were changed on purpose: record the new split in the "
-         "lock file and go on (without it, a changed split stops with exit code 6; once the test has "
-         "started, its audits then fail naming the change).")
-
-
-# Where the rows are counted: every command that reads the logs (audit, readout) takes these three.
-ENGINE: Any = typer.Option(
-    "duckdb", "--engine",
-    help="Where the rows are counted: duckdb (this machine, default: memory grows with units, not rows; "
-         "spills to disk), pandas (this machine, every exposure row in memory) or spark (needs pip install "
-         "'armlock[spark]' and Java 17; uses the active SparkSession, else starts one).")
-SPARK_MASTER: Any = typer.Option(
-    None, "--spark-master",
-    help="With --engine spark and no active session: the master to start one on (default local[*]; "
-         "e.g. yarn, spark://host:7077).")
-SPARK_CONF: Any = typer.Option(
-    None, "--spark-conf", metavar="KEY=VALUE",
-    help="With --engine spark: a Spark setting for the session it starts (repeatable), e.g. "
-         "spark.executor.memory=8g. spark-defaults.conf (SPARK_CONF_DIR), PYSPARK_SUBMIT_ARGS and "
-         "spark-submit --conf also apply.")
-MEMORY_LIMIT: Any = typer.Option(
-    None, "--memory-limit", metavar="SIZE",
-    help="With --engine duckdb: the most memory DuckDB may take, e.g. 4GB (default: 80% of this "
-         "machine's memory); beyond it, it spills to --temp-dir.")
-TEMP_DIR: Any = typer.Option(
-    None, "--temp-dir", metavar="DIR",
-    help="With --engine duckdb: the folder DuckDB spills to (default: a new folder in the system's "
-         "temporary directory, removed afterwards).")
-ENGINE_NAMES = ("duckdb", "pandas", "spark")
-
-
-def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str] | None,
-                    memory_limit: str | None = None, temp_dir: str | None = None) -> dict[str, str]:
-    """Check --engine with the Spark and DuckDB settings together (usage errors, exit 2); the Spark settings."""
-    conf = {}
-    for item in spark_conf or []:
-        key, sep, value = item.partition("=")
-        if not sep or not key.strip():
-            raise typer.BadParameter(f"{item!r} is not KEY=VALUE, e.g. spark.executor.memory=8g",
-                                     param_hint="--spark-conf")
-        conf[key.strip()] = value
-    if engine not in ENGINE_NAMES:
-        raise typer.BadParameter(f"unknown engine {engine!r}; choose duckdb, pandas or spark", param_hint="--engine")
-    if engine != "spark" and (spark_master or conf):
-        raise typer.BadParameter("--spark-master and --spark-conf need --engine spark", param_hint="--engine")
-    if engine != "duckdb" and (memory_limit or temp_dir):
-        raise typer.BadParameter("--memory-limit and --temp-dir need --engine duckdb", param_hint="--engine")
-    return conf
-
 
 def err(text: str) -> None:
     """One message on stderr, control characters shown as escapes (data never drives the terminal)."""
