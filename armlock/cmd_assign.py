@@ -7,8 +7,10 @@ from pathlib import Path
 
 import typer
 
-from armlock.assign import InputError, Spec, buckets_and_arms
+from armlock.assign import InputError, buckets_and_arms
 from armlock.assign.sql import DIALECTS, spark_arm_expr, spark_bucket_expr
+
+from armlock.assign.batch import arms_to_keep
 
 from .common import err, open_spec, progress
 from .options import ACCEPT_CHANGED_SPLIT, SPEC
@@ -55,7 +57,10 @@ def assign_cmd(
         return
     if id_column or bucket_only:
         raise typer.BadParameter("--id-column and --bucket only go with --sql; use --column for the id column of a file")
-    keep = arms_to_keep(spec, only or [])
+    try:
+        keep = arms_to_keep(spec, only or [])
+    except ValueError as exc:
+        raise typer.BadParameter(str(exc), param_hint="--only") from None
     src = source or "-"
     if src == "-" and sys.stdin.isatty():
         raise InputError("no ids: give a FILE, or pipe ids on stdin (one per line)")
@@ -88,23 +93,6 @@ def assign_cmd(
     if writer.unwritable:
         err(f"{writer.unwritable:,} id(s) contain a line break, which a one-per-line list cannot hold; they were "
             "left out (write the full CSV without --ids-only to keep them)")
-
-
-def arms_to_keep(spec: Spec, only: list[str]) -> set[str] | None:
-    """The arm names that --only selects (an arm name, or a role naming every arm with it); None = all."""
-    if not only:
-        return None
-    keep: set[str] = set()
-    roles = {"holdout": spec.holdout_arms, "exposed": spec.exposed_arms}
-    for value in only:
-        if value in spec.arm_names:
-            keep.add(value)
-        elif value in roles:
-            keep.update(roles[value])
-        else:
-            raise typer.BadParameter(f"{value!r} is neither an arm of the spec ({', '.join(spec.arm_names)}) "
-                                     "nor a role (holdout, exposed)", param_hint="--only")
-    return keep
 
 
 def register(app: typer.Typer) -> None:

@@ -84,23 +84,14 @@ def send_alert(url: str, spec: Spec, report: AuditReport, previous: dict | None,
 
 
 def concurrent_specs(spec_path: Path, given: list[Path]) -> list[tuple[str, Spec]]:
-    """The specs named by --alongside: each file, and every other spec of each folder (validated;
-    the audited spec itself is left out, a copy of it is not)."""
-    from armlock.assign import load_spec
-    from armlock.assign.portfolio import folder_specs
+    """The specs named by --alongside (`assign.portfolio.alongside_specs`), its notes on stderr."""
+    from armlock.assign.portfolio import alongside_specs
 
-    out: dict[Path, tuple[str, Spec]] = {}
-    me = spec_path.resolve()
-    for item in given:
-        notes: list[str] = []
-        files = ([s.path for s in folder_specs(item, exclude=spec_path, notes=notes)] if item.is_dir()
-                 else [item])
-        for note in notes:
-            err(note)
-        for f in files:
-            if f.resolve() != me:
-                out.setdefault(f.resolve(), (str(f), load_spec(f)))
-    return list(out.values())
+    notes: list[str] = []
+    found = alongside_specs(spec_path, given, notes)
+    for note in notes:
+        err(note)
+    return found
 
 
 def audit_cmd(
@@ -141,7 +132,7 @@ def audit_cmd(
           --exposures s3a://logs/exposures/ --format json --out audit.json
     """
     day = as_of_day(as_of)
-    conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
+    engine_choice = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
     if alert is not None:
         from .alert_post import check_url
 
@@ -149,12 +140,10 @@ def audit_cmd(
             raise typer.BadParameter(why, param_hint="--alert")
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
-    from armlock.shared.engine import select_engine
     from armlock.audit.run import input_bytes, run_audit  # pandas/scipy load only when an audit runs
 
     siblings = concurrent_specs(spec_path, alongside or [])
-    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf, memory_limit=memory_limit,
-                        temp_directory=temp_dir)
+    eng = engine_choice.select()
     with progress(input_bytes(visits, exposures, identities) or None, "reading logs") as advance:
         report = run_audit(spec, visits=visits, exposures=exposures, identities=identities,
                            as_of=day, advance=advance, split_changes=changes_after_start(lock),

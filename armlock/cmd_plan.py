@@ -2,17 +2,13 @@
 
 from __future__ import annotations
 
-import functools
 import math
-import os
 from pathlib import Path
-from typing import Any
 
 import typer
 
-from armlock.assign import InputError, SpecError
+from armlock.assign import InputError
 
-from armlock.shared.files import in_place
 
 from .common import emit, err
 from .options import format_option
@@ -90,121 +86,6 @@ def parse_weeks(text: str) -> list[int]:
     return sorted(out)
 
 
-def _columns(spec_path: Path | None, covariate: str | None, orders_unit: str | None, orders_revenue: str | None,
-             visits_unit: str | None = None, visits_time: str | None = None) -> Any:
-    """Where the pre-period files' columns are: the options, else the spec's maps, else the default names; each
-    column remembers who named it, so an error quotes the option or the spec setting actually used."""
-    from armlock.plan.estimate import PrePeriodColumns
-
-    kw: dict[str, Any] = {}
-    named: dict[str, str] = {}
-    if spec_path is not None:
-        from armlock.assign import load_spec
-
-        spec = load_spec(spec_path)  # the column maps only: planning does not use the split, so no lock check
-        kw.update(unit_id=spec.audit.visits.unit_id, first_seen=spec.audit.visits.first_seen,
-                  visits_delimiter=spec.audit.visits.delimiter,
-                  first_seen_format=spec.audit.visits.first_seen_format)
-        named.update(unit_id=f"{spec_path}: [audit.visits] unit_id", first_seen=f"{spec_path}: [audit.visits] first_seen")
-        ro = getattr(spec, "readout", None)  # the readout's [readout] tables, in specs that carry them
-        orders = getattr(ro, "orders", None)
-        if orders is not None:
-            if not getattr(orders, "unit_id", "unit_id") and not orders_unit:
-                raise InputError(f"{spec_path}: [readout.orders] keys orders by customer, not by visitor id; the "
-                                 "planner needs the visitor id of each order: give --orders-unit-column")
-            kw.update(orders_unit_id=getattr(orders, "unit_id", None) or "unit_id",
-                      orders_revenue=getattr(orders, "revenue", "revenue"),
-                      orders_order_id=getattr(orders, "order_id", "") or "",
-                      orders_delimiter=getattr(orders, "delimiter", ",") or ",")
-            named.update(orders_unit_id=f"{spec_path}: [readout.orders] unit_id",
-                         orders_revenue=f"{spec_path}: [readout.orders] revenue")
-        if ro is not None:  # the covariates the readout will adjust with (none: the readout uses no CUPED)
-            kw["covariates"] = tuple(getattr(ro, "covariates", ()) or ())
-            named["covariates"] = f"{spec_path}: [readout] covariates"
-    if covariate:
-        kw["covariates"] = tuple(c.strip() for c in covariate.split(",") if c.strip())
-        named["covariates"] = "--covariate"
-    for key, value, flag in (("unit_id", visits_unit, "--visits-unit-column"),
-                             ("first_seen", visits_time, "--visits-time-column"),
-                             ("orders_unit_id", orders_unit, "--orders-unit-column"),
-                             ("orders_revenue", orders_revenue, "--orders-revenue-column")):
-        if value:
-            kw[key] = value
-            named[key] = flag
-    return PrePeriodColumns(**kw, named_by=named)
-
-
-def carry_plan_into_spec_text(text: str, *, planned_units: int, margin: float | None, alpha: float,
-                              power: float) -> str:
-    """Set the `[readout]` keys the plan decides (planned units, margin, alpha, power) in a new spec's text.
-
-    Only the first `key = value` line of each key after the `[readout]` header is touched; a spec without
-    that section is returned unchanged.
-    """
-    import re
-
-    head = re.search(r"(?m)^\[readout\][ \t]*$", text)
-    if head is None:
-        return text
-    start = head.end()
-    nxt = re.search(r"(?m)^\[(?!readout\])", text[start:])
-    end = start + nxt.start() if nxt else len(text)
-    section = text[start:end]
-    values = {"planned_units": f"{planned_units}", "alpha": f"{alpha:g}", "power": f"{power:g}"}
-    if margin is not None:
-        values["margin"] = f"{margin:g}"
-    def put(m: re.Match[str], v: str) -> str:  # keep the comment in its column when the value fits
-        old_width = len(m.group(2)) + len(m.group(3))
-        pad = max(old_width - len(v), 1) if m.group(4) else 0
-        return f"{m.group(1)}{v}{' ' * pad}{m.group(4) or ''}"
-
-    for key, value in values.items():
-        section = re.sub(rf"(?m)^({key}[ \t]*=[ \t]*)([^#\n]*?)([ \t]*)(#.*)?$",
-                         functools.partial(lambda v, m: put(m, v), value), section, count=1)
-    return text[:start] + section + text[end:]
-
-
-def write_spec_atomically(name: str, share: float, dest: Path, *, force: bool, carry: dict[str, Any]) -> Any:
-    """Render the spec (as `armlock init` does, fresh salt), carry the plan into its `[readout]` table, validate
-    it from a temporary file in the destination's folder and only then rename it into place: an invalid spec
-    is never left on disk."""
-    import tempfile
-
-    from armlock.assign import load_spec
-    from armlock.assign.init import render_spec_toml
-    from armlock.assign.spec import share_to_basis_points
-
-    if dest.is_dir():
-        raise SpecError(f"--spec-out {dest}: is a folder; give the spec's file name, e.g. {dest / (name + '.toml')}")
-    if dest.exists() and not force:
-        raise SpecError(f"{dest}: already exists; choose another --spec-out or pass --force")
-    if in_place(dest):  # a device or pipe: a rename would replace it
-        raise SpecError(f"{dest}: not a regular file; give a .toml file name for the spec")
-    try:
-        h = share_to_basis_points(share)
-    except ValueError as exc:
-        raise SpecError(f"--write-spec: {exc}") from None
-    text = carry_plan_into_spec_text(render_spec_toml(name, [("holdout", h), ("exposed", 10_000 - h)]), **carry)
-    folder = dest.parent if str(dest.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".tmp", dir=folder)
-    except OSError as exc:
-        raise SpecError(f"{dest}: cannot write: {exc.strerror}") from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-        spec = load_spec(tmp)  # the spec as written must validate, or nothing is left behind
-        os.replace(tmp, dest)
-    except OSError as exc:
-        raise SpecError(f"{dest}: cannot write: {exc.strerror}") from None
-    except SpecError as exc:
-        raise SpecError(f"--write-spec: no spec written, because it would not validate: {exc}") from None
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-    return spec
-
-
 def plan_cmd(
     weekly_units: float = typer.Option(None, "--weekly-units", help="New units (visitors) a week who would enter the test."),
     revenue_mean: float = typer.Option(None, "--revenue-mean", help="Revenue per unit over the test, mean (units without orders count 0)."),
@@ -258,9 +139,8 @@ def plan_cmd(
       armlock plan --weekly-units 40000 --revenue-mean 7 --revenue-sd 75 --exposure-rate 60% \\
           --effect 0.35 --weekly-spend 12000 --margin 40% --rho 0.3 --write-spec spring-retargeting
     """
-    from armlock.plan.compute import make_plan
-    from armlock.plan.model import PlanInputs
     from armlock.plan.render import RENDERERS
+    from armlock.plan.request import PlanRequest, plan_for
 
     reach = parse_fraction(exposure_rate, "--exposure-rate")
     the_lift = parse_fraction(lift, "--lift", lift=True)
@@ -269,97 +149,15 @@ def plan_cmd(
     the_power = parse_fraction(power, "--power")
     the_conversion = parse_fraction(conversion, "--conversion")
     shares, week_list = parse_shares(holdout_shares), parse_weeks(weeks)
-    if write_spec is not None:  # refuse before any work, so a plan is never printed for a spec that cannot be written
-        import re
-
-        from armlock.assign.spec import EXPERIMENT_PATTERN
-
-        if not re.match(EXPERIMENT_PATTERN, write_spec):
-            raise SpecError(f"--write-spec: experiment name {write_spec!r}: use letters, digits, '.', '_' or '-' "
-                            "(at most 100), starting with a letter or digit")
-        dest = spec_out or Path(f"{write_spec}.toml")
-        if dest.exists() and not force:
-            raise SpecError(f"{dest}: already exists; choose another --spec-out or pass --force")
-    estimates: list[Any] = []
-    notes: list[str] = []
-    found: dict[str, Any] = {}
-    if (visits is None) != (orders is None):
-        raise InputError("give both --visits and --orders to estimate from pre-period files (or neither, "
-                         "and give the numbers)")
-    file_options = {"--spec": spec_path, "--covariate": covariate, "--visits-unit-column": visits_unit,
-                    "--visits-time-column": visits_time, "--orders-unit-column": orders_unit,
-                    "--orders-revenue-column": orders_revenue}
-    if visits is not None and orders is not None:
-        from armlock.plan.estimate import estimate_pre_period
-
-        cols = _columns(spec_path, covariate, orders_unit, orders_revenue, visits_unit, visits_time)
-        pre = estimate_pre_period(visits, orders, cols)
-        found, estimates, notes = pre.values, pre.estimates, pre.notes
-    elif any(v is not None for v in file_options.values()):
-        given_opts = [k for k, v in file_options.items() if v is not None]
-        raise InputError(f"{', '.join(given_opts)}: only apply with --visits and --orders (the pre-period files)")
-    given = {k: v for k, v in {
-        "weekly_units": weekly_units, "revenue_mean": revenue_mean, "revenue_sd": revenue_sd, "rho": rho,
-    }.items() if v is not None}
-    if given and found:
-        notes.append("Given on the command line instead of the estimate: " + ", ".join(
-            f"{k.replace('_', ' ')} {v:g}" for k, v in given.items()))
-    if reach is None:
-        notes.insert(0, "--exposure-rate was not given, so every unit of the exposed arm is assumed reached by the "
-                        "vendor (full reach); real reach is usually lower and dilutes the effect the arms show.")
-    if currency is not None and not (len(currency) == 3 and currency.isalpha() and currency.isupper()):
-        raise InputError(f"--currency: {currency!r} is not a three-letter currency code such as USD (ISO 4217)")
-    if currency is None and spec_path is not None and visits is not None:
-        from armlock.assign import load_spec
-
-        currency = getattr(getattr(load_spec(spec_path), "readout", None), "currency", None)
-    common = dict(exposure_rate=1.0 if reach is None else reach, effect=effect, lift=the_lift,
-                  target_iroas=target_iroas, weekly_spend=weekly_spend, margin=the_margin, alpha=the_alpha,
-                  power=the_power, equal_variance=equal_variance, against=against, currency=currency or "")
-    units = given.get("weekly_units", found.get("weekly_units"))
-    the_rho = given.get("rho", found.get("rho", 0.0))
-    if units is None:
-        raise InputError("--weekly-units: how many new units a week would enter the test? (or give --visits and --orders)")
-    if the_conversion is not None or order_value is not None:
-        if the_conversion is None or order_value is None:
-            raise InputError("--conversion and --order-value go together")
-        if revenue_mean is not None or revenue_sd is not None:
-            raise InputError("give revenue per unit as --revenue-mean and --revenue-sd, or as --conversion and "
-                             "--order-value, not both")
-        inputs = PlanInputs.from_conversion(conversion=the_conversion, order_value=order_value,
-                                            order_value_sd=order_value_sd or 0.0, weekly_units=units, rho=the_rho,
-                                            **common)
-    else:
-        if order_value_sd is not None:
-            raise InputError("--order-value-sd goes with --conversion and --order-value")
-        mean = given.get("revenue_mean", found.get("revenue_mean"))
-        sd = given.get("revenue_sd", found.get("revenue_sd"))
-        if mean is None or sd is None:
-            raise InputError("give revenue per unit: --revenue-mean and --revenue-sd, or --conversion and "
-                             "--order-value (or --visits and --orders to estimate them)")
-        extra = {k: found[k] for k in ("conversion", "order_value") if k in found and not given}
-        inputs = PlanInputs(weekly_units=units, revenue_mean=mean, revenue_sd=sd, rho=the_rho, **extra, **common)
-    spread = None
-    if found and "revenue_sd" not in given:  # the SD was estimated: the weeks carry its sampling error
-        spread = pre.cv2_range if (the_lift is not None and "revenue_mean" not in given) else pre.variance_range
-        notes.append(f"The weeks carry a 95% range from the pre-period's sampling error of the "
-                     f"{'revenue SD relative to the mean' if spread is pre.cv2_range else 'revenue SD'} "
-                     f"(x {spread[0]:.2f} to x {spread[1]:.2f}; large-sample moments of the sample variance and "
-                     "mean, the delta method, Casella & Berger 2002, §5.5.4).")
-    plan = make_plan(inputs, shares=shares, weeks=week_list, max_weeks=max_weeks, estimates=estimates, notes=notes,
-                     prefer=prefer, spread=spread,
-                     revenue_sample=pre.revenue_per_unit if found and not ({"revenue_mean", "revenue_sd"} & set(given))
-                     and the_conversion is None else None)
-    if write_spec is not None and plan.recommendation.share is None:
-        raise InputError(f"--write-spec: no spec written, because there is no recommended share "
-                         f"({plan.recommendation.status}): {plan.recommendation.sentence}")
-    spec = None
-    if write_spec is not None:  # written (and validated) before the plan is printed: a failure leaves nothing
-        assert plan.recommendation.share is not None
-        weeks_planned = plan.recommendation.weeks or 0
-        spec = write_spec_atomically(write_spec, plan.recommendation.share, dest, force=force, carry=dict(
-            planned_units=int(round(inputs.weekly_units * weeks_planned)), margin=inputs.margin,
-            alpha=inputs.alpha, power=inputs.power))
+    outcome = plan_for(PlanRequest(
+        weekly_units=weekly_units, revenue_mean=revenue_mean, revenue_sd=revenue_sd, conversion=the_conversion,
+        order_value=order_value, order_value_sd=order_value_sd, exposure_rate=reach, effect=effect, lift=the_lift,
+        target_iroas=target_iroas, weekly_spend=weekly_spend, margin=the_margin, alpha=the_alpha, power=the_power,
+        equal_variance=equal_variance, rho=rho, visits=visits, orders=orders, spec_path=spec_path, covariate=covariate,
+        visits_unit=visits_unit, visits_time=visits_time, orders_unit=orders_unit, orders_revenue=orders_revenue,
+        shares=shares, weeks=week_list, max_weeks=max_weeks, prefer=prefer, against=against, currency=currency,
+        write_spec=write_spec, spec_out=spec_out, force=force))
+    plan, spec, dest = outcome.plan, outcome.spec, outcome.spec_path
     if fmt == "html":
         from armlock.plan.report_html import render_html
 

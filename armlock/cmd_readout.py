@@ -74,15 +74,13 @@ def readout_cmd(
     if spend is not None and spend < 0:
         raise typer.BadParameter(f"spend must not be negative, got {spend:g}", param_hint="--spend")
     day = as_of_day(as_of)
-    conf = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
+    engine_choice = engine_settings(engine, spark_master, spark_conf, memory_limit, temp_dir)
     spec, lock = open_spec_and_lock(spec_path, accept_changed_split=accept)
     from armlock.assign.lock import changes_after_start
-    from armlock.shared.engine import select_engine
     from armlock.audit.run import input_bytes  # pandas/scipy load only when a readout runs
     from armlock.readout.run import run_readout
 
-    eng = select_engine(engine, spark_master=spark_master, spark_conf=conf, memory_limit=memory_limit,
-                        temp_directory=temp_dir)
+    eng = engine_choice.select()
     total = input_bytes(visits, exposures, identities, orders) or None
     with progress(total, "reading logs") as advance:
         report = run_readout(spec, visits=visits, orders=orders, exposures=exposures, identities=identities,

@@ -7,12 +7,13 @@ definition: the same flag means the same thing, and reads the same in every `--h
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from datetime import date
 from typing import Any
 
 import typer
 
-from armlock.shared.engine import ENGINES
+from armlock.shared.engine import ENGINES, Engine
 
 
 class OneOf:
@@ -90,9 +91,27 @@ TEMP_DIR: Any = typer.Option(
          "temporary directory, removed afterwards).")
 
 
+@dataclass(frozen=True)
+class EngineChoice:
+    """The engine options of a command, checked together (`engine_settings`); `select()` makes the engine."""
+
+    name: str
+    spark_master: str | None
+    spark_conf: dict[str, str]
+    memory_limit: str | None
+    temp_dir: str | None
+
+    def select(self) -> Engine:
+        """The engine itself (Spark loads only here, and only when asked for)."""
+        from armlock.shared.engine import select_engine
+
+        return select_engine(self.name, spark_master=self.spark_master, spark_conf=self.spark_conf,
+                             memory_limit=self.memory_limit, temp_directory=self.temp_dir)
+
+
 def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str] | None,
-                    memory_limit: str | None = None, temp_dir: str | None = None) -> dict[str, str]:
-    """Check --engine with the Spark and DuckDB settings together (usage errors, exit 2); the Spark settings."""
+                    memory_limit: str | None = None, temp_dir: str | None = None) -> EngineChoice:
+    """Check --engine with the Spark and DuckDB settings together (usage errors, exit 2)."""
     conf = {}
     for item in spark_conf or []:
         key, sep, value = item.partition("=")
@@ -106,7 +125,8 @@ def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str]
         raise typer.BadParameter("--spark-master and --spark-conf need --engine spark", param_hint="--engine")
     if engine != "duckdb" and (memory_limit or temp_dir):
         raise typer.BadParameter("--memory-limit and --temp-dir need --engine duckdb", param_hint="--engine")
-    return conf
+    return EngineChoice(engine, spark_master, conf, memory_limit, temp_dir)
+
 
 # The logs every data command reads (audit, readout)
 VISITS: Any = typer.Option(..., "--visits", help="Visits / first-seen log: one row per unit (CSV, CSV.gz or Parquet; with --engine spark also a Parquet or Delta directory, a cluster path, or table:db.name).")

@@ -110,3 +110,21 @@ def buckets_and_arms(spec: Spec, ids: Sequence[str | None]) -> tuple[list[int | 
     arms: list[str | None] = [names[bisect_right(cum, b)] for b in buckets]  # type: ignore[type-var]
     _blank_missing(ids, buckets, arms)
     return buckets, arms
+
+
+def arms_to_keep(spec: Spec, only: list[str]) -> set[str] | None:
+    """The arm names that --only selects (an arm name, or a role naming every arm with it); None = all.
+    A value that is neither is a ValueError naming the arms and roles."""
+    if not only:
+        return None
+    keep: set[str] = set()
+    roles = {"holdout": spec.holdout_arms, "exposed": spec.exposed_arms}
+    for value in only:
+        if value in spec.arm_names:
+            keep.add(value)
+        elif value in roles:
+            keep.update(roles[value])
+        else:
+            raise ValueError(f"{value!r} is neither an arm of the spec ({', '.join(spec.arm_names)}) "
+                             "nor a role (holdout, exposed)")
+    return keep

@@ -10,8 +10,12 @@ from __future__ import annotations
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from .errors import SpecError
+
+if TYPE_CHECKING:
+    from .spec import Spec
 
 SPEC_SUFFIX = ".toml"
 
@@ -64,3 +68,20 @@ def refuse_shared_salt(path: Path, salt: str, notes: list[str] | None = None) ->
                 "folder: two tests with one salt split visitors identically, so their arms nest and each "
                 "confounds the other. Give one of them a fresh salt before its test starts (armlock init "
                 "draws one), or move a copy that is not a running test out of the folder")
+
+
+def alongside_specs(spec_path: Path, given: list[Path], notes: list[str]) -> list[tuple[str, Spec]]:
+    """The specs named by --alongside: each file, and every other spec of each folder (validated;
+    the audited spec itself is left out, a copy of it is not). What a folder's reading noticed goes
+    to `notes`."""
+    from .spec import load_spec
+
+    out: dict[Path, tuple[str, Spec]] = {}
+    me = spec_path.resolve()
+    for item in given:
+        files = ([s.path for s in folder_specs(item, exclude=spec_path, notes=notes)] if item.is_dir()
+                 else [item])
+        for f in files:
+            if f.resolve() != me:
+                out.setdefault(f.resolve(), (str(f), load_spec(f)))
+    return list(out.values())

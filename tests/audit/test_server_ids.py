@@ -45,11 +45,11 @@ def test_server_set_ids_remove_the_churn_of_the_capped_browser(tmp_path: Path) -
 
 
 def test_demo_variant_with_server_ids(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    from armlock import cmd_demo
+    from armlock import demo as demo_lib
 
-    weeks = cmd_demo.weekly_as_of()
-    monkeypatch.setattr(cmd_demo, "weekly_as_of", lambda: weeks[-1:])  # only the last week's audit
-    res = cmd_demo.build_demo(tmp_path / "demo", units=6_000, server_ids=True)
+    weeks = demo_lib.weekly_as_of()
+    monkeypatch.setattr(demo_lib, "weekly_as_of", lambda: weeks[-1:])  # only the last week's audit
+    res = demo_lib.build_demo(tmp_path / "demo", units=6_000, server_ids=True)
     spec_text = (tmp_path / "demo" / "quillmoss-retargeting.toml").read_text(encoding="utf-8")
     assert 'id_from = "server"' in spec_text
     assert "server-set ids" in (tmp_path / "demo" / "README.txt").read_text(encoding="utf-8")

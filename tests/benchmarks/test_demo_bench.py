@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from armlock.cmd_demo import SPEC_FILE, build_demo, weekly_as_of
+from armlock.demo import SPEC_FILE, build_demo, weekly_as_of
 from armlock.assign import load_spec
 from armlock.shared.history import load, record
 from armlock.audit.model import AuditReport

@@ -165,13 +165,13 @@ def test_percent_inputs_and_the_default_reach_said(tmp_path: Path) -> None:
 
 def test_write_spec_writes_nothing_unless_it_validates(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     from armlock.assign import SpecError
-    from armlock.cmd_plan import write_spec_atomically
+    from armlock.plan.spec_out import write_spec_atomically
 
     carry = dict(planned_units=1000, margin=None, alpha=0.05, power=0.8)
     dest = tmp_path / "t.toml"
     spec = write_spec_atomically("t", 0.1, dest, force=False, carry=carry)
     assert dest.exists() and spec.arms[0].weight == 1000
-    import armlock.cmd_plan as cp
+    import armlock.plan.spec_out as cp
 
     real = cp.carry_plan_into_spec_text
     monkeypatch.setattr(cp, "carry_plan_into_spec_text", lambda text, **kw: real(text, **kw) + "\n[nonsense\n")
@@ -204,7 +204,7 @@ unit_id = "unit_id"           # the visitor id
 
 
 def test_plan_carries_into_the_readout_section() -> None:
-    from armlock.cmd_plan import carry_plan_into_spec_text
+    from armlock.plan.spec_out import carry_plan_into_spec_text
 
     out = carry_plan_into_spec_text(READOUT_SECTION, planned_units=1_260_000, margin=0.35, alpha=0.1, power=0.9)
     assert "planned_units = 1260000       # units the test plans; 0 = as of now" in out  # comment keeps its column

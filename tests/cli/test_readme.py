@@ -144,8 +144,8 @@ def test_snippet_sizes_in_the_readme_are_the_rendered_sizes(tmp_path: Path) -> N
 
 
 def test_demo_figures_in_the_readme_come_from_the_code() -> None:
-    from armlock import cmd_demo
+    from armlock import demo as demo_lib
 
     text = section("What the demo shows: `armlock demo`")
-    assert f"{cmd_demo.UNITS:,} visitors" in text
-    assert cmd_demo.WEEKS == 12 and "twelve weeks" in text
+    assert f"{demo_lib.UNITS:,} visitors" in text
+    assert demo_lib.WEEKS == 12 and "twelve weeks" in text

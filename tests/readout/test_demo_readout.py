@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from armlock.cmd_demo import build_demo
+from armlock.demo import build_demo
 
 
 def test_clean_demo_interval_covers_the_truth(tmp_path: Path) -> None:
