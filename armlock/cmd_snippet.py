@@ -25,7 +25,7 @@ def snippet(
         "-f",
         metavar="<html|js|module>",
         parser=FORM,
-        shell_complete=FORM.complete,
+        autocompletion=FORM.complete,
         help="html: a <script> block to paste into a tag manager's custom HTML tag; js: a file to self-host; "
         "module: an ES module of the split and the server-set id cookie for Node and edge runtimes "
         "(docs/identity.md).",

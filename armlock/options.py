@@ -31,7 +31,7 @@ class OneOf:
             return str(value)
         raise typer.BadParameter(f"unknown {self.what} {value!r}; choose {self.listing}", param_hint=self.flag)
 
-    def complete(self, ctx: Any, param: Any, incomplete: str) -> list[str]:
+    def complete(self, incomplete: str) -> list[str]:
         """Shell completion: the names that start with what was typed."""
         return [c for c in self.choices if c.startswith(incomplete)]
 
@@ -40,7 +40,7 @@ def format_option(formats: Sequence[str], help: str, default: str = "text") -> A
     """`--format`/`-f` with its choices (usage error, exit 2, for any other)."""
     kind = OneOf(formats, "format", "--format")
     return typer.Option(default, "--format", "-f", metavar=f"<{'|'.join(formats)}>", help=help, parser=kind,
-                        shell_complete=kind.complete)
+                        autocompletion=kind.complete)
 
 
 def as_of_day(text: str | None) -> date | None:
@@ -68,7 +68,7 @@ ACCEPT_CHANGED_SPLIT: Any = typer.Option(
 ENGINE_NAMES = ENGINES  # duckdb, pandas, spark (armlock.shared.engine)
 ENGINE: Any = typer.Option(
     "duckdb", "--engine", parser=OneOf(ENGINE_NAMES, "engine", "--engine", listing="duckdb, pandas or spark"),
-    shell_complete=OneOf(ENGINE_NAMES, "engine", "--engine").complete,
+    autocompletion=OneOf(ENGINE_NAMES, "engine", "--engine").complete,
     help="Where the rows are counted: duckdb (this machine, default: memory grows with units, not rows; "
          "spills to disk), pandas (this machine, every exposure row in memory) or spark (needs pip install "
          "'armlock[spark]' and Java 17; uses the active SparkSession, else starts one).")
