@@ -57,7 +57,7 @@ print(json.dumps({"peak_mb": _peak_mb(), "cpu_s": _cpu_s()}))
 """,
     "audit (native)": _PEAK + """
 from armlock.audit.run import run_audit
-from armlock.audit.engine_duckdb import DuckDBEngine
+from armlock.shared.engine_duckdb import DuckDBEngine
 eng = DuckDBEngine()
 rep = run_audit(spec, visits=d + "/visits.parquet", exposures=d + "/exposures.parquet",
                 identities=d + "/identities.parquet", engine=eng)
@@ -66,7 +66,7 @@ print(json.dumps({"peak_mb": _peak_mb(), "cpu_s": _cpu_s(), "verdict": rep.verdi
 """,
     "audit (sliced reader)": _PEAK + """
 from armlock.audit.run import run_audit
-from armlock.audit.engine_duckdb import DuckDBEngine
+from armlock.shared.engine_duckdb import DuckDBEngine
 rep = run_audit(spec, visits=d + "/visits.parquet", exposures=d + "/exposures.parquet",
                 identities=d + "/identities.parquet", engine=DuckDBEngine(native=False))
 print(json.dumps({"peak_mb": _peak_mb(), "cpu_s": _cpu_s(), "verdict": rep.verdict}))

@@ -103,7 +103,7 @@ print(json.dumps({"maxrss_kb": _peak_kb(), "rows": rows}))
 """
 _CHILD_AUDIT_SLICED = _CHILD_AUDIT.replace(
     "from armlock.audit.run import run_audit",
-    "from armlock.audit.run import run_audit\nfrom armlock.audit.engine_duckdb import DuckDBEngine").replace(
+    "from armlock.audit.run import run_audit\nfrom armlock.shared.engine_duckdb import DuckDBEngine").replace(
     'identities=d + "/identities.parquet")', 'identities=d + "/identities.parquet", engine=DuckDBEngine(native=False))')
 _CHILD_AUDIT_PANDAS = _CHILD_AUDIT.replace('identities=d + "/identities.parquet")',
                                            'identities=d + "/identities.parquet", engine="pandas")')

@@ -1,7 +1,7 @@
 """The DuckDB engine's native exposure path (DuckDB reads the Parquet log itself) against its sliced reader.
 
 Each case runs the DuckDB engine twice on the same files, once on the native path
-(`audit/engine_duckdb_native.py`) and once forced onto the sliced reader (`native=False`), and
+(`shared/engine_duckdb_native.py`) and once forced onto the sliced reader (`native=False`), and
 asserts equal tables, notes, counts and JSON reports (and the pandas engine's, the reference of
 `test_duckdb_engine.py`): every seeded fault of `audit/synth.py`, exact duplicates in a log in whole
 seconds, an as-of cut, empty ids, missing times, unmapped and missing kinds, missing campaigns,
@@ -25,9 +25,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from armlock.assign import InputError, Spec
-from armlock.audit import engine_duckdb_native
-from armlock.audit.engine import Inputs, PandasEngine
-from armlock.audit.engine_duckdb import DuckDBEngine
+from armlock.shared import engine_duckdb_native
+from armlock.shared.engine import Inputs, PandasEngine
+from armlock.shared.engine_duckdb import DuckDBEngine
 from armlock.audit.synth import FAULTS, generate, write_logs
 
 from .test_spark_engine import _spec, assert_parity
