@@ -10,8 +10,11 @@ Every sum is exact or taken in a fixed order (`readout.rules`), so the Spark eng
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from datetime import date
+from fractions import Fraction
 
 import numpy as np
 import pandas as pd
@@ -56,26 +59,36 @@ def with_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date, audit_tables
 
 
 def grouped_moments(names: tuple[str, ...], data: np.ndarray, group: np.ndarray, groups: int) -> list[Moments]:
-    """Moments of the rows of `data` (units x variables) in each group 0..groups-1, exactly (readout.rules)."""
+    """Moments of the rows of `data` (units x variables) in each group 0..groups-1, exactly (readout.rules).
+
+    Each column's sums, then each pair's sum of centred products, are exact per group (so the
+    order they are taken in does not matter); they run a column or a pair at a time on threads
+    (numpy's work releases Python's lock)."""
     k = len(names)
     n = np.bincount(group, minlength=groups)
-    col = np.tile(np.arange(k, dtype=np.int64), len(data))
-    sums = grouped_exact_sums(data.ravel(), np.repeat(group.astype(np.int64) * k, k) + col, groups * k)
-    means = np.array([means_of(int(n[g]), sums[g * k:(g + 1) * k]) for g in range(groups)]).reshape(groups, k)
-    d = data - means[group]
-    ia, ib = (np.array(x, dtype=np.int64) for x in zip(*pairs(k)))
-    with np.errstate(over="ignore", invalid="ignore"):  # values near 1e308: their products overflow
-        prods = d[:, ia] * d[:, ib]
-    p = len(ia)
-    cell = np.repeat(group.astype(np.int64) * p, p) + np.tile(np.arange(p, dtype=np.int64), len(data))
-    cross = grouped_exact_sums(prods.ravel(), cell, groups * p)
-    out = [moments_of(names, int(n[g]), means[g], cross[g * p:(g + 1) * p]) for g in range(groups)]
-    bad = ~np.isfinite(prods.ravel())
-    if bad.any():  # an overflowing product: that co-moment is infinite (the exact sum skips non-finite values)
-        for c in np.unique(cell[bad]):
-            g, j = divmod(int(c), p)
-            out[g].m2[ia[j], ib[j]] = out[g].m2[ib[j], ia[j]] = math.inf
+    group = group.astype(np.int64)
+    with ThreadPoolExecutor(max_workers=_WORKERS, thread_name_prefix="armlock-moments") as pool:
+        col_sums = list(pool.map(lambda j: grouped_exact_sums(data[:, j], group, groups), range(k)))
+        means = np.array([means_of(int(n[g]), [col_sums[j][g] for j in range(k)]) for g in range(groups)]).reshape(
+            groups, k)
+        d = data - means[group]
+        pp = pairs(k)
+
+        def cross(ab: tuple[int, int]) -> tuple[list[Fraction], np.ndarray]:
+            with np.errstate(over="ignore", invalid="ignore"):  # values near 1e308: their products overflow
+                prod = d[:, ab[0]] * d[:, ab[1]]
+            bad = ~np.isfinite(prod)
+            return grouped_exact_sums(prod, group, groups), np.unique(group[bad]) if bad.any() else group[:0]
+
+        sums = list(pool.map(cross, pp))
+    out = [moments_of(names, int(n[g]), means[g], [sums[j][0][g] for j in range(len(pp))]) for g in range(groups)]
+    for j, (a, b) in enumerate(pp):  # an overflowing product: that co-moment is infinite (the exact sum skips it)
+        for g in sums[j][1].tolist():
+            out[g].m2[a, b] = out[g].m2[b, a] = math.inf
     return out
+
+
+_WORKERS = max(1, min(os.cpu_count() or 1, 4))
 
 
 def _customer_positions(spec: Spec, fr: Frames, arm: np.ndarray, vset: object,
@@ -223,18 +236,22 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
     def capped_(r: np.ndarray) -> np.ndarray:
         return np.minimum(r, cap) if cap is not None else r
 
-    final = moments(final_names(covs), included,
-                    [capped_(revenue), orders_n, (orders_n > 0).astype(np.float64), exposed, *xs])
-    looks = []
-    for d in look_dates(spec, as_of):
+    def look(d: date) -> tuple[str, dict[str, Moments]] | None:
         lim = cutoff_of(d).value
         keep = fs < lim
         if window_ns is not None:
             keep &= fs + window_ns <= lim
         if not keep.any():
-            continue
+            return None
         r = revenue if lim >= cutoff else unit_sums(lim)[0]
-        looks.append((d.isoformat(), moments(look_names(covs), keep, [capped_(r), *xs])))
+        return d.isoformat(), moments(look_names(covs), keep, [capped_(r), *xs])
+
+    # the final moments and each look's on threads of their own (numpy's work releases Python's lock)
+    with ThreadPoolExecutor(max_workers=_WORKERS, thread_name_prefix="armlock-looks") as pool:
+        final_f = pool.submit(moments, final_names(covs), included,
+                              [capped_(revenue), orders_n, (orders_n > 0).astype(np.float64), exposed, *xs])
+        looks = [x for x in pool.map(look, look_dates(spec, as_of)) if x is not None]
+        final = final_f.result()
     return ReadoutTables(arms=arms, covariates=covs, final=final, looks=looks, attributed=attributed,
                          counts=counts, units=(v[UNIT][included], v[TIME][included], capped_(revenue)[included]),
                          orders_daily=orders_daily)

@@ -12,9 +12,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from armlock.assign import InputError, Spec
 from .exactsum import rounded_sum
+from .keys import arrow_ids
 from .load import cutoff_of
 from .read import (
     Source,
@@ -135,21 +137,30 @@ def _order_ids(frame: pd.DataFrame, oid: pd.Series, no_oid: np.ndarray,
     it is netted in the order's window whatever its own date.
     """
     is_ref = (frame[REV] < 0).to_numpy()
-    ids = pd.Series(oid.to_numpy(), dtype=object)
+    # order ids as integer codes (Arrow's dictionary encoding: equal codes exactly for equal ids)
+    enc = pc.dictionary_encode(arrow_ids(oid)).combine_chunks()
+    codes = pc.fill_null(enc.indices, -1).to_numpy(zero_copy_only=False).astype(np.int64)
     has = ~np.asarray(no_oid)
-    sale_dup = ids.where(~is_ref).duplicated(keep="first").to_numpy() & has & ~is_ref
     times = frame[TIME].to_numpy(dtype="datetime64[ns]")  # UTC; not an object array of Timestamps (slow)
-    ref_key = pd.DataFrame({"o": ids, "t": times, "r": frame[REV].to_numpy()})
-    ref_dup = ref_key.where(pd.Series(is_ref)).duplicated(keep="first").to_numpy() & has & is_ref
+    sale_rows = np.flatnonzero(~is_ref)
+    first = np.zeros(len(sale_rows), dtype=bool)  # each sale id's first row among the sales
+    first[np.unique(codes[sale_rows], return_index=True)[1]] = True
+    sale_dup = np.zeros(len(codes), dtype=bool)
+    sale_dup[sale_rows[~first]] = True
+    sale_dup &= has
+    ref_rows = np.flatnonzero(is_ref)  # a refund repeats only an earlier refund's id, time and amount
+    ref_key = pd.DataFrame({"o": codes[ref_rows], "t": times[ref_rows], "r": frame[REV].to_numpy()[ref_rows]})
+    ref_dup = np.zeros(len(codes), dtype=bool)
+    ref_dup[ref_rows[ref_key.duplicated(keep="first").to_numpy()]] = True
+    ref_dup &= has
     sales = has & ~is_ref & ~sale_dup
-    # each refund's order: its first usable sale (sale ids are unique here), looked up by position
-    usable = keep[sales]
-    sale_ids = pd.Index(ids[sales].to_numpy()[usable])
-    sale_times = times[sales][usable]
-    pos = sale_ids.get_indexer(ids) if len(sale_ids) else np.full(len(ids), -1)
-    found = (pos >= 0) & is_ref & has
-    when = np.full(len(ids), np.datetime64("NaT"), dtype="datetime64[ns]")
-    when[found] = sale_times[pos[found]]
+    # each refund's order: its first usable sale (sale ids are unique here), looked up by code
+    usable = np.flatnonzero(sales & keep)
+    sale_time = np.full(len(enc.dictionary) + 1, np.datetime64("NaT"), dtype="datetime64[ns]")
+    sale_time[codes[usable]] = times[usable]
+    when = np.full(len(codes), np.datetime64("NaT"), dtype="datetime64[ns]")
+    found = is_ref & has & (codes >= 0)
+    when[found] = sale_time[codes[found]]
     redate = pd.Series(pd.to_datetime(when, utc=True), index=frame.index)
     return sale_dup | ref_dup, redate
 
