@@ -1,7 +1,8 @@
 """armlock audit: logs -> sufficient statistics (engine) -> statistics -> verdicts -> reports.
 
 This module is the audit's public surface: the readout (its gate) uses the audit only through the
-names below, never through the audit's submodules (a lint rule in CI, `.importlinter`).
+names below, never through the audit's submodules (an import contract in CI: [tool.importlinter] in
+pyproject.toml, checked by scripts/layers.py).
 """
 
 from .feeds import FeedHealth, feed_health, feed_sentence
