@@ -17,21 +17,19 @@ import pyarrow as pa
 US_DAY = 86_400 * 10**6
 # code bits of a row: 1 an exposure during the test, 2 one before it, 4 before the start, 8 after the
 # start but before the unit's first visit (the flags of `engine_duckdb._CELLS_SQL`); 16 x the kind
-# (0 impression, 1 click, 2 other) of a row during the test.
-DUR, PRE, BEFORE_START, BEFORE_VISIT = 1, 2, 4, 8
+# (0 impression, 1 click, 2 other) of a row during the test; 64 a holdout unit's row during the test (a leak).
+DUR, PRE, BEFORE_START, BEFORE_VISIT, LEAK = 1, 2, 4, 8, 64
 
 # Each joined row: its unit's row (NULL: no unit), its code, its id when it has no unit, its campaign
-# code and time when it is a holdout unit's exposure during the test (a leak), and its time and
-# campaign and kind label codes when its time is one another row has (a possible exact repeat).
+# code and time when it is a leak or its time is one another row has (a possible exact repeat), and
+# then its kind label code too. Few rows are either: the rest come back as 5 bytes and null bits.
 ROWS_SQL = """
 SELECT pos,
        (CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END
-        + CASE WHEN dur THEN 16 * {kind} ELSE 0 END)::TINYINT AS code,
+        + CASE WHEN dur THEN 16 * {kind} ELSE 0 END + CASE WHEN dur AND hold THEN 64 ELSE 0 END)::TINYINT AS code,
        CASE WHEN pos IS NULL THEN id END AS uid,
-       CASE WHEN dur AND hold THEN {camp} END AS lcamp,
-       CASE WHEN dur AND hold THEN t END AS lt,
-       CASE WHEN tie THEN t END AS tk,
-       CASE WHEN tie THEN {camp} END AS ck,
+       CASE WHEN tie OR (dur AND hold) THEN {camp} END AS cc,
+       CASE WHEN tie OR (dur AND hold) THEN t END AS tt,
        CASE WHEN tie THEN {kl} END AS kk
 FROM (
   SELECT e.id, e.t, e.camp, e.kl, v.pos, v.fs, v.hold, {tie} AS tie,
@@ -65,7 +63,7 @@ class Dense:
         self.copies += self._count(ps)
         dur = (cs & DUR) != 0
         self.pre += self._count(ps[~dur])
-        kind = cs >> 4
+        kind = (cs >> 4) & 3
         self.imps += self._count(ps[dur & (kind == 0)])
         self.clks += self._count(ps[dur & (kind == 1)])
         self.bs += self._count(ps[(cs & BEFORE_START) != 0])
@@ -73,22 +71,22 @@ class Dense:
         if not seen.all():
             uid = b.column(2).filter(pa.array(~seen))
             self.unseen.append(pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")]))
-        lcamp = b.column(3)
-        if lcamp.null_count < len(lcamp):
-            m = lcamp.is_valid()
+        leak = (code & LEAK) != 0
+        if leak.any():
+            m = pa.array(leak)
             lt = b.column(4).filter(m).to_numpy(zero_copy_only=False)
-            k = code[np.asarray(m.to_numpy(zero_copy_only=False), dtype=bool)] >> 4
-            t = pa.table({"pos": b.column(0).filter(m), "lcamp": lcamp.filter(m), "lweek": pa.array(_week(lt)),
+            k = (code[leak] >> 4) & 3
+            t = pa.table({"pos": b.column(0).filter(m), "lcamp": b.column(3).filter(m), "lweek": pa.array(_week(lt)),
                           "lt": pa.array(lt), "i": pa.array((k == 0).astype(np.int64)),
                           "c": pa.array((k == 1).astype(np.int64))})
             self.leaks.append(t.group_by(["pos", "lcamp", "lweek"]).aggregate(
                 [("lt", "min"), ("i", "sum"), ("c", "sum")]).rename_columns(["pos", "lcamp", "lweek", "lt", "i", "c"]))
-        tk = b.column(5)
-        if tk.null_count < len(tk):
-            m = tk.is_valid()
-            self.ties.append(pa.table({"pos": b.column(0).filter(m), "uid": b.column(2).filter(m), "tk": tk.filter(m),
-                                       "ck": b.column(6).filter(m), "kk": b.column(7).filter(m),
-                                       "code": b.column(1).filter(m), "lcamp": lcamp.filter(m)}))
+        kk = b.column(5)
+        if kk.null_count < len(kk):
+            m = kk.is_valid()
+            self.ties.append(pa.table({"pos": b.column(0).filter(m), "uid": b.column(2).filter(m),
+                                       "tk": b.column(4).filter(m), "ck": b.column(3).filter(m), "kk": kk.filter(m),
+                                       "code": b.column(1).filter(m)}))
 
     def repeats(self, days: dict[int, int]) -> int:
         """Take each exact repeat off the counts (and off `days`); the number of repeats."""
@@ -97,7 +95,7 @@ class Dense:
         t = pa.concat_tables(self.ties)
         self.ties = []
         g = t.group_by(["pos", "uid", "tk", "ck", "kk"]).aggregate(
-            [("code", "min"), ("lcamp", "min"), ("tk", "count")])
+            [("code", "min"), ("tk", "count")])
         extra = g.column("tk_count").to_numpy() - 1
         keep = extra > 0
         if not keep.any():
@@ -109,7 +107,7 @@ class Dense:
         tk = g.column("tk").to_numpy(zero_copy_only=False)
         for d, n in zip((tk // US_DAY).tolist(), extra.tolist()):
             days[d] = days.get(d, 0) - n
-        dur, kind = (code & DUR) != 0, code >> 4
+        dur, kind = (code & DUR) != 0, (code >> 4) & 3
         ps, es = pos[seen], extra[seen]
         self.copies -= np.bincount(ps, weights=es, minlength=self.n).astype(np.int64)  # now the distinct rows
         self.pre -= np.bincount(ps[~dur[seen]], weights=es[~dur[seen]], minlength=self.n).astype(np.int64)
@@ -120,12 +118,11 @@ class Dense:
             un = pa.table({"uid": g.column("uid").filter(pa.array(~seen)),
                            "uid_count": pa.array(-extra[~seen])})
             self.unseen.append(un)
-        lc = g.column("lcamp_min")
-        if lc.null_count < len(lc):
-            m = np.asarray(lc.is_valid().to_numpy(zero_copy_only=False), dtype=bool)
+        m = (code & LEAK) != 0
+        if m.any():
             k = kind[m]
             self.leaks.append(pa.table({
-                "pos": g.column("pos").filter(pa.array(m)), "lcamp": lc.filter(pa.array(m)),
+                "pos": g.column("pos").filter(pa.array(m)), "lcamp": g.column("ck").filter(pa.array(m)),
                 "lweek": pa.array(_week(tk[m])), "lt": pa.array(tk[m]),
                 "i": pa.array(-extra[m] * (k == 0)), "c": pa.array(-extra[m] * (k == 1))}))
         return int(extra.sum())

@@ -252,7 +252,9 @@ class Native:
             camp=self._code("camp", self.camps, list(range(len(self.camps)))),
             tie="tt.t IS NOT NULL" if tied else "false", kl=self._code("kl", self.kinds, list(range(len(self.kinds)))))
         dense = Dense(units)
-        for batch in con.sql(sql).to_arrow_reader(max(BATCH_ROWS, units)):
+        # batches of about as many rows as units (each bincount walks the units' arrays once), within
+        # 1-4 M rows (a batch, about 20 bytes a row, is held while it is summed)
+        for batch in con.sql(sql).to_arrow_reader(max(BATCH_ROWS, min(units, 1 << 22))):
             dense.add(batch)
         self.scan.duplicates = dense.repeats(self.days)
         self.scan.days = {d: n for d, n in self.days.items() if n}
@@ -280,7 +282,7 @@ def prepared(ce: ExposureColumns, path: Path, con: Any) -> Native | None:
 
 
 NO_ID = "(id IS NULL OR id = '')"
-BATCH_ROWS = 1 << 21  # rows per batch DuckDB hands back (at least as many as there are units)
+BATCH_ROWS = 1 << 20  # rows per batch DuckDB hands back (more when there are more units, up to 4 M)
 MAX_LABELS = 1000  # campaign or kind labels the SQL maps to codes; more go to the sliced reader
 
 
