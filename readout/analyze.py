@@ -24,7 +24,7 @@ from .model import (
     NOT_COVERED,
     ReadoutReport,
 )
-from armlock.shared.words import ANSWER_WORD
+from armlock.shared.words import ANSWER_WORD, fixed, money_text, percent_whole
 
 from .decision import decide
 from .money import money
@@ -71,16 +71,6 @@ def _primary(a: Moments, b: Moments, covs: list[str], alpha: float) -> Estimate:
     return welch(a, b, "revenue", alpha)
 
 
-def money_text(v: float | None, cur: str) -> str:
-    if v is None or not math.isfinite(v):
-        return "n/a"
-    return f"{'-' if v < 0 else ''}{cur} {abs(v):,.0f}"
-
-
-def _num(v: float | None, digits: int = 2) -> str:
-    return "n/a" if v is None or not math.isfinite(v) else f"{v:,.{digits}f}"
-
-
 def headline(m: Money, d: Decision, status: str, failing: list[Check], level: int,
              missing: list[NotChecked] | None = None) -> str:
     """The decision first, then the money on the same interval (anytime before the planned final
@@ -100,11 +90,11 @@ def headline(m: Money, d: Decision, status: str, failing: list[Check], level: in
         said += f" for spend {money_text(m.spend, cur)}"
         if m.roi is not None and m.roi.value is not None:
             rlo, rhi = (m.roi.anytime_lo, m.roi.anytime_hi) if anytime else (m.roi.lo, m.roi.hi)
-            said += f"; ROI {_pct(m.roi.value)} ({_pct(rlo)} to {_pct(rhi)})"
+            said += f"; ROI {percent_whole(m.roi.value)} ({percent_whole(rlo)} to {percent_whole(rhi)})"
     if m.attributed_revenue is not None:
         said += f"; attribution credited {money_text(m.attributed_revenue, cur)}"
         if m.attributed_roas is not None:
-            said += f" (ROAS {_num(m.attributed_roas)})"
+            said += f" (ROAS {fixed(m.attributed_roas, missing='n/a')})"
     said += "."
     gaps = [m for m in (missing or []) if m.gate]
     if status == "fail":
@@ -119,10 +109,6 @@ def headline(m: Money, d: Decision, status: str, failing: list[Check], level: in
     if d.withheld:
         return f"NOT TRUSTWORTHY: {d.reason} " + said
     return f"{ANSWER_WORD[d.answer].capitalize()}: {d.reason} " + said
-
-
-def _pct(v: float | None) -> str:
-    return "n/a" if v is None or not math.isfinite(v) else f"{v * 100:.0f}%"
 
 
 def _gap_words(gaps: list[NotChecked]) -> str:

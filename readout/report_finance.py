@@ -6,15 +6,18 @@ the interval the decision used (anytime before the planned final look, fixed at 
 
 from __future__ import annotations
 
-import math
+import functools
 
 from armlock.shared.html import (
     esc,
 )
-from armlock.shared.words import STATUS_WORD
+from armlock.shared.words import MINUS, STATUS_WORD, money_text, percent_whole, ratio_text
 
 from .model import Interval, ReadoutReport
 from .render import decision_word
+
+# amounts on a page carry the typographic minus
+_money_page = functools.partial(money_text, minus=MINUS)
 
 _COLOURS = {"pays": ("#17603a", "#e3f2e8"), "does_not_pay": ("#9e1f24", "#fbe4e3"),
             "not_yet_known": ("#3d4a50", "#eceff1")}
@@ -53,20 +56,6 @@ footer { margin-top: .8rem; font-size: .75rem; color: #4f5a5e; }
 """
 
 
-def _money(v: float | None, cur: str) -> str:
-    if v is None or not math.isfinite(v):
-        return "n/a"
-    return f"{'−' if v < 0 else ''}{cur} {abs(v):,.0f}"
-
-
-def _pct(v: float | None) -> str:
-    return "n/a" if v is None or not math.isfinite(v) else f"{v * 100:.0f}%"
-
-
-def _ratio(v: float | None) -> str:
-    return "n/a" if v is None or not math.isfinite(v) else f"{v:.2f}"
-
-
 def _span(iv: Interval | None, f: object, anytime: bool) -> str:
     if iv is None:
         return ""
@@ -83,18 +72,18 @@ def render_finance(r: ReadoutReport) -> str:
     fg, bg = _COLOURS["not_yet_known" if d.withheld else d.answer]
     which = f"{d.level}% {'anytime' if anytime else 'fixed-horizon'} interval"
     kpis = [
-        ("net contribution after media cost", _money(m.net_contribution.value if m.net_contribution else None, cur),
-         _span(m.net_contribution, lambda v: _money(v, cur), anytime)),
+        ("net contribution after media cost", _money_page(m.net_contribution.value if m.net_contribution else None, cur),
+         _span(m.net_contribution, lambda v: _money_page(v, cur), anytime)),
         ("the same a year, at the current spend",
-         _money(m.net_contribution_per_year.value if m.net_contribution_per_year else None, cur),
-         _span(m.net_contribution_per_year, lambda v: _money(v, cur), anytime)),
-        ("ROI (incremental profit − spend) / spend", _pct(m.roi.value if m.roi else None),
-         _span(m.roi, _pct, anytime)),
-        (f"iROAS against break-even {_ratio(d.breakeven_iroas)}", _ratio(m.iroas.value if m.iroas else None),
-         _span(m.iroas, _ratio, anytime)),
-        ("incremental revenue", _money(m.incremental_revenue.value, cur),
-         _span(m.incremental_revenue, lambda v: _money(v, cur), anytime)),
-        ("media spend", _money(m.spend, cur), ""),
+         _money_page(m.net_contribution_per_year.value if m.net_contribution_per_year else None, cur),
+         _span(m.net_contribution_per_year, lambda v: _money_page(v, cur), anytime)),
+        ("ROI (incremental profit − spend) / spend", percent_whole(m.roi.value if m.roi else None),
+         _span(m.roi, percent_whole, anytime)),
+        (f"iROAS against break-even {ratio_text(d.breakeven_iroas)}", ratio_text(m.iroas.value if m.iroas else None),
+         _span(m.iroas, ratio_text, anytime)),
+        ("incremental revenue", _money_page(m.incremental_revenue.value, cur),
+         _span(m.incremental_revenue, lambda v: _money_page(v, cur), anytime)),
+        ("media spend", _money_page(m.spend, cur), ""),
     ]
     cells = "".join(f"<div><dt>{esc(k)}</dt><dd>{esc(v)}</dd>" + (f'<dd class="range">{esc(which)}: {esc(rng)}</dd>'
                                                                    if rng else "") + "</div>" for k, v, rng in kpis)
@@ -109,8 +98,8 @@ def render_finance(r: ReadoutReport) -> str:
                 ("arms", arms), ("visitors in the test", plan),
                 ("this look", d.stage[:1].upper() + d.stage[1:]),
                 ("audit gate", f"{STATUS_WORD[r.status]}" + ("" if r.trustworthy else ": not trustworthy")),
-                ("attribution credited", _money(m.attributed_revenue, cur)
-                 + (f" (ROAS {_ratio(m.attributed_roas)})" if m.attributed_roas is not None else ""))]
+                ("attribution credited", _money_page(m.attributed_revenue, cur)
+                 + (f" (ROAS {ratio_text(m.attributed_roas)})" if m.attributed_roas is not None else ""))]
         design = "".join(f"<tr><th scope=\"row\">{esc(k)}</th><td>{esc(v)}</td></tr>" for k, v in rows)
     gaps = "".join(f"<li>{esc(x)}</li>" for x in r.not_covered)
     return f"""<!DOCTYPE html>

@@ -6,6 +6,8 @@ with mathtext off (the audit report's settings), so ids or currency signs are sh
 
 from __future__ import annotations
 
+import functools
+
 import math
 from typing import Any
 
@@ -34,8 +36,13 @@ from armlock.shared.html import (
     esc,
 )
 
+from armlock.shared.words import MINUS, money_text, percent_whole, ratio_text
+
 from .model import Interval, ReadoutReport
 from .render import MARK, _adjust_line, decision_word, tables
+
+# amounts on a page carry the typographic minus
+_money_page = functools.partial(money_text, minus=MINUS)
 
 ANYTIME_BAND = "#dce9ef"  # pale blue: the wider, anytime band; the fixed band is the audit's sand
 _GATE_WORDS = {  # status -> word on the banner, text colour, background
@@ -166,12 +173,6 @@ def chart_roas(r: ReadoutReport, chart_id: str, narrow: bool = False) -> str:
     return svg(fig, chart_id, "Measured iROAS with its intervals against the ROAS attribution credited")
 
 
-def _money(v: float | None, cur: str, digits: int = 0) -> str:
-    if v is None or not math.isfinite(v):
-        return "n/a"
-    return f"{'−' if v < 0 else ''}{cur} {abs(v):,.{digits}f}"
-
-
 def _range(iv: Interval | None, f: Any, anytime: bool = False) -> str:
     if iv is None:
         return ""
@@ -186,22 +187,20 @@ def _figures(r: ReadoutReport) -> str:
     level = round(100 * (1 - r.settings.get("alpha", 0.05)))
     at = r.decision.basis == "anytime"  # the interval the decision reads, on the figures too
     word = f"{level}% anytime" if at else f"{level}%"
-    ratio = lambda v: "n/a" if v is None or not math.isfinite(v) else f"{v:.2f}"  # noqa: E731
-    pct = lambda v: "n/a" if v is None or not math.isfinite(v) else f"{v * 100:.0f}%"  # noqa: E731
     items = [
-        ("incremental revenue", _money(m.incremental_revenue.value, cur), _range(m.incremental_revenue, lambda v: _money(v, cur), at)),
-        ("incremental profit", _money(m.incremental_profit.value, cur), _range(m.incremental_profit, lambda v: _money(v, cur), at)),
-        ("net contribution after spend", _money(m.net_contribution.value, cur) if m.net_contribution else "n/a",
-         _range(m.net_contribution, lambda v: _money(v, cur), at)),
-        ("spend", _money(m.spend, cur), ""),
-        ("iROAS", ratio(m.iroas.value) if m.iroas else "n/a", _range(m.iroas, ratio, at)),
-        ("ROI", pct(m.roi.value) if m.roi else "n/a", _range(m.roi, pct, at)),
-        ("cost per incremental buyer", _money(m.cost_per_incremental_buyer.value, cur, 2) if m.cost_per_incremental_buyer else "n/a",
-         _range(m.cost_per_incremental_buyer, lambda v: _money(v, cur, 2), at)),
-        ("attributed revenue", _money(m.attributed_revenue, cur), ""),
-        ("attributed ROAS", ratio(m.attributed_roas), ""),
-        ("incremental ÷ attributed", ratio(m.incremental_to_attributed.value) if m.incremental_to_attributed else "n/a",
-         _range(m.incremental_to_attributed, ratio, at)),
+        ("incremental revenue", _money_page(m.incremental_revenue.value, cur), _range(m.incremental_revenue, lambda v: _money_page(v, cur), at)),
+        ("incremental profit", _money_page(m.incremental_profit.value, cur), _range(m.incremental_profit, lambda v: _money_page(v, cur), at)),
+        ("net contribution after spend", _money_page(m.net_contribution.value, cur) if m.net_contribution else "n/a",
+         _range(m.net_contribution, lambda v: _money_page(v, cur), at)),
+        ("spend", _money_page(m.spend, cur), ""),
+        ("iROAS", ratio_text(m.iroas.value) if m.iroas else "n/a", _range(m.iroas, ratio_text, at)),
+        ("ROI", percent_whole(m.roi.value) if m.roi else "n/a", _range(m.roi, percent_whole, at)),
+        ("cost per incremental buyer", _money_page(m.cost_per_incremental_buyer.value, cur, 2) if m.cost_per_incremental_buyer else "n/a",
+         _range(m.cost_per_incremental_buyer, lambda v: _money_page(v, cur, 2), at)),
+        ("attributed revenue", _money_page(m.attributed_revenue, cur), ""),
+        ("attributed ROAS", ratio_text(m.attributed_roas), ""),
+        ("incremental ÷ attributed", ratio_text(m.incremental_to_attributed.value) if m.incremental_to_attributed else "n/a",
+         _range(m.incremental_to_attributed, ratio_text, at)),
     ]
     cells = "".join(f"<div><dt>{esc(label)}</dt><dd>{esc(value)}</dd>"
                     + (f'<dd class="range">{word}: {esc(rng)}</dd>' if rng else "") + "</div>"

@@ -139,13 +139,33 @@ def sig3(x: float) -> str:
     return f"{x:#.3g}".rstrip(".")
 
 
-def fixed(v: float | None, digits: int = 2) -> str:
-    """A number with a fixed count of decimals and thousands separators; '-' when there is none."""
+def fixed(v: float | None, digits: int = 2, missing: str = "-") -> str:
+    """A number with a fixed count of decimals and thousands separators; `missing` when there is none."""
     if v is None or not math.isfinite(v):
-        return "-"
+        return missing
     return f"{v:,.{digits}f}"
 
 
 def percent_fixed(v: float | None, digits: int = 1) -> str:
     """A share as percent with a fixed count of decimals: 0.0213 -> '2.1%'; '-' when there is none."""
     return "-" if v is None or not math.isfinite(v) else f"{v * 100:.{digits}f}%"
+
+
+MINUS = "\u2212"  # the typographic minus the pages write amounts with (text outputs keep the hyphen)
+
+
+def money_text(v: float | None, currency: str, digits: int = 0, *, minus: str = "-") -> str:
+    """An amount with its currency: 'USD 35,203', '-USD 1,735' (or with `minus`); 'n/a' when there is none."""
+    if v is None or not math.isfinite(v):
+        return "n/a"
+    return f"{minus if v < 0 else ''}{currency} {abs(v):,.{digits}f}"
+
+
+def percent_whole(v: float | None) -> str:
+    """A ratio as a whole percent: -0.41 -> '-41%'; 'n/a' when there is none (ROI in headlines and pages)."""
+    return "n/a" if v is None or not math.isfinite(v) else f"{v * 100:.0f}%"
+
+
+def ratio_text(v: float | None) -> str:
+    """A ratio to two decimals: 4.99; 'n/a' when there is none (iROAS, ROAS on the pages)."""
+    return "n/a" if v is None or not math.isfinite(v) else f"{v:.2f}"
