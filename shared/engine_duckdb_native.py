@@ -1,9 +1,10 @@
 """The DuckDB engine's native exposure path: DuckDB reads a Parquet exposure log itself, the row rules in SQL.
 
 For the common case, a Parquet log with text ids, zoned timestamps and text labels, sorted by time
-as exports usually are, no exposure row passes through Python: DuckDB's own parallel Parquet
-reader feeds the join to the units and the grouping (`CELLS_SQL`). The rules are the sliced
-reader's (`engine_duckdb_read`, itself `audit.load`'s), written in SQL:
+as exports usually are, DuckDB's own parallel Parquet reader feeds the join to the units, and
+each joined row comes back as a unit's row number and a one-byte code that
+`engine_duckdb_dense.Dense` sums per unit (no exposure row becomes a Python value). The rules
+are the sliced reader's (`engine_duckdb_read`, itself `shared.load`'s), written in SQL:
 
 - rows with an empty or null id, or a null time, are set aside and counted; the first ones are
   named by their position in the file (`file_row_number`), so the notes are word for word the
@@ -14,9 +15,9 @@ reader's (`engine_duckdb_read`, itself `audit.load`'s), written in SQL:
   order by its own code over the kind column alone;
 - exact duplicates (same id, time, campaign and kind) count once. Only rows that share a time
   with another row can repeat one, so one pass over the time column alone (Arrow, a row group at a
-  time, `time_pass`) finds the times that occur more than once; in DuckDB's grouping a row with
-  such a time also keys its group by that time, its campaign and its kind, so its exact repeats
-  share one group, counted once (`CELLS_ONCE_SQL`).
+  time, `time_pass`) finds the times that occur more than once; a row with such a time comes
+  back with its time, campaign and kind, and its exact repeats are found among those few rows
+  and counted once (`Dense.repeats`).
 
 That pass also checks what SQL would not say the same way. The sliced reader takes over, and
 gives the same report, for: CSV and CSV.gz files (text times follow pandas' parsing rules, which SQL
@@ -156,7 +157,7 @@ class Native:
     """The native path over one exposure log. `prepare` (on a worker thread, while the visits are
     read: it needs neither the units nor the as-of day) counts the rows with no id or no time and
     the kinds that are neither, and keeps the times more than one row has (`tied_t`); `finish` applies the
-    as-of day; `cells` fills DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` does (campaigns
+    as-of day; `cells` registers DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` makes it (campaigns
     as their labels rather than codes)."""
 
     def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType, tp: TimePass) -> None:
