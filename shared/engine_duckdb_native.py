@@ -157,8 +157,8 @@ class Native:
     """The native path over one exposure log. `prepare` (on a worker thread, while the visits are
     read: it needs neither the units nor the as-of day) counts the rows with no id or no time and
     the kinds that are neither, and keeps the times more than one row has (`tied_t`); `finish` applies the
-    as-of day; `cells` registers DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` makes it (campaigns
-    as their labels rather than codes)."""
+    as-of day; `cells` registers DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` makes it (campaign
+    codes index `camps`, this log's labels in sorted order)."""
 
     def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType, tp: TimePass) -> None:
         self.ce, self.path, self.tp = ce, path, tp
