@@ -2,15 +2,13 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from pathlib import Path
 
 import typer
 
 from armlock.assign import Spec
-from armlock.assign.spec_audit import AuditThresholds
 from armlock.audit.model import AuditReport
-from armlock.audit.render import RENDERERS
+from armlock.audit.render import FORMATS, render_as
 from armlock.shared.words import status_word
 
 from .common import emit, err, open_spec_and_lock, progress
@@ -28,20 +26,6 @@ from .options import (
     engine_settings,
     format_option,
 )
-
-# The report formats: one renderer per name (add a format with one line here).
-FORMATS: dict[str, Callable[[AuditReport], str]] = dict(RENDERERS)
-
-
-def _html(report: AuditReport, history: list[dict] | None = None,
-          thresholds: AuditThresholds | None = None) -> str:
-    from armlock.audit.report_html import render_html  # matplotlib loads only when html is asked for
-
-    return render_html(report, history, thresholds=thresholds)
-
-
-FORMATS["html"] = _html
-
 
 def finish(command: str, experiment: str, as_of: str, verdict: str, checks: list[tuple[str, str]],
            strict: bool) -> None:
@@ -100,7 +84,7 @@ def audit_cmd(
     exposures: str = typer.Option(None, "--exposures", help="The ad vendor's exposure log (impressions, clicks); enables the leakage check."),
     identities: str = typer.Option(None, "--identities", help="Identity links: unit id -> logged-in customer key; enables the churn check."),
     as_of: str = typer.Option(None, "--as-of", help="Audit as of the end of this UTC day (YYYY-MM-DD); later rows are ignored. Default: the last first-seen day."),
-    fmt: str = format_option(list(FORMATS), help="Report format: text for a terminal, markdown for a ticket, json (schema armlock.audit/1) for machines, html for a self-contained page."),
+    fmt: str = format_option(FORMATS, help="Report format: text for a terminal, markdown for a ticket, json (schema armlock.audit/1) for machines, html for a self-contained page."),
     out: Path = REPORT_OUT,
     strict: bool = typer.Option(False, "--strict", help="Exit 1 when the verdict is WARN (default: 0)."),
     record: bool = typer.Option(False, "--record", help="Keep this run's figures in the history file (one row per as-of date; a rerun replaces it)."),
@@ -157,8 +141,8 @@ def audit_cmd(
         if report.data_through:
             err(f"Recorded under {report.as_of}, but the visits end on {report.data_through}: "
                 "this row of the history holds data through that day only")
-    text = (_html(report, history.load(hist, report.fingerprint), spec.audit.thresholds) if fmt == "html"
-            else FORMATS[fmt](report))
+    text = render_as(report, fmt, history.load(hist, report.fingerprint) if fmt == "html" else None,
+                     spec.audit.thresholds)
     emit(text, out, what="the report",
          done=f"Wrote the {fmt} report to {out}: verdict {status_word(report.verdict)} ({report.verdict_text})")
     if alert is not None and not isinstance(before, bool):  # False: the history could not be read (said)

@@ -10,10 +10,11 @@ import typer
 from armlock.assign import InputError
 
 
+from armlock.plan.render import FORMATS
+
 from .common import emit, err
 from .options import format_option
 
-FORMATS = ("text", "markdown", "json", "html")
 
 
 def _number(part: str, flag: str) -> float:
@@ -139,7 +140,7 @@ def plan_cmd(
       armlock plan --weekly-units 40000 --revenue-mean 7 --revenue-sd 75 --exposure-rate 60% \\
           --effect 0.35 --weekly-spend 12000 --margin 40% --rho 0.3 --write-spec spring-retargeting
     """
-    from armlock.plan.render import RENDERERS
+    from armlock.plan.render import render_as
     from armlock.plan.request import PlanRequest, plan_for
 
     reach = parse_fraction(exposure_rate, "--exposure-rate")
@@ -158,16 +159,7 @@ def plan_cmd(
         shares=shares, weeks=week_list, max_weeks=max_weeks, prefer=prefer, against=against, currency=currency,
         write_spec=write_spec, spec_out=spec_out, force=force))
     plan, spec, dest = outcome.plan, outcome.spec, outcome.spec_path
-    if fmt == "html":
-        from armlock.plan.report_html import render_html
-
-        text = render_html(plan)
-    elif fmt == "text":
-        from armlock.plan.render import render_text
-
-        text = render_text(plan, full=full)
-    else:
-        text = RENDERERS[fmt](plan)
+    text = render_as(plan, fmt, full=full)
     emit(text, out, what="the plan", done=f"Wrote {out} ({fmt}). {plan.recommendation.sentence}")
     if spec is not None:
         split = ", ".join(f"{a.name} {a.weight / 100:g}%" for a in spec.arms)

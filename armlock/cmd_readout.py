@@ -6,6 +6,8 @@ from pathlib import Path
 
 import typer
 
+from armlock.readout.render import FORMATS
+
 from .cmd_audit import concurrent_specs, finish
 from .common import emit, open_spec_and_lock, progress
 from .options import (
@@ -23,7 +25,6 @@ from .options import (
     format_option,
 )
 
-FORMATS = ("text", "markdown", "json", "html", "finance")
 
 
 def readout_cmd(
@@ -94,28 +95,9 @@ def readout_cmd(
         history.record_readout(hist, fingerprint=report.fingerprint, as_of=report.as_of,
                                experiment=report.experiment, status=report.status,
                                figures={k: f.model_dump() for k, f in report.figures.items()})
-    if fmt == "html":
-        from armlock.readout.report_html import render_html
+    from armlock.readout.render import render_as
 
-        text = render_html(report)
-        if report.two_holdouts:
-            from armlock.readout.factorial import render_two_holdouts
-            from armlock.audit.report_html import esc
-
-            extra = f'<section class="check"><pre>{esc(render_two_holdouts(report.two_holdouts, "text"))}</pre></section>'
-            text = text.replace("</main>", extra + "</main>", 1)
-    elif fmt == "finance":  # one printable A4 page: the decision, net contribution, the design
-        from armlock.readout.report_finance import render_finance
-
-        text = render_finance(report)
-    else:
-        from armlock.readout.render import RENDERERS
-
-        text = RENDERERS[fmt](report)
-        if report.two_holdouts and fmt in ("text", "markdown"):
-            from armlock.readout.factorial import render_two_holdouts
-
-            text += render_two_holdouts(report.two_holdouts, fmt)
+    text = render_as(report, fmt)
     emit(text, out, what="the report", done=f"Wrote the {fmt} readout to {out}: {report.headline}")
     finish("readout", report.experiment, report.as_of, report.status,
            [(c.id, c.status) for c in report.gate], strict)

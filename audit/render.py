@@ -1,16 +1,19 @@
-"""Reports of an AuditReport: terminal text, markdown for a ticket, and the versioned JSON."""
+"""Reports of an AuditReport: terminal text, markdown for a ticket, the versioned JSON, and the HTML page by name (`render_as`)."""
 
 from __future__ import annotations
 
 import textwrap
 from collections.abc import Callable
+from typing import Any
 
+from armlock.assign.spec_audit import AuditThresholds
 from armlock.shared.report import Check, Figure
 from armlock.shared.text import json_text, md_table, md_text, strip_controls, text_table
 
+from armlock.shared.words import STATUS_WORD, format_figure, format_value, shown_figures
+
 from .explain import explanations
 from .model import AuditReport
-from armlock.shared.words import STATUS_WORD, format_figure, format_value, shown_figures
 
 _md_escape = md_text
 MARK = STATUS_WORD  # the one word per status (shared/words.py)
@@ -92,6 +95,20 @@ def render(report: AuditReport, fmt: str) -> str:
         return RENDERERS[fmt](report)
     except KeyError:
         raise ValueError(f"unknown report format {fmt!r}; choose one of {', '.join(RENDERERS)}") from None
+
+
+FORMATS = (*RENDERERS, "html")
+
+
+def render_as(report: AuditReport, fmt: str, history: list[dict[str, Any]] | None = None,
+              thresholds: AuditThresholds | None = None) -> str:
+    """The report in any of `FORMATS`; html (which loads matplotlib only when asked for) also draws the
+    recorded `history` and the spec's `thresholds`."""
+    if fmt == "html":
+        from .report_html import render_html
+
+        return render_html(report, history, thresholds=thresholds)
+    return render(report, fmt)
 
 
 def check_by_id(report: AuditReport, check_id: str) -> Check:

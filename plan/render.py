@@ -225,3 +225,17 @@ def render_json(p: Plan) -> str:
 
 
 RENDERERS: dict[str, Callable[[Plan], str]] = {"text": render_text, "markdown": render_markdown, "json": render_json}
+
+
+FORMATS = ("text", "markdown", "json", "html")
+
+
+def render_as(p: Plan, fmt: str, *, full: bool = False) -> str:
+    """The plan as text (`full`: every grid and the assumptions), markdown, json or html."""
+    if fmt == "html":
+        from .report_html import render_html
+
+        return render_html(p)
+    if fmt == "text":
+        return render_text(p, full=full)
+    return RENDERERS[fmt](p)

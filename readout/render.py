@@ -209,3 +209,33 @@ RENDERERS: dict[str, Callable[[ReadoutReport], str]] = {
     "markdown": render_markdown,
     "json": render_json,
 }
+
+
+FORMATS = ("text", "markdown", "json", "html", "finance")
+
+
+def render_as(report: ReadoutReport, fmt: str) -> str:
+    """The readout in any of `FORMATS` (html and finance load matplotlib only when asked for); a
+    2x2 readout of two holdouts is added to text, markdown and html."""
+    if fmt == "html":
+        from armlock.shared.html import esc
+
+        from .report_html import render_html
+
+        text = render_html(report)
+        if report.two_holdouts:
+            from .factorial import render_two_holdouts
+
+            extra = f'<section class="check"><pre>{esc(render_two_holdouts(report.two_holdouts, "text"))}</pre></section>'
+            text = text.replace("</main>", extra + "</main>", 1)
+        return text
+    if fmt == "finance":  # one printable A4 page: the decision, net contribution, the design
+        from .report_finance import render_finance
+
+        return render_finance(report)
+    text = RENDERERS[fmt](report)
+    if report.two_holdouts and fmt in ("text", "markdown"):
+        from .factorial import render_two_holdouts
+
+        text += render_two_holdouts(report.two_holdouts, fmt)
+    return text
