@@ -10,14 +10,12 @@ from armlock.assign.spec_audit import AuditThresholds
 from armlock.shared.report import Check, Figure
 from armlock.shared.text import json_text, md_table, md_text, strip_controls, text_table
 
-from armlock.shared.words import STATUS_WORD, format_figure, format_value, shown_figures
+from armlock.shared.words import STATUS_WORD, format_figure, shown_figures
 
 from .explain import explanations
 from .model import AuditReport
 
-_md_escape = md_text
 MARK = STATUS_WORD  # the one word per status (shared/words.py)
-fmt_value = format_value
 
 
 def _fig(f: Figure) -> str:
@@ -54,27 +52,27 @@ def render_text(r: AuditReport) -> str:
 
 
 def render_markdown(r: AuditReport) -> str:
-    unchecked = (" (could not check: " + ", ".join(_md_escape(m.title) for m in r.not_checked) + ")"
+    unchecked = (" (could not check: " + ", ".join(md_text(m.title) for m in r.not_checked) + ")"
                  if r.not_checked else "")
-    out = [f"## armlock audit: {_md_escape(r.experiment)} — **{MARK[r.verdict]}**{unchecked}", "",
+    out = [f"## armlock audit: {md_text(r.experiment)} — **{MARK[r.verdict]}**{unchecked}", "",
            f"As of **{r.as_of}** (UTC{', data through ' + r.data_through + ' only' if r.data_through else ''}), spec fingerprint `{r.fingerprint}`, armlock {r.armlock_version}.", "",
-           f"> {_md_escape(r.verdict_text)}", "",
+           f"> {md_text(r.verdict_text)}", "",
            "| check | status | what it means |", "|---|---|---|"]
-    out += [f"| {_md_escape(c.title)} | **{MARK[c.status]}** | {_md_escape(c.summary)} |" for c in r.checks]
+    out += [f"| {md_text(c.title)} | **{MARK[c.status]}** | {md_text(c.summary)} |" for c in r.checks]
     if r.input_notes:
-        out += ["", "**Input notes**", ""] + [f"- {_md_escape(n)}" for n in r.input_notes]
+        out += ["", "**Input notes**", ""] + [f"- {md_text(n)}" for n in r.input_notes]
     for c in r.checks:
         if c.status == "skipped":
             continue
-        out += ["", f"### {_md_escape(c.title)} — {MARK[c.status]}", ""]
+        out += ["", f"### {md_text(c.title)} — {MARK[c.status]}", ""]
         if c.figures:
             out += ["| figure | value |", "|---|---|"]
-            out += [f"| {_md_escape(f.label)} | {_md_escape(_fig(f))} |" for _, f in shown_figures(c.figures)]
+            out += [f"| {md_text(f.label)} | {md_text(_fig(f))} |" for _, f in shown_figures(c.figures)]
         for t in c.tables:
             out += ["", md_table(t)]
         expl = explanations(c)
         if expl:
-            out += [""] + [f"- {_md_escape(e)}" for e in expl]
+            out += [""] + [f"- {md_text(e)}" for e in expl]
     return "\n".join(out) + "\n"
 
 
