@@ -110,7 +110,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--chunk-rows", type=int, default=1_000_000, help="rows per chunk and Parquet row group")
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--time-unit", choices=("ms", "us"), default="ms",
-                    help="resolution of the exposure times (ms: about 13%% of rows share a time at 500 M rows)")
+                    help="resolution of the exposure times (ms: 8%% of rows share a time at 500 M rows)")
     ap.add_argument("--keep-free", type=float, default=15.0, help="GB of disk that must stay free")
     ap.add_argument("--reuse", action="store_true", help="audit the logs already in --dir (no generation)")
     ap.add_argument("--results", help="also write the figures as JSON to this file")
