@@ -94,8 +94,12 @@ def measured(cmd: list[str], folder: Path, log: Path) -> dict[str, float | int |
 
 def _commit() -> str:
     try:
-        return subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True,
-                              cwd=Path(__file__).resolve().parent, check=True).stdout.strip()
+        here = Path(__file__).resolve().parent
+        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=here,
+                              check=True).stdout.strip()
+        dirty = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no"], capture_output=True,
+                               text=True, cwd=here, check=True).stdout.strip()
+        return head + (" with uncommitted changes" if dirty else "")
     except (OSError, subprocess.CalledProcessError):
         return "unknown"
 
