@@ -11,15 +11,17 @@ How the rows are drawn (docs/synthetic-logs.md, "Large logs in chunks"):
   curve of `synth.generate` (decaying over 60 days, weekends 1.2x); so the units are in first-seen
   order and the first k(t) = floor(units * F(t)) of them are all seen before time t;
 - arms by the frozen contract (`armlock.assign.assign_many`); the vendor reaches a share `REACH` of
-  the exposed arms' units and, with `leak` > 0, that share of the holdout's units (leaked units are
-  reached by the first campaign only);
+  the exposed arms' units and, with `leak` > 0, a share `leak` of the holdout's units (leaked units
+  are reached by the first campaign only);
 - the exposure rows of a chunk, rows a..b, are at times G^-1(q), q sorted uniform draws in
   [a / rows, b / rows), G the curve of F's running integral (each reached unit is exposed at the
   same rate from its first visit on): so the rows come out sorted, exactly `exposure_rows` of
   them, with the gaps between times of random arrivals (as many rows share a millisecond as in a
-  real log of that size; `time_unit="us"` writes microseconds instead). A row's unit is drawn uniformly from the reached units among
-  the first max(k(t), e + 1), e the first reached unit (and the row's time is at least e's
-  first-seen time), so no row falls before its unit's first visit.
+  real log of that size; `time_unit="us"` writes microseconds instead). A row's unit is drawn
+  uniformly from the reached units among the first max(k(t), e + 1), e the first reached unit
+  (and the row's time is at least e's first-seen time), so no row falls before its unit's first
+  visit. (The units' first-seen times are stratified, one per 1/units of F, which is what makes
+  the first k(t) units all seen before t.)
 Deterministic for a given seed and chunk size.
 """
 
