@@ -120,11 +120,16 @@ def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, ob
     use = ok & fin
     vals, arms_used = x[use], arm[use]
     binary = bool(len(vals)) and bool(np.isin(vals, (0.0, 1.0)).all())
-    # one sort: average rank of each distinct value = values below it + (its count + 1) / 2
-    _, inverse, tie_counts = np.unique(vals, return_inverse=True, return_counts=True)
-    t = tie_counts.astype(np.float64)
+    # average rank of each distinct value = values below it + (its count + 1) / 2: the distinct values
+    # by hashing (O(n); -0.0 counted as 0.0, as a sort would), then only they are sorted (a sort of all
+    # n values cost 0.4 s a covariate at 2 M units; the ranks are the same numbers, bit for bit)
+    codes, distinct = pd.factorize(vals + 0.0, sort=False)
+    order = np.argsort(distinct, kind="stable")
+    t = np.bincount(codes, minlength=len(distinct))[order].astype(np.float64)
     ties = rounded_sum(t * t * t - t)  # exact sums (audit.exactsum): every engine gets the same bits
-    ranks = (np.cumsum(t) - (t - 1.0) / 2.0)[inverse] if len(vals) else vals
+    average = np.empty(len(distinct))
+    average[order] = np.cumsum(t) - (t - 1.0) / 2.0
+    ranks = average[codes] if len(vals) else vals
     rows: list[dict[str, object]] = []
     for i in range(k):
         m = arms_used == i
