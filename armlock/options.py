@@ -64,11 +64,10 @@ ACCEPT_CHANGED_SPLIT: Any = typer.Option(
          "started, its audits then fail naming the change).")
 
 
-# Where the rows are counted: every command that reads the logs (audit, readout) takes these three.
-ENGINE_NAMES = ENGINES  # duckdb, pandas, spark (armlock.shared.engine)
+# Where the rows are counted: every command that reads the logs (audit, readout) takes these five.
+ENGINE_CHOICE = OneOf(ENGINES, "engine", "--engine", listing="duckdb, pandas or spark")
 ENGINE: Any = typer.Option(
-    "duckdb", "--engine", parser=OneOf(ENGINE_NAMES, "engine", "--engine", listing="duckdb, pandas or spark"),
-    autocompletion=OneOf(ENGINE_NAMES, "engine", "--engine").complete,
+    "duckdb", "--engine", parser=ENGINE_CHOICE, autocompletion=ENGINE_CHOICE.complete,
     help="Where the rows are counted: duckdb (this machine, default: memory grows with units, not rows; "
          "spills to disk), pandas (this machine, every exposure row in memory) or spark (needs pip install "
          "'armlock[spark]' and Java 17; uses the active SparkSession, else starts one).")
@@ -119,8 +118,6 @@ def engine_settings(engine: str, spark_master: str | None, spark_conf: list[str]
             raise typer.BadParameter(f"{item!r} is not KEY=VALUE, e.g. spark.executor.memory=8g",
                                      param_hint="--spark-conf")
         conf[key.strip()] = value
-    if engine not in ENGINE_NAMES:  # the option's type refuses it first; this guards callers from Python
-        raise typer.BadParameter(f"unknown engine {engine!r}; choose duckdb, pandas or spark", param_hint="--engine")
     if engine != "spark" and (spark_master or conf):
         raise typer.BadParameter("--spark-master and --spark-conf need --engine spark", param_hint="--engine")
     if engine != "duckdb" and (memory_limit or temp_dir):

@@ -6,18 +6,15 @@ the interval the decision used (anytime before the planned final look, fixed at 
 
 from __future__ import annotations
 
-import functools
 
 from armlock.shared.html import (
     esc,
 )
-from armlock.shared.words import MINUS, STATUS_WORD, money_text, percent_whole, ratio_text
+from armlock.shared.words import STATUS_WORD, page_money, percent_whole, ratio_text
 
 from .model import Interval, ReadoutReport
 from .render import decision_word
 
-# amounts on a page carry the typographic minus
-_money_page = functools.partial(money_text, minus=MINUS)
 
 _COLOURS = {"pays": ("#17603a", "#e3f2e8"), "does_not_pay": ("#9e1f24", "#fbe4e3"),
             "not_yet_known": ("#3d4a50", "#eceff1")}
@@ -72,18 +69,18 @@ def render_finance(r: ReadoutReport) -> str:
     fg, bg = _COLOURS["not_yet_known" if d.withheld else d.answer]
     which = f"{d.level}% {'anytime' if anytime else 'fixed-horizon'} interval"
     kpis = [
-        ("net contribution after media cost", _money_page(m.net_contribution.value if m.net_contribution else None, cur),
-         _span(m.net_contribution, lambda v: _money_page(v, cur), anytime)),
+        ("net contribution after media cost", page_money(m.net_contribution.value if m.net_contribution else None, cur),
+         _span(m.net_contribution, lambda v: page_money(v, cur), anytime)),
         ("the same a year, at the current spend",
-         _money_page(m.net_contribution_per_year.value if m.net_contribution_per_year else None, cur),
-         _span(m.net_contribution_per_year, lambda v: _money_page(v, cur), anytime)),
+         page_money(m.net_contribution_per_year.value if m.net_contribution_per_year else None, cur),
+         _span(m.net_contribution_per_year, lambda v: page_money(v, cur), anytime)),
         ("ROI (incremental profit − spend) / spend", percent_whole(m.roi.value if m.roi else None),
          _span(m.roi, percent_whole, anytime)),
         (f"iROAS against break-even {ratio_text(d.breakeven_iroas)}", ratio_text(m.iroas.value if m.iroas else None),
          _span(m.iroas, ratio_text, anytime)),
-        ("incremental revenue", _money_page(m.incremental_revenue.value, cur),
-         _span(m.incremental_revenue, lambda v: _money_page(v, cur), anytime)),
-        ("media spend", _money_page(m.spend, cur), ""),
+        ("incremental revenue", page_money(m.incremental_revenue.value, cur),
+         _span(m.incremental_revenue, lambda v: page_money(v, cur), anytime)),
+        ("media spend", page_money(m.spend, cur), ""),
     ]
     cells = "".join(f"<div><dt>{esc(k)}</dt><dd>{esc(v)}</dd>" + (f'<dd class="range">{esc(which)}: {esc(rng)}</dd>'
                                                                    if rng else "") + "</div>" for k, v, rng in kpis)
@@ -98,7 +95,7 @@ def render_finance(r: ReadoutReport) -> str:
                 ("arms", arms), ("visitors in the test", plan),
                 ("this look", d.stage[:1].upper() + d.stage[1:]),
                 ("audit gate", f"{STATUS_WORD[r.status]}" + ("" if r.trustworthy else ": not trustworthy")),
-                ("attribution credited", _money_page(m.attributed_revenue, cur)
+                ("attribution credited", page_money(m.attributed_revenue, cur)
                  + (f" (ROAS {ratio_text(m.attributed_roas)})" if m.attributed_roas is not None else ""))]
         design = "".join(f"<tr><th scope=\"row\">{esc(k)}</th><td>{esc(v)}</td></tr>" for k, v in rows)
     gaps = "".join(f"<li>{esc(x)}</li>" for x in r.not_covered)

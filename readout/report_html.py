@@ -6,7 +6,6 @@ with mathtext off (the audit report's settings), so ids or currency signs are sh
 
 from __future__ import annotations
 
-import functools
 
 import math
 from typing import Any
@@ -36,13 +35,11 @@ from armlock.shared.html import (
     esc,
 )
 
-from armlock.shared.words import MINUS, money_text, percent_whole, ratio_text
+from armlock.shared.words import page_money, percent_whole, ratio_text
 
 from .model import Interval, ReadoutReport
 from .render import MARK, _adjust_line, decision_word, tables
 
-# amounts on a page carry the typographic minus
-_money_page = functools.partial(money_text, minus=MINUS)
 
 ANYTIME_BAND = "#dce9ef"  # pale blue: the wider, anytime band; the fixed band is the audit's sand
 _GATE_WORDS = {  # status -> word on the banner, text colour, background
@@ -188,16 +185,16 @@ def _figures(r: ReadoutReport) -> str:
     at = r.decision.basis == "anytime"  # the interval the decision reads, on the figures too
     word = f"{level}% anytime" if at else f"{level}%"
     items = [
-        ("incremental revenue", _money_page(m.incremental_revenue.value, cur), _range(m.incremental_revenue, lambda v: _money_page(v, cur), at)),
-        ("incremental profit", _money_page(m.incremental_profit.value, cur), _range(m.incremental_profit, lambda v: _money_page(v, cur), at)),
-        ("net contribution after spend", _money_page(m.net_contribution.value, cur) if m.net_contribution else "n/a",
-         _range(m.net_contribution, lambda v: _money_page(v, cur), at)),
-        ("spend", _money_page(m.spend, cur), ""),
+        ("incremental revenue", page_money(m.incremental_revenue.value, cur), _range(m.incremental_revenue, lambda v: page_money(v, cur), at)),
+        ("incremental profit", page_money(m.incremental_profit.value, cur), _range(m.incremental_profit, lambda v: page_money(v, cur), at)),
+        ("net contribution after spend", page_money(m.net_contribution.value, cur) if m.net_contribution else "n/a",
+         _range(m.net_contribution, lambda v: page_money(v, cur), at)),
+        ("spend", page_money(m.spend, cur), ""),
         ("iROAS", ratio_text(m.iroas.value) if m.iroas else "n/a", _range(m.iroas, ratio_text, at)),
         ("ROI", percent_whole(m.roi.value) if m.roi else "n/a", _range(m.roi, percent_whole, at)),
-        ("cost per incremental buyer", _money_page(m.cost_per_incremental_buyer.value, cur, 2) if m.cost_per_incremental_buyer else "n/a",
-         _range(m.cost_per_incremental_buyer, lambda v: _money_page(v, cur, 2), at)),
-        ("attributed revenue", _money_page(m.attributed_revenue, cur), ""),
+        ("cost per incremental buyer", page_money(m.cost_per_incremental_buyer.value, cur, 2) if m.cost_per_incremental_buyer else "n/a",
+         _range(m.cost_per_incremental_buyer, lambda v: page_money(v, cur, 2), at)),
+        ("attributed revenue", page_money(m.attributed_revenue, cur), ""),
         ("attributed ROAS", ratio_text(m.attributed_roas), ""),
         ("incremental ÷ attributed", ratio_text(m.incremental_to_attributed.value) if m.incremental_to_attributed else "n/a",
          _range(m.incremental_to_attributed, ratio_text, at)),

@@ -161,6 +161,11 @@ def money_text(v: float | None, currency: str, digits: int = 0, *, minus: str = 
     return f"{minus if v < 0 else ''}{currency} {abs(v):,.{digits}f}"
 
 
+def page_money(v: float | None, currency: str, digits: int = 0) -> str:
+    """`money_text` as the HTML pages write it, with the typographic minus: '−USD 1,735'."""
+    return money_text(v, currency, digits, minus=MINUS)
+
+
 def percent_whole(v: float | None) -> str:
     """A ratio as a whole percent: -0.41 -> '-41%'; 'n/a' when there is none (ROI in headlines and pages)."""
     return "n/a" if v is None or not math.isfinite(v) else f"{v * 100:.0f}%"
