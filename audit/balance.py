@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+# scipy.stats: imported inside the functions that use it (0.6 s; run_audit imports it on a thread beside the reading)
 
 from armlock.assign import Spec
 
@@ -78,6 +78,7 @@ def randomization_mean_p(n_t: int, m_t: float, n_c: int, m_c: float, pooled_var:
     S^2 (1/n_T + 1/n_C), S^2 the pooled sample variance of both arms (DERIVED from Cochran 1977,
     sampling without replacement); this is the permutation test's variance.
     """
+    from scipy import stats
     if pooled_var <= 0.0 or min(n_t, n_c) < 2:
         return math.nan
     z = (m_t - m_c) / math.sqrt(pooled_var * (1.0 / n_t + 1.0 / n_c))
@@ -91,6 +92,7 @@ def kruskal_from_ranks(n: np.ndarray, rank_sum: np.ndarray, ties: float) -> floa
     (Kruskal & Wallis 1952); chi-square with k - 1 degrees of freedom. With two arms it is the
     two-sided Mann-Whitney / Wilcoxon rank-sum test without continuity correction.
     """
+    from scipy import stats
     n = np.asarray(n, dtype=np.float64)
     r = np.asarray(rank_sum, dtype=np.float64)
     big = n.sum()
@@ -103,6 +105,7 @@ def kruskal_from_ranks(n: np.ndarray, rank_sum: np.ndarray, ties: float) -> floa
 
 def chi2_independence_p(table: np.ndarray) -> float:
     """Chi-square test of independence of levels and arms (scipy.stats.chi2_contingency)."""
+    from scipy import stats
     t = np.asarray(table, dtype=np.float64)
     t = t[t.sum(axis=1) > 0][:, t.sum(axis=0) > 0]
     if t.shape[0] < 2 or t.shape[1] < 2:
@@ -134,6 +137,7 @@ def pool_rare_levels(counts: np.ndarray) -> np.ndarray:
 
 def two_by_two_p(table: np.ndarray) -> float:
     """Independence of a 2x2 table: chi-square, or Fisher's exact test when an expected cell is below 5."""
+    from scipy import stats
     t = np.asarray(table, dtype=np.float64)
     if t.sum(axis=1).min() == 0 or t.sum(axis=0).min() == 0:
         return 1.0

@@ -26,7 +26,7 @@ from dataclasses import dataclass
 from datetime import date, timedelta
 
 import numpy as np
-from scipy import stats
+# scipy.stats: imported inside the functions that use it (0.6 s; run_audit imports it on a thread beside the reading)
 
 from armlock.shared.report import Check, Figure, Status, Table, worst
 
@@ -81,6 +81,7 @@ def feed_health(feed: str, daily: dict[str, int], until: date, *, since: date | 
     Days before `since` (the test's start) are ignored; days with no rows between the first and the
     last day with rows count as zero.
     """
+    from scipy import stats
     days = sorted((date.fromisoformat(d), int(n)) for d, n in daily.items() if int(n) > 0)
     days = [(d, n) for d, n in days if (since is None or d >= since) and d <= until]
     if not days:

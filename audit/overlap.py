@@ -18,7 +18,7 @@ from datetime import datetime
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+# scipy.stats: imported inside the functions that use it (0.6 s; run_audit imports it on a thread beside the reading)
 
 from armlock.assign import Spec, assign_many
 
@@ -80,6 +80,7 @@ def crosstab(spec: Spec, sibling: Spec, ids: list[str], *, source: str = "") -> 
 def independence_p(counts: np.ndarray) -> tuple[float, float, int, float] | None:
     """(chi-square, p, degrees of freedom, smallest expected count) of a cross-tab, or None when
     fewer than two rows and two columns have units (nothing to test)."""
+    from scipy import stats
     c = np.asarray(counts, dtype=np.float64)
     c = c[c.sum(axis=1) > 0][:, c.sum(axis=0) > 0]
     if c.shape[0] < 2 or c.shape[1] < 2:

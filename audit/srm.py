@@ -8,7 +8,7 @@ from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+# scipy.stats: imported inside the functions that use it (0.6 s; run_audit imports it on a thread beside the reading)
 from scipy.special import gammaln
 
 from armlock.assign import Spec
@@ -22,6 +22,7 @@ PRIOR_CONCENTRATION = 100.0  # Dirichlet prior alpha = 100 * theta0 (Lindon & Ma
 
 def chi_square(counts: Vector, theta0: Vector) -> tuple[float, float]:
     """Pearson chi-square goodness of fit of `counts` against shares `theta0`: (statistic, p)."""
+    from scipy import stats
     x = np.asarray(counts, dtype=np.float64)
     th = np.asarray(theta0, dtype=np.float64)
     n = x.sum()
@@ -82,6 +83,7 @@ def binom_two_sided_p(x: Vector, n: Vector, p: Vector) -> np.ndarray:
     than the one seen, with scipy's relative tolerance 1e-7); vectorized because the segment check
     and its simulations test many cells.
     """
+    from scipy import stats
     x, n, p = np.broadcast_arrays(np.asarray(x, np.int64), np.asarray(n, np.int64), np.asarray(p, np.float64))
     x, n, p = x.ravel(), n.ravel(), p.ravel()
     d = stats.binom.pmf(x, n, p) * (1 + 1e-7)

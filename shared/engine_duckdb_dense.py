@@ -47,27 +47,52 @@ class Dense:
         z = np.zeros(units, np.int64)
         self.copies, self.pre, self.imps, self.clks = z.copy(), z.copy(), z.copy(), z.copy()
         self.bs, self.bv = z.copy(), z.copy()  # rows before the start, rows before the unit's first visit
+        self.oth = z.copy()  # rows during the test of a kind that is neither
+        # the units of the rarer rows (clicks, others, before the start, before the first visit), summed
+        # once as many are waiting as there are units: a sum walks the units' arrays whatever its rows
+        self.waiting: dict[str, list[np.ndarray]] = {k: [] for k in ("clks", "oth", "bs", "bv")}
+        self.waiting_rows = dict.fromkeys(self.waiting, 0)
+        self.settled = False
         self.unseen: list[pa.Table] = []
         self.leaks: list[pa.Table] = []
         self.ties: list[pa.Table] = []
 
-    def _count(self, pos: np.ndarray) -> np.ndarray:
-        return np.bincount(pos, minlength=self.n)
+    def _later(self, name: str, pos: np.ndarray) -> None:
+        if len(pos):
+            self.waiting[name].append(pos)
+            self.waiting_rows[name] += len(pos)
+            if self.waiting_rows[name] >= self.n:
+                self._sum(name)
+
+    def _sum(self, name: str) -> None:
+        parts = self.waiting[name]
+        if parts:
+            getattr(self, name)[:] += np.bincount(np.concatenate(parts), minlength=self.n)
+        self.waiting[name], self.waiting_rows[name] = [], 0
+
+    def _settle(self) -> None:
+        """Sum what waits; then the rows before the test and the impressions, from the other counts."""
+        if self.settled:
+            return
+        for name in self.waiting:
+            self._sum(name)
+        self.pre = self.bs + self.bv  # a row before the test is before the start or before the first visit
+        self.imps = self.copies - self.pre - self.clks - self.oth
+        self.settled = True
 
     def add(self, b: pa.RecordBatch) -> None:
+        assert not self.settled
         pos_col = b.column(0)
         seen = np.asarray(pos_col.is_valid().to_numpy(zero_copy_only=False), dtype=bool)
-        code = b.column(1).to_numpy(zero_copy_only=False).astype(np.int64)
-        p = pos_col.fill_null(0).to_numpy(zero_copy_only=False).astype(np.int64)
-        ps, cs = p[seen], code[seen]
-        self.copies += self._count(ps)
-        dur = (cs & DUR) != 0
-        self.pre += self._count(ps[~dur])
-        kind = (cs >> 4) & 3
-        self.imps += self._count(ps[dur & (kind == 0)])
-        self.clks += self._count(ps[dur & (kind == 1)])
-        self.bs += self._count(ps[(cs & BEFORE_START) != 0])
-        self.bv += self._count(ps[(cs & BEFORE_VISIT) != 0])
+        code = b.column(1).to_numpy(zero_copy_only=False)  # int8
+        p = pos_col.fill_null(0).to_numpy(zero_copy_only=False)
+        ps, cs = (p, code) if seen.all() else (p[seen], code[seen])
+        self.copies += np.bincount(ps, minlength=self.n)  # every row: the one sum over the units per batch
+        dur, kind = (cs & DUR) != 0, (cs >> 4) & 3
+        self._later("clks", ps[dur & (kind == 1)])
+        self._later("oth", ps[dur & (kind == 2)])
+        self._later("bs", ps[(cs & BEFORE_START) != 0])
+        self._later("bv", ps[(cs & BEFORE_VISIT) != 0])
         if not seen.all():
             uid = b.column(2).filter(pa.array(~seen))
             self.unseen.append(pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")]))
@@ -90,6 +115,7 @@ class Dense:
 
     def repeats(self, days: dict[int, int]) -> int:
         """Take each exact repeat off the counts (and off `days`); the number of repeats."""
+        self._settle()
         if not self.ties:
             return 0
         t = pa.concat_tables(self.ties)
@@ -130,6 +156,7 @@ class Dense:
     def cells(self) -> pa.Table:
         """`cells` as `engine_duckdb._CELLS_SQL` makes it: one row per exposed unit, per unseen id, per
         leaked (unit, campaign, week), each counting distinct rows (`repeats` first)."""
+        self._settle()
         leak = _leaks(self.leaks)
         lpos = leak.column("pos").to_numpy(zero_copy_only=False).astype(np.int64)
         li, lc = (leak.column(c).to_numpy(zero_copy_only=False).astype(np.int64) for c in ("i", "c"))
