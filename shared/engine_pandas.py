@@ -15,8 +15,8 @@ import pyarrow as pa
 
 from armlock.assign import Spec, assign_many
 
-from .keys import arrow_ids, ns_of, positions
-from .exactsum import exact_sum, rounded_mean, rounded_sum
+from .keys import arrow_ids, distinct_codes, ns_of, positions
+from .exactsum import rounded_mean, rounded_sum, to_float, weighted_exact_sum
 from .read import ARM, BROWSER, CAMPAIGN, CUSTOMER, FP, KIND, TIME, UNIT, Frames
 from .tables import (
     NUMERIC_COLUMNS,
@@ -112,35 +112,42 @@ def numeric_moments(x: np.ndarray, arm: np.ndarray, k: int) -> list[dict[str, ob
     """Per arm 0..k-1: n, missing, invalid, mean, m2, rank_sum; plus the pooled ties and binary flag.
 
     `x` is float64 per unit (NaN = missing), `arm` the recorded arm index (-1/-2: not counted).
-    Two-pass central moments keep precision at any offset (see `audit.tables`).
+    Two-pass central moments keep precision at any offset (see `audit.tables`). Every statistic is
+    a function of a row's value and arm, so the values are factorized once and each sum runs over
+    the distinct values weighted by their count in the arm (`exactsum.weighted_exact_sum`): the
+    same exact sums as over the rows, hence the same bits, in one pass over the rows.
     """
     ok = arm >= 0
     nan = np.isnan(x)
     fin = np.isfinite(x)
     use = ok & fin
-    vals, arms_used = x[use], arm[use]
-    binary = bool(len(vals)) and bool(np.isin(vals, (0.0, 1.0)).all())
+    vals, arms_used = (x, arm) if use.all() else (x[use], arm[use])
     # average rank of each distinct value = values below it + (its count + 1) / 2: the distinct values
     # by hashing (O(n); -0.0 counted as 0.0, as a sort would), then only they are sorted (a sort of all
     # n values cost 0.4 s a covariate at 2 M units; the ranks are the same numbers, bit for bit)
     codes, distinct = pd.factorize(vals + 0.0, sort=False)
+    nd = len(distinct)
+    binary = bool(nd) and bool(np.isin(distinct, (0.0, 1.0)).all())
+    per_arm = np.bincount(arms_used.astype(np.int64) * nd + codes, minlength=k * nd).reshape(k, nd)
     order = np.argsort(distinct, kind="stable")
-    t = np.bincount(codes, minlength=len(distinct))[order].astype(np.float64)
+    t = per_arm.sum(axis=0)[order].astype(np.float64)
     ties = rounded_sum(t * t * t - t)  # exact sums (audit.exactsum): every engine gets the same bits
-    average = np.empty(len(distinct))
+    average = np.empty(nd)
     average[order] = np.cumsum(t) - (t - 1.0) / 2.0
-    ranks = average[codes] if len(vals) else vals
+    missing = np.bincount(arm[ok & nan], minlength=k)
+    invalid = np.bincount(arm[ok & ~nan & ~fin], minlength=k)
     rows: list[dict[str, object]] = []
     for i in range(k):
-        m = arms_used == i
-        xi = vals[m]
-        mean = rounded_mean(exact_sum(xi), len(xi))
+        cnt = per_arm[i]
+        n = int(cnt.sum())
+        mean = rounded_mean(weighted_exact_sum(distinct, cnt), n)
+        seen = cnt > 0
         with np.errstate(over="ignore", invalid="ignore"):  # values near 1e308: m2 is inf (balance says so)
-            d = xi - mean
+            d = distinct - mean
             d = d * d
-        rows.append({"arm_index": i, "n": len(xi), "missing": int((ok & nan & (arm == i)).sum()),
-                     "invalid": int((ok & ~nan & ~fin & (arm == i)).sum()),
-                     "mean": mean, "m2": rounded_sum(d) if np.isfinite(d).all() else math.inf, "rank_sum": rounded_sum(ranks[m]),
+        m2 = to_float(weighted_exact_sum(d, cnt)) if np.isfinite(d[seen]).all() else math.inf
+        rows.append({"arm_index": i, "n": n, "missing": int(missing[i]), "invalid": int(invalid[i]),
+                     "mean": mean, "m2": m2, "rank_sum": to_float(weighted_exact_sum(average, cnt)),
                      "ties": ties, "binary": binary})
     return rows
 
@@ -309,13 +316,17 @@ def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> Chu
     ident, v = fr.identities, fr.visits
     assert ident is not None
     k = len(spec.arms)
-    pos = positions(ident[UNIT], vset)
+    # the distinct link ids are numbered once, and only they are looked up in the visits
+    codes, distinct = distinct_codes(ident[UNIT])
+    dpos = positions(distinct, vset, distinct=True)
+    pos = dpos[codes]
     arm = np.where(pos >= 0, eff[np.maximum(pos, 0)], -1).astype(np.int64)
     missing = pos < 0
-    if missing.any():  # ids linked to a customer but not in the visits: the spec's arm, hashed once
-        ids = ident.loc[missing, UNIT]
-        uniq, inv = np.unique(ids.to_numpy(dtype=object), return_inverse=True)
-        arm[missing] = hash_arms(spec, pd.Series(uniq, dtype="str"))[inv]
+    unseen = np.flatnonzero(dpos < 0)
+    if len(unseen):  # ids linked to a customer but not in the visits: the spec's arm, hashed once
+        darm = np.full(len(distinct), -1, dtype=np.int64)
+        darm[unseen] = hash_arms(spec, pd.Series(distinct.take(pa.array(unseen)).to_pylist(), dtype="str"))
+        arm[missing] = darm[codes[missing]]
     if BROWSER in v:
         bcat = v[BROWSER]
         blevels = [str(c) for c in bcat.cat.categories] + ["(not in visits)"]
@@ -345,8 +356,7 @@ def churn_tables(spec: Spec, fr: Frames, eff: np.ndarray, vset: pa.Array) -> Chu
     return ChurnTables(
         links=len(ident), customers=len(nids), multi_arm=int((narms > 1).sum()),
         ids_hist={int(x): int(n) for x, n in zip(ks, kc)}, by_browser=g, browser_hist=bhist,
-        ids_not_in_visits=len(np.unique(ident.loc[missing, UNIT].to_numpy(dtype=object))) if missing.any() else 0,
-        link_ids=int(ident[UNIT].nunique()),
+        ids_not_in_visits=len(unseen), link_ids=len(distinct),
     )
 
 

@@ -13,6 +13,8 @@ geometric predicates"; Python's `math.fsum` documents it as exactly rounded).
 
 from __future__ import annotations
 
+import math
+
 from collections.abc import Iterable
 from fractions import Fraction
 
@@ -76,6 +78,46 @@ def rounded_sum(x: np.ndarray) -> float:
 def rounded_mean(total: Fraction, n: int) -> float:
     """The correctly rounded mean of n values whose exact sum is `total` (NaN when n is 0)."""
     return to_float(total / n) if n else float("nan")
+
+
+_COUNT_MAX = 1 << 36  # weighted sums: a total count below 2**36 keeps every int64 partial sum below 2**63
+
+
+def weighted_exact_sum(x: np.ndarray, counts: np.ndarray) -> Fraction:
+    """The exact sum of counts[j] * x[j] over the finite x[j] (counts: non-negative integers).
+
+    A column with few distinct values is summed over them, each weighted by how often it occurs
+    (the same exact sum as over the rows, so the same rounded bits). Each x = m * 2**(ex - 53)
+    with an integer |m| < 2**53, cut into hi = m >> 26 (|hi| <= 2**27) and lo (0 <= lo < 2**26);
+    count * hi and count * lo are summed per exponent in int64, exact while the counts total
+    less than 2**36 (else Python integers do it, slowly but exactly).
+    """
+    x = np.asarray(x, dtype=np.float64).ravel()
+    c = np.asarray(counts, dtype=np.int64).ravel()
+    keep = (c != 0) & np.isfinite(x) & (x != 0)
+    x, c = x[keep], c[keep]
+    if not len(x):
+        return Fraction(0)
+    if int(c.sum()) >= _COUNT_MAX:
+        return exact_total((e, m * int(n)) for (m, e), n in zip(map(_mantissa, x.tolist()), c.tolist()))
+    mant, ex = np.frexp(x)
+    m = (mant * float(1 << 53)).astype(np.int64)  # exact: |mant| < 1
+    hi = m >> _HALF
+    lo = m - (hi << _HALF)
+    lo_e = int(ex.min())
+    slot = (ex - lo_e).astype(np.intp)
+    width = int(slot.max()) + 1
+    sh, sl = np.zeros(width, np.int64), np.zeros(width, np.int64)
+    np.add.at(sh, slot, c * hi)
+    np.add.at(sl, slot, c * lo)
+    return exact_total((int(k) + lo_e - 53, (int(sh[k]) << _HALF) + int(sl[k]))
+                       for k in np.flatnonzero((sh != 0) | (sl != 0)))
+
+
+def _mantissa(v: float) -> tuple[int, int]:
+    """(m, e) with v = m * 2**e exactly (m an integer)."""
+    f, e = math.frexp(v)
+    return int(f * (1 << 53)), e - 53
 
 
 _BLOCK = 1 << 15  # rows per step of `grouped_exact_sums`: its temporaries stay in the CPU cache

@@ -37,15 +37,24 @@ def ns_of(times: pd.Series) -> np.ndarray:
     return np.asarray(arr.asi8)
 
 
-def positions(ids: pd.Series | pa.ChunkedArray, value_set: pa.Array) -> np.ndarray:
+def positions(ids: pd.Series | pa.ChunkedArray | pa.Array, value_set: pa.Array, distinct: bool = False) -> np.ndarray:
     """Row of each id in `value_set` (the visits' unit ids), -1 when the id is not there.
 
+    Arrow's lookup builds a hash set of its value set and probes it once per id; building costs
+    more than probing, so the set is built over the smaller side. With at most half as many ids as
+    the value set holds (the identity links against the units), the value set is looked up in the
+    distinct ids (`distinct_codes` numbers them first, unless `distinct` says they already are).
     Above a million ids, and several times as many ids as the value set holds, the lookup runs in
     slices on threads (Arrow releases the GIL); each slice builds its own hash set of `value_set`,
     so with fewer ids (the orders against the units) one lookup is faster.
     """
-    arr = ids if isinstance(ids, pa.ChunkedArray) else arrow_ids(ids)
+    arr = ids if isinstance(ids, (pa.ChunkedArray, pa.Array)) else arrow_ids(ids)
     n = len(arr)
+    if 0 < 2 * n <= len(value_set):
+        if distinct:
+            return _first_rows(arr, value_set)
+        codes, uniq = distinct_codes(arr)
+        return _first_rows(uniq, value_set)[codes]
     parts = max(1, min(os.cpu_count() or 1, 8)) if n > max(1_000_000, 4 * len(value_set)) else 1
     edges = np.linspace(0, n, parts + 1).astype(np.int64)
 
@@ -57,6 +66,26 @@ def positions(ids: pd.Series | pa.ChunkedArray, value_set: pa.Array) -> np.ndarr
         return one(0)
     with ThreadPoolExecutor(max_workers=parts) as pool:
         return np.concatenate(list(pool.map(one, range(parts))))
+
+
+def distinct_codes(ids: pd.Series | pa.ChunkedArray | pa.Array) -> tuple[np.ndarray, pa.Array]:
+    """(code of each id, the distinct ids): codes number the distinct ids in order of first appearance."""
+    arr = ids if isinstance(ids, (pa.ChunkedArray, pa.Array)) else arrow_ids(ids)
+    if isinstance(arr, pa.ChunkedArray):
+        arr = arr.combine_chunks()
+    enc = pc.dictionary_encode(arr, null_encoding="encode")  # a null is an id of its own, as index_in has it
+    return enc.indices.to_numpy(zero_copy_only=False).astype(np.intp), enc.dictionary
+
+
+def _first_rows(uniq: pa.ChunkedArray | pa.Array, value_set: pa.Array) -> np.ndarray:
+    """`positions` of distinct ids by a hash set of them: each value-set row finds its id, and each
+    id takes the first value-set row that found it (as Arrow's `index_in` returns the first)."""
+    hit = pc.index_in(value_set, value_set=uniq)  # per value-set row: the number of its id, or null
+    rows = np.flatnonzero(hit.is_valid().to_numpy(zero_copy_only=False))
+    first = np.full(len(uniq), len(value_set), dtype=np.int64)
+    np.minimum.at(first, hit.drop_null().to_numpy().astype(np.intp), rows)
+    first[first == len(value_set)] = -1
+    return first
 
 
 def repeated_ids(ids: pd.Series) -> np.ndarray:

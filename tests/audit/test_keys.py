@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
 from hypothesis import given, settings
@@ -120,3 +121,21 @@ def test_zoned_parquet_times_out_of_range_name_the_row(tmp_path: Path) -> None:
     with pytest.raises(InputError, match=r"t.parquet: column 't' has 1 time\(s\) outside the years 1678-2261 "
                                          r"\(first: row 2"):
         read_times(Source(tmp_path / "t.parquet", "visits"), pq.read_table(tmp_path / "t.parquet"), "t", [])
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.sampled_from(["a", "b", "ü", "", "a ", "B", "𝔘"]), max_size=12),
+       st.lists(st.sampled_from(["a", "b", "ü", "", "a ", "B", "𝔘", "c", "d", "e", "f"]), min_size=1, max_size=40),
+       st.booleans())
+def test_positions_of_few_ids_equal_arrow_index_in(ids: list[str], visits: list[str], with_null: bool) -> None:
+    # Reference: pyarrow.compute.index_in (Apache Arrow): the first row of the value set holding each
+    # id. With at most half as many ids as the value set (repeats and nulls included), `positions`
+    # builds its hash set over the ids instead; the answer must not change.
+    arr = pa.chunked_array([pa.array(ids + ([None] if with_null else []), pa.large_string())])
+    vset = pa.array(visits + ([None] if with_null and len(visits) % 2 else []), pa.large_string())
+    ref = pc.fill_null(pc.index_in(arr, value_set=vset), -1).to_numpy()
+    assert keys.positions(arr, vset).tolist() == ref.tolist()
+    codes, uniq = keys.distinct_codes(arr)
+    assert uniq.take(pa.array(codes)).to_pylist() == arr.to_pylist()
+    assert keys.positions(uniq, vset, distinct=True).tolist() == pc.fill_null(
+        pc.index_in(uniq, value_set=vset), -1).to_numpy().tolist()
