@@ -91,16 +91,43 @@ def _first_rows(uniq: pa.ChunkedArray | pa.Array, value_set: pa.Array) -> np.nda
 def repeated_ids(ids: pd.Series) -> np.ndarray:
     """True for each id that an earlier row already has (pandas' `duplicated`, keep="first").
 
+    When every id has the same number of bytes (hex or UUID cookies, the usual case), the ids are
+    their bytes as 64-bit words (`_same_length_words`) and `duplicate_rows` compares those rows:
+    a sort of one mix per row, which costs half of a hash set of millions of strings. Otherwise
     Arrow's dictionary encoding numbers the distinct ids in order of first appearance, so a row
     is a first appearance exactly when its number exceeds every number before it.
     """
-    enc = pc.dictionary_encode(arrow_ids(ids))
+    arr = arrow_ids(ids)
+    words = _same_length_words(arr)
+    if words is not None:
+        return duplicate_rows(*(words[:, j] for j in range(words.shape[1])))
+    enc = pc.dictionary_encode(arr)
     codes = np.concatenate([c.indices.to_numpy(zero_copy_only=False) for c in enc.chunks]
                            or [np.zeros(0, np.int32)]).astype(np.int64)
     if not len(codes):
         return np.zeros(0, dtype=bool)
     before = np.maximum.accumulate(np.concatenate([[-1], codes[:-1]]))
     return codes <= before
+
+
+_WORDS_MAX = 8  # ids of up to 64 bytes are compared as words; longer ones are rare and hashed
+
+
+def _same_length_words(arr: pa.ChunkedArray) -> np.ndarray | None:
+    """Each id's bytes as a row of 64-bit words (zero-padded), when all ids are text without nulls of
+    one common length of 1 to 64 bytes; else None. Equal rows are then exactly equal ids."""
+    if not len(arr) or arr.null_count or not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+        return None
+    one = arr.combine_chunks()
+    width = np.int64 if pa.types.is_large_string(one.type) else np.int32
+    off = np.frombuffer(one.buffers()[1], dtype=width)[one.offset:one.offset + len(one) + 1]
+    size = int(off[1] - off[0])
+    if not 0 < size <= 8 * _WORDS_MAX or int(off[-1] - off[0]) != size * len(one) or (np.diff(off) != size).any():
+        return None
+    raw = np.frombuffer(one.buffers()[2], dtype=np.uint8)[int(off[0]):int(off[-1])].reshape(len(one), size)
+    padded = np.zeros((len(one), 8 * ((size + 7) // 8)), dtype=np.uint8)
+    padded[:, :size] = raw
+    return padded.view(np.uint64)
 
 
 def unit_codes(ids: pd.Series, pos: np.ndarray, n_visits: int) -> np.ndarray:

@@ -139,3 +139,14 @@ def test_positions_of_few_ids_equal_arrow_index_in(ids: list[str], visits: list[
     assert uniq.take(pa.array(codes)).to_pylist() == arr.to_pylist()
     assert keys.positions(uniq, vset, distinct=True).tolist() == pc.fill_null(
         pc.index_in(uniq, value_set=vset), -1).to_numpy().tolist()
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.text(alphabet="ab\u00fc\u20ac", min_size=2, max_size=2), max_size=40), st.booleans())
+def test_repeated_ids_equal_pandas_duplicated(ids: list[str], sliced: bool) -> None:
+    # Reference: pandas.Series.duplicated (keep="first"). Ids of one byte length take the path that
+    # compares their bytes as words; two characters of 1-3 bytes each give both paths.
+    s = pd.Series(ids, dtype="str")
+    if sliced:
+        s = s.iloc[1::2]
+    assert keys.repeated_ids(s).tolist() == s.duplicated().tolist()
