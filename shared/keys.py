@@ -88,26 +88,30 @@ def _first_rows(uniq: pa.ChunkedArray | pa.Array, value_set: pa.Array) -> np.nda
     return first
 
 
-def repeated_ids(ids: pd.Series) -> np.ndarray:
-    """True for each id that an earlier row already has (pandas' `duplicated`, keep="first").
+def repeated_rows(*columns: pd.Series) -> np.ndarray:
+    """True for each row whose ids in every column equal those of an earlier row (pandas' `duplicated`,
+    keep="first"): the units seen again in the visits, the identity links given twice.
 
-    When every id has the same number of bytes (hex or UUID cookies, the usual case), the ids are
-    their bytes as 64-bit words (`_same_length_words`) and `duplicate_rows` compares those rows:
-    a sort of one mix per row, which costs half of a hash set of millions of strings. Otherwise
-    Arrow's dictionary encoding numbers the distinct ids in order of first appearance, so a row
-    is a first appearance exactly when its number exceeds every number before it.
+    A column whose ids all have the same number of bytes (hex or UUID cookies, the usual case) is
+    its bytes as 64-bit words (`_same_length_words`); another is numbered by Arrow's dictionary
+    encoding (`distinct_codes`). `duplicate_rows` then compares the integer rows: a sort of one
+    mix per row, which costs half of a hash set of millions of strings. A single column without
+    one length needs no sort: its numbers count the distinct ids in order of first appearance, so
+    a row is a first appearance exactly when its number exceeds every number before it.
     """
-    arr = arrow_ids(ids)
-    words = _same_length_words(arr)
-    if words is not None:
-        return duplicate_rows(*(words[:, j] for j in range(words.shape[1])))
-    enc = pc.dictionary_encode(arr)
-    codes = np.concatenate([c.indices.to_numpy(zero_copy_only=False) for c in enc.chunks]
-                           or [np.zeros(0, np.int32)]).astype(np.int64)
-    if not len(codes):
-        return np.zeros(0, dtype=bool)
-    before = np.maximum.accumulate(np.concatenate([[-1], codes[:-1]]))
-    return codes <= before
+    keys: list[np.ndarray] = []
+    for col in columns:
+        arr = arrow_ids(col)
+        words = _same_length_words(arr)
+        if words is not None:
+            keys += [words[:, j] for j in range(words.shape[1])]
+        elif len(columns) > 1:
+            keys.append(distinct_codes(arr)[0])
+        else:
+            codes = distinct_codes(arr)[0].astype(np.int64)
+            before = np.maximum.accumulate(np.concatenate([[-1], codes[:-1]]))
+            return codes <= before
+    return duplicate_rows(*keys)
 
 
 _WORDS_MAX = 8  # ids of up to 64 bytes are compared as words; longer ones are rare and hashed

@@ -20,7 +20,7 @@ import pandas as pd
 
 from armlock.assign import InputError, Spec
 
-from .keys import arrow_ids, duplicate_rows, ns_of, positions, repeated_ids, unit_codes
+from .keys import arrow_ids, duplicate_rows, ns_of, positions, repeated_rows, unit_codes
 from .read import (
     ARM,
     BROWSER,
@@ -117,7 +117,7 @@ def load_visits(spec: Spec, path: PathLike, as_of: date | None, fr: Frames) -> d
         frame = frame[keep]
     if not frame[TIME].is_monotonic_increasing:  # exports are often sorted already: then no copy
         frame = frame.sort_values(TIME, kind="stable")
-    dup = repeated_ids(frame[UNIT])
+    dup = repeated_rows(frame[UNIT])
     n_dup = int(dup.sum())
     fr.counts["duplicate_rows"] = n_dup
     if n_dup:
@@ -243,9 +243,11 @@ def load_identities(spec: Spec, path: PathLike, as_of: date, fr: Frames) -> None
                         f"of units first seen by then" + (f"; {int(unknown.sum()):,} link(s) of other units were "
                                                           "set aside" if unknown.any() else ""))
         usable &= known
-    frame = pd.DataFrame({UNIT: ids, CUSTOMER: cust})[usable]
-    before = len(frame)
-    frame = frame.drop_duplicates()
-    if len(frame) < before:
-        fr.notes.append(f"{src.path.name}: {before - len(frame):,} repeated (unit, customer) row(s) counted once")
+    frame = pd.DataFrame({UNIT: ids, CUSTOMER: cust})
+    if not usable.all():
+        frame = frame[usable]
+    dup = repeated_rows(frame[UNIT], frame[CUSTOMER])
+    if dup.any():
+        fr.notes.append(f"{src.path.name}: {int(dup.sum()):,} repeated (unit, customer) row(s) counted once")
+        frame = frame[~dup]
     fr.identities = frame.reset_index(drop=True)

@@ -84,15 +84,15 @@ def test_positions_in_slices_equal_one_lookup() -> None:
 
 @settings(max_examples=100, deadline=None)
 @given(st.lists(st.sampled_from(["a", "b", "", "𝔘", "a,b", "x\ny", "NA"]), max_size=40))
-def test_repeated_ids_equal_pandas_duplicated(ids: list[str]) -> None:
+def test_repeated_rows_of_one_column_equal_pandas_duplicated(ids: list[str]) -> None:
     # Reference: pandas.Series.duplicated (keep="first").
     s = pd.Series(ids, dtype="str")
-    assert keys.repeated_ids(s).tolist() == s.astype(object).duplicated().tolist()
+    assert keys.repeated_rows(s).tolist() == s.astype(object).duplicated().tolist()
 
 
-def test_repeated_ids_across_chunks() -> None:
+def test_repeated_rows_across_chunks() -> None:
     s = pd.Series(pd.arrays.ArrowStringArray(pa.chunked_array([["a", "b"], ["b", "c", "a"], []])))
-    assert keys.repeated_ids(s).tolist() == [False, False, True, False, True]
+    assert keys.repeated_rows(s).tolist() == [False, False, True, False, True]
 
 
 def test_ns_of_reads_any_unit() -> None:
@@ -142,11 +142,15 @@ def test_positions_of_few_ids_equal_arrow_index_in(ids: list[str], visits: list[
 
 
 @settings(max_examples=200, deadline=None)
-@given(st.lists(st.text(alphabet="ab\u00fc\u20ac", min_size=2, max_size=2), max_size=40), st.booleans())
-def test_repeated_ids_equal_pandas_duplicated(ids: list[str], sliced: bool) -> None:
-    # Reference: pandas.Series.duplicated (keep="first"). Ids of one byte length take the path that
-    # compares their bytes as words; two characters of 1-3 bytes each give both paths.
-    s = pd.Series(ids, dtype="str")
+@given(st.lists(st.tuples(st.text(alphabet="ab\u00fc\u20ac", min_size=2, max_size=2),
+                          st.text(alphabet="xy\u00e9", min_size=0, max_size=2)), max_size=40), st.booleans())
+def test_repeated_rows_equal_pandas_duplicated(rows: list[tuple[str, str]], sliced: bool) -> None:
+    # Reference: pandas' Series.duplicated and DataFrame.duplicated (keep="first"). Ids of one byte
+    # length take the path that compares their bytes as words, others are numbered; two characters
+    # of 1-3 bytes each, and texts of 0-2 characters, give every path alone and mixed.
+    frame = pd.DataFrame({"u": [r[0] for r in rows], "c": [r[1] for r in rows]}, dtype="str")
     if sliced:
-        s = s.iloc[1::2]
-    assert keys.repeated_ids(s).tolist() == s.duplicated().tolist()
+        frame = frame.iloc[1::2]
+    assert keys.repeated_rows(frame["u"]).tolist() == frame["u"].duplicated().tolist()
+    assert keys.repeated_rows(frame["c"]).tolist() == frame["c"].duplicated().tolist()
+    assert keys.repeated_rows(frame["u"], frame["c"]).tolist() == frame.duplicated().tolist()
