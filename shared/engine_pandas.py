@@ -54,15 +54,23 @@ def _recorded_codes(spec: Spec, rec: pd.Series) -> tuple[np.ndarray, dict[str, i
 def _crosstab(codes: np.ndarray, levels: list[str], arm: np.ndarray, k: int, arms: list[str]) -> pd.DataFrame:
     """Level x arm counts (arm >= 0 only)."""
     ok = arm >= 0
-    flat = np.bincount(codes[ok].astype(np.int64) * k + arm[ok], minlength=len(levels) * k)
+    if not ok.all():
+        codes, arm = codes[ok], arm[ok]
+    flat = np.bincount(codes.astype(np.int64) * k + arm, minlength=len(levels) * k)
     return pd.DataFrame(flat.reshape(len(levels), k), index=pd.Index(levels, name="level"), columns=arms)
 
 
 def _days(ts: pd.Series) -> tuple[np.ndarray, list[str], np.ndarray]:
-    """Day code per row, the day labels and the day numbers since the epoch."""
+    """Day code per row, the day labels and the day numbers since the epoch (the visits come sorted
+    by time: then the days are runs, numbered without a sort)."""
     ns = ts.to_numpy(dtype="datetime64[ns]").view(np.int64)
     dnum = ns // NS_DAY
-    uniq, codes = np.unique(dnum, return_inverse=True)
+    step = dnum[1:] != dnum[:-1]
+    if len(dnum) and bool((dnum[1:] >= dnum[:-1]).all()):
+        codes = np.concatenate([[0], np.cumsum(step)])
+        uniq = dnum[np.concatenate([[0], np.flatnonzero(step) + 1])]
+    else:
+        uniq, codes = np.unique(dnum, return_inverse=True)
     labels = [str(np.datetime64(int(d), "D")) for d in uniq]
     return codes.astype(np.int64), labels, uniq
 
