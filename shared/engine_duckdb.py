@@ -37,11 +37,12 @@ from armlock.assign import InputError, Spec
 
 from . import engine_pandas
 from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path, readout_builder
+from .engine_duckdb_dense import arrow_of
 from .engine_duckdb_native import Native, floor_div, prepared
 from .engine_duckdb_read import STREAM_SCHEMA, ExposureReader, ExposureScan, Unsorted
 from .engine_pandas import NS_DAY, VisitArms, _recorded_codes, _unseen_diagnostics
 from .keys import arrow_ids
-from .load import load_identities, load_visits
+from .load import cutoff_of, load_identities, load_visits
 from .read import ARM, TIME, UNIT, Frames
 from .tables import AuditTables, LeakageTables
 
@@ -78,12 +79,6 @@ def connect(memory_limit: str | None, temp_directory: str | None) -> Iterator[An
         con.close()
         if made is not None:
             shutil.rmtree(made, ignore_errors=True)
-
-
-def arrow_of(rel: Any) -> pa.Table:
-    """A DuckDB relation as an Arrow table (DuckDB 2 names the call `to_arrow_table`, 1.x `arrow`)."""
-    fetch = getattr(rel, "to_arrow_table", None) or rel.arrow
-    return fetch()
 
 
 def contract_arms(spec: Spec, ids: pd.Series) -> np.ndarray:
@@ -153,7 +148,8 @@ class DuckDBEngine:
             con = stack.enter_context(connect(self.memory_limit, self.temp_directory)) if exposures else None
             native: Future[Native | None] | None = None
             if con is not None and self.native:  # the native path's first pass, beside the visits
-                native = _in_worker(stack, prepared, spec.audit.exposures, exposures, con)
+                cut = cutoff_of(as_of).value // 1000 if as_of is not None else None
+                native = _in_worker(stack, prepared, spec.audit.exposures, exposures, con, cut)
             fr = Frames(visits=None)
             used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
             early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)

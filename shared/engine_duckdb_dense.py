@@ -1,15 +1,19 @@
 """The native path's counting: exposure rows joined by DuckDB, summed per unit in numpy arrays over the units.
 
 DuckDB reads the log and joins each row to its unit (`ROWS_SQL`); what comes back, batch by batch,
-is a unit's row number and a one-byte code per row (plus an id for rows of no unit, and a campaign
-and a time for the few rows the other parts need). A hash aggregate over the rows would hash every
-row a second time; a unit's row number is already a dense key, so numpy's `bincount` sums them
-into arrays as long as the units. Memory: those arrays, the leaked (unit, campaign, week) cells,
-the unseen ids and the rows that share a time with another (bounded by the native path's tie
-limit), never the rows. `Dense.cells` returns the table `engine_duckdb._CELLS_SQL` would make.
+is a unit's row number and a one-byte code per row (plus an id for rows of no unit, and a leak's
+time and campaign packed in one number). A hash aggregate over the rows would hash every row a
+second time (grouping the joined rows in DuckDB cost 5-10 % more CPU at 20 M rows); a unit's row
+number is already a dense key, so numpy's `bincount` sums them into arrays as long as the units.
+Exact repeats of a row, found beforehand (`engine_duckdb_native.time_pass`), go through the same
+query and are taken off (`Dense.take_off`). Memory: those arrays, the leaked (unit, campaign,
+week) cells, the unseen ids and the repeats, never the rows. `Dense.cells` returns the table
+`engine_duckdb._CELLS_SQL` would make.
 """
 
 from __future__ import annotations
+
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
@@ -20,30 +24,30 @@ US_DAY = 86_400 * 10**6
 # (0 impression, 1 click, 2 other) of a row during the test; 64 a holdout unit's row during the test (a leak).
 DUR, PRE, BEFORE_START, BEFORE_VISIT, LEAK = 1, 2, 4, 8, 64
 
-# Each joined row: its unit's row (NULL: no unit), its code, its id when it has no unit, its campaign
-# code and time when it is a leak or its time is one another row has (a possible exact repeat), and
-# then its kind label code too. Few rows are either: the rest come back as 5 bytes and null bits.
+# Each joined row of `{rows}` (the log `xs`, or its repeats `reps`): its unit's row (NULL: no unit),
+# its code, its id when it has no unit, and for a leak its time and campaign code in one number,
+# (time - {t0}) * {camps} + campaign. Few rows are leaks or of no unit: the rest come back as 5
+# bytes and null bits.
 ROWS_SQL = """
 SELECT pos,
        (CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END
         + CASE WHEN dur THEN 16 * {kind} ELSE 0 END + CASE WHEN dur AND hold THEN 64 ELSE 0 END)::TINYINT AS code,
        CASE WHEN pos IS NULL THEN id END AS uid,
-       CASE WHEN tie OR (dur AND hold) THEN {camp} END AS cc,
-       CASE WHEN tie OR (dur AND hold) THEN t END AS tt,
-       CASE WHEN tie THEN {kl} END AS kk
+       CASE WHEN dur AND hold THEN (t - {t0}) * {camps} + {camp} END AS x
 FROM (
-  SELECT e.id, e.t, e.camp, e.kl, v.pos, v.fs, v.hold, {tie} AS tie,
+  SELECT e.id, e.t, e.camp, e.kl, v.pos, v.fs, v.hold,
          e.t < {start} AS bs, coalesce(e.t >= {start} AND e.t >= v.fs, false) AS dur
-  FROM (SELECT * FROM xs WHERE {kept}) e LEFT JOIN v ON e.id = v.id {tied}
+  FROM (SELECT * FROM {rows} WHERE {kept}) e LEFT JOIN v ON e.id = v.id
 )
 """
 
 
 class Dense:
-    """Per-unit sums of the joined rows (`add` a batch at a time), then `cells`."""
+    """Per-unit sums of the joined rows (`add` a batch at a time; the repeats with sign -1), then `cells`.
+    `camps` and `t0` unpack a leak's number (`ROWS_SQL`)."""
 
-    def __init__(self, units: int) -> None:
-        self.n = units
+    def __init__(self, units: int, camps: int, t0: int) -> None:
+        self.n, self.camps, self.t0 = units, max(camps, 1), t0
         z = np.zeros(units, np.int64)
         self.copies, self.pre, self.imps, self.clks = z.copy(), z.copy(), z.copy(), z.copy()
         self.bs, self.bv = z.copy(), z.copy()  # rows before the start, rows before the unit's first visit
@@ -55,7 +59,6 @@ class Dense:
         self.settled = False
         self.unseen: list[pa.Table] = []
         self.leaks: list[pa.Table] = []
-        self.ties: list[pa.Table] = []
 
     def _later(self, name: str, pos: np.ndarray) -> None:
         if len(pos):
@@ -80,82 +83,54 @@ class Dense:
         self.imps = self.copies - self.pre - self.clks - self.oth
         self.settled = True
 
-    def add(self, b: pa.RecordBatch) -> None:
+    def bulk(self, pos: np.ndarray, n: np.ndarray, ni: np.ndarray, nc: np.ndarray) -> None:
+        """Units whose rows all fall during the test, from their id's group (distinct units):
+        rows, impressions, clicks (the rest are of another kind)."""
+        assert not self.settled
+        self.copies[pos] += n
+        self.clks[pos] += nc
+        self.oth[pos] += n - ni - nc
+
+    def add(self, b: pa.RecordBatch, sign: int = 1) -> None:
+        """Add a batch of joined rows (`sign` -1: take them off)."""
         assert not self.settled
         pos_col = b.column(0)
         seen = np.asarray(pos_col.is_valid().to_numpy(zero_copy_only=False), dtype=bool)
         code = b.column(1).to_numpy(zero_copy_only=False)  # int8
         p = pos_col.fill_null(0).to_numpy(zero_copy_only=False)
         ps, cs = (p, code) if seen.all() else (p[seen], code[seen])
-        self.copies += np.bincount(ps, minlength=self.n)  # every row: the one sum over the units per batch
         dur, kind = (cs & DUR) != 0, (cs >> 4) & 3
-        self._later("clks", ps[dur & (kind == 1)])
-        self._later("oth", ps[dur & (kind == 2)])
-        self._later("bs", ps[(cs & BEFORE_START) != 0])
-        self._later("bv", ps[(cs & BEFORE_VISIT) != 0])
+        parts = (("clks", dur & (kind == 1)), ("oth", dur & (kind == 2)), ("bs", (cs & BEFORE_START) != 0),
+                 ("bv", (cs & BEFORE_VISIT) != 0))
+        if sign > 0:
+            self.copies += np.bincount(ps, minlength=self.n)  # every row: the one sum over the units per batch
+            for name, m in parts:
+                self._later(name, ps[m])
+        else:  # a few repeats
+            np.subtract.at(self.copies, ps, 1)
+            for name, m in parts:
+                np.subtract.at(getattr(self, name), ps[m], 1)
         if not seen.all():
             uid = b.column(2).filter(pa.array(~seen))
-            self.unseen.append(pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")]))
+            g = pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")])
+            if sign < 0:
+                g = pa.table({"uid": g.column("uid"), "uid_count": _negated(g.column("uid_count"))})
+            self.unseen.append(g)
         leak = (code & LEAK) != 0
         if leak.any():
             m = pa.array(leak)
-            lt = b.column(4).filter(m).to_numpy(zero_copy_only=False)
+            x = b.column(3).filter(m).to_numpy(zero_copy_only=False).astype(np.int64)
+            lt, lcamp = x // self.camps + self.t0, x % self.camps
             k = (code[leak] >> 4) & 3
-            t = pa.table({"pos": b.column(0).filter(m), "lcamp": b.column(3).filter(m), "lweek": pa.array(_week(lt)),
-                          "lt": pa.array(lt), "i": pa.array((k == 0).astype(np.int64)),
-                          "c": pa.array((k == 1).astype(np.int64))})
+            t = pa.table({"pos": b.column(0).filter(m), "lcamp": pa.array(lcamp), "lweek": pa.array(_week(lt)),
+                          "lt": pa.array(lt), "i": pa.array(sign * (k == 0).astype(np.int64)),
+                          "c": pa.array(sign * (k == 1).astype(np.int64))})
             self.leaks.append(t.group_by(["pos", "lcamp", "lweek"]).aggregate(
                 [("lt", "min"), ("i", "sum"), ("c", "sum")]).rename_columns(["pos", "lcamp", "lweek", "lt", "i", "c"]))
-        kk = b.column(5)
-        if kk.null_count < len(kk):
-            m = kk.is_valid()
-            self.ties.append(pa.table({"pos": b.column(0).filter(m), "uid": b.column(2).filter(m),
-                                       "tk": b.column(4).filter(m), "ck": b.column(3).filter(m), "kk": kk.filter(m),
-                                       "code": b.column(1).filter(m)}))
-
-    def repeats(self, days: dict[int, int]) -> int:
-        """Take each exact repeat off the counts (and off `days`); the number of repeats."""
-        self._settle()
-        if not self.ties:
-            return 0
-        t = pa.concat_tables(self.ties)
-        self.ties = []
-        g = t.group_by(["pos", "uid", "tk", "ck", "kk"]).aggregate(
-            [("code", "min"), ("tk", "count")])
-        extra = g.column("tk_count").to_numpy() - 1
-        keep = extra > 0
-        if not keep.any():
-            return 0
-        g, extra = g.filter(pa.array(keep)), extra[keep]
-        seen = np.asarray(g.column("pos").is_valid().to_numpy(zero_copy_only=False), dtype=bool)
-        pos = g.column("pos").fill_null(0).to_numpy(zero_copy_only=False).astype(np.int64)
-        code = g.column("code_min").to_numpy(zero_copy_only=False).astype(np.int64)
-        tk = g.column("tk").to_numpy(zero_copy_only=False)
-        for d, n in zip((tk // US_DAY).tolist(), extra.tolist()):
-            days[d] = days.get(d, 0) - n
-        dur, kind = (code & DUR) != 0, (code >> 4) & 3
-        ps, es = pos[seen], extra[seen]
-        self.copies -= np.bincount(ps, weights=es, minlength=self.n).astype(np.int64)  # now the distinct rows
-        self.pre -= np.bincount(ps[~dur[seen]], weights=es[~dur[seen]], minlength=self.n).astype(np.int64)
-        for arr, k in ((self.imps, 0), (self.clks, 1)):
-            m = dur[seen] & (kind[seen] == k)
-            arr -= np.bincount(ps[m], weights=es[m], minlength=self.n).astype(np.int64)
-        if not seen.all():
-            un = pa.table({"uid": g.column("uid").filter(pa.array(~seen)),
-                           "uid_count": pa.array(-extra[~seen])})
-            self.unseen.append(un)
-        m = (code & LEAK) != 0
-        if m.any():
-            k = kind[m]
-            self.leaks.append(pa.table({
-                "pos": g.column("pos").filter(pa.array(m)), "lcamp": g.column("ck").filter(pa.array(m)),
-                "lweek": pa.array(_week(tk[m])), "lt": pa.array(tk[m]),
-                "i": pa.array(-extra[m] * (k == 0)), "c": pa.array(-extra[m] * (k == 1))}))
-        return int(extra.sum())
 
     def cells(self) -> pa.Table:
         """`cells` as `engine_duckdb._CELLS_SQL` makes it: one row per exposed unit, per unseen id, per
-        leaked (unit, campaign, week), each counting distinct rows (`repeats` first)."""
+        leaked (unit, campaign, week), each counting distinct rows (the repeats taken off)."""
         self._settle()
         leak = _leaks(self.leaks)
         lpos = leak.column("pos").to_numpy(zero_copy_only=False).astype(np.int64)
@@ -183,11 +158,22 @@ class Dense:
             "uid": pa.concat_arrays([pa.nulls(nu, pa.string()), unseen.column("uid").combine_chunks().cast(pa.string()),
                                      pa.nulls(nl, pa.string())]),
             "lcamp": tail("lcamp"), "lweek": tail("lweek"),
-            "events": events, "copies": events,  # the repeats are counted apart (`repeats`)
+            "events": events, "copies": events,  # the repeats are counted apart (the scan's `duplicates`)
             "pre_rows": col(self.pre[units], ue, zl),  # an unseen id's rows are none "during the test"
             "imps": col(imps[units], zn, li), "clks": col(clks[units], zn, lc),
             "flags": col(flags[units], zn, zl), "t_min": tail("lt"),
         })
+
+
+def arrow_of(rel: Any) -> pa.Table:
+    """A DuckDB relation as an Arrow table (DuckDB 2 names the call `to_arrow_table`, 1.x `arrow`)."""
+    fetch = getattr(rel, "to_arrow_table", None) or rel.arrow
+    return fetch()
+
+
+def _negated(a: pa.ChunkedArray) -> pa.Array:
+    """The counts negated (a repeat's id is counted once less)."""
+    return pa.array(-a.to_numpy().astype(np.int64))
 
 
 def _week(t: np.ndarray) -> np.ndarray:

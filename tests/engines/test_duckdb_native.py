@@ -160,13 +160,44 @@ def test_errors_word_for_word(tmp_path: Path) -> None:
     assert f"column '{c.time}' has 3 time(s) outside the years 1678-2261" in msgs[0] or "cannot read" in msgs[0]
 
 
-def test_too_many_shared_times_go_to_the_sliced_reader(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    """Past the tie limit (a log in whole seconds at scale) the sliced reader de-duplicates as it streams."""
+def test_many_shared_times_stay_native(tmp_path: Path) -> None:
+    """A log in whole hours (most rows share a time with many others) with exact repeats: the
+    repeats are found a row group at a time, and the native path keeps the log."""
     spec = _spec("two_arms", salt="native-ties")
-    logs = generate(spec, units=400, days=14, seed=91, faults=(), events_per_unit=3.0)
+    logs = generate(spec, units=400, days=14, seed=91, faults=("leakage", "pre_exposure"), events_per_unit=3.0)
     c = spec.audit.exposures
-    logs.exposures[c.time] = pd.to_datetime(logs.exposures[c.time], utc=True).dt.floor("h")
-    logs.exposures = logs.exposures.sort_values(c.time, kind="stable").reset_index(drop=True)
+    e = logs.exposures
+    e[c.time] = pd.to_datetime(e[c.time], utc=True).dt.floor("h")
+    e = pd.concat([e, e.iloc[::7]], ignore_index=True)
+    logs.exposures = e.sort_values(c.time, kind="stable").reset_index(drop=True)
     paths = write_logs(logs, tmp_path, "parquet")
-    monkeypatch.setattr(engine_duckdb_native, "TIE_ROWS", 10)
+    _rewrite(paths, logs.exposures, 311)
+    p, n, _ = _three(spec, paths)
+    assert n.counts["exposure_duplicate_rows"] >= len(e) // 8
+
+
+def test_too_many_repeats_go_to_the_sliced_reader(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Past the repeats limit (held in memory until they are taken off) the sliced reader
+    de-duplicates as it streams."""
+    spec = _spec("two_arms", salt="native-repeats")
+    logs = generate(spec, units=400, days=14, seed=92, faults=(), events_per_unit=3.0)
+    c = spec.audit.exposures
+    e = pd.concat([logs.exposures, logs.exposures.iloc[::5]], ignore_index=True)
+    logs.exposures = e.sort_values(c.time, kind="stable").reset_index(drop=True)
+    paths = write_logs(logs, tmp_path, "parquet")
+    monkeypatch.setattr(engine_duckdb_native, "REPEAT_ROWS", 10)
+    monkeypatch.setattr(engine_duckdb_native, "REPEAT_SHARE", 10**9)
     _three(spec, paths, path="sliced")
+
+
+def test_visits_ending_before_the_exposures(tmp_path: Path) -> None:
+    """No as-of day given and the visits end days before the exposure log: the rows were grouped by
+    id up to the log's last day, the cut falls earlier, and every row is counted one by one."""
+    spec = _spec("ninety_ten", salt="native-early-cut")
+    logs = generate(spec, units=600, days=21, seed=93, faults=("leakage",), events_per_unit=3.0)
+    cv = spec.audit.visits
+    seen = pd.to_datetime(logs.visits[cv.first_seen], utc=True)
+    logs.visits = logs.visits[seen < seen.min() + pd.Timedelta(days=10)].reset_index(drop=True)
+    paths = write_logs(logs, tmp_path, "parquet")
+    p, n, _ = _three(spec, paths)
+    assert n.counts["exposures_after_as_of"] > 0
