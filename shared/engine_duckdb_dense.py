@@ -17,6 +17,7 @@ from typing import Any
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 US_DAY = 86_400 * 10**6
 # code bits of a row: 1 an exposure during the test, 2 one before it, 4 before the start, 8 after the
@@ -24,26 +25,27 @@ US_DAY = 86_400 * 10**6
 # (0 impression, 1 click, 2 other) of a row during the test; 64 a holdout unit's row during the test (a leak).
 DUR, PRE, BEFORE_START, BEFORE_VISIT, LEAK = 1, 2, 4, 8, 64
 
-# Each joined row of `{rows}` (the log `xs`, or its repeats `reps`): its unit's row (NULL: no unit),
-# its code, its id when it has no unit, and for a leak its time and campaign code in one number,
-# (time - {t0}) * {camps} + campaign. Few rows are leaks or of no unit: the rest come back as 5
-# bytes and null bits.
+# Each joined row of `{rows}` (kept rows of the log `xs` with w = 1, and its exact repeats `reps` with
+# w = -1, to be taken off): its unit's row (NULL: no unit), its code, its id when it has no unit,
+# for a leak its time and campaign code in one number, (time - {t0}) * {camps} + campaign, and w.
+# Few rows are leaks or of no unit: the rest come back as 6 bytes and null bits.
 ROWS_SQL = """
 SELECT pos,
        (CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END
         + CASE WHEN dur THEN 16 * {kind} ELSE 0 END + CASE WHEN dur AND hold THEN 64 ELSE 0 END)::TINYINT AS code,
        CASE WHEN pos IS NULL THEN id END AS uid,
-       CASE WHEN dur AND hold THEN (t - {t0}) * {camps} + {camp} END AS x
+       CASE WHEN dur AND hold THEN (t - {t0}) * {camps} + {camp} END AS x,
+       w
 FROM (
-  SELECT e.id, e.t, e.camp, e.kl, v.pos, v.fs, v.hold,
+  SELECT e.id, e.t, e.camp, e.kl, e.w, v.pos, v.fs, v.hold,
          e.t < {start} AS bs, coalesce(e.t >= {start} AND e.t >= v.fs, false) AS dur
-  FROM (SELECT * FROM {rows} WHERE {kept}) e LEFT JOIN v ON e.id = v.id
+  FROM ({rows}) e LEFT JOIN v ON e.id = v.id
 )
 """
 
 
 class Dense:
-    """Per-unit sums of the joined rows (`add` a batch at a time; the repeats with sign -1), then `cells`.
+    """Per-unit sums of the joined rows (`add` a batch at a time, the repeats taken off), then `cells`.
     `camps` and `t0` unpack a leak's number (`ROWS_SQL`)."""
 
     def __init__(self, units: int, camps: int, t0: int) -> None:
@@ -91,8 +93,16 @@ class Dense:
         self.clks[pos] += nc
         self.oth[pos] += n - ni - nc
 
-    def add(self, b: pa.RecordBatch, sign: int = 1) -> None:
-        """Add a batch of joined rows (`sign` -1: take them off)."""
+    def add(self, b: pa.RecordBatch) -> None:
+        """Add a batch of joined rows (`ROWS_SQL`), taking off those with w = -1 (the repeats)."""
+        w = b.column(4)
+        neg = pc.less(w, 0)
+        if pc.any(neg).as_py():
+            self._add(b.filter(neg), -1)
+            b = b.filter(pc.invert(neg))
+        self._add(b, 1)
+
+    def _add(self, b: pa.RecordBatch, sign: int) -> None:
         assert not self.settled
         pos_col = b.column(0)
         seen = np.asarray(pos_col.is_valid().to_numpy(zero_copy_only=False), dtype=bool)

@@ -1,10 +1,21 @@
 """The DuckDB engine's native exposure path: DuckDB reads a Parquet exposure log itself, the row rules in SQL.
 
 For the common case, a Parquet log with text ids, zoned timestamps and text labels, sorted by time
-as exports usually are, DuckDB's own parallel Parquet reader feeds the join to the units, and
-each joined row comes back as a unit's row number and a one-byte code that
-`engine_duckdb_dense.Dense` sums per unit (no exposure row becomes a Python value). The rules
-are the sliced reader's (`engine_duckdb_read`, itself `shared.load`'s), written in SQL:
+as exports usually are, DuckDB's own parallel Parquet reader does the work, in two steps:
+
+1. while the visits are read (neither the units nor, usually, the as-of day is known yet), DuckDB
+   groups the log's rows by id (`Native.aggregate`): rows, impressions, clicks and first time
+   per id, all but the rows of the log's last day;
+2. once the units are known, those groups (about one per exposed unit) are joined to the units
+   (`Native.cells`). A unit whose rows all fall during the test, and that is not a holdout unit,
+   has its counts from its group; an id of no unit is an unseen id with its rows. The rows of the
+   other units (a row before the test, or a holdout unit's row: few in a sound test) and of the
+   last day are joined to the units row by row and come back as a unit's row number and a
+   one-byte code that `engine_duckdb_dense.Dense` sums per unit (no exposure row becomes a
+   Python value). Grouping by id first hashes each row's id once, as the join would, and moves
+   that work before the visits are even read.
+
+The rules are the sliced reader's (`engine_duckdb_read`, itself `shared.load`'s), written in SQL:
 
 - rows with an empty or null id, or a null time, are set aside and counted; the first ones are
   named by their position in the file (`file_row_number`), so the notes are word for word the
@@ -14,10 +25,9 @@ are the sliced reader's (`engine_duckdb_read`, itself `shared.load`'s), written 
   nor a click are counted, and when there are any their labels are listed in the sliced reader's
   order by its own code over the kind column alone;
 - exact duplicates (same id, time, campaign and kind) count once. Only rows that share a time
-  with another row can repeat one, so one pass over the time column alone (Arrow, a row group at a
-  time, `time_pass`) finds the times that occur more than once; a row with such a time comes
-  back with its time, campaign and kind, and its exact repeats are found among those few rows
-  and counted once (`Dense.repeats`).
+  can repeat each other, and in a log sorted by time they sit together: a pass over the log a
+  row group at a time (Arrow, `time_pass`, on a thread beside step 1) compares those rows and
+  keeps each exact repeat; the repeats go through step 2's row-by-row query and are taken off.
 
 That pass also checks what SQL would not say the same way. The sliced reader takes over, and
 gives the same report, for: CSV and CSV.gz files (text times follow pandas' parsing rules, which SQL
@@ -25,14 +35,14 @@ does not copy exactly), ids that are not text (integer ids are hashed as their d
 noted), times that are not zoned timestamps (text, epoch numbers, naive timestamps, dates),
 labels that are not text, times outside the years 1678-2261 (an error naming the rows), a log
 whose times go back somewhere (its de-duplication groups every row; the sliced reader's does the
-same), more rows sharing a time than `TIE_ROWS` or one in `TIE_SHARE` of the rows (say a log in
-whole seconds: grouping them would hold most rows in memory, while the sliced reader compares
-them as it streams), a file name DuckDB would read as a pattern, and any file DuckDB cannot read
-(the sliced reader names the problem).
+same), more exact repeats than `REPEAT_ROWS` or one in `REPEAT_SHARE` of the rows (they are held
+until they are taken off, while the sliced reader drops them as it streams), a file name DuckDB
+would read as a pattern, and any file DuckDB cannot read (the sliced reader names the problem).
 """
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -215,14 +225,16 @@ def _repeats(rows: pa.Table) -> pa.Table:
 
 
 class Native:
-    """The native path over one exposure log. `prepare` (on a worker thread, while the visits are
-    read: it needs neither the units nor the as-of day) counts the rows with no id or no time and
-    the kinds that are neither, and keeps the times more than one row has (`tied_t`); `finish` applies the
-    as-of day; `cells` registers DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` makes it (campaign
-    codes index `camps`, this log's labels in sorted order)."""
+    """The native path over one exposure log. `prepare` and `aggregate` (on a worker thread, while
+    the visits are read: they need neither the units nor the as-of day) count the rows with no id
+    or no time and the kinds that are neither, and group the rows by id; `attach` takes the time
+    pass's repeats; `finish` applies the as-of day; `cells` registers DuckDB's table `cells` as
+    `engine_duckdb._CELLS_SQL` makes it (campaign codes index `camps`, this log's labels in sorted
+    order)."""
 
-    def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType, tp: TimePass) -> None:
-        self.ce, self.path, self.tp = ce, path, tp
+    def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType) -> None:
+        self.ce, self.path = ce, path
+        self.tp = TimePass(nulls=0, lo=None, hi=None, repeats=_REPEATS_SCHEMA.empty_table(), days={})  # `attach`
         self.ns = ttype.unit == "ns"
         t = _name(ce.time)
         self.t_expr = floor_div(f"epoch_ns({t})", 1000) if self.ns else f"epoch_us({t})"
@@ -237,6 +249,8 @@ class Native:
         self.empty_days: dict[int, int] = {}
         self.others = 0
         self.split: int | None = None  # rows before this time are grouped by id (`aggregate`)
+        self.lo: int | None = None  # the first and last time (`prepare`)
+        self.hi: int | None = None
         self.cut_us = T_MAX_US  # the end of the as-of day (`finish`)
 
     @staticmethod
@@ -261,8 +275,9 @@ class Native:
 
     def prepare(self, con: Any) -> None:
         """What needs neither the units nor the as-of day: rows with no id or no time (Parquet's
-        statistics answer these at once when there are none), kinds that are neither, repeats."""
-        scan, tp = self.scan, self.tp
+        statistics answer these at once when there are none), kinds that are neither, the first
+        and last time."""
+        scan = self.scan
         con.execute(f"CREATE OR REPLACE TEMP VIEW xs AS {self.source}").fetchall()
         camps, kinds = self._labels(con, "camp"), self._labels(con, "kl")
         if camps is None or kinds is None:
@@ -275,15 +290,22 @@ class Native:
             self.kept.append(f"NOT {NO_ID}")
             self.empty_days = {int(d): int(c) for d, c in con.execute(
                 f"SELECT {floor_div('t', US_DAY)}, count(*) FROM xs WHERE {NO_ID} AND t IS NOT NULL GROUP BY 1").fetchall()}
-        if tp.nulls:
-            n, first = con.execute(f"SELECT count(*), min(r, 5) FROM xs WHERE traw IS NULL AND NOT {NO_ID}").fetchall()[0]
+        nulls, n, first = con.execute(f"SELECT count(*), count(*) FILTER (WHERE NOT {NO_ID}), "
+                                      f"min(r, 5) FILTER (WHERE NOT {NO_ID}) FROM xs WHERE traw IS NULL").fetchall()[0]
+        if nulls:
             if n:
                 scan.no_time.first, scan.no_time.n = [int(x) for x in first], int(n)
             self.kept.append("traw IS NOT NULL")
         self.others = int(con.execute(f"SELECT count(*) FROM xs WHERE {self._kind_class('kl')} = 2").fetchall()[0][0])
-        if tp.lo is not None and (tp.hi - tp.lo + 1) * max(len(camps), 1) >= 1 << 62:
+        lo, hi = con.execute("SELECT min(t), max(t) FROM xs").fetchall()[0]
+        self.lo, self.hi = (None, None) if lo is None else (int(lo), int(hi))
+        if self.lo is not None and (self.hi - self.lo + 1) * max(len(camps), 1) >= 1 << 62:
             raise TooMany()  # a leak's time and campaign would not fit one number (`ROWS_SQL`)
-        if tp.repeats.num_rows:  # the exact repeats, as rows of the log
+
+    def attach(self, con: Any, tp: TimePass) -> None:
+        """The time pass's findings (it ran beside `prepare` and `aggregate`): its repeats, as rows of the log."""
+        self.tp = tp
+        if tp.repeats.num_rows:
             con.register("reps_in", tp.repeats)
             con.execute("CREATE OR REPLACE TEMP VIEW reps AS SELECT id, t, t AS traw, camp, kl, 0 AS r FROM reps_in").fetchall()
 
@@ -296,7 +318,7 @@ class Native:
         self.cut_us = cut
         end = cut // US_DAY  # the cut is a midnight: a row is kept when its day is before this one
         days = {d: n - self.empty_days.get(d, 0) for d, n in tp.days.items() if d < end}
-        if tp.hi is not None and tp.hi >= cut:
+        if self.hi is not None and self.hi >= cut:
             scan.late = int(con.execute(f"SELECT count(*) FROM xs WHERE t >= {cut} AND NOT {NO_ID}").fetchall()[0][0])
             self.kept.append(f"t < {cut}")
         self.days = days
@@ -305,14 +327,12 @@ class Native:
                 reader.kinds(batch.column(0), scan)
 
     def aggregate(self, con: Any, cut_us: int | None) -> None:
-        """Group the log's rows by id before the units are known (`BY_ID_SQL`, on the worker thread
+        """Group the log's rows by id before the units are known (`BY_ID_SQL`, on a worker thread
         while the visits are read), all but those of its last day (or from `cut_us` on, when the
         as-of day is known and earlier): `cells` joins these groups, one per id, to the units."""
-        tp = self.tp
-        if tp.hi is None:
-            self.split = None
+        if self.hi is None:
             return
-        split = (tp.hi // US_DAY) * US_DAY  # midnight of the last day: every cut at a midnight is at or after it...
+        split = (self.hi // US_DAY) * US_DAY  # midnight of the last day: every cut at a midnight is at or after it...
         self.split = split if cut_us is None else min(split, cut_us)  # ...unless the as-of day is earlier
         weight = self._code("kl", self.kinds, [1 if c == 0 else 1 << 32 if c == 1 else 0 for c in self.classes])
         con.execute(BY_ID_SQL.format(weight=weight, kept=self._kept(), split=self.split)).fetchall()
@@ -327,14 +347,15 @@ class Native:
         DuckDB's join (`ROWS_SQL`) and `Dense` sums them per unit; the exact repeats found by
         `time_pass` go through the same query and are taken off. When the as-of day ends before
         the split the groups were made at, every row comes back one by one."""
-        fields = {"kept": self._kept(), "start": start_us, "kind": self._kind_class("kl"), "t0": self.tp.lo or 0,
+        fields = {"start": start_us, "kind": self._kind_class("kl"), "t0": self.lo or 0,
                   "camps": max(len(self.camps), 1),
                   "camp": self._code("camp", self.camps, list(range(len(self.camps))))}
-        dense = Dense(units, len(self.camps), self.tp.lo or 0)
+        dense = Dense(units, len(self.camps), self.lo or 0)
         batch_rows = max(BATCH_ROWS, min(units, 1 << 22))  # rows held while they are summed, ~14 bytes each
         split = self.split if self.split is not None and not (self.cut_us < self.split) else None
+        kept = self._kept()
         if split is None:
-            rows = ["xs"]
+            rows = [f"SELECT id, t, camp, kl, 1 AS w FROM xs WHERE {kept}"]
         else:
             g = arrow_of(con.sql(GROUPS_SQL.format(start=start_us)))
             special = g.column("special").to_numpy(zero_copy_only=False)
@@ -347,21 +368,22 @@ class Native:
             if not seen.all():
                 dense.unseen.append(pa.table({"uid": g.column("id").filter(pa.array(~seen)).cast(pa.string()),
                                               "uid_count": pa.array(n[~seen])}))
-            rows = [f"(SELECT * FROM xs WHERE t >= {split})"]
+            rows = [f"SELECT id, t, camp, kl, 1 AS w FROM xs WHERE {kept} AND t >= {split}"]
             if special.any():
                 con.register("special_ids", pa.table({"id": g.column("id").filter(pa.array(special))}))
-                rows.append(f"(SELECT x.* FROM xs x SEMI JOIN special_ids s ON x.id = s.id WHERE x.t < {split})")
+                rows.append(f"SELECT x.id, x.t, x.camp, x.kl, 1 AS w FROM (SELECT * FROM xs WHERE {kept} AND t < {split}) x "
+                            "SEMI JOIN special_ids s ON x.id = s.id")
             del g
-        for source in rows:
-            for batch in con.sql(ROWS_SQL.format(rows=source, **fields)).to_arrow_reader(batch_rows):
-                dense.add(batch)
         if self.tp.repeats.num_rows:
-            for batch in con.sql(ROWS_SQL.format(rows="reps", **fields)).to_arrow_reader(BATCH_ROWS):
-                dense.add(batch, sign=-1)
+            rows.append(f"SELECT id, t, camp, kl, -1 AS w FROM reps WHERE {kept}")
             day = floor_div("t", US_DAY)
-            for d, c in con.execute(f"SELECT {day}, count(*) FROM reps WHERE {self._kept()} GROUP BY 1").fetchall():
+            for d, c in con.execute(f"SELECT {day}, count(*) FROM reps WHERE {kept} GROUP BY 1").fetchall():
                 self.days[int(d)] = self.days.get(int(d), 0) - int(c)
                 self.scan.duplicates += int(c)
+        # one query, so DuckDB builds its hash table on the units once
+        sql = ROWS_SQL.format(rows=" UNION ALL ".join(rows), **fields)
+        for batch in con.sql(sql).to_arrow_reader(batch_rows):
+            dense.add(batch)
         self.scan.days = {d: c for d, c in self.days.items() if c}
         con.register("cells", dense.cells())
         return self.scan
@@ -376,15 +398,19 @@ def prepared(ce: ExposureColumns, path: Path, con: Any, cut_us: int | None = Non
     ttype = eligible(ce, path)
     if ttype is None:
         return None
-    try:
-        tp = time_pass(ce, path, ttype)
-        if tp is None:
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="armlock-timepass") as pool:
+        # the time pass (Arrow and numpy, on a thread) beside DuckDB's grouping: neither needs the other
+        passing = pool.submit(time_pass, ce, path, ttype)
+        try:
+            native = Native(ce, path, ttype)
+            native.prepare(con)
+            native.aggregate(con, cut_us)
+            tp = passing.result()
+            if tp is None:
+                return None
+            native.attach(con, tp)
+        except (duckdb.Error, pa.ArrowException, OSError, TooMany):
             return None
-        native = Native(ce, path, ttype, tp)
-        native.prepare(con)
-        native.aggregate(con, cut_us)
-    except (duckdb.Error, pa.ArrowException, OSError, TooMany):
-        return None
     return native
 
 
