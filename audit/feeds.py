@@ -26,7 +26,7 @@ from dataclasses import dataclass
 from datetime import date, timedelta
 
 import numpy as np
-# scipy.stats: imported inside the functions that use it (0.6 s; run_audit imports it on a thread beside the reading)
+# scipy.stats: imported inside the functions that use it (0.6 s; shared/lazy.py imports it on a thread beside the reading)
 
 from armlock.shared.report import Check, Figure, Status, Table, worst
 

@@ -2,9 +2,6 @@
 
 from __future__ import annotations
 
-import importlib
-import sys
-import threading
 from collections.abc import Callable, Sequence
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
@@ -13,6 +10,7 @@ from armlock.assign import Spec, __version__
 
 from .balance import check_balance
 from .churn import check_churn
+from armlock.shared.lazy import warm_up_stats
 from armlock.shared.load import check_as_of
 from .feeds import FeedHealth, check_feeds, feed_health
 from armlock.shared.engine import Engine, EngineResult, Inputs, canonical, file_bytes, select_engine
@@ -117,15 +115,6 @@ def run_audit(
     res = eng.compute(spec, Inputs(visits, exposures, identities), as_of, advance or (lambda n: None))
     extra = [concurrent_check(spec, visits, res.as_of, alongside)] if alongside else []
     return build_report(spec, res, split_changes, extra)
-
-
-def warm_up_stats() -> None:
-    """Import scipy.stats on a thread (0.6 s of a fresh process) while the engine reads the logs:
-    only the checks need it, after the reading, and Arrow's and DuckDB's reading mostly leaves
-    Python's lock free. A check that asks first waits for the import to end."""
-    if "scipy.stats" not in sys.modules:
-        threading.Thread(target=importlib.import_module, args=("scipy.stats",), name="armlock-import",
-                         daemon=True).start()
 
 
 def concurrent_check(spec: Spec, visits: PathLike, as_of: date, alongside: Sequence[tuple[str, Spec]]) -> Check:

@@ -8,7 +8,7 @@ from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
-# scipy.stats: imported inside the functions that use it (0.6 s; run_audit imports it on a thread beside the reading)
+# scipy.stats: imported inside the functions that use it (0.6 s; shared/lazy.py imports it on a thread beside the reading)
 from scipy.special import gammaln
 
 from armlock.assign import Spec

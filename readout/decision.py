@@ -22,7 +22,7 @@ import math
 from dataclasses import dataclass
 from datetime import date, time, timedelta, timezone
 
-from scipy import stats as sps
+# scipy.stats: imported inside the functions that use it (0.6 s; shared/lazy.py imports it on a thread beside the reading)
 
 from armlock.assign import Spec
 
@@ -89,6 +89,7 @@ def breakeven(spec: Spec) -> tuple[float, str]:
 def p_against(iroas: Interval | None, target: float, df: float | None) -> float | None:
     """Two-sided p of iROAS = target from the estimate and its standard error (t with the Welch
     df when there is one, else normal), so p < alpha exactly when the fixed interval excludes it."""
+    from scipy import stats as sps
     if iroas is None or iroas.value is None or not iroas.se or not math.isfinite(iroas.se):
         return None
     t = (iroas.value - target) / iroas.se

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 from datetime import date
 
-from scipy import stats
+# scipy.stats: imported inside the functions that use it (0.6 s; shared/lazy.py imports it on a thread beside the reading)
 
 from armlock.assign import Spec
 from armlock.audit import feed_health, feed_sentence
@@ -40,6 +40,7 @@ SET_ASIDE = (("order_empty_keys", "an empty key"), ("order_missing_time", "no ti
 
 def check_orders(spec: Spec, tables: ReadoutTables, as_of: date) -> Check:
     """The orders feed's health (see the module docstring); id `orders`."""
+    from scipy import stats
     c = tables.counts
     rows = int(c.get("order_rows", 0))
     aside = {why: int(c.get(k, 0)) for k, why in SET_ASIDE if c.get(k, 0)}

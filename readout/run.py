@@ -14,6 +14,7 @@ from pathlib import Path
 
 from armlock.assign import InputError, Spec
 from armlock.shared.engine import Engine, Inputs, ReadoutResult, canonical, select_engine
+from armlock.shared.lazy import warm_up_stats
 from armlock.shared.load import check_as_of
 from armlock.audit import AuditReport, checks_from_tables, report_from_checks
 
@@ -82,6 +83,7 @@ def run_readout_and_audit(
     if attributed_revenue is not None and not math.isfinite(attributed_revenue):
         raise InputError(f"--attributed-revenue must be a finite amount, got {attributed_revenue}")
     check_as_of(as_of)
+    warm_up_stats()
     eng = select_engine(engine) if isinstance(engine, str) else engine
     res = eng.readout(spec, Inputs(visits, exposures, identities, orders), as_of, advance or (lambda n: None))
     report, audit = reports_from_result(spec, res, spend=spend, spend_file=spend_file,

@@ -11,7 +11,7 @@ import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy import stats as sps
+# scipy.stats: imported inside the functions that use it (0.6 s; shared/lazy.py imports it on a thread beside the reading)
 
 from armlock.shared.confseq import anytime_factor
 from armlock.shared.readout_tables import Moments
@@ -41,6 +41,7 @@ NAN = float("nan")
 
 
 def _normal(value: float, se: float, alpha: float) -> Estimate:
+    from scipy import stats as sps
     if not (math.isfinite(value) and math.isfinite(se)) or se <= 0:
         return Estimate(value, se, NAN, NAN, None)
     z = float(sps.norm.isf(alpha / 2))
@@ -50,6 +51,7 @@ def _normal(value: float, se: float, alpha: float) -> Estimate:
 
 def welch_from_parts(diff: float, va: float, vb: float, na: int, nb: int, alpha: float) -> Estimate:
     """Welch's unequal-variance t for a difference with per-arm variances of the means va, vb."""
+    from scipy import stats as sps
     se = math.sqrt(va + vb) if va + vb >= 0 else NAN
     if not (na >= 2 and nb >= 2 and se > 0 and math.isfinite(se)):
         return Estimate(diff, se, NAN, NAN, None)
