@@ -298,9 +298,10 @@ class Native:
             self.kept.append("traw IS NOT NULL")
         self.others = int(con.execute(f"SELECT count(*) FROM xs WHERE {self._kind_class('kl')} = 2").fetchall()[0][0])
         lo, hi = con.execute("SELECT min(t), max(t) FROM xs").fetchall()[0]
-        self.lo, self.hi = (None, None) if lo is None else (int(lo), int(hi))
-        if self.lo is not None and (self.hi - self.lo + 1) * max(len(camps), 1) >= 1 << 62:
-            raise TooMany()  # a leak's time and campaign would not fit one number (`ROWS_SQL`)
+        if lo is not None:
+            self.lo, self.hi = int(lo), int(hi)
+            if (self.hi - self.lo + 1) * max(len(camps), 1) >= 1 << 62:
+                raise TooMany()  # a leak's time and campaign would not fit one number (`ROWS_SQL`)
 
     def attach(self, con: Any, tp: TimePass) -> None:
         """The time pass's findings (it ran beside `prepare` and `aggregate`): its repeats, as rows of the log."""
