@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from datetime import date
 from fractions import Fraction
@@ -58,25 +58,29 @@ def with_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date, audit_tables
     return ReadoutResult(audit=audit, tables=tables, notes=notes)
 
 
-def grouped_moments(names: tuple[str, ...], data: np.ndarray, group: np.ndarray, groups: int) -> list[Moments]:
-    """Moments of the rows of `data` (units x variables) in each group 0..groups-1, exactly (readout.rules).
+def grouped_moments(names: tuple[str, ...], data: np.ndarray | Sequence[np.ndarray], group: np.ndarray,
+                    groups: int) -> list[Moments]:
+    """Moments of the rows of `data` (units x variables, or one array per variable) in each group
+    0..groups-1, exactly (readout.rules).
 
     Each column's sums, then each pair's sum of centred products, are exact per group (so the
     order they are taken in does not matter); they run a column or a pair at a time on threads
-    (numpy's work releases Python's lock)."""
+    (numpy's work releases Python's lock), over contiguous columns (no strided copies)."""
+    cols = [np.ascontiguousarray(data[:, j]) for j in range(data.shape[1])] if isinstance(data, np.ndarray) \
+        else [np.ascontiguousarray(c, dtype=np.float64) for c in data]
     k = len(names)
     n = np.bincount(group, minlength=groups)
     group = group.astype(np.int64)
     with ThreadPoolExecutor(max_workers=_WORKERS, thread_name_prefix="armlock-moments") as pool:
-        col_sums = list(pool.map(lambda j: grouped_exact_sums(data[:, j], group, groups), range(k)))
+        col_sums = list(pool.map(lambda j: grouped_exact_sums(cols[j], group, groups), range(k)))
         means = np.array([means_of(int(n[g]), [col_sums[j][g] for j in range(k)]) for g in range(groups)]).reshape(
             groups, k)
-        d = data - means[group]
+        d = [cols[j] - means[:, j][group] for j in range(k)]  # the same differences as data - means[group]
         pp = pairs(k)
 
         def cross(ab: tuple[int, int]) -> tuple[list[Fraction], np.ndarray]:
             with np.errstate(over="ignore", invalid="ignore"):  # values near 1e308: their products overflow
-                prod = d[:, ab[0]] * d[:, ab[1]]
+                prod = d[ab[0]] * d[ab[1]]
             bad = ~np.isfinite(prod)
             return grouped_exact_sums(prod, group, groups), np.unique(group[bad]) if bad.any() else group[:0]
 
@@ -230,8 +234,10 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
     k = len(arms)
 
     def moments(names: tuple[str, ...], keep: np.ndarray, cols: list[np.ndarray]) -> dict[str, Moments]:
-        data = np.column_stack(cols)[keep]
-        return dict(zip(arms, grouped_moments(names, data, arm[keep], k)))
+        m = int(keep.sum())
+        if keep[:m].all():  # the units first seen before a day: a prefix (the visits are sorted by first-seen)
+            return dict(zip(arms, grouped_moments(names, [c[:m] for c in cols], arm[:m], k)))
+        return dict(zip(arms, grouped_moments(names, [c[keep] for c in cols], arm[keep], k)))
 
     def capped_(r: np.ndarray) -> np.ndarray:
         return np.minimum(r, cap) if cap is not None else r
