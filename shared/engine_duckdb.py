@@ -42,7 +42,7 @@ from .engine_duckdb_native import Native, floor_div, prepared
 from .engine_duckdb_read import STREAM_SCHEMA, ExposureReader, ExposureScan, Unsorted
 from .engine_pandas import NS_DAY, VisitArms, _recorded_codes, _unseen_diagnostics
 from .keys import arrow_ids
-from .load import cutoff_of, load_identities, load_visits
+from .load import load_identities, load_visits
 from .read import ARM, TIME, UNIT, Frames
 from .tables import AuditTables, LeakageTables
 
@@ -148,8 +148,7 @@ class DuckDBEngine:
             con = stack.enter_context(connect(self.memory_limit, self.temp_directory)) if exposures else None
             native: Future[Native | None] | None = None
             if con is not None and self.native:  # the native path's first pass, beside the visits
-                cut = cutoff_of(as_of).value // 1000 if as_of is not None else None
-                native = _in_worker(stack, prepared, spec.audit.exposures, exposures, con, cut)
+                native = _in_worker(stack, prepared, spec.audit.exposures, exposures, con)
             fr = Frames(visits=None)
             used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
             early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)

@@ -85,14 +85,6 @@ class Dense:
         self.imps = self.copies - self.pre - self.clks - self.oth
         self.settled = True
 
-    def bulk(self, pos: np.ndarray, n: np.ndarray, ni: np.ndarray, nc: np.ndarray) -> None:
-        """Units whose rows all fall during the test, from their id's group (distinct units):
-        rows, impressions, clicks (the rest are of another kind)."""
-        assert not self.settled
-        self.copies[pos] += n
-        self.clks[pos] += nc
-        self.oth[pos] += n - ni - nc
-
     def add(self, b: pa.RecordBatch) -> None:
         """Add a batch of joined rows (`ROWS_SQL`), taking off those with w = -1 (the repeats)."""
         w = b.column(4)

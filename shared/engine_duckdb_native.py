@@ -1,19 +1,12 @@
 """The DuckDB engine's native exposure path: DuckDB reads a Parquet exposure log itself, the row rules in SQL.
 
 For the common case, a Parquet log with text ids, zoned timestamps and text labels, sorted by time
-as exports usually are, DuckDB's own parallel Parquet reader does the work, in two steps:
-
-1. while the visits are read (neither the units nor, usually, the as-of day is known yet), DuckDB
-   groups the log's rows by id (`Native.aggregate`): rows, impressions, clicks and first time
-   per id, all but the rows of the log's last day;
-2. once the units are known, those groups (about one per exposed unit) are joined to the units
-   (`Native.cells`). A unit whose rows all fall during the test, and that is not a holdout unit,
-   has its counts from its group; an id of no unit is an unseen id with its rows. The rows of the
-   other units (a row before the test, or a holdout unit's row: few in a sound test) and of the
-   last day are joined to the units row by row and come back as a unit's row number and a
-   one-byte code that `engine_duckdb_dense.Dense` sums per unit (no exposure row becomes a
-   Python value). Grouping by id first hashes each row's id once, as the join would, and moves
-   that work before the visits are even read.
+as exports usually are, DuckDB's own parallel Parquet reader feeds the join to the units, and
+each joined row comes back as a unit's row number and a one-byte code that
+`engine_duckdb_dense.Dense` sums per unit (no exposure row becomes a Python value). (Grouping the
+rows by id first, before the units are known, took the same CPU at 2 M units but its partial
+groups grew with the rows: 4.5 GB at 250 M rows and 6.3 GB at 500 M, 10 M units; the join's
+memory does not.)
 
 The rules are the sliced reader's (`engine_duckdb_read`, itself `shared.load`'s), written in SQL:
 
@@ -26,8 +19,9 @@ The rules are the sliced reader's (`engine_duckdb_read`, itself `shared.load`'s)
   order by its own code over the kind column alone;
 - exact duplicates (same id, time, campaign and kind) count once. Only rows that share a time
   can repeat each other, and in a log sorted by time they sit together: a pass over the log a
-  row group at a time (Arrow, `time_pass`, on a thread beside step 1) compares those rows and
-  keeps each exact repeat; the repeats go through step 2's row-by-row query and are taken off.
+  row group at a time (Arrow, `time_pass`, on a thread beside DuckDB's checks) compares those
+  rows and keeps each exact repeat; the repeats go through the same joined query with a weight
+  of -1 and are taken off.
 
 That pass also checks what SQL would not say the same way. The sliced reader takes over, and
 gives the same report, for: CSV and CSV.gz files (text times follow pandas' parsing rules, which SQL
@@ -54,7 +48,7 @@ import pyarrow.parquet as pq
 
 from armlock.assign.spec_audit import ExposureColumns
 
-from .engine_duckdb_dense import ROWS_SQL, Dense, arrow_of
+from .engine_duckdb_dense import ROWS_SQL, Dense
 from .engine_duckdb_read import US_DAY, ExposureReader, ExposureScan
 from .keys import duplicate_rows
 from .read import MISSING_LEVEL, T_MAX_US, T_MIN_US
@@ -225,12 +219,11 @@ def _repeats(rows: pa.Table) -> pa.Table:
 
 
 class Native:
-    """The native path over one exposure log. `prepare` and `aggregate` (on a worker thread, while
-    the visits are read: they need neither the units nor the as-of day) count the rows with no id
-    or no time and the kinds that are neither, and group the rows by id; `attach` takes the time
-    pass's repeats; `finish` applies the as-of day; `cells` registers DuckDB's table `cells` as
-    `engine_duckdb._CELLS_SQL` makes it (campaign codes index `camps`, this log's labels in sorted
-    order)."""
+    """The native path over one exposure log. `prepare` (on a worker thread, while the visits are
+    read: it needs neither the units nor the as-of day) counts the rows with no id or no time and
+    the kinds that are neither; `attach` takes the time pass's repeats; `finish` applies the as-of
+    day; `cells` registers DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` makes it (campaign
+    codes index `camps`, this log's labels in sorted order)."""
 
     def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType) -> None:
         self.ce, self.path = ce, path
@@ -248,10 +241,8 @@ class Native:
         self.kept: list[str] = []
         self.empty_days: dict[int, int] = {}
         self.others = 0
-        self.split: int | None = None  # rows before this time are grouped by id (`aggregate`)
         self.lo: int | None = None  # the first and last time (`prepare`)
         self.hi: int | None = None
-        self.cut_us = T_MAX_US  # the end of the as-of day (`finish`)
 
     @staticmethod
     def _labels(con: Any, col: str) -> list[str] | None:
@@ -304,7 +295,7 @@ class Native:
                 raise TooMany()  # a leak's time and campaign would not fit one number (`ROWS_SQL`)
 
     def attach(self, con: Any, tp: TimePass) -> None:
-        """The time pass's findings (it ran beside `prepare` and `aggregate`): its repeats, as rows of the log."""
+        """The time pass's findings (it ran beside `prepare`): its repeats, as rows of the log."""
         self.tp = tp
         if tp.repeats.num_rows:
             con.register("reps_in", tp.repeats)
@@ -316,7 +307,6 @@ class Native:
     def finish(self, con: Any, reader: ExposureReader) -> None:
         """The as-of day: rows at or after its end set aside, the rows per day, the kinds' labels."""
         scan, tp, cut = self.scan, self.tp, reader.cut_us
-        self.cut_us = cut
         end = cut // US_DAY  # the cut is a midnight: a row is kept when its day is before this one
         days = {d: n - self.empty_days.get(d, 0) for d, n in tp.days.items() if d < end}
         if self.hi is not None and self.hi >= cut:
@@ -327,85 +317,50 @@ class Native:
             for batch in reader.slices([reader.ce.kind]):
                 reader.kinds(batch.column(0), scan)
 
-    def aggregate(self, con: Any, cut_us: int | None) -> None:
-        """Group the log's rows by id before the units are known (`BY_ID_SQL`, on a worker thread
-        while the visits are read), all but those of its last day (or from `cut_us` on, when the
-        as-of day is known and earlier): `cells` joins these groups, one per id, to the units."""
-        if self.hi is None:
-            return
-        split = (self.hi // US_DAY) * US_DAY  # midnight of the last day: every cut at a midnight is at or after it...
-        self.split = split if cut_us is None else min(split, cut_us)  # ...unless the as-of day is earlier
-        weight = self._code("kl", self.kinds, [1 if c == 0 else 1 << 32 if c == 1 else 0 for c in self.classes])
-        con.execute(BY_ID_SQL.format(weight=weight, kept=self._kept(), split=self.split)).fetchall()
-
     def cells(self, con: Any, start_us: int, units: int) -> ExposureScan:
         """DuckDB's table `cells` from the log (the units' table `v` registered); the scan's counts.
 
-        The ids' groups (`aggregate`) are joined to the units: an id of no unit is an unseen id with
-        its rows; a unit whose rows all fall during the test and that is not a holdout unit has its
-        counts from its group. The rows of the other units (a row before the test, or a holdout
-        unit's row: few in a sound test) and the rows of the last day come back one by one from
-        DuckDB's join (`ROWS_SQL`) and `Dense` sums them per unit; the exact repeats found by
-        `time_pass` go through the same query and are taken off. When the as-of day ends before
-        the split the groups were made at, every row comes back one by one."""
+        DuckDB joins the kept rows to the units (`ROWS_SQL`) and streams them back; `Dense` sums
+        them per unit. The exact repeats found by `time_pass` go through the same query, with a
+        weight of -1, and are taken off."""
         fields = {"start": start_us, "kind": self._kind_class("kl"), "t0": self.lo or 0,
                   "camps": max(len(self.camps), 1),
                   "camp": self._code("camp", self.camps, list(range(len(self.camps))))}
         dense = Dense(units, len(self.camps), self.lo or 0)
-        batch_rows = max(BATCH_ROWS, min(units, 1 << 22))  # rows held while they are summed, ~14 bytes each
-        split = self.split if self.split is not None and not (self.cut_us < self.split) else None
         kept = self._kept()
-        if split is None:
-            rows = [f"SELECT id, t, camp, kl, 1 AS w FROM xs WHERE {kept}"]
-        else:
-            g = arrow_of(con.sql(GROUPS_SQL.format(start=start_us)))
-            special = g.column("special").to_numpy(zero_copy_only=False)
-            pos = g.column("pos")
-            seen = np.asarray(pos.is_valid().to_numpy(zero_copy_only=False), dtype=bool)
-            plain = seen & ~special
-            n, ni, nc = (g.column(c).to_numpy().astype(np.int64) for c in ("n", "ni", "nc"))
-            p = pos.fill_null(0).to_numpy(zero_copy_only=False).astype(np.int64)
-            dense.bulk(p[plain], n[plain], ni[plain], nc[plain])
-            if not seen.all():
-                dense.unseen.append(pa.table({"uid": g.column("id").filter(pa.array(~seen)).cast(pa.string()),
-                                              "uid_count": pa.array(n[~seen])}))
-            rows = [f"SELECT id, t, camp, kl, 1 AS w FROM xs WHERE {kept} AND t >= {split}"]
-            if special.any():
-                con.register("special_ids", pa.table({"id": g.column("id").filter(pa.array(special))}))
-                rows.append(f"SELECT x.id, x.t, x.camp, x.kl, 1 AS w FROM (SELECT * FROM xs WHERE {kept} AND t < {split}) x "
-                            "SEMI JOIN special_ids s ON x.id = s.id")
-            del g
+        rows = [f"SELECT id, t, camp, kl, 1 AS w FROM xs WHERE {kept}"]
         if self.tp.repeats.num_rows:
             rows.append(f"SELECT id, t, camp, kl, -1 AS w FROM reps WHERE {kept}")
             day = floor_div("t", US_DAY)
             for d, c in con.execute(f"SELECT {day}, count(*) FROM reps WHERE {kept} GROUP BY 1").fetchall():
                 self.days[int(d)] = self.days.get(int(d), 0) - int(c)
                 self.scan.duplicates += int(c)
-        # one query, so DuckDB builds its hash table on the units once
+        # one query, so DuckDB builds its hash table on the units once; batches of about as many rows
+        # as units (each sum walks the units' arrays once), within 1-4 M rows (~14 bytes a row, held
+        # while it is summed)
         sql = ROWS_SQL.format(rows=" UNION ALL ".join(rows), **fields)
-        for batch in con.sql(sql).to_arrow_reader(batch_rows):
+        for batch in con.sql(sql).to_arrow_reader(max(BATCH_ROWS, min(units, 1 << 22))):
             dense.add(batch)
         self.scan.days = {d: c for d, c in self.days.items() if c}
         con.register("cells", dense.cells())
         return self.scan
 
 
-def prepared(ce: ExposureColumns, path: Path, con: Any, cut_us: int | None = None) -> Native | None:
-    """`Native.prepare` and `Native.aggregate` of the log when it can take the native path (`cut_us`:
-    the end of the as-of day when it is known already); None for the sliced reader (including when
-    DuckDB cannot read the file: the sliced reader names the problem)."""
+def prepared(ce: ExposureColumns, path: Path, con: Any) -> Native | None:
+    """`Native.prepare` of the log, beside its time pass, when it can take the native path; None
+    for the sliced reader (including when DuckDB cannot read the file: the sliced reader names the
+    problem)."""
     import duckdb
 
     ttype = eligible(ce, path)
     if ttype is None:
         return None
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="armlock-timepass") as pool:
-        # the time pass (Arrow and numpy, on a thread) beside DuckDB's grouping: neither needs the other
+        # the time pass (Arrow and numpy, on a thread) beside DuckDB's checks: neither needs the other
         passing = pool.submit(time_pass, ce, path, ttype)
         try:
             native = Native(ce, path, ttype)
             native.prepare(con)
-            native.aggregate(con, cut_us)
             tp = passing.result()
             if tp is None:
                 return None
@@ -417,23 +372,6 @@ def prepared(ce: ExposureColumns, path: Path, con: Any, cut_us: int | None = Non
 
 NO_ID = "(id IS NULL OR id = '')"
 
-# The kept rows before the split, grouped by id: rows, impressions + 2**32 x clicks (one sum: a
-# third fewer aggregates than two), first time.
-BY_ID_SQL = """
-CREATE OR REPLACE TEMP TABLE by_id AS
-SELECT id, count(*) AS n, sum({weight})::BIGINT AS ic, min(t) AS tmin
-FROM xs WHERE {kept} AND t < {split}
-GROUP BY id
-"""
-
-# Each id's group joined to its unit: `special` when it has a unit that is a holdout unit, or some
-# of its rows fall before the test (before the start or the unit's first visit). (An id of no unit
-# has a NULL `fs`, which DuckDB's `greatest` would skip.)
-GROUPS_SQL = """
-SELECT b.id, v.pos, b.n, (b.ic % 4294967296)::BIGINT AS ni, (b.ic // 4294967296)::BIGINT AS nc,
-       v.pos IS NOT NULL AND (v.hold OR b.tmin < greatest(v.fs, {start})) AS special
-FROM by_id b LEFT JOIN v ON b.id = v.id
-"""
 BATCH_ROWS = 1 << 20  # rows per batch DuckDB hands back (more when there are more units, up to 4 M)
 MAX_LABELS = 1000  # campaign or kind labels the SQL maps to codes; more go to the sliced reader
 

@@ -191,8 +191,9 @@ def test_too_many_repeats_go_to_the_sliced_reader(tmp_path: Path, monkeypatch: p
 
 
 def test_visits_ending_before_the_exposures(tmp_path: Path) -> None:
-    """No as-of day given and the visits end days before the exposure log: the rows were grouped by
-    id up to the log's last day, the cut falls earlier, and every row is counted one by one."""
+    """No as-of day given and the visits end days before the exposure log: the cut falls in the
+    middle of the log, after the time pass has read all of it (its repeats and days past the cut
+    are set aside with their rows)."""
     spec = _spec("ninety_ten", salt="native-early-cut")
     logs = generate(spec, units=600, days=21, seed=93, faults=("leakage",), events_per_unit=3.0)
     cv = spec.audit.visits
