@@ -163,19 +163,19 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
         cand = _plain(cand)
         if carry is not None:
             if int(us[0]) != last:
-                found_parts.append(_repeats(carry))  # the last run did not go on
+                _keep(found_parts, _repeats(carry))  # the last run did not go on
             else:
                 cand = pa.concat_tables([carry, cand])
         t = cand.column("t").to_numpy()
         cut = int(np.searchsorted(t, us[-1], side="left"))
         carry = cand.slice(cut)
         if cut:
-            found_parts.append(_repeats(cand.slice(0, cut)))
+            _keep(found_parts, _repeats(cand.slice(0, cut)))
         if sum(p.num_rows for p in found_parts) > limit:
             return None
         last = int(us[-1])
     if carry is not None:
-        found_parts.append(_repeats(carry))
+        _keep(found_parts, _repeats(carry))
     if lo is not None and last is not None and (lo < T_MIN_US or last >= T_MAX_US):
         return None
     reps = pa.concat_tables(found_parts) if found_parts else _REPEATS_SCHEMA.empty_table()
@@ -185,6 +185,12 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
 
 
 _REPEATS_SCHEMA = pa.schema([("id", pa.string()), ("t", pa.int64()), ("camp", pa.string()), ("kl", pa.string())])
+
+
+def _keep(parts: list[pa.Table], found: pa.Table) -> None:
+    """Keep a row group's repeats (none: nothing kept, so no buffer of the group outlives it)."""
+    if found.num_rows:
+        parts.append(found)
 
 
 def _plain(t: pa.Table) -> pa.Table:
@@ -202,10 +208,10 @@ def _repeats(rows: pa.Table) -> pa.Table:
     """The rows (sorted by time) that repeat an earlier one exactly: same id, time, campaign and kind,
     an empty label being the same as a missing one (both are `(missing)`)."""
     if rows.num_rows < 2:
-        return rows.slice(0, 0)
+        return _REPEATS_SCHEMA.empty_table()  # not an empty slice: it would hold the rows' buffers
     t = rows.column("t").to_numpy()
     if not bool((t[1:] == t[:-1]).any()):
-        return rows.slice(0, 0)
+        return _REPEATS_SCHEMA.empty_table()
 
     def code(name: str, blank: bool) -> np.ndarray:
         c = rows.column(name)
@@ -215,7 +221,9 @@ def _repeats(rows: pa.Table) -> pa.Table:
         return pc.fill_null(enc.indices, -1).to_numpy(zero_copy_only=False).astype(np.int64)
 
     dup = duplicate_rows(t, code("id", False), code("camp", True), code("kl", True))
-    return rows.filter(pa.array(dup))
+    if not dup.any():
+        return _REPEATS_SCHEMA.empty_table()
+    return rows.filter(pa.array(dup)).combine_chunks()  # its own buffers, not the row group's
 
 
 class Native:
