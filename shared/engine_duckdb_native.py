@@ -101,9 +101,6 @@ def eligible(ce: ExposureColumns, path: Path) -> pa.DataType | None:
 class TimePass:
     """What one pass over the log found (times in whole microseconds)."""
 
-    nulls: int
-    lo: int | None  # the earliest time
-    hi: int | None  # the latest time
     repeats: pa.Table  # one row per exact repeat of an earlier row: id, t, camp, kl (as in the file)
     days: dict[int, int]  # rows with a time, per day number
 
@@ -123,7 +120,6 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
     mul = _UNIT_US.get(ttype.unit, 0)  # 0: nanoseconds
     lo: int | None = None
     last: int | None = None
-    nulls = 0
     days: dict[int, int] = {}
     found_parts: list[pa.Table] = []
     carry: pa.Table | None = None  # the rows of the last time so far, not yet compared
@@ -131,8 +127,7 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
     for i in range(pf.metadata.num_row_groups):
         group = pf.read_row_group(i, columns=cols)
         tcol = group.column(ce.time)
-        if tcol.null_count:
-            nulls += tcol.null_count
+        if tcol.null_count:  # rows with no time: set aside (counted by `Native.prepare`)
             group = group.filter(tcol.is_valid())
             tcol = group.column(ce.time)
         if not group.num_rows:
@@ -181,7 +176,7 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
     reps = pa.concat_tables(found_parts) if found_parts else _REPEATS_SCHEMA.empty_table()
     if reps.num_rows > limit:
         return None
-    return TimePass(nulls=nulls, lo=lo, hi=last, repeats=reps, days=days)
+    return TimePass(repeats=reps, days=days)
 
 
 _REPEATS_SCHEMA = pa.schema([("id", pa.string()), ("t", pa.int64()), ("camp", pa.string()), ("kl", pa.string())])
@@ -235,7 +230,7 @@ class Native:
 
     def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType) -> None:
         self.ce, self.path = ce, path
-        self.tp = TimePass(nulls=0, lo=None, hi=None, repeats=_REPEATS_SCHEMA.empty_table(), days={})  # `attach`
+        self.tp = TimePass(repeats=_REPEATS_SCHEMA.empty_table(), days={})  # `attach`
         self.ns = ttype.unit == "ns"
         t = _name(ce.time)
         self.t_expr = floor_div(f"epoch_ns({t})", 1000) if self.ns else f"epoch_us({t})"
