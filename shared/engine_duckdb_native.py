@@ -176,6 +176,10 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
     reps = pa.concat_tables(found_parts) if found_parts else _REPEATS_SCHEMA.empty_table()
     if reps.num_rows > limit:
         return None
+    # hand the row groups' freed buffers back now: Arrow's allocator keeps them for a while, and the
+    # count that follows would stack its own peak on them (measured: +60-100 MB at 200,000 units
+    # and 4 M rows, 1.15-1.23x the 2 M-row peak instead of 1.04-1.14x)
+    pa.default_memory_pool().release_unused()
     return TimePass(repeats=reps, days=days)
 
 
