@@ -116,7 +116,7 @@ class Dense:
             uid = b.column(2).filter(pa.array(~seen))
             g = pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")])
             if sign < 0:
-                g = pa.table({"uid": g.column("uid"), "uid_count": _negated(g.column("uid_count"))})
+                g = pa.table({"uid": g.column("uid"), "uid_count": pc.negate(g.column("uid_count"))})
             self.unseen.append(g)
         leak = (code & LEAK) != 0
         if leak.any():
@@ -171,11 +171,6 @@ def arrow_of(rel: Any) -> pa.Table:
     """A DuckDB relation as an Arrow table (DuckDB 2 names the call `to_arrow_table`, 1.x `arrow`)."""
     fetch = getattr(rel, "to_arrow_table", None) or rel.arrow
     return fetch()
-
-
-def _negated(a: pa.ChunkedArray) -> pa.Array:
-    """The counts negated (a repeat's id is counted once less)."""
-    return pa.array(-a.to_numpy().astype(np.int64))
 
 
 def _week(t: np.ndarray) -> np.ndarray:
