@@ -37,7 +37,7 @@ from armlock.assign import InputError, Spec
 
 from . import engine_pandas
 from .engine import EngineResult, Inputs, ReadoutResult, file_bytes, local_path, readout_builder
-from .engine_duckdb_dense import arrow_of
+from .engine_duckdb_dense import CellSums, arrow_of
 from .engine_duckdb_native import Native, floor_div, prepared
 from .engine_duckdb_read import STREAM_SCHEMA, ExposureReader, ExposureScan, Unsorted
 from .engine_pandas import NS_DAY, VisitArms, _recorded_codes, _unseen_diagnostics
@@ -186,11 +186,11 @@ class DuckDBEngine:
         start_us = int(pd.Timestamp(spec.start).value // 1000)
         nat = native.result() if native is not None else None
         con.register("v", _visits_table(spec, fr, _arms_for_join(spec, fr, early)))
-        scan = None
+        scan, sums = None, None
         if nat is not None:
             try:
                 nat.finish(con, reader)
-                scan = nat.cells(con, start_us, len(fr.visits))
+                scan, sums = nat.count(con, start_us, len(fr.visits))
             except duckdb.OutOfMemoryException as exc:
                 raise InputError(_out_of_memory(self.memory_limit, exc)) from None
             except duckdb.Error:  # the sliced reader takes over (and names any problem with the file)
@@ -203,7 +203,8 @@ class DuckDBEngine:
             except Unsorted:  # times go back somewhere: read again, DuckDB groups the repeats
                 scan = self._cells(con, reader, start_us, sorted_mode=False)
             camps = list(reader.levels)
-        return _leakage_from_cells(spec, con, reader, scan, fr, early.result(), camps)
+            sums = sums_of_cells(con)
+        return _leakage_tables(spec, sums, reader, scan, fr, early.result(), camps)
 
     def _cells(self, con: Any, reader: ExposureReader, start_us: int, sorted_mode: bool) -> ExposureScan:
         """Stream the log into DuckDB's table `cells` (one pass; sorted mode de-duplicates as it streams)."""
@@ -382,22 +383,37 @@ def _frame(rows: list[tuple], index: list[str], name: str) -> pd.DataFrame:
                         columns=["units", "impressions", "clicks"], dtype="int64")
 
 
-def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: ExposureScan, fr: Frames,
-                        va: VisitArms, camps: list[str]) -> LeakageTables:
-    """The leakage tables from DuckDB's `cells` (small queries; per-unit flags come back as arrays).
-
-    `camps` names the campaign codes of `lcamp`."""
-    arms, k = list(spec.arm_names), len(spec.arms)
+def sums_of_cells(con: Any) -> CellSums:
+    """What the leakage tables need, from DuckDB's table `cells` (`_CELLS_SQL`; small queries, the
+    per-unit columns as arrays)."""
     rows, copies, unseen_rows, pre_rows = (int(x or 0) for x in con.execute(
         "SELECT sum(events), sum(copies), sum(events) FILTER (WHERE pos IS NULL), "
         "sum(pre_rows) FILTER (WHERE pos IS NOT NULL) FROM cells").fetchone())
-    reader.finish(scan, copies - rows + scan.duplicates, fr.notes, fr.counts)
-    nv = len(fr.visits)
-    eff = effective_arms(va)
     pu = con.execute("SELECT pos, bit_or(flags) AS f, sum(imps) AS i, sum(clks) AS c FROM cells "
                      "WHERE pos IS NOT NULL GROUP BY pos").fetchnumpy()
-    pos = np.asarray(pu["pos"], dtype=np.int64)
-    bits = np.asarray(pu["f"], dtype=np.int64)
+    camp = con.execute("SELECT lcamp, count(DISTINCT pos), sum(imps), sum(clks) FROM cells "
+                       "WHERE lcamp IS NOT NULL GROUP BY lcamp ORDER BY lcamp").fetchall()
+    wk = con.execute("SELECT lweek, count(DISTINCT pos), sum(imps), sum(clks), min(t_min) FROM cells "
+                     "WHERE lweek IS NOT NULL GROUP BY lweek ORDER BY lweek").fetchall()
+    uids = arrow_of(con.sql("SELECT uid FROM cells WHERE pos IS NULL")).column("uid").combine_chunks()
+
+    def arr(name: str) -> np.ndarray:
+        return np.asarray(pu[name], dtype=np.int64)
+
+    return CellSums(rows=rows, copies=copies, unseen_rows=unseen_rows, pre_rows=pre_rows, pos=arr("pos"),
+                    flags=arr("f"), imps=arr("i"), clks=arr("c"), by_campaign=[tuple(int(x) for x in r) for r in camp],
+                    by_week=[tuple(int(x) for x in r) for r in wk], uids=uids)
+
+
+def _leakage_tables(spec: Spec, sums: CellSums, reader: ExposureReader, scan: ExposureScan, fr: Frames,
+                    va: VisitArms, camps: list[str]) -> LeakageTables:
+    """The leakage tables from an exposure log's counts (`camps` names the campaign codes)."""
+    arms, k = list(spec.arm_names), len(spec.arms)
+    rows, pre_rows, unseen_rows = sums.rows, sums.pre_rows, sums.unseen_rows
+    reader.finish(scan, sums.copies - rows + scan.duplicates, fr.notes, fr.counts)
+    nv = len(fr.visits)
+    eff = effective_arms(va)
+    pos, bits = sums.pos, sums.flags
 
     def flag(bit: int) -> np.ndarray:
         out = np.zeros(nv, dtype=bool)
@@ -407,26 +423,22 @@ def _leakage_from_cells(spec: Spec, con: Any, reader: ExposureReader, scan: Expo
     exposed_u, pre_u, bs_u, ba_u = flag(1), flag(2), flag(4), flag(8)
     arm_of = eff[pos]
 
-    def per_arm(col: str) -> np.ndarray:  # exact: the float weights are integers below 2**53
-        return np.bincount(arm_of, weights=np.asarray(pu[col], dtype=np.float64), minlength=k).astype(np.int64)
+    def per_arm(col: np.ndarray) -> np.ndarray:  # exact: the float weights are integers below 2**53
+        return np.bincount(arm_of, weights=col.astype(np.float64), minlength=k).astype(np.int64)
 
     by_arm = pd.DataFrame({
         "units": np.bincount(eff, minlength=k),
         "exposed_units": np.bincount(eff[exposed_u], minlength=k),
         "pre_exposed_units": np.bincount(eff[pre_u], minlength=k),
-        "impressions": per_arm("i"),
-        "clicks": per_arm("c"),
+        "impressions": per_arm(sums.imps),
+        "clicks": per_arm(sums.clks),
     }, index=pd.Index(arms, name="arm"))
-    camp = con.execute("SELECT lcamp, count(DISTINCT pos), sum(imps), sum(clks) FROM cells "
-                       "WHERE lcamp IS NOT NULL GROUP BY lcamp").fetchall()
+    camp, wk = sums.by_campaign, sums.by_week
     by_campaign = _frame([r[1:] for r in camp], [camps[int(r[0])] for r in camp],
                          "campaign")
-    wk = con.execute("SELECT lweek, count(DISTINCT pos), sum(imps), sum(clks), min(t_min) FROM cells "
-                     "WHERE lweek IS NOT NULL GROUP BY lweek ORDER BY lweek").fetchall()
     by_week = _frame([r[1:4] for r in wk], [_day((int(r[0]) * 7 - 3) * US_DAY) for r in wk], "week")
     first = _day(min(int(r[4]) for r in wk)) if wk else None
-    uids = arrow_of(con.sql("SELECT uid FROM cells WHERE pos IS NULL"))
-    uniq = pd.Series(uids.column("uid").to_pandas() if uids.num_rows else [], dtype="str")
+    uniq = pd.Series(sums.uids.to_pandas() if len(sums.uids) else [], dtype="str")
     ua = contract_arms(spec, uniq)
     v = fr.visits
     diag = _unseen_diagnostics(uniq, v[UNIT], arrow_ids(v[UNIT]).combine_chunks())

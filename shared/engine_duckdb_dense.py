@@ -7,17 +7,20 @@ second time (grouping the joined rows in DuckDB cost 5-10 % more CPU at 20 M row
 number is already a dense key, so numpy's `bincount` sums them into arrays as long as the units.
 Exact repeats of a row, found beforehand (`engine_duckdb_native.time_pass`), go through the same
 query and are taken off (`Dense.take_off`). Memory: those arrays, the leaked (unit, campaign,
-week) cells, the unseen ids and the repeats, never the rows. `Dense.cells` returns the table
-`engine_duckdb._CELLS_SQL` would make.
+week) cells, the unseen ids and the repeats, never the rows. `Dense.sums` returns what the
+leakage tables need (`CellSums`), as `engine_duckdb` reads it from the sliced reader's table `cells`.
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
+
+from .keys import duplicate_rows
 
 US_DAY = 86_400 * 10**6
 # code bits of a row: 1 an exposure during the test, 2 one before it, 4 before the start, 8 after the
@@ -26,18 +29,19 @@ US_DAY = 86_400 * 10**6
 DUR, PRE, BEFORE_START, BEFORE_VISIT, LEAK = 1, 2, 4, 8, 64
 
 # Each joined row of `{rows}` (kept rows of the log `xs` with w = 1, and its exact repeats `reps` with
-# w = -1, to be taken off): its unit's row (NULL: no unit), its code, its id when it has no unit,
-# for a leak its time and campaign code in one number, (time - {t0}) * {camps} + campaign, and w.
-# Few rows are leaks or of no unit: the rest come back as 6 bytes and null bits.
+# w = -1, to be taken off; `tie` marks a row whose time another row shares): its unit's row (NULL:
+# no unit), its code, its id when it has no unit, for a leak or a marked row its time, campaign
+# code and kind label code in one number, ((time - {t0}) * {camps} + campaign) * {kinds} + kind
+# label, and w. Few rows are leaks, marked or of no unit: the rest come back as 6 bytes and null bits.
 ROWS_SQL = """
 SELECT pos,
        (CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END
         + CASE WHEN dur THEN 16 * {kind} ELSE 0 END + CASE WHEN dur AND hold THEN 64 ELSE 0 END)::TINYINT AS code,
        CASE WHEN pos IS NULL THEN id END AS uid,
-       CASE WHEN dur AND hold THEN (t - {t0}) * {camps} + {camp} END AS x,
+       CASE WHEN (dur AND hold) OR tie THEN ((t - {t0}) * {camps} + {camp}) * {kinds} + {klabel} END AS x,
        w
 FROM (
-  SELECT e.id, e.t, e.camp, e.kl, e.w, v.pos, v.fs, v.hold,
+  SELECT e.id, e.t, e.camp, e.kl, e.w, coalesce(e.tie, false) AS tie, v.pos, v.fs, v.hold,
          e.t < {start} AS bs, coalesce(e.t >= {start} AND e.t >= v.fs, false) AS dur
   FROM ({rows}) e LEFT JOIN v ON e.id = v.id
 )
@@ -45,11 +49,14 @@ FROM (
 
 
 class Dense:
-    """Per-unit sums of the joined rows (`add` a batch at a time, the repeats taken off), then `cells`.
-    `camps` and `t0` unpack a leak's number (`ROWS_SQL`)."""
+    """Per-unit sums of the joined rows (`add` a batch at a time, the repeats taken off), then `sums`.
+    `camps`, `kinds` and `t0` unpack a leak's number (`ROWS_SQL`). With `ties` (the times rows
+    share, sorted), the rows marked as sharing one wait, and `take_off_repeats` compares them."""
 
-    def __init__(self, units: int, camps: int, t0: int) -> None:
-        self.n, self.camps, self.t0 = units, max(camps, 1), t0
+    def __init__(self, units: int, camps: int, t0: int, kinds: int = 1, ties: np.ndarray | None = None) -> None:
+        self.n, self.camps, self.kinds, self.t0 = units, max(camps, 1), max(kinds, 1), t0
+        self.ties = ties
+        self.tied: list[pa.RecordBatch] = []  # the rows marked as sharing a time (`take_off_repeats`)
         z = np.zeros(units, np.int64)
         self.copies, self.pre, self.imps, self.clks = z.copy(), z.copy(), z.copy(), z.copy()
         self.bs, self.bv = z.copy(), z.copy()  # rows before the start, rows before the unit's first visit
@@ -118,11 +125,13 @@ class Dense:
             if sign < 0:
                 g = pa.table({"uid": g.column("uid"), "uid_count": pc.negate(g.column("uid_count"))})
             self.unseen.append(g)
+        xcol = b.column(3)
+        if sign > 0 and self.ties is not None and len(self.ties) and xcol.null_count < len(xcol):
+            self._keep_tied(b)
         leak = (code & LEAK) != 0
         if leak.any():
             m = pa.array(leak)
-            x = b.column(3).filter(m).to_numpy(zero_copy_only=False).astype(np.int64)
-            lt, lcamp = x // self.camps + self.t0, x % self.camps
+            lt, lcamp, _ = self._unpack(xcol.filter(m))
             k = (code[leak] >> 4) & 3
             t = pa.table({"pos": b.column(0).filter(m), "lcamp": pa.array(lcamp), "lweek": pa.array(_week(lt)),
                           "lt": pa.array(lt), "i": pa.array(sign * (k == 0).astype(np.int64)),
@@ -130,41 +139,85 @@ class Dense:
             self.leaks.append(t.group_by(["pos", "lcamp", "lweek"]).aggregate(
                 [("lt", "min"), ("i", "sum"), ("c", "sum")]).rename_columns(["pos", "lcamp", "lweek", "lt", "i", "c"]))
 
-    def cells(self) -> pa.Table:
-        """`cells` as `engine_duckdb._CELLS_SQL` makes it: one row per exposed unit, per unseen id, per
-        leaked (unit, campaign, week), each counting distinct rows (the repeats taken off)."""
+    def _unpack(self, x: pa.Array) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """A row's number (`ROWS_SQL`'s x) as its time, campaign code and kind label code."""
+        v = x.to_numpy(zero_copy_only=False).astype(np.int64)
+        rest, klabel = np.divmod(v, self.kinds)
+        rest, lcamp = np.divmod(rest, self.camps)
+        return rest + self.t0, lcamp, klabel
+
+    def _keep_tied(self, b: pa.RecordBatch) -> None:
+        """Keep the batch's rows marked as sharing a time (a leak's number alone does not mark it)."""
+        xcol = b.column(3)
+        has = xcol.is_valid()
+        t, _, _ = self._unpack(xcol.filter(has))
+        ties = self.ties
+        assert ties is not None
+        at = np.minimum(np.searchsorted(ties, t), len(ties) - 1)
+        tied = ties[at] == t
+        if tied.any():
+            rows = np.flatnonzero(has.to_numpy(zero_copy_only=False))[tied]
+            self.tied.append(b.take(pa.array(rows)))
+
+    def take_off_repeats(self) -> np.ndarray:
+        """Take off the marked rows that repeat an earlier one exactly (same id, time, campaign and
+        kind label; identical rows of the log are joined and coded identically); their times."""
+        if not self.tied:
+            return np.zeros(0, np.int64)
+        b = pa.Table.from_batches(self.tied).combine_chunks()
+        self.tied = []
+        t, lcamp, klabel = self._unpack(b.column("x"))
+        pos = b.column("pos")
+        unit = pos.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int64)
+        if pos.null_count:  # rows of no unit: their ids as codes after the units' rows
+            enc = pc.dictionary_encode(b.column("uid")).combine_chunks()
+            code = pc.fill_null(enc.indices, 0).to_numpy(zero_copy_only=False).astype(np.int64)
+            unit = np.where(unit < 0, self.n + code, unit)
+        dup = duplicate_rows(t, unit, lcamp, klabel)
+        if not dup.any():
+            return np.zeros(0, np.int64)
+        for batch in b.filter(pa.array(dup)).to_batches():
+            self._add(batch, -1)
+        return t[dup]
+
+    def sums(self) -> CellSums:
+        """What the leakage tables need, as `sums_of_cells` reads it from `engine_duckdb._CELLS_SQL`'s
+        table: counts of distinct rows (the repeats taken off)."""
         self._settle()
         leak = _leaks(self.leaks)
-        lpos = leak.column("pos").to_numpy(zero_copy_only=False).astype(np.int64)
-        li, lc = (leak.column(c).to_numpy(zero_copy_only=False).astype(np.int64) for c in ("i", "c"))
-        imps = self.imps - np.bincount(lpos, weights=li, minlength=self.n).astype(np.int64)
-        clks = self.clks - np.bincount(lpos, weights=lc, minlength=self.n).astype(np.int64)
         units = np.flatnonzero(self.copies > 0)
         flags = (np.where(self.copies > self.pre, DUR, 0) | np.where(self.pre > 0, PRE, 0)
                  | np.where(self.bs > 0, BEFORE_START, 0) | np.where(self.bv > 0, BEFORE_VISIT, 0))
         unseen = _unseen(self.unseen)
-        ue = unseen.column("n").to_numpy(zero_copy_only=False).astype(np.int64)
-        nl, nu, nn = leak.num_rows, len(units), unseen.num_rows
-        zl, zn = np.zeros(nl, np.int64), np.zeros(nn, np.int64)
+        unseen_rows = int(pc.sum(unseen.column("n")).as_py() or 0)
+        rows = int(self.copies.sum()) + unseen_rows
 
-        def col(a: np.ndarray, b: np.ndarray, c: np.ndarray) -> pa.Array:
-            return pa.array(np.concatenate([a, b, c]).astype(np.int64), pa.int64())
+        def grouped(key: str, extra: list[tuple[str, str]]) -> list[tuple[int, ...]]:
+            g = leak.group_by(key).aggregate([("pos", "count_distinct"), ("i", "sum"), ("c", "sum"), *extra])
+            cols = [key, "pos_count_distinct", "i_sum", "c_sum", *(f"{c}_{f}" for c, f in extra)]
+            return sorted(zip(*(g.column(c).to_pylist() for c in cols)))
 
-        def tail(name: str) -> pa.Array:  # a leak column after the units' and the unseen ids' nulls
-            return pa.concat_arrays([pa.nulls(nu + nn, pa.int64()), leak.column(name).combine_chunks().cast(pa.int64())])
+        return CellSums(rows=rows, copies=rows, unseen_rows=unseen_rows, pre_rows=int(self.pre.sum()),
+                        pos=units, flags=flags[units], imps=self.imps[units], clks=self.clks[units],
+                        by_campaign=grouped("lcamp", []), by_week=grouped("lweek", [("lt", "min")]),
+                        uids=unseen.column("uid").combine_chunks().cast(pa.string()))
 
-        events = col(self.copies[units], ue, zl)
-        return pa.table({
-            "pos": pa.array(np.concatenate([units, zn, lpos]).astype(np.int32),
-                            mask=np.concatenate([np.zeros(nu, bool), np.ones(nn, bool), np.zeros(nl, bool)])),
-            "uid": pa.concat_arrays([pa.nulls(nu, pa.string()), unseen.column("uid").combine_chunks().cast(pa.string()),
-                                     pa.nulls(nl, pa.string())]),
-            "lcamp": tail("lcamp"), "lweek": tail("lweek"),
-            "events": events, "copies": events,  # the repeats are counted apart (the scan's `duplicates`)
-            "pre_rows": col(self.pre[units], ue, zl),  # an unseen id's rows are none "during the test"
-            "imps": col(imps[units], zn, li), "clks": col(clks[units], zn, lc),
-            "flags": col(flags[units], zn, zl), "t_min": tail("lt"),
-        })
+
+@dataclass
+class CellSums:
+    """An exposure log's counts as the leakage tables take them (`engine_duckdb._leakage_tables`)."""
+
+    rows: int  # distinct rows counted
+    copies: int  # rows read, repeats included (`Dense` counts repeats apart: then equal to `rows`)
+    unseen_rows: int  # rows of ids no visit has
+    pre_rows: int  # rows of units before the test (before the start or before the unit's first visit)
+    pos: np.ndarray  # the units' rows with any exposure row (int64)...
+    flags: np.ndarray  # ...their flags (the bits of `engine_duckdb._CELLS_SQL`)...
+    imps: np.ndarray  # ...impressions during the test...
+    clks: np.ndarray  # ...and clicks during the test
+    by_campaign: list[tuple[int, ...]]  # (campaign code, holdout units, impressions, clicks) of leaks
+    by_week: list[tuple[int, ...]]  # (week number, holdout units, impressions, clicks, first time) of leaks
+    uids: pa.Array  # the ids no visit has, each once
 
 
 def arrow_of(rel: Any) -> pa.Table:

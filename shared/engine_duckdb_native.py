@@ -48,11 +48,12 @@ import pyarrow.parquet as pq
 
 from armlock.assign.spec_audit import ExposureColumns
 
-from .engine_duckdb_dense import ROWS_SQL, Dense
+from .engine_duckdb_dense import ROWS_SQL, CellSums, Dense
 from .engine_duckdb_read import US_DAY, ExposureReader, ExposureScan
 from .keys import duplicate_rows
 from .read import MISSING_LEVEL, T_MAX_US, T_MIN_US
 
+TIE_ROWS = 2_000_000  # rows sharing a time that the joined query marks for `Dense` to compare (held until then)
 REPEAT_ROWS = 1_000_000  # exact repeats the native path takes off (held in memory until then)...
 REPEAT_SHARE = 16  # ...or one row in this many, whichever is more; beyond, the sliced reader de-duplicates
 _UNIT_US = {"s": 10**6, "ms": 1000, "us": 1}  # coarser units to microseconds (ns is divided by 1000)
@@ -103,18 +104,98 @@ class TimePass:
 
     repeats: pa.Table  # one row per exact repeat of an earlier row: id, t, camp, kl (as in the file)
     days: dict[int, int]  # rows with a time, per day number
+    ties: np.ndarray | None = None  # the times more than one row shares (sorted), when `repeats` was not looked for
 
 
 def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass | None:
-    """The log a row group at a time (Arrow): the times checked and counted per day, and the exact
+    """The log a row group at a time (Arrow): the times checked and counted per day, and the times
+    that rows share. None when the log goes back in time or lies outside 1678-2261 (the sliced
+    reader takes over).
+
+    Only rows that share a time can repeat each other. When at most `TIE_ROWS` rows share one,
+    the pass reads the time column alone and hands on those times (`TimePass.ties`): the joined
+    query marks their rows, and `Dense` compares them. When more do (times in whole seconds or
+    milliseconds of a large log), it reads the log again, id, campaign and kind too, and finds the
+    repeats itself (`_repeats_pass`), a row group at a time."""
+    pf = pq.ParquetFile(path)
+    found = _ties_pass(pf, ce, ttype)
+    if found is None or isinstance(found, TimePass):
+        return found
+    return _repeats_pass(pf, ce, ttype)
+
+
+def _times(group: pa.Table, col: str, mul: int, last: int | None) -> np.ndarray | None:
+    """A row group's times in whole microseconds (rows with none left out), or None when they go
+    back in time or lie beyond the range once scaled."""
+    tcol = group.column(col)
+    if tcol.null_count:  # rows with no time: set aside (counted by `Native.prepare`)
+        tcol = tcol.filter(tcol.is_valid())
+    if not len(tcol):
+        return np.zeros(0, np.int64)
+    a = np.concatenate([c.cast(pa.int64()).to_numpy() for c in tcol.chunks])  # the same buffers
+    if mul > 1 and (a[0] < -(T_MAX_US // mul) or a[-1] > T_MAX_US // mul):
+        return None  # beyond the range once scaled (and unsorted logs fail below anyway)
+    us = a * mul if mul > 1 else (a if mul == 1 else a // 1000)  # numpy's // rounds down
+    if (last is not None and us[0] < last) or bool((us[1:] < us[:-1]).any()):
+        return None
+    return us
+
+
+def _count_days(us: np.ndarray, days: dict[int, int]) -> None:
+    d = us // US_DAY
+    first_day = int(d[0])
+    n = np.bincount(d - first_day)
+    for off in np.flatnonzero(n).tolist():
+        days[first_day + off] = days.get(first_day + off, 0) + int(n[off])
+
+
+class _Many:
+    """More rows share a time than `TIE_ROWS` (internal signal)."""
+
+
+def _ties_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> TimePass | _Many | None:
+    """The time column alone: days, checks, and the times more than one row shares."""
+    mul = _UNIT_US.get(ttype.unit, 0)  # 0: nanoseconds
+    lo: int | None = None
+    last: int | None = None
+    days: dict[int, int] = {}
+    ties: list[np.ndarray] = []
+    tie_rows = 0
+    for i in range(pf.metadata.num_row_groups):
+        us = _times(pf.read_row_group(i, columns=[ce.time]), ce.time, mul, last)
+        if us is None:
+            return None
+        if not len(us):
+            continue
+        if lo is None:
+            lo = int(us[0])
+        _count_days(us, days)
+        same = us[1:] == us[:-1]
+        if last is not None and int(us[0]) == last:  # the last group's last time goes on
+            ties.append(us[:1])
+            tie_rows += 2
+        if same.any():
+            shared = us[1:][same]
+            ties.append(shared)
+            tie_rows += 2 * len(shared)  # at most: each row after the first of its time, and that first
+        if tie_rows > TIE_ROWS:
+            return _Many()
+        last = int(us[-1])
+    if lo is not None and last is not None and (lo < T_MIN_US or last >= T_MAX_US):
+        return None
+    shared_times = np.unique(np.concatenate(ties)) if ties else np.zeros(0, np.int64)
+    return TimePass(repeats=_REPEATS_SCHEMA.empty_table(), days=days, ties=shared_times)
+
+
+def _repeats_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> TimePass | None:
+    """The whole log, a row group at a time: the times checked and counted per day, and the exact
     repeats found. None when the log goes back in time, lies outside 1678-2261 or repeats more
     rows than `REPEAT_ROWS` or one in `REPEAT_SHARE` (the sliced reader takes over).
 
-    Only rows that share a time can repeat each other, and in a log sorted by time they sit
-    together: each group's rows that share a time with a neighbour are compared on integer codes
-    of their id, campaign and kind (`keys.duplicate_rows`), and the run of the group's last time
-    waits for the next group, where it may go on."""
-    pf = pq.ParquetFile(path)
+    In a log sorted by time, rows that share a time sit together: each group's rows that share a
+    time with a neighbour are compared on integer codes of their id, campaign and kind
+    (`keys.duplicate_rows`), and the run of the group's last time waits for the next group, where
+    it may go on."""
     rows = pf.metadata.num_rows
     cols = [ce.unit_id, ce.time, ce.campaign, ce.kind]
     mul = _UNIT_US.get(ttype.unit, 0)  # 0: nanoseconds
@@ -129,22 +210,14 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
         tcol = group.column(ce.time)
         if tcol.null_count:  # rows with no time: set aside (counted by `Native.prepare`)
             group = group.filter(tcol.is_valid())
-            tcol = group.column(ce.time)
-        if not group.num_rows:
-            continue
-        a = np.concatenate([c.cast(pa.int64()).to_numpy() for c in tcol.chunks])  # the same buffers
-        if mul > 1 and (a[0] < -(T_MAX_US // mul) or a[-1] > T_MAX_US // mul):
-            return None  # beyond the range once scaled (and unsorted logs fail below anyway)
-        us = a * mul if mul > 1 else (a if mul == 1 else a // 1000)  # numpy's // rounds down
-        if (last is not None and us[0] < last) or bool((us[1:] < us[:-1]).any()):
+        us = _times(group, ce.time, mul, last)
+        if us is None:
             return None
+        if not len(us):
+            continue
         if lo is None:
             lo = int(us[0])
-        d = us // US_DAY
-        first_day = int(d[0])
-        n = np.bincount(d - first_day)
-        for off in np.flatnonzero(n).tolist():
-            days[first_day + off] = days.get(first_day + off, 0) + int(n[off])
+        _count_days(us, days)
         # the rows that share a time with a neighbour, and the run of the last time (it may go on)
         same = us[1:] == us[:-1]
         tail = int(np.searchsorted(us, us[-1], side="left"))
@@ -152,6 +225,8 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
         near[:-1] |= same
         near[1:] |= same
         near[tail:] = True
+        if last is not None and int(us[0]) == last:  # the run of the last group's last time goes on here
+            near[:int(np.searchsorted(us, us[0], side="right"))] = True
         pick = np.flatnonzero(near)
         cand = pa.table([group.column(ce.unit_id).take(pick), pa.array(us[pick]), group.column(ce.campaign).take(pick),
                          group.column(ce.kind).take(pick)], names=["id", "t", "camp", "kl"])
@@ -228,9 +303,9 @@ def _repeats(rows: pa.Table) -> pa.Table:
 class Native:
     """The native path over one exposure log. `prepare` (on a worker thread, while the visits are
     read: it needs neither the units nor the as-of day) counts the rows with no id or no time and
-    the kinds that are neither; `attach` takes the time pass's repeats; `finish` applies the as-of
-    day; `cells` registers DuckDB's table `cells` as `engine_duckdb._CELLS_SQL` makes it (campaign
-    codes index `camps`, this log's labels in sorted order)."""
+    the kinds that are neither; `attach` takes the time pass's findings; `finish` applies the as-of
+    day; `count` counts the rows per unit and leaked cell (campaign codes index `camps`, this log's
+    labels in sorted order)."""
 
     def __init__(self, ce: ExposureColumns, path: Path, ttype: pa.DataType) -> None:
         self.ce, self.path = ce, path
@@ -298,12 +373,15 @@ class Native:
         lo, hi = con.execute("SELECT min(t), max(t) FROM xs").fetchall()[0]
         if lo is not None:
             self.lo, self.hi = int(lo), int(hi)
-            if (self.hi - self.lo + 1) * max(len(camps), 1) >= 1 << 62:
-                raise TooMany()  # a leak's time and campaign would not fit one number (`ROWS_SQL`)
+            if (self.hi - self.lo + 1) * max(len(camps), 1) * max(len(kinds), 1) >= 1 << 62:
+                raise TooMany()  # a row's time, campaign and kind would not fit one number (`ROWS_SQL`)
 
     def attach(self, con: Any, tp: TimePass) -> None:
-        """The time pass's findings (it ran beside `prepare`): its repeats, as rows of the log."""
+        """The time pass's findings (it ran beside `prepare`): the times rows share, or the repeats,
+        as rows of the log."""
         self.tp = tp
+        if tp.ties is not None and len(tp.ties):
+            con.register("ties", pa.table({"t": pa.array(tp.ties, pa.int64())}))
         if tp.repeats.num_rows:
             con.register("reps_in", tp.repeats)
             con.execute("CREATE OR REPLACE TEMP VIEW reps AS SELECT id, t, t AS traw, camp, kl, 0 AS r FROM reps_in").fetchall()
@@ -324,20 +402,23 @@ class Native:
             for batch in reader.slices([reader.ce.kind]):
                 reader.kinds(batch.column(0), scan)
 
-    def cells(self, con: Any, start_us: int, units: int) -> ExposureScan:
-        """DuckDB's table `cells` from the log (the units' table `v` registered); the scan's counts.
+    def count(self, con: Any, start_us: int, units: int) -> tuple[ExposureScan, CellSums]:
+        """The log's counts per unit and leaked cell (the units' table `v` registered); the scan's counts.
 
         DuckDB joins the kept rows to the units (`ROWS_SQL`) and streams them back; `Dense` sums
         them per unit. The exact repeats found by `time_pass` go through the same query, with a
         weight of -1, and are taken off."""
         fields = {"start": start_us, "kind": self._kind_class("kl"), "t0": self.lo or 0,
-                  "camps": max(len(self.camps), 1),
-                  "camp": self._code("camp", self.camps, list(range(len(self.camps))))}
-        dense = Dense(units, len(self.camps), self.lo or 0)
+                  "camps": max(len(self.camps), 1), "kinds": max(len(self.kinds), 1),
+                  "camp": self._code("camp", self.camps, list(range(len(self.camps)))),
+                  "klabel": self._code("kl", self.kinds, list(range(len(self.kinds))))}
+        ties = self.tp.ties
+        dense = Dense(units, len(self.camps), self.lo or 0, len(self.kinds), ties)
         kept = self._kept()
-        rows = [f"SELECT id, t, camp, kl, 1 AS w FROM xs WHERE {kept}"]
+        tie = "t IN (SELECT t FROM ties)" if ties is not None and len(ties) else "false"
+        rows = [f"SELECT id, t, camp, kl, 1 AS w, {tie} AS tie FROM xs WHERE {kept}"]
         if self.tp.repeats.num_rows:
-            rows.append(f"SELECT id, t, camp, kl, -1 AS w FROM reps WHERE {kept}")
+            rows.append(f"SELECT id, t, camp, kl, -1 AS w, false AS tie FROM reps WHERE {kept}")
             day = floor_div("t", US_DAY)
             for d, c in con.execute(f"SELECT {day}, count(*) FROM reps WHERE {kept} GROUP BY 1").fetchall():
                 self.days[int(d)] = self.days.get(int(d), 0) - int(c)
@@ -348,9 +429,15 @@ class Native:
         sql = ROWS_SQL.format(rows=" UNION ALL ".join(rows), **fields)
         for batch in con.sql(sql).to_arrow_reader(max(BATCH_ROWS, min(units, 1 << 22))):
             dense.add(batch)
+        if ties is not None:  # the marked rows that repeat another exactly, taken off
+            taken = dense.take_off_repeats()
+            if len(taken):
+                d, c = np.unique(taken // US_DAY, return_counts=True)  # numpy's // rounds down
+                for day, k in zip(d.tolist(), c.tolist()):
+                    self.days[day] = self.days.get(day, 0) - k
+                self.scan.duplicates += len(taken)
         self.scan.days = {d: c for d, c in self.days.items() if c}
-        con.register("cells", dense.cells())
-        return self.scan
+        return self.scan, dense.sums()
 
 
 def prepared(ce: ExposureColumns, path: Path, con: Any) -> Native | None:

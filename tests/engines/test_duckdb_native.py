@@ -160,15 +160,20 @@ def test_errors_word_for_word(tmp_path: Path) -> None:
     assert f"column '{c.time}' has 3 time(s) outside the years 1678-2261" in msgs[0] or "cannot read" in msgs[0]
 
 
-def test_many_shared_times_stay_native(tmp_path: Path) -> None:
-    """A log in whole hours (most rows share a time with many others) with exact repeats: the
-    repeats are found a row group at a time, and the native path keeps the log."""
+@pytest.mark.parametrize("tie_rows", [2_000_000, 10])
+def test_many_shared_times_stay_native(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, tie_rows: int) -> None:
+    """A log in whole hours (most rows share a time with many others) with exact repeats, unseen
+    ids and leaks among them: the native path keeps the log, whether the query marks the rows that
+    share a time (few enough) or the repeats are found beforehand, a row group at a time."""
+    monkeypatch.setattr(engine_duckdb_native, "TIE_ROWS", tie_rows)
     spec = _spec("two_arms", salt="native-ties")
     logs = generate(spec, units=400, days=14, seed=91, faults=("leakage", "pre_exposure"), events_per_unit=3.0)
     c = spec.audit.exposures
     e = logs.exposures
     e[c.time] = pd.to_datetime(e[c.time], utc=True).dt.floor("h")
-    e = pd.concat([e, e.iloc[::7]], ignore_index=True)
+    unseen = e[~e[c.unit_id].isin(logs.visits[spec.audit.visits.unit_id])]
+    assert len(unseen)
+    e = pd.concat([e, e.iloc[::7], unseen], ignore_index=True)  # every unseen id's rows repeated too
     logs.exposures = e.sort_values(c.time, kind="stable").reset_index(drop=True)
     paths = write_logs(logs, tmp_path, "parquet")
     _rewrite(paths, logs.exposures, 311)
@@ -185,6 +190,7 @@ def test_too_many_repeats_go_to_the_sliced_reader(tmp_path: Path, monkeypatch: p
     e = pd.concat([logs.exposures, logs.exposures.iloc[::5]], ignore_index=True)
     logs.exposures = e.sort_values(c.time, kind="stable").reset_index(drop=True)
     paths = write_logs(logs, tmp_path, "parquet")
+    monkeypatch.setattr(engine_duckdb_native, "TIE_ROWS", 10)
     monkeypatch.setattr(engine_duckdb_native, "REPEAT_ROWS", 10)
     monkeypatch.setattr(engine_duckdb_native, "REPEAT_SHARE", 10**9)
     _three(spec, paths, path="sliced")
