@@ -8,8 +8,7 @@ from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
-# scipy.stats: imported inside the functions that use it (0.6 s; shared/lazy.py imports it on a thread beside the reading)
-from scipy.special import gammaln
+# scipy.stats and scipy.special: imported inside the functions that use them (0.6 s; shared/lazy.py imports them on a thread beside the reading)
 
 from armlock.assign import Spec
 
@@ -23,6 +22,7 @@ PRIOR_CONCENTRATION = 100.0  # Dirichlet prior alpha = 100 * theta0 (Lindon & Ma
 def chi_square(counts: Vector, theta0: Vector) -> tuple[float, float]:
     """Pearson chi-square goodness of fit of `counts` against shares `theta0`: (statistic, p)."""
     from scipy import stats
+
     x = np.asarray(counts, dtype=np.float64)
     th = np.asarray(theta0, dtype=np.float64)
     n = x.sum()
@@ -40,6 +40,8 @@ def log_bayes_factor(counts: np.ndarray, theta0: Vector,
     (Lindon & Malek 2022, NeurIPS, "Anytime-Valid Inference for Multinomial Count Data").
     `counts` is (..., d); returns shape (...).
     """
+    from scipy.special import gammaln  # here, not at the top: importing it takes 0.1 s (`shared.lazy`)
+
     x = np.asarray(counts, dtype=np.float64)
     th = np.asarray(theta0, dtype=np.float64)
     th = th / th.sum()

@@ -105,6 +105,8 @@ class TimePass:
     repeats: pa.Table  # one row per exact repeat of an earlier row: id, t, camp, kl (as in the file)
     days: dict[int, int]  # rows with a time, per day number
     ties: np.ndarray | None = None  # the times more than one row shares (sorted), when `repeats` was not looked for
+    lo: int | None = None  # the first and last time (None: no row has one)
+    hi: int | None = None
 
 
 def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass | None:
@@ -142,11 +144,12 @@ def _times(group: pa.Table, col: str, mul: int, last: int | None) -> np.ndarray 
 
 
 def _count_days(us: np.ndarray, days: dict[int, int]) -> None:
-    d = us // US_DAY
-    first_day = int(d[0])
-    n = np.bincount(d - first_day)
+    """Add a row group's rows per day (its times sorted: the days' ends found by bisection)."""
+    first, last = int(us[0]) // US_DAY, int(us[-1]) // US_DAY  # Python's // rounds down
+    ends = np.searchsorted(us, np.arange(first + 1, last + 2, dtype=np.int64) * US_DAY, side="left")
+    n = np.diff(ends, prepend=0)
     for off in np.flatnonzero(n).tolist():
-        days[first_day + off] = days.get(first_day + off, 0) + int(n[off])
+        days[first + off] = days.get(first + off, 0) + int(n[off])
 
 
 class _Many:
@@ -184,7 +187,7 @@ def _ties_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> T
     if lo is not None and last is not None and (lo < T_MIN_US or last >= T_MAX_US):
         return None
     shared_times = np.unique(np.concatenate(ties)) if ties else np.zeros(0, np.int64)
-    return TimePass(repeats=_REPEATS_SCHEMA.empty_table(), days=days, ties=shared_times)
+    return TimePass(repeats=_REPEATS_SCHEMA.empty_table(), days=days, ties=shared_times, lo=lo, hi=last)
 
 
 def _repeats_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> TimePass | None:
@@ -255,7 +258,7 @@ def _repeats_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -
     # count that follows would stack its own peak on them (measured: +60-100 MB at 200,000 units
     # and 4 M rows, 1.15-1.23x the 2 M-row peak instead of 1.04-1.14x)
     pa.default_memory_pool().release_unused()
-    return TimePass(repeats=reps, days=days)
+    return TimePass(repeats=reps, days=days, lo=lo, hi=last)
 
 
 _REPEATS_SCHEMA = pa.schema([("id", pa.string()), ("t", pa.int64()), ("camp", pa.string()), ("kl", pa.string())])
@@ -323,7 +326,7 @@ class Native:
         self.kept: list[str] = []
         self.empty_days: dict[int, int] = {}
         self.others = 0
-        self.lo: int | None = None  # the first and last time (`prepare`)
+        self.lo: int | None = None  # the first and last time (`attach`, from the time pass)
         self.hi: int | None = None
 
     @staticmethod
@@ -348,8 +351,7 @@ class Native:
 
     def prepare(self, con: Any) -> None:
         """What needs neither the units nor the as-of day: rows with no id or no time (Parquet's
-        statistics answer these at once when there are none), kinds that are neither, the first
-        and last time."""
+        statistics answer these at once when there are none), kinds that are neither."""
         scan = self.scan
         con.execute(f"CREATE OR REPLACE TEMP VIEW xs AS {self.source}").fetchall()
         camps, kinds = self._labels(con, "camp"), self._labels(con, "kl")
@@ -370,16 +372,15 @@ class Native:
                 scan.no_time.first, scan.no_time.n = [int(x) for x in first], int(n)
             self.kept.append("traw IS NOT NULL")
         self.others = int(con.execute(f"SELECT count(*) FROM xs WHERE {self._kind_class('kl')} = 2").fetchall()[0][0])
-        lo, hi = con.execute("SELECT min(t), max(t) FROM xs").fetchall()[0]
-        if lo is not None:
-            self.lo, self.hi = int(lo), int(hi)
-            if (self.hi - self.lo + 1) * max(len(camps), 1) * max(len(kinds), 1) >= 1 << 62:
-                raise TooMany()  # a row's time, campaign and kind would not fit one number (`ROWS_SQL`)
 
     def attach(self, con: Any, tp: TimePass) -> None:
         """The time pass's findings (it ran beside `prepare`): the times rows share, or the repeats,
         as rows of the log."""
         self.tp = tp
+        self.lo, self.hi = tp.lo, tp.hi
+        if self.lo is not None and self.hi is not None:
+            if (self.hi - self.lo + 1) * max(len(self.camps), 1) * max(len(self.kinds), 1) >= 1 << 62:
+                raise TooMany()  # a row's time, campaign and kind would not fit one number (`ROWS_SQL`)
         if tp.ties is not None and len(tp.ties):
             con.register("ties", pa.table({"t": pa.array(tp.ties, pa.int64())}))
         if tp.repeats.num_rows:
