@@ -13,6 +13,7 @@ import math
 import os
 from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
 from datetime import date
 from fractions import Fraction
 
@@ -43,19 +44,39 @@ def readout(spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[i
     return with_orders(spec, inputs, fr, used, audit_engine.compute(spec, fr, early), advance)
 
 
-def with_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date, audit_tables: AuditTables,
-                advance: Callable[[int], None]) -> ReadoutResult:
-    """The readout once the audit's tables are counted: the orders loaded and matched once, then the
-    per-unit tables (shared by the embedded engines, pandas and DuckDB)."""
-    audit = EngineResult(tables=audit_tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
-                         data_through=fr.data_through)
+@dataclass
+class MatchedOrders:
+    """The orders log loaded, with its notes and counts, and each order's unit (its visits row, -1:
+    none) when orders are keyed by unit id (None: by customer, matched later through the links)."""
+
+    orders: pd.DataFrame
+    notes: list[str]
+    counts: dict[str, float]
+    pos: np.ndarray | None
+
+
+def match_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date) -> MatchedOrders:
+    """Load the orders and find each one's unit: needs only the visits, so it can run beside the
+    exposures' count."""
     notes: list[str] = []
     counts: dict[str, float] = {}
-    orders_path = local_path(inputs.orders, "--orders")
-    orders = load_orders(spec, orders_path, used, notes, counts)  # type: ignore[arg-type]
-    advance(file_bytes(orders_path))
-    tables = compute(spec, fr, audit_tables, orders, used, counts, notes)
-    return ReadoutResult(audit=audit, tables=tables, notes=notes)
+    orders = load_orders(spec, local_path(inputs.orders, "--orders"), used, notes, counts)  # type: ignore[arg-type]
+    pos = None
+    if not spec.readout.orders.customer:
+        pos = positions(orders[KEY], arrow_ids(fr.visits[UNIT]).combine_chunks())
+    return MatchedOrders(orders, notes, counts, pos)
+
+
+def with_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date, audit_tables: AuditTables,
+                advance: Callable[[int], None], matched: MatchedOrders | None = None) -> ReadoutResult:
+    """The readout once the audit's tables are counted: the orders loaded and matched once (`matched`,
+    when that already ran), then the per-unit tables (shared by the embedded engines, pandas and DuckDB)."""
+    audit = EngineResult(tables=audit_tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
+                         data_through=fr.data_through)
+    m = matched if matched is not None else match_orders(spec, inputs, fr, used)
+    advance(file_bytes(local_path(inputs.orders, "--orders")))  # type: ignore[arg-type]
+    tables = compute(spec, fr, audit_tables, m.orders, used, m.counts, m.notes, m.pos)
+    return ReadoutResult(audit=audit, tables=tables, notes=m.notes)
 
 
 def grouped_moments(names: tuple[str, ...], data: np.ndarray | Sequence[np.ndarray], group: np.ndarray,
@@ -127,8 +148,8 @@ def _exposed_during_test(spec: Spec, fr: Frames, fs: np.ndarray) -> np.ndarray:
 
 
 def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as_of: date,
-            counts: dict[str, float], notes: list[str]) -> ReadoutTables:
-    """All sufficient statistics of one readout."""
+            counts: dict[str, float], notes: list[str], order_pos: np.ndarray | None = None) -> ReadoutTables:
+    """All sufficient statistics of one readout (`order_pos`: each order's visits row, when already found)."""
     cfg = spec.readout
     v = fr.visits
     arms = list(spec.arm_names)
@@ -172,7 +193,7 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
             notes.append(f"{int(counts['customers_multi_arm']):,} customer(s) have visitor ids in more than one arm; "
                          "each counts in the arm of their first visitor id (intent to treat)")
     else:
-        pos = positions(orders[KEY], vset)
+        pos = order_pos if order_pos is not None else positions(orders[KEY], vset)
     t = orders[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
     rev = orders[REV].to_numpy(dtype=np.float64)
     dn, dc = np.unique(t // NS_DAY, return_counts=True)

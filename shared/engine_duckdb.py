@@ -133,14 +133,16 @@ class DuckDBEngine:
         return readout_builder(self.name)(self, spec, inputs, as_of, advance)
 
     def load_and_count(self, spec: Spec, inputs: Inputs, as_of: date | None, advance: Callable[[int], None],
-                       before_count: Callable[[Frames], None] | None = None) -> tuple[Frames, date, AuditTables]:
+                       before_count: Callable[[Frames], None] | None = None,
+                       after_visits: Callable[[Frames, date], None] | None = None) -> tuple[Frames, date, AuditTables]:
         """Read the logs, count the exposures in DuckDB and the rest as the pandas engine does.
 
         DuckDB's work runs on worker threads beside Python's (DuckDB releases Python's lock): the
         native path's first pass over the exposure log while the visits are read, then the exposures'
         count while the identity links are read and the visits' tables counted. Each keeps its
         notes and counts apart, so they come out in the order of a one-thread run (notes: visits,
-        exposures, links; counts: visits, links, exposures), and errors too (links before exposures)."""
+        exposures, links; counts: visits, links, exposures), and errors too (links before exposures). `after_visits` is told of the visits (and the as-of
+        day) as soon as they are read, `before_count` once the links are too."""
         visits = local_path(inputs.visits, "--visits")
         exposures = local_path(inputs.exposures, "--exposures")
         identities = local_path(inputs.identities, "--identities")
@@ -152,6 +154,8 @@ class DuckDBEngine:
             fr = Frames(visits=None)
             used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
             early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)
+            if after_visits is not None:
+                after_visits(fr, used)
             advance(file_bytes(visits))
             ef = Frames(visits=fr.visits.copy(deep=False))  # the exposures' own notes and counts
             counting = None
