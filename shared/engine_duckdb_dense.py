@@ -28,24 +28,29 @@ US_DAY = 86_400 * 10**6
 # (0 impression, 1 click, 2 other) of a row during the test; 64 a holdout unit's row during the test (a leak).
 DUR, PRE, BEFORE_START, BEFORE_VISIT, LEAK = 1, 2, 4, 8, 64
 
-# Each joined row of `{rows}` (kept rows of the log `xs` with w = 1, and its exact repeats `reps` with
-# w = -1, to be taken off; `tie` marks a row whose time another row shares): its unit's row (NULL:
-# no unit), its code, its id when it has no unit, for a leak or a marked row its time, campaign
-# code and kind label code in one number, ((time - {t0}) * {camps} + campaign) * {kinds} + kind
-# label, and w. Few rows are leaks, marked or of no unit: the rest come back as 6 bytes and null bits.
+TIED_UNSEEN = 32  # code bit of a row of no unit that shares its time with another row (its text: number + id)
+NUM_DIGITS = 19  # a row's number (below 2**62) as text, zero-padded, ahead of the id of a row of no unit
+
+# Each joined row of `{rows}` (kept rows of the log, or exact repeats to be taken off; `tie` marks a
+# row whose time another row shares): its unit's row (NULL: no unit), its code, and a text `u`:
+# for a row of no unit its id, for a leak or a marked row its number ({num}: its time, campaign
+# code and kind label code, ((time - {t0}) * {camps} + campaign) * {kinds} + kind label), for a
+# marked row of no unit both (the number zero-padded to NUM_DIGITS, then the id). Few rows are
+# leaks, marked or of no unit: the rest come back as 5 bytes and null bits.
 ROWS_SQL = """
 SELECT pos,
-       (CASE WHEN dur THEN 1 ELSE 2 END + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END
-        + CASE WHEN dur THEN 16 * {kind} ELSE 0 END + CASE WHEN dur AND hold THEN 64 ELSE 0 END)::TINYINT AS code,
-       CASE WHEN pos IS NULL THEN id END AS uid,
-       CASE WHEN (dur AND hold) OR tie THEN ((t - {t0}) * {camps} + {camp}) * {kinds} + {klabel} END AS x,
-       w
+       (CASE WHEN dur THEN 1 + 16 * {kind} + CASE WHEN hold THEN 64 ELSE 0 END
+             ELSE 2 + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END
+                    + CASE WHEN tie AND pos IS NULL THEN 32 ELSE 0 END END)::TINYINT AS code,
+       CASE WHEN pos IS NULL THEN CASE WHEN tie THEN lpad(({num})::VARCHAR, 19, '0') || id ELSE id END
+            WHEN (dur AND hold) OR tie THEN ({num})::VARCHAR END AS u
 FROM (
-  SELECT e.id, e.t, e.camp, e.kl, e.w, coalesce(e.tie, false) AS tie, v.pos, v.fs, v.hold,
+  SELECT e.id, e.t, e.camp, e.kl, coalesce(e.tie, false) AS tie, v.pos, v.fs, v.hold,
          e.t < {start} AS bs, coalesce(e.t >= {start} AND e.t >= v.fs, false) AS dur
   FROM ({rows}) e LEFT JOIN v ON e.id = v.id
 )
 """
+NUM_SQL = "((t - {t0}) * {camps} + {camp}) * {kinds} + {klabel}"
 
 
 class Dense:
@@ -92,22 +97,30 @@ class Dense:
         self.imps = self.copies - self.pre - self.clks - self.oth
         self.settled = True
 
-    def add(self, b: pa.RecordBatch) -> None:
-        """Add a batch of joined rows (`ROWS_SQL`), taking off those with w = -1 (the repeats)."""
-        w = b.column(4)
-        neg = pc.less(w, 0)
-        if pc.any(neg).as_py():
-            self._add(b.filter(neg), -1)
-            b = b.filter(pc.invert(neg))
-        self._add(b, 1)
-
-    def _add(self, b: pa.RecordBatch, sign: int) -> None:
+    def add(self, b: pa.RecordBatch, sign: int = 1) -> None:
+        """Add a batch of joined rows (`ROWS_SQL`); with sign -1, take them off (exact repeats)."""
         assert not self.settled
-        pos_col = b.column(0)
-        seen = np.asarray(pos_col.is_valid().to_numpy(zero_copy_only=False), dtype=bool)
+        pos_col, u = b.column(0), b.column(2)
         code = b.column(1).to_numpy(zero_copy_only=False)  # int8
-        p = pos_col.fill_null(0).to_numpy(zero_copy_only=False)
-        ps, cs = (p, code) if seen.all() else (p[seen], code[seen])
+        if not pos_col.null_count:
+            self._count(pos_col.to_numpy(zero_copy_only=False), code, sign)
+            rare = u.is_valid() if u.null_count < len(u) else None
+            if rare is not None:
+                self._rare(pos_col.filter(rare), code[rare.to_numpy(zero_copy_only=False)], u.filter(rare), sign)
+            return
+        seen = pos_col.is_valid()
+        seen_np = seen.to_numpy(zero_copy_only=False)
+        self._count(pos_col.filter(seen).to_numpy(zero_copy_only=False), code[seen_np], sign)
+        rare = pc.and_(seen, u.is_valid())
+        if pc.any(rare).as_py():
+            self._rare(pos_col.filter(rare), code[rare.to_numpy(zero_copy_only=False)], u.filter(rare), sign)
+        un = pc.invert(seen)
+        self._no_unit(code[~seen_np], u.filter(un), sign)
+
+    def _count(self, ps: np.ndarray, cs: np.ndarray, sign: int) -> None:
+        """Count rows of units (their rows `ps` and codes `cs`)."""
+        if not len(ps):
+            return
         dur, kind = (cs & DUR) != 0, (cs >> 4) & 3
         parts = (("clks", dur & (kind == 1)), ("oth", dur & (kind == 2)), ("bs", (cs & BEFORE_START) != 0),
                  ("bv", (cs & BEFORE_VISIT) != 0))
@@ -119,65 +132,90 @@ class Dense:
             np.subtract.at(self.copies, ps, 1)
             for name, m in parts:
                 np.subtract.at(getattr(self, name), ps[m], 1)
-        if not seen.all():
-            uid = b.column(2).filter(pa.array(~seen))
-            g = pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")])
-            if sign < 0:
-                g = pa.table({"uid": g.column("uid"), "uid_count": pc.negate(g.column("uid_count"))})
-            self.unseen.append(g)
-        xcol = b.column(3)
-        if sign > 0 and self.ties is not None and len(self.ties) and xcol.null_count < len(xcol):
-            self._keep_tied(b)
+
+    def _rare(self, pos: pa.Array, code: np.ndarray, u: pa.Array, sign: int) -> None:
+        """Rows of units that are leaks or share their time (`u` holds their numbers)."""
+        num = pc.cast(u, pa.int64()).to_numpy(zero_copy_only=False)
+        p = pos.to_numpy(zero_copy_only=False).astype(np.int64)
         leak = (code & LEAK) != 0
         if leak.any():
-            m = pa.array(leak)
-            lt, lcamp, _ = self._unpack(xcol.filter(m))
-            k = (code[leak] >> 4) & 3
-            t = pa.table({"pos": b.column(0).filter(m), "lcamp": pa.array(lcamp), "lweek": pa.array(_week(lt)),
-                          "lt": pa.array(lt), "i": pa.array(sign * (k == 0).astype(np.int64)),
-                          "c": pa.array(sign * (k == 1).astype(np.int64))})
-            self.leaks.append(t.group_by(["pos", "lcamp", "lweek"]).aggregate(
-                [("lt", "min"), ("i", "sum"), ("c", "sum")]).rename_columns(["pos", "lcamp", "lweek", "lt", "i", "c"]))
+            self._leak(p[leak], code[leak], num[leak], sign)
+        if sign > 0 and self.ties is not None:
+            self._keep_tied(p, code, num, pa.nulls(len(p), pa.string()))
 
-    def _unpack(self, x: pa.Array) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """A row's number (`ROWS_SQL`'s x) as its time, campaign code and kind label code."""
-        v = x.to_numpy(zero_copy_only=False).astype(np.int64)
-        rest, klabel = np.divmod(v, self.kinds)
+    def _no_unit(self, code: np.ndarray, u: pa.Array, sign: int) -> None:
+        """Rows of no unit: their ids counted (those that share their time carry their number first)."""
+        tied = (code & TIED_UNSEEN) != 0
+        uid = u
+        if tied.any():
+            m = pa.array(tied)
+            uid = pc.if_else(m, pc.utf8_slice_codeunits(u, NUM_DIGITS), u)
+            if sign > 0 and self.ties is not None:
+                tu = u.filter(m)
+                num = pc.cast(pc.utf8_slice_codeunits(tu, 0, NUM_DIGITS), pa.int64()).to_numpy(zero_copy_only=False)
+                self._keep_tied(np.full(len(num), -1, np.int64), code[tied], num, pc.utf8_slice_codeunits(tu, NUM_DIGITS))
+        g = pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")])
+        if sign < 0:
+            g = pa.table({"uid": g.column("uid"), "uid_count": pc.negate(g.column("uid_count"))})
+        self.unseen.append(g)
+
+    def _leak(self, pos: np.ndarray, code: np.ndarray, num: np.ndarray, sign: int) -> None:
+        lt, lcamp, _ = self._unpack(num)
+        k = (code >> 4) & 3
+        t = pa.table({"pos": pa.array(pos.astype(np.int32)), "lcamp": pa.array(lcamp), "lweek": pa.array(_week(lt)),
+                      "lt": pa.array(lt), "i": pa.array(sign * (k == 0).astype(np.int64)),
+                      "c": pa.array(sign * (k == 1).astype(np.int64))})
+        self.leaks.append(t.group_by(["pos", "lcamp", "lweek"]).aggregate(
+            [("lt", "min"), ("i", "sum"), ("c", "sum")]).rename_columns(["pos", "lcamp", "lweek", "lt", "i", "c"]))
+
+    def _unpack(self, num: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """A row's number (`ROWS_SQL`) as its time, campaign code and kind label code."""
+        rest, klabel = np.divmod(num.astype(np.int64), self.kinds)
         rest, lcamp = np.divmod(rest, self.camps)
         return rest + self.t0, lcamp, klabel
 
-    def _keep_tied(self, b: pa.RecordBatch) -> None:
-        """Keep the batch's rows marked as sharing a time (a leak's number alone does not mark it)."""
-        xcol = b.column(3)
-        has = xcol.is_valid()
-        t, _, _ = self._unpack(xcol.filter(has))
+    def _keep_tied(self, pos: np.ndarray, code: np.ndarray, num: np.ndarray, uid: pa.Array) -> None:
+        """Keep the rows that share a time (a leak's number alone does not mark it): their unit's row
+        (-1: none), code, number and id (rows of no unit)."""
         ties = self.ties
         assert ties is not None
+        if not len(ties) or not len(num):
+            return
+        t, _, _ = self._unpack(num)
         at = np.minimum(np.searchsorted(ties, t), len(ties) - 1)
-        tied = ties[at] == t
-        if tied.any():
-            rows = np.flatnonzero(has.to_numpy(zero_copy_only=False))[tied]
-            self.tied.append(b.take(pa.array(rows)))
+        keep = ties[at] == t
+        if keep.any():
+            self.tied.append(pa.table({"pos": pa.array(pos[keep]), "code": pa.array(code[keep]),
+                                       "num": pa.array(num[keep]), "uid": uid.filter(pa.array(keep))}))
 
     def take_off_repeats(self) -> np.ndarray:
-        """Take off the marked rows that repeat an earlier one exactly (same id, time, campaign and
+        """Take off the kept rows that repeat an earlier one exactly (same id, time, campaign and
         kind label; identical rows of the log are joined and coded identically); their times."""
         if not self.tied:
             return np.zeros(0, np.int64)
-        b = pa.Table.from_batches(self.tied).combine_chunks()
+        b = pa.concat_tables(self.tied).combine_chunks()
         self.tied = []
-        t, lcamp, klabel = self._unpack(b.column("x"))
-        pos = b.column("pos")
-        unit = pos.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int64)
-        if pos.null_count:  # rows of no unit: their ids as codes after the units' rows
+        num = b.column("num").to_numpy()
+        t, lcamp, klabel = self._unpack(num)
+        unit = b.column("pos").to_numpy().copy()
+        none = unit < 0
+        if none.any():  # rows of no unit: their ids as codes after the units' rows
             enc = pc.dictionary_encode(b.column("uid")).combine_chunks()
             code = pc.fill_null(enc.indices, 0).to_numpy(zero_copy_only=False).astype(np.int64)
-            unit = np.where(unit < 0, self.n + code, unit)
+            unit[none] = self.n + code[none]
         dup = duplicate_rows(t, unit, lcamp, klabel)
         if not dup.any():
             return np.zeros(0, np.int64)
-        for batch in b.filter(pa.array(dup)).to_batches():
-            self._add(batch, -1)
+        pos, code = unit[dup], b.column("code").to_numpy()[dup]
+        seen = pos < self.n
+        self._count(pos[seen], code[seen], -1)
+        leak = seen & ((code & LEAK) != 0)
+        if leak.any():
+            self._leak(pos[leak], code[leak], num[dup][leak], -1)
+        if (~seen).any():
+            g = pa.table({"uid": b.column("uid").filter(pa.array(dup & none))}).group_by("uid").aggregate(
+                [("uid", "count")])
+            self.unseen.append(pa.table({"uid": g.column("uid"), "uid_count": pc.negate(g.column("uid_count"))}))
         return t[dup]
 
     def sums(self) -> CellSums:

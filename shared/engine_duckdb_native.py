@@ -48,7 +48,7 @@ import pyarrow.parquet as pq
 
 from armlock.assign.spec_audit import ExposureColumns
 
-from .engine_duckdb_dense import ROWS_SQL, CellSums, Dense
+from .engine_duckdb_dense import NUM_SQL, ROWS_SQL, CellSums, Dense
 from .engine_duckdb_read import US_DAY, ExposureReader, ExposureScan
 from .keys import duplicate_rows
 from .read import MISSING_LEVEL, T_MAX_US, T_MIN_US
@@ -407,8 +407,8 @@ class Native:
         """The log's counts per unit and leaked cell (the units' table `v` registered); the scan's counts.
 
         DuckDB joins the kept rows to the units (`ROWS_SQL`) and streams them back; `Dense` sums
-        them per unit. The exact repeats found by `time_pass` go through the same query, with a
-        weight of -1, and are taken off."""
+        them per unit. The rows sharing a time are marked and compared by `Dense`; or the exact
+        repeats found by `time_pass` go through the same joined query after them and are taken off."""
         fields = {"start": start_us, "kind": self._kind_class("kl"), "t0": self.lo or 0,
                   "camps": max(len(self.camps), 1), "kinds": max(len(self.kinds), 1),
                   "camp": self._code("camp", self.camps, list(range(len(self.camps)))),
@@ -417,19 +417,22 @@ class Native:
         dense = Dense(units, len(self.camps), self.lo or 0, len(self.kinds), ties)
         kept = self._kept()
         tie = "t IN (SELECT t FROM ties)" if ties is not None and len(ties) else "false"
-        rows = [f"SELECT id, t, camp, kl, 1 AS w, {tie} AS tie FROM xs WHERE {kept}"]
-        if self.tp.repeats.num_rows:
-            rows.append(f"SELECT id, t, camp, kl, -1 AS w, false AS tie FROM reps WHERE {kept}")
+
+        def rows(source: str, marked: str) -> str:
+            return ROWS_SQL.format(rows=f"SELECT id, t, camp, kl, {marked} AS tie FROM {source} WHERE {kept}",
+                                   num=NUM_SQL.format(**fields), **fields)
+
+        # batches of about as many rows as units (each sum walks the units' arrays once), within 1-4 M
+        # rows (~10 bytes a row, held while it is summed)
+        for batch in con.sql(rows("xs", tie)).to_arrow_reader(max(BATCH_ROWS, min(units, 1 << 22))):
+            dense.add(batch)
+        if self.tp.repeats.num_rows:  # the repeats found by the time pass, taken off
+            for batch in con.sql(rows("reps", "false")).to_arrow_reader(BATCH_ROWS):
+                dense.add(batch, -1)
             day = floor_div("t", US_DAY)
             for d, c in con.execute(f"SELECT {day}, count(*) FROM reps WHERE {kept} GROUP BY 1").fetchall():
                 self.days[int(d)] = self.days.get(int(d), 0) - int(c)
                 self.scan.duplicates += int(c)
-        # one query, so DuckDB builds its hash table on the units once; batches of about as many rows
-        # as units (each sum walks the units' arrays once), within 1-4 M rows (~14 bytes a row, held
-        # while it is summed)
-        sql = ROWS_SQL.format(rows=" UNION ALL ".join(rows), **fields)
-        for batch in con.sql(sql).to_arrow_reader(max(BATCH_ROWS, min(units, 1 << 22))):
-            dense.add(batch)
         if ties is not None:  # the marked rows that repeat another exactly, taken off
             taken = dense.take_off_repeats()
             if len(taken):
