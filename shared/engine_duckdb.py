@@ -153,6 +153,9 @@ class DuckDBEngine:
                 native = _in_worker(stack, prepared, spec.audit.exposures, exposures, con)
             fr = Frames(visits=None)
             used = load_visits(spec, visits, as_of, fr)  # type: ignore[arg-type]
+            # the units' table for the join, before the hashing thread starts (it holds Python's lock)
+            rec = _recorded_arms(spec, fr)
+            units = _visits_table(spec, fr, rec) if rec is not None and exposures is not None else None
             early = engine_pandas.start_visit_arms(spec, fr.visits, contract_arms)
             if after_visits is not None:
                 after_visits(fr, used)
@@ -160,7 +163,7 @@ class DuckDBEngine:
             ef = Frames(visits=fr.visits.copy(deep=False))  # the exposures' own notes and counts
             counting = None
             if exposures is not None:
-                counting = _in_worker(stack, self.leakage, spec, con, exposures, used, ef, early, native)
+                counting = _in_worker(stack, self.leakage, spec, con, exposures, used, ef, early, native, units)
             fi = Frames(visits=fr.visits)  # the links' own notes and counts
             if identities is not None:
                 load_identities(spec, identities, used, fi)
@@ -181,15 +184,16 @@ class DuckDBEngine:
     # -- exposures -------------------------------------------------------------------------------
 
     def leakage(self, spec: Spec, con: Any, path: Path, as_of: date, fr: Frames, early: Future[VisitArms],
-                native: Future[Native | None] | None = None) -> LeakageTables:
+                native: Future[Native | None] | None = None, units: pa.Table | None = None) -> LeakageTables:
         """The leakage tables of the exposure log, counted in DuckDB: natively when `native` (the
-        prepared native path, `engine_duckdb_native`) holds one, else from the sliced reader."""
+        prepared native path, `engine_duckdb_native`) holds one, else from the sliced reader.
+        `units`: the units' table to join (`_visits_table`), when the recorded arms made it early."""
         import duckdb
 
         reader = ExposureReader(spec, path, as_of, fr.notes)
         start_us = int(pd.Timestamp(spec.start).value // 1000)
         nat = native.result() if native is not None else None
-        con.register("v", _visits_table(spec, fr, _arms_for_join(spec, fr, early)))
+        con.register("v", units if units is not None else _visits_table(spec, fr, effective_arms(early.result())))
         scan, sums = None, None
         if nat is not None:
             try:
@@ -363,14 +367,13 @@ def effective_arms(va: VisitArms) -> np.ndarray:
     return np.where(va.rec >= 0, va.rec, va.hashed).astype(np.int64)
 
 
-def _arms_for_join(spec: Spec, fr: Frames, early: Future[VisitArms]) -> np.ndarray:
-    """Each unit's effective arm (`effective_arms`): the recorded one when every unit has a known
-    recorded arm (then the exposures are counted while the ids are still being hashed), else after
-    the hashing."""
+def _recorded_arms(spec: Spec, fr: Frames) -> np.ndarray | None:
+    """Each unit's effective arm (`effective_arms`) when every unit has a known recorded arm (then
+    the exposures are counted while the ids are still being hashed); else None (after the hashing)."""
     rec = _recorded_codes(spec, fr.visits[ARM])[0]
     if len(rec) and bool((rec >= 0).all()):
         return rec.astype(np.int64)
-    return effective_arms(early.result())
+    return None
 
 
 def _visits_table(spec: Spec, fr: Frames, eff: np.ndarray) -> pa.Table:
