@@ -66,9 +66,12 @@ def test_every_fault_both_paths(tmp_path: Path, seed: int) -> None:
     _three(spec, paths, as_of=date(2026, 1, 20))
 
 
-def test_duplicates_as_of_and_set_aside_rows(tmp_path: Path) -> None:
+@pytest.mark.parametrize("tie_rows", [2_000_000, 10])
+def test_duplicates_as_of_and_set_aside_rows(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, tie_rows: int) -> None:
     """Whole-second times (many rows share one), exact repeats next to and far from the original,
-    empty ids, missing times, unmapped and empty kinds, missing campaigns, an as-of cut."""
+    empty ids, missing times, unmapped and empty kinds, missing campaigns, an as-of cut; the rows
+    that share a time marked in the joined query, or (past `TIE_ROWS`) the repeats found beforehand."""
+    monkeypatch.setattr(engine_duckdb_native, "TIE_ROWS", tie_rows)
     spec = _spec("ninety_ten", salt="native-aside")
     logs = generate(spec, units=700, days=21, seed=51, faults=("leakage", "pre_exposure"), events_per_unit=4.0)
     e = logs.exposures
