@@ -16,6 +16,8 @@ from typing import TYPE_CHECKING
 from armlock.assign import InputError, Spec
 from armlock.shared.engine import Inputs, ReadoutResult, local_path
 
+from armlock.shared.engine_duckdb import unit_rows
+
 from . import engine_pandas
 from armlock.shared.load_readout import attach_covariates
 
@@ -40,7 +42,7 @@ def readout(engine: DuckDBEngine, spec: Spec, inputs: Inputs, as_of: date | None
         matching: list[Future[engine_pandas.MatchedOrders]] = []
 
         def orders(fr: Frames, used: date) -> None:
-            matching.append(pool.submit(engine_pandas.match_orders, spec, inputs, fr, used))
+            matching.append(pool.submit(engine_pandas.match_orders, spec, inputs, fr, used, unit_rows))
 
         fr, used, audit_tables = engine.load_and_count(spec, inputs, as_of, advance, before_count=covariates,
                                                        after_visits=orders)

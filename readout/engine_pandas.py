@@ -19,6 +19,7 @@ from fractions import Fraction
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from armlock.assign import InputError, Spec
 from armlock.shared import engine_pandas as audit_engine
@@ -55,15 +56,16 @@ class MatchedOrders:
     pos: np.ndarray | None
 
 
-def match_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date) -> MatchedOrders:
-    """Load the orders and find each one's unit: needs only the visits, so it can run beside the
-    exposures' count."""
+def match_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date,
+                 locate: Callable[[pd.Series, pa.Array], np.ndarray] = positions) -> MatchedOrders:
+    """Load the orders and find each one's unit (`locate`: row of each id in the units, -1 when
+    not there): needs only the visits, so it can run beside the exposures' count."""
     notes: list[str] = []
     counts: dict[str, float] = {}
     orders = load_orders(spec, local_path(inputs.orders, "--orders"), used, notes, counts)  # type: ignore[arg-type]
     pos = None
     if not spec.readout.orders.customer:
-        pos = positions(orders[KEY], arrow_ids(fr.visits[UNIT]).combine_chunks())
+        pos = locate(orders[KEY], arrow_ids(fr.visits[UNIT]).combine_chunks())
     return MatchedOrders(orders, notes, counts, pos)
 
 

@@ -81,6 +81,27 @@ def connect(memory_limit: str | None, temp_directory: str | None) -> Iterator[An
             shutil.rmtree(made, ignore_errors=True)
 
 
+def unit_rows(ids: pd.Series | pa.ChunkedArray | pa.Array, units: pa.Array) -> np.ndarray:
+    """Row of each id in `units` (the visits' units, each once), -1 when it is not there: what
+    `keys.positions` gives, by DuckDB's parallel hash join (1.4 M order ids against 2 M units: 0.3
+    CPU-seconds, against 0.8 for Arrow's lookup)."""
+    import duckdb
+
+    arr = ids if isinstance(ids, (pa.ChunkedArray, pa.Array)) else arrow_ids(ids)
+    out = np.full(len(arr), -1, np.int64)
+    if not len(arr) or not len(units):
+        return out
+    con = duckdb.connect(":memory:")
+    try:
+        con.register("u", pa.table({"id": units, "pos": pa.array(np.arange(len(units), dtype=np.int64))}))
+        con.register("q", pa.table({"id": arr, "r": pa.array(np.arange(len(arr), dtype=np.int64))}))
+        found = con.sql("SELECT q.r, u.pos FROM q JOIN u ON q.id = u.id").fetchnumpy()
+    finally:
+        con.close()
+    out[np.asarray(found["r"], dtype=np.int64)] = np.asarray(found["pos"], dtype=np.int64)
+    return out
+
+
 def contract_arms(spec: Spec, ids: pd.Series) -> np.ndarray:
     """The contract's arm index of every id (as `engine_pandas.hash_arms`), hashed from the Arrow buffers.
 

@@ -154,3 +154,20 @@ def test_repeated_rows_equal_pandas_duplicated(rows: list[tuple[str, str]], slic
     assert keys.repeated_rows(frame["u"]).tolist() == frame["u"].duplicated().tolist()
     assert keys.repeated_rows(frame["c"]).tolist() == frame["c"].duplicated().tolist()
     assert keys.repeated_rows(frame["u"], frame["c"]).tolist() == frame.duplicated().tolist()
+
+
+@settings(max_examples=100, deadline=None)
+@given(st.lists(st.sampled_from(["a", "b", "ü", "", "a ", "B", "𝔘", "c", "zz"]), max_size=30),
+       st.lists(st.sampled_from(["a", "b", "ü", "", "a ", "B", "𝔘", "c", "d", "e"]), unique=True, max_size=10),
+       st.booleans())
+def test_duckdb_unit_rows_equal_arrow_index_in(ids: list[str], units: list[str], with_null: bool) -> None:
+    # Reference: pyarrow.compute.index_in (Apache Arrow). The DuckDB engine's readout finds each
+    # order's unit with DuckDB's hash join (`engine_duckdb.unit_rows`); the units are distinct (the
+    # visits' loader keeps one row per unit), and an id that is null, or in no unit, gets -1.
+    from armlock.shared.engine_duckdb import unit_rows
+
+    arr = pa.array(ids + ([None] if with_null else []), pa.large_string())
+    vset = pa.array(units, pa.large_string())
+    ref = pc.fill_null(pc.index_in(arr, value_set=vset), -1).to_numpy()
+    assert unit_rows(arr, vset).tolist() == ref.tolist()
+    assert unit_rows(pd.Series(ids, dtype="str"), vset).tolist() == ref[:len(ids)].tolist()
