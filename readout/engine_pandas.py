@@ -76,7 +76,7 @@ def with_orders(spec: Spec, inputs: Inputs, fr: Frames, used: date, audit_tables
     audit = EngineResult(tables=audit_tables, as_of=used, notes=list(fr.notes), counts=dict(fr.counts),
                          data_through=fr.data_through)
     m = matched if matched is not None else match_orders(spec, inputs, fr, used)
-    advance(file_bytes(local_path(inputs.orders, "--orders")))  # type: ignore[arg-type]
+    advance(file_bytes(local_path(inputs.orders, "--orders")))
     tables = compute(spec, fr, audit_tables, m.orders, used, m.counts, m.notes, m.pos)
     return ReadoutResult(audit=audit, tables=tables, notes=m.notes)
 

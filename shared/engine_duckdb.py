@@ -233,6 +233,7 @@ class DuckDBEngine:
                 scan = self._cells(con, reader, start_us, sorted_mode=False)
             camps = list(reader.levels)
             sums = sums_of_cells(con)
+        assert sums is not None  # the native path's count, or the sliced reader's table
         return _leakage_tables(spec, sums, reader, scan, fr, early.result(), camps)
 
     def _cells(self, con: Any, reader: ExposureReader, start_us: int, sorted_mode: bool) -> ExposureScan:
