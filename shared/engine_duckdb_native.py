@@ -36,6 +36,7 @@ would read as a pattern, and any file DuckDB cannot read (the sliced reader name
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -126,21 +127,47 @@ def time_pass(ce: ExposureColumns, path: Path, ttype: pa.DataType) -> TimePass |
     return _repeats_pass(pf, ce, ttype)
 
 
-def _times(group: pa.Table, col: str, mul: int, last: int | None) -> np.ndarray | None:
-    """A row group's times in whole microseconds (rows with none left out), or None when they go
-    back in time or lie beyond the range once scaled."""
-    tcol = group.column(col)
-    if tcol.null_count:  # rows with no time: set aside (counted by `Native.prepare`)
-        tcol = tcol.filter(tcol.is_valid())
-    if not len(tcol):
-        return np.zeros(0, np.int64)
-    a = np.concatenate([c.cast(pa.int64()).to_numpy() for c in tcol.chunks])  # the same buffers
-    if mul > 1 and (a[0] < -(T_MAX_US // mul) or a[-1] > T_MAX_US // mul):
-        return None  # beyond the range once scaled (and unsorted logs fail below anyway)
-    us = a * mul if mul > 1 else (a if mul == 1 else a // 1000)  # numpy's // rounds down
-    if (last is not None and us[0] < last) or bool((us[1:] < us[:-1]).any()):
-        return None
-    return us
+class _Groups:
+    """The log's row groups in order (the columns `cols`, rows with no time left out: `Native.prepare`
+    counts them), each with its times in whole microseconds, checked and counted per day. `last`
+    is the time the groups so far ended on while the next one is handed out; `bad` is set, and the
+    walk stops, when the times go back or lie beyond the range once scaled."""
+
+    def __init__(self, pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType, cols: list[str]) -> None:
+        self.pf, self.col, self.cols = pf, ce.time, cols
+        self.mul = _UNIT_US.get(ttype.unit, 0)  # 0: nanoseconds
+        self.lo: int | None = None
+        self.last: int | None = None
+        self.days: dict[int, int] = {}
+        self.bad = False
+
+    def __iter__(self) -> Iterator[tuple[pa.Table, np.ndarray]]:
+        mul = self.mul
+        for i in range(self.pf.metadata.num_row_groups):
+            group = self.pf.read_row_group(i, columns=self.cols)
+            tcol = group.column(self.col)
+            if tcol.null_count:
+                group = group.filter(tcol.is_valid())
+                tcol = group.column(self.col)
+            if not len(tcol):
+                continue
+            a = np.concatenate([c.cast(pa.int64()).to_numpy() for c in tcol.chunks])  # the same buffers
+            if mul > 1 and (a[0] < -(T_MAX_US // mul) or a[-1] > T_MAX_US // mul):
+                self.bad = True  # beyond the range once scaled (and unsorted logs fail below anyway)
+                return
+            us = a * mul if mul > 1 else (a if mul == 1 else a // 1000)  # numpy's // rounds down
+            if (self.last is not None and us[0] < self.last) or bool((us[1:] < us[:-1]).any()):
+                self.bad = True
+                return
+            if self.lo is None:
+                self.lo = int(us[0])
+            _count_days(us, self.days)
+            yield group, us
+            self.last = int(us[-1])
+
+    def in_range(self) -> bool:
+        """The walk ended with every time checked and within 1678-2261."""
+        return not self.bad and (self.lo is None or self.last is None or T_MIN_US <= self.lo <= self.last < T_MAX_US)
 
 
 def _count_days(us: np.ndarray, days: dict[int, int]) -> None:
@@ -158,23 +185,12 @@ class _Many:
 
 def _ties_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> TimePass | _Many | None:
     """The time column alone: days, checks, and the times more than one row shares."""
-    mul = _UNIT_US.get(ttype.unit, 0)  # 0: nanoseconds
-    lo: int | None = None
-    last: int | None = None
-    days: dict[int, int] = {}
+    walk = _Groups(pf, ce, ttype, [ce.time])
     ties: list[np.ndarray] = []
     tie_rows = 0
-    for i in range(pf.metadata.num_row_groups):
-        us = _times(pf.read_row_group(i, columns=[ce.time]), ce.time, mul, last)
-        if us is None:
-            return None
-        if not len(us):
-            continue
-        if lo is None:
-            lo = int(us[0])
-        _count_days(us, days)
+    for _, us in walk:
         same = us[1:] == us[:-1]
-        if last is not None and int(us[0]) == last:  # the last group's last time goes on
+        if walk.last is not None and int(us[0]) == walk.last:  # the last group's last time goes on
             ties.append(us[:1])
             tie_rows += 2
         if same.any():
@@ -183,11 +199,11 @@ def _ties_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> T
             tie_rows += 2 * len(shared)  # at most: each row after the first of its time, and that first
         if tie_rows > TIE_ROWS:
             return _Many()
-        last = int(us[-1])
-    if lo is not None and last is not None and (lo < T_MIN_US or last >= T_MAX_US):
+    if not walk.in_range():
         return None
     shared_times = np.unique(np.concatenate(ties)) if ties else np.zeros(0, np.int64)
-    return TimePass(repeats=_REPEATS_SCHEMA.empty_table(), days=days, ties=shared_times, lo=lo, hi=last)
+    return TimePass(repeats=_REPEATS_SCHEMA.empty_table(), days=walk.days, ties=shared_times, lo=walk.lo,
+                    hi=walk.last)
 
 
 def _repeats_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> TimePass | None:
@@ -199,28 +215,12 @@ def _repeats_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -
     time with a neighbour are compared on integer codes of their id, campaign and kind
     (`keys.duplicate_rows`), and the run of the group's last time waits for the next group, where
     it may go on."""
-    rows = pf.metadata.num_rows
-    cols = [ce.unit_id, ce.time, ce.campaign, ce.kind]
-    mul = _UNIT_US.get(ttype.unit, 0)  # 0: nanoseconds
-    lo: int | None = None
-    last: int | None = None
-    days: dict[int, int] = {}
+    walk = _Groups(pf, ce, ttype, [ce.unit_id, ce.time, ce.campaign, ce.kind])
     found_parts: list[pa.Table] = []
     carry: pa.Table | None = None  # the rows of the last time so far, not yet compared
-    limit = max(REPEAT_ROWS, rows // REPEAT_SHARE)
-    for i in range(pf.metadata.num_row_groups):
-        group = pf.read_row_group(i, columns=cols)
-        tcol = group.column(ce.time)
-        if tcol.null_count:  # rows with no time: set aside (counted by `Native.prepare`)
-            group = group.filter(tcol.is_valid())
-        us = _times(group, ce.time, mul, last)
-        if us is None:
-            return None
-        if not len(us):
-            continue
-        if lo is None:
-            lo = int(us[0])
-        _count_days(us, days)
+    limit = max(REPEAT_ROWS, pf.metadata.num_rows // REPEAT_SHARE)
+    for group, us in walk:
+        last = walk.last
         # the rows that share a time with a neighbour, and the run of the last time (it may go on)
         same = us[1:] == us[:-1]
         tail = int(np.searchsorted(us, us[-1], side="left"))
@@ -246,10 +246,9 @@ def _repeats_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -
             _keep(found_parts, _repeats(cand.slice(0, cut)))
         if sum(p.num_rows for p in found_parts) > limit:
             return None
-        last = int(us[-1])
     if carry is not None:
         _keep(found_parts, _repeats(carry))
-    if lo is not None and last is not None and (lo < T_MIN_US or last >= T_MAX_US):
+    if not walk.in_range():
         return None
     reps = pa.concat_tables(found_parts) if found_parts else _REPEATS_SCHEMA.empty_table()
     if reps.num_rows > limit:
@@ -258,7 +257,7 @@ def _repeats_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -
     # count that follows would stack its own peak on them (measured: +60-100 MB at 200,000 units
     # and 4 M rows, 1.15-1.23x the 2 M-row peak instead of 1.04-1.14x)
     pa.default_memory_pool().release_unused()
-    return TimePass(repeats=reps, days=days, lo=lo, hi=last)
+    return TimePass(repeats=reps, days=walk.days, lo=walk.lo, hi=walk.last)
 
 
 _REPEATS_SCHEMA = pa.schema([("id", pa.string()), ("t", pa.int64()), ("camp", pa.string()), ("kl", pa.string())])
