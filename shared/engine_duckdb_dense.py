@@ -186,7 +186,7 @@ class Dense:
         keep = ties[at] == t
         if keep.any():
             self.tied.append(pa.table({"pos": pa.array(pos[keep]), "code": pa.array(code[keep]),
-                                       "num": pa.array(num[keep]), "uid": uid.filter(pa.array(keep))}))
+                                       "num": pa.array(num[keep]), "uid": uid.filter(pa.array(keep)).cast(pa.string())}))
 
     def take_off_repeats(self) -> np.ndarray:
         """Take off the kept rows that repeat an earlier one exactly (same id, time, campaign and
