@@ -202,6 +202,7 @@ def _ties_pass(pf: pq.ParquetFile, ce: ExposureColumns, ttype: pa.DataType) -> T
     if not walk.in_range():
         return None
     shared_times = np.unique(np.concatenate(ties)) if ties else np.zeros(0, np.int64)
+    pa.default_memory_pool().release_unused()  # as `_repeats_pass` does, the row groups' freed buffers
     return TimePass(repeats=_REPEATS_SCHEMA.empty_table(), days=walk.days, ties=shared_times, lo=walk.lo,
                     hi=walk.last)
 
