@@ -5,8 +5,9 @@ is a unit's row number and a one-byte code per row (plus an id for rows of no un
 time and campaign packed in one number). A hash aggregate over the rows would hash every row a
 second time (grouping the joined rows in DuckDB cost 5-10 % more CPU at 20 M rows); a unit's row
 number is already a dense key, so numpy's `bincount` sums them into arrays as long as the units.
-Exact repeats of a row, found beforehand (`engine_duckdb_native.time_pass`), go through the same
-query and are taken off (`Dense.take_off`). Memory: those arrays, the leaked (unit, campaign,
+Rows that share their time with another come back marked and are compared at the end
+(`Dense.take_off_repeats`); or the exact repeats found beforehand (`engine_duckdb_native.time_pass`)
+go through the same query after the log and are taken off (`Dense.add` with sign -1). Memory: those arrays, the leaked (unit, campaign,
 week) cells, the unseen ids and the repeats, never the rows. `Dense.sums` returns what the
 leakage tables need (`CellSums`), as `engine_duckdb` reads it from the sliced reader's table `cells`.
 """
@@ -41,15 +42,15 @@ ROWS_SQL = """
 SELECT pos,
        (CASE WHEN dur THEN 1 + 16 * {kind} + CASE WHEN hold THEN 64 ELSE 0 END
              ELSE 2 + CASE WHEN bs THEN 4 WHEN t < fs THEN 8 ELSE 0 END
-                    + CASE WHEN tie AND pos IS NULL THEN 32 ELSE 0 END END)::TINYINT AS code,
-       CASE WHEN pos IS NULL THEN CASE WHEN tie THEN lpad(({num})::VARCHAR, 19, '0') || id ELSE id END
+                    + CASE WHEN tie AND pos IS NULL THEN TIED_UNSEEN ELSE 0 END END)::TINYINT AS code,
+       CASE WHEN pos IS NULL THEN CASE WHEN tie THEN lpad(({num})::VARCHAR, NUM_DIGITS, '0') || id ELSE id END
             WHEN (dur AND hold) OR tie THEN ({num})::VARCHAR END AS u
 FROM (
   SELECT e.id, e.t, e.camp, e.kl, coalesce(e.tie, false) AS tie, v.pos, v.fs, v.hold,
          e.t < {start} AS bs, coalesce(e.t >= {start} AND e.t >= v.fs, false) AS dur
   FROM ({rows}) e LEFT JOIN v ON e.id = v.id
 )
-"""
+""".replace("NUM_DIGITS", str(NUM_DIGITS)).replace("TIED_UNSEEN", str(TIED_UNSEEN))
 NUM_SQL = "((t - {t0}) * {camps} + {camp}) * {kinds} + {klabel}"
 
 
@@ -61,7 +62,7 @@ class Dense:
     def __init__(self, units: int, camps: int, t0: int, kinds: int = 1, ties: np.ndarray | None = None) -> None:
         self.n, self.camps, self.kinds, self.t0 = units, max(camps, 1), max(kinds, 1), t0
         self.ties = ties
-        self.tied: list[pa.RecordBatch] = []  # the rows marked as sharing a time (`take_off_repeats`)
+        self.tied: list[pa.Table] = []  # the rows marked as sharing a time (`take_off_repeats`)
         z = np.zeros(units, np.int64)
         self.copies, self.pre, self.imps, self.clks = z.copy(), z.copy(), z.copy(), z.copy()
         self.bs, self.bv = z.copy(), z.copy()  # rows before the start, rows before the unit's first visit
@@ -154,6 +155,10 @@ class Dense:
                 tu = u.filter(m)
                 num = pc.cast(pc.utf8_slice_codeunits(tu, 0, NUM_DIGITS), pa.int64()).to_numpy(zero_copy_only=False)
                 self._keep_tied(np.full(len(num), -1, np.int64), code[tied], num, pc.utf8_slice_codeunits(tu, NUM_DIGITS))
+        self._ids(uid, sign)
+
+    def _ids(self, uid: pa.Array, sign: int) -> None:
+        """Count the rows of each id of no unit (taken off with sign -1)."""
         g = pa.table({"uid": uid}).group_by("uid").aggregate([("uid", "count")])
         if sign < 0:
             g = pa.table({"uid": g.column("uid"), "uid_count": pc.negate(g.column("uid_count"))})
@@ -213,9 +218,7 @@ class Dense:
         if leak.any():
             self._leak(pos[leak], code[leak], num[dup][leak], -1)
         if (~seen).any():
-            g = pa.table({"uid": b.column("uid").filter(pa.array(dup & none))}).group_by("uid").aggregate(
-                [("uid", "count")])
-            self.unseen.append(pa.table({"uid": g.column("uid"), "uid_count": pc.negate(g.column("uid_count"))}))
+            self._ids(b.column("uid").filter(pa.array(dup & none)), -1)
         return t[dup]
 
     def sums(self) -> CellSums:

@@ -18,10 +18,11 @@ The rules are the sliced reader's (`engine_duckdb_read`, itself `shared.load`'s)
   nor a click are counted, and when there are any their labels are listed in the sliced reader's
   order by its own code over the kind column alone;
 - exact duplicates (same id, time, campaign and kind) count once. Only rows that share a time
-  can repeat each other, and in a log sorted by time they sit together: a pass over the log a
-  row group at a time (Arrow, `time_pass`, on a thread beside DuckDB's checks) compares those
-  rows and keeps each exact repeat; the repeats go through the same joined query with a weight
-  of -1 and are taken off.
+  can repeat each other, and in a log sorted by time they sit together. A pass over the log's
+  times a row group at a time (Arrow, `time_pass`, on a thread beside DuckDB's checks) finds the
+  times rows share; the joined query marks those rows and `Dense` compares them, taking every
+  exact repeat off. Past `TIE_ROWS` such rows the pass reads id, campaign and kind too and keeps
+  each exact repeat itself; they go through the joined query after the log and are taken off.
 
 That pass also checks what SQL would not say the same way. The sliced reader takes over, and
 gives the same report, for: CSV and CSV.gz files (text times follow pandas' parsing rules, which SQL
