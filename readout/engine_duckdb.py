@@ -1,9 +1,9 @@
 """The readout on the DuckDB engine: the audit's tables from `audit.engine_duckdb`, then the readout's per-unit sums.
 
 The exposure log is counted in DuckDB (each unit's exposed-during-the-test flag comes back as one
-array over the units) while the orders are read and matched to the units on a thread; the orders, the per-unit revenue and the exact moments follow the rules
-the pandas readout implements (`readout.engine_pandas.compute`, `readout.rules`), so both engines
-give the same tables bit for bit.
+array over the units) while the orders are read and matched to the units on a thread; the orders,
+the per-unit revenue and the exact moments follow the rules the pandas readout implements
+(`readout.engine_pandas.compute`, `readout.rules`), so both engines give the same tables bit for bit.
 """
 
 from __future__ import annotations

@@ -181,13 +181,15 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
         xs.append(x)
 
     # orders -> units
-    vset = arrow_ids(v[UNIT]).combine_chunks()
+    def vset() -> pa.Array:  # the units' ids, for the lookups still to do here
+        return arrow_ids(v[UNIT]).combine_chunks()
+
     if spec.readout.orders.customer:
         if fr.identities is None:
             raise InputError("orders are keyed by customer ([readout.orders] customer = "
                              f"\"{spec.readout.orders.customer}\") but no identity links were given: "
                              "pass --identities to join customers to visitors")
-        cust, first = _customer_positions(spec, fr, arm, vset, counts)
+        cust, first = _customer_positions(spec, fr, arm, vset(), counts)
         ci = cust.get_indexer(orders[KEY].to_numpy())
         # no usable link at all: no order finds a unit (the orders check then fails on the match rate)
         pos = np.where(ci >= 0, first[np.maximum(ci, 0)], -1) if len(first) else np.full(len(ci), -1, np.int64)
@@ -195,7 +197,7 @@ def compute(spec: Spec, fr: Frames, audit: AuditTables, orders: pd.DataFrame, as
             notes.append(f"{int(counts['customers_multi_arm']):,} customer(s) have visitor ids in more than one arm; "
                          "each counts in the arm of their first visitor id (intent to treat)")
     else:
-        pos = order_pos if order_pos is not None else positions(orders[KEY], vset)
+        pos = order_pos if order_pos is not None else positions(orders[KEY], vset())
     t = orders[TIME].to_numpy(dtype="datetime64[ns]").view(np.int64)
     rev = orders[REV].to_numpy(dtype=np.float64)
     dn, dc = np.unique(t // NS_DAY, return_counts=True)

@@ -177,8 +177,9 @@ class DuckDBEngine:
         native path's first pass over the exposure log while the visits are read, then the exposures'
         count while the identity links are read and the visits' tables counted. Each keeps its
         notes and counts apart, so they come out in the order of a one-thread run (notes: visits,
-        exposures, links; counts: visits, links, exposures), and errors too (links before exposures). `after_visits` is told of the visits (and the as-of
-        day) as soon as they are read, `before_count` once the links are too."""
+        exposures, links; counts: visits, links, exposures), and errors too (links before exposures).
+        `after_visits` is told of the visits (and the as-of day) as soon as they are read,
+        `before_count` once the links are too."""
         visits = local_path(inputs.visits, "--visits")
         exposures = local_path(inputs.exposures, "--exposures")
         identities = local_path(inputs.identities, "--identities")
